@@ -1,0 +1,62 @@
+"""remnant's engine: residual chains over tabular data, their validation, scoring and saving.
+
+The Python facade::
+
+    import stages
+    chain = stages.Chain.from_file("deliveries.csv", target="minutes_late",
+                                   validation=stages.Holdout(fraction=0.2, seed=0))
+    chain.add("linear")
+    chain.add("lightgbm", shrinkage=0.5, params={"num_leaves": 15})
+    chain.table()
+    chain.save("deliveries.chain")
+    fitted = stages.load("deliveries.chain")
+"""
+
+from __future__ import annotations
+
+from typing import Any
+
+from .chain import Chain
+from .errors import (
+    ChainFileError,
+    DataError,
+    FitCancelled,
+    RecipeError,
+    RemnantError,
+    SchemaError,
+    StageFitError,
+    StageSpecError,
+    ValidationSpecError,
+)
+from .predictor import FittedChain
+from .spec import StageSpec
+from .validation import AllRows, GroupHoldout, Holdout, KFold, SplitColumn, TimeOrder
+
+__version__ = "0.1.0"
+
+_LAZY = {
+    "load": ("store", "load"),
+    "ChainRegressor": ("estimator", "ChainRegressor"),
+    "ChainClassifier": ("estimator", "ChainClassifier"),
+    "read_recipe": ("recipe", "read_recipe"),
+    "fit_recipe": ("recipe", "fit_recipe"),
+}
+
+
+def __getattr__(name: str) -> Any:
+    """Return the heavier parts of the facade (saving, recipes, estimators) on first use."""
+    if name in _LAZY:
+        import importlib
+
+        module, attr = _LAZY[name]
+        return getattr(importlib.import_module(f".{module}", __name__), attr)
+    raise AttributeError(f"module 'stages' has no attribute {name!r}")
+
+
+__all__ = [
+    "Chain", "FittedChain", "StageSpec", "Holdout", "KFold", "TimeOrder", "GroupHoldout", "SplitColumn",
+    "AllRows",
+    "RemnantError", "DataError", "ValidationSpecError", "StageSpecError", "StageFitError", "FitCancelled",
+    "RecipeError", "ChainFileError", "SchemaError", "load", "ChainRegressor", "ChainClassifier",
+    "read_recipe", "fit_recipe", "__version__",
+]

@@ -1,0 +1,417 @@
+"""The chain: a start value and stages, each fit to the residuals of the ones before it.
+
+Every stage's cumulative output on every row is cached, so stepping back is a pop and
+costs no refit; dropping a middle stage refits the stages after it. All mutations are
+all-or-nothing: a failed or cancelled fit leaves the chain exactly as it was.
+"""
+
+from __future__ import annotations
+
+import os
+import threading
+from dataclasses import dataclass
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+from . import scoring
+from .data import Prepared, load_frame, prepare
+from .errors import RemnantError, StageSpecError
+from .fitting import FitContext, Stage, fit_stage
+from .kinds import get_kind
+from .kinds.base import ProgressFn
+from .losses import Loss, default_loss, get_loss
+from .predictor import FittedChain, FittedStage
+from .scoring import Scores
+from .spec import StageSpec
+from .tracks import build_layout
+from .validation import Holdout, ValidationSpec
+
+
+@dataclass(frozen=True)
+class Removal:
+    """An undoable removal: the stages before it and the random streams then."""
+
+    action: str
+    stages: tuple[Stage, ...]
+    scores: tuple[Scores, ...]
+
+
+class Chain:
+    """A residual chain over one data set, one validation scheme and one loss.
+
+    Parameters
+    ----------
+    frame : pandas.DataFrame
+        The data, one row per example.
+    target : str
+        The column to predict.
+    validation : ValidationSpec
+        Holdout, KFold, TimeOrder, GroupHoldout or SplitColumn.
+    loss : str, optional
+        squared, absolute, huber or logloss; defaults to squared, or logloss for binary targets.
+    seed : int
+        Seeds the chain's one random stream.
+    """
+
+    def __init__(
+        self,
+        frame: pd.DataFrame,
+        target: str,
+        validation: ValidationSpec | None = None,
+        loss: str | None = None,
+        *,
+        seed: int = 0,
+        ignore: tuple[str, ...] | list[str] = (),
+        features: list[str] | None = None,
+        task: str | None = None,
+        positive: str | None = None,
+        threshold: float = 0.5,
+        source: str = "frame",
+    ) -> None:
+        self.validation = validation if validation is not None else Holdout()
+        ignore = tuple(ignore) + tuple(c for c in self.validation.columns_used if c not in ignore)
+        if self.validation.scheme == "time":
+            ignore = tuple(c for c in ignore if c != self.validation.column)
+        self.prepared: Prepared = prepare(frame, target, ignore=ignore, features=features, task=task,
+                                          positive=positive, source=source)
+        self.schema = self.prepared.schema
+        self.loss: Loss = get_loss(loss or default_loss(self.schema.task), self.schema.task)
+        self.split = self.validation.split(self.prepared.frame, self.prepared.y, self.schema.task)
+        self.layout = build_layout(self.split)
+        self.matrix = self.prepared.matrix[self.layout.order]
+        self.y = self.prepared.y[self.layout.order]
+        self.prepared.matrix = None  # keep one copy of the features: the chain-ordered one
+        self.seed = int(seed)
+        self.threshold = float(threshold)
+        self.source = source
+        self.ignore = tuple(ignore)
+        self.stages: list[Stage] = []
+        self._scores: list[Scores] = []
+        self._removals: list[Removal] = []
+        self._rngs = [np.random.RandomState(self.seed)] + [
+            np.random.RandomState([self.seed, t]) for t in range(1, len(self.layout.tracks))
+        ]
+        self._lock = threading.RLock()
+        self.starts = tuple(
+            self.loss.start(self.y[: track.n_rows][track.fit]) for track in self.layout.tracks
+        )
+        self._start_outputs = tuple(
+            np.full(track.n_rows, start, dtype=np.float64) for track, start in zip(self.layout.tracks, self.starts, strict=True)
+        )
+        self._start_scores = scoring.score_state(self.loss, self.layout, self.y, self._start_outputs, self.threshold)
+        self.test_revealed = False
+        self.reveal_count = 0
+        self._test: dict[int, dict[str, float]] = {}
+
+    @classmethod
+    def from_file(cls, path: str | os.PathLike, target: str, validation: ValidationSpec | None = None,
+                  loss: str | None = None, **kwargs: Any) -> Chain:
+        """Return a chain over the CSV or Parquet file at ``path``."""
+        frame, name = load_frame(path)
+        chain = cls(frame, target, validation, loss, source=name, **kwargs)
+        chain.data_path = os.fspath(path)
+        return chain
+
+    # ----- reading ----------------------------------------------------------------------
+    @property
+    def task(self) -> str:
+        """Return "regression" or "binary"."""
+        return self.schema.task
+
+    @property
+    def metric(self) -> str:
+        """Return the name of the metric the chain is judged by (lower is better)."""
+        return self.loss.primary
+
+    @property
+    def notes(self) -> tuple[str, ...]:
+        """Return what the data preparation decided on the user's behalf, one line each."""
+        return self.prepared.notes
+
+    def __len__(self) -> int:
+        return len(self.stages)
+
+    def scores(self) -> list[Scores]:
+        """Return the scores of every row: the start value, then each stage."""
+        with self._lock:
+            rows = [self._start_scores, *self._scores]
+            if self.test_revealed:
+                rows = [Scores(s.train, s.valid, s.fold_valid, self._test.get(i, {})) for i, s in enumerate(rows)]
+            return rows
+
+    def outputs(self, row: int | None = None) -> tuple[np.ndarray, ...]:
+        """Return each track's raw output after row ``row`` (0 is the start value; default the last)."""
+        with self._lock:
+            row = len(self.stages) if row is None else row
+            if not 0 <= row <= len(self.stages):
+                raise StageSpecError(f"there is no stage {row}; the chain has {len(self.stages)}")
+            return self._start_outputs if row == 0 else self.stages[row - 1].outputs
+
+    def best_row(self) -> int:
+        """Return the row with the best validation score (0 is the start value)."""
+        return scoring.best_row(self.metric, self.scores())
+
+    def table(self) -> pd.DataFrame:
+        """Return one row per stage (row 0 is the start value) with its scores and flags."""
+        from .table import stage_table
+
+        return stage_table(self)
+
+    def residuals(self, part: str = "valid", row: int | None = None) -> np.ndarray:
+        """Return target minus prediction (y - p for binary) on ``part`` after row ``row``."""
+        outputs = self.outputs(row)
+        layout = self.layout
+        if part == "train":
+            y, raw = self.y[layout.train], outputs[0][layout.train]
+        elif part == "valid":
+            y, raw = scoring.validation_y(layout, self.y), scoring.validation_raw(layout, outputs)
+        elif part == "test":
+            if not self.test_revealed:
+                raise StageSpecError("the test part is locked; reveal it first")
+            y, raw = self.y[layout.test], outputs[0][layout.test]
+        else:
+            raise StageSpecError(f"unknown part {part!r} (train, valid or test)")
+        return self.loss.display_residual(y, raw)
+
+    def fitted_values(self, part: str = "valid", row: int | None = None) -> np.ndarray:
+        """Return the predictions (probabilities for binary) on ``part`` after row ``row``."""
+        outputs = self.outputs(row)
+        if part == "train":
+            raw = outputs[0][self.layout.train]
+        elif part == "valid":
+            raw = scoring.validation_raw(self.layout, outputs)
+        else:
+            raise StageSpecError(f"unknown part {part!r} (train or valid)")
+        return self.loss.link(raw)
+
+    def part_targets(self, part: str) -> np.ndarray:
+        """Return the targets of ``part`` in the order residuals and fitted values use."""
+        if part == "train":
+            return self.y[self.layout.train]
+        if part == "valid":
+            return scoring.validation_y(self.layout, self.y)
+        if part == "test":
+            return self.y[self.layout.test]
+        raise StageSpecError(f"unknown part {part!r} (train, valid or test)")
+
+    def histogram(self, row: int | None = None, parts: tuple[str, ...] = ("train", "valid"),
+                  bins: int | str = "auto", max_bins: int = 60) -> tuple[dict[str, np.ndarray], np.ndarray]:
+        """Return residual counts per part over shared bin edges, and the edges."""
+        values = [self.residuals(p, row) for p in parts]
+        counts, edges = scoring.histogram(values, bins=bins, max_bins=max_bins)
+        return dict(zip(parts, counts, strict=True)), edges
+
+    def importance(self, row: int) -> dict[str, float]:
+        """Return the importance of each feature a stage uses (native, or permutation on validation rows)."""
+        from .importance import stage_importance
+
+        return stage_importance(self, row)
+
+    def fitted(self) -> FittedChain:
+        """Return the main chain as a FittedChain, ready to predict and to save."""
+        with self._lock:
+            scores = self.scores()
+            stages = [
+                FittedStage(s.spec, s.params, s.learners[0], s.scale, s.feature_index, scores[i + 1].to_dict(), s.fit_seconds)
+                for i, s in enumerate(self.stages)
+            ]
+            return FittedChain(self.schema, self.loss, self.starts[0], stages, meta=self.describe(),
+                               start_scores=scores[0].to_dict())
+
+    def describe(self) -> dict[str, Any]:
+        """Return the chain's settings as a JSON-ready dict (validation, seed, loss, split sizes)."""
+        return {
+            "validation": self.validation.to_dict(), "seed": self.seed, "loss": self.loss.name,
+            "threshold": self.threshold, "rows": {"train": self.layout.n_train, "valid": self.layout.n_valid,
+                                                  "test": self.layout.n_test},
+            "test_revealed": self.test_revealed, "test_reveals": self.reveal_count, "source": self.source, "ignore": list(self.ignore),
+        }
+
+    def predict(self, frame: pd.DataFrame) -> np.ndarray:
+        """Return predictions of the chain as it stands for a new frame."""
+        return self.fitted().predict(frame)
+
+    def specs(self) -> list[StageSpec]:
+        """Return the spec of every stage, in order."""
+        return [s.spec for s in self.stages]
+
+    # ----- changing -------------------------------------------------------------------------
+    def _context(self) -> FitContext:
+        return FitContext(self.matrix, self.y, self.schema, self.layout, self.loss, self._rngs)
+
+    def _fit_sequence(self, specs: list[StageSpec], previous: tuple[np.ndarray, ...], first_number: int,
+                      cancel: threading.Event | None, progress: ProgressFn | None) -> list[Stage]:
+        ctx = self._context()
+        fitted: list[Stage] = []
+        state = [rng.get_state() for rng in self._rngs]
+        try:
+            for i, spec in enumerate(specs):
+                stage = fit_stage(ctx, spec, previous, number=first_number + i, cancel=cancel,
+                                  progress=_sub_progress(progress, i, len(specs)))
+                fitted.append(stage)
+                previous = stage.outputs
+        except BaseException:
+            for rng, saved in zip(self._rngs, state, strict=True):
+                rng.set_state(saved)
+            raise
+        return fitted
+
+    def _commit(self, stages: list[Stage]) -> None:
+        for stage in stages:
+            self.stages.append(stage)
+            self._scores.append(scoring.score_state(self.loss, self.layout, self.y, stage.outputs, self.threshold))
+        self._relock()
+
+    def _relock(self) -> None:
+        """Lock the test part again: a reveal holds for one chain state only."""
+        self._test.clear()
+        self.test_revealed = False
+
+    def add(self, kind: str, shrinkage: float = 1.0, *, features: list[str] | tuple[str, ...] = (),
+            params: dict[str, Any] | None = None, repeat: int = 1, cancel: threading.Event | None = None,
+            progress: ProgressFn | None = None) -> list[Stage]:
+        """Fit ``repeat`` stages of ``kind``, each on the residuals of the one before, and return them.
+
+        All or nothing: when any fit fails or is cancelled, the chain is left as it was.
+        """
+        if not isinstance(repeat, int) or repeat < 1:
+            raise StageSpecError(f"repeat must be a whole number of at least 1, not {repeat!r}")
+        spec = StageSpec(kind, shrinkage, tuple(features or ()), dict(params or {}))
+        return self.add_specs([spec] * repeat, cancel=cancel, progress=progress)
+
+    def add_specs(self, specs: list[StageSpec], *, cancel: threading.Event | None = None,
+                  progress: ProgressFn | None = None) -> list[Stage]:
+        """Fit ``specs`` in order after the last stage and return the new stages (all or nothing)."""
+        for spec in specs:
+            self.check_spec(spec)
+        with self._lock:
+            new = self._fit_sequence(list(specs), self.outputs(), len(self.stages) + 1, cancel, progress)
+            self._commit(new)
+            self._removals.clear()
+            return new
+
+    def check_spec(self, spec: StageSpec) -> None:
+        """Raise StageSpecError when ``spec`` names an unknown kind, parameter or feature."""
+        kind = get_kind(spec.kind)
+        kind.resolve_params(spec.params, self.task)
+        if spec.features:
+            try:
+                self.schema.index_of(spec.features)
+            except RemnantError as exc:
+                raise StageSpecError(f"stage {spec.kind!r}: {exc}") from None
+
+    def _remember(self, action: str) -> None:
+        self._removals.append(Removal(action, tuple(self.stages), tuple(self._scores)))
+
+    def _restore_streams(self, states: tuple[Any, ...]) -> None:
+        for rng, state in zip(self._rngs, states, strict=True):
+            rng.set_state(state)
+
+    def step_back(self) -> Stage:
+        """Remove the last stage without any refit and return it; the random stream rewinds with it."""
+        with self._lock:
+            if not self.stages:
+                raise StageSpecError("the chain has no stage to step back from")
+            self._remember("step back")
+            stage = self.stages.pop()
+            self._scores.pop()
+            self._restore_streams(stage.rng_before)
+            self._relock()
+            return stage
+
+    def drop(self, index: int, *, cancel: threading.Event | None = None, progress: ProgressFn | None = None) -> list[Stage]:
+        """Remove stage ``index`` (1-based) and refit the stages after it on the new residuals; return the refits."""
+        with self._lock:
+            if not 1 <= index <= len(self.stages):
+                raise StageSpecError(f"there is no stage {index}; the chain has {len(self.stages)}")
+            if index == len(self.stages):
+                self.step_back()
+                last = self._removals[-1]
+                self._removals[-1] = Removal("drop", last.stages, last.scores)
+                return []
+            saved = [rng.get_state() for rng in self._rngs]
+            self._restore_streams(self.stages[index - 1].rng_before)
+            later = [s.spec for s in self.stages[index:]]
+            try:
+                refits = self._fit_sequence(later, self.outputs(index - 1), index, cancel, progress)
+            except BaseException:
+                self._restore_streams(tuple(saved))
+                raise
+            self._remember("drop")
+            del self.stages[index - 1:]
+            del self._scores[index - 1:]
+            self._commit(refits)
+            return refits
+
+    def trim(self) -> list[Stage]:
+        """Remove the stages after the best validation score and return them."""
+        with self._lock:
+            best = self.best_row()
+            if best == len(self.stages):
+                return []
+            self._remember("trim")
+            removed = self.stages[best:]
+            self._restore_streams(removed[0].rng_before)
+            del self.stages[best:]
+            del self._scores[best:]
+            self._relock()
+            return removed
+
+    def can_undo(self) -> bool:
+        """Return True when there is a removal to undo."""
+        return bool(self._removals)
+
+    def undo(self) -> str:
+        """Undo the last step back, drop or trim, restoring the exact earlier state; return what was undone."""
+        with self._lock:
+            if not self._removals:
+                raise StageSpecError("there is no removal to undo")
+            removal = self._removals.pop()
+            self.stages = list(removal.stages)
+            self._scores = list(removal.scores)
+            if self.stages:
+                self._restore_streams(self.stages[-1].rng_after)
+            else:
+                self._rngs = [np.random.RandomState(self.seed)] + [
+                    np.random.RandomState([self.seed, t]) for t in range(1, len(self.layout.tracks))
+                ]
+            self._relock()
+            return removal.action
+
+    def reveal_test(self) -> list[dict[str, float]]:
+        """Score every row on the locked test part and return the scores; the reveal is recorded."""
+        with self._lock:
+            if self.layout.n_test == 0:
+                raise StageSpecError("this chain has no locked test part (set test_fraction when choosing validation)")
+            rows = [self._start_outputs[0], *(s.outputs[0] for s in self.stages)]
+            self._test = {i: scoring.test_scores(self.loss, self.layout, self.y, out, self.threshold)
+                          for i, out in enumerate(rows)}
+            self.test_revealed = True
+            self.reveal_count += 1
+            return [self._test[i] for i in range(len(rows))]
+
+    def save(self, path: str | os.PathLike) -> None:
+        """Write the chain file at ``path`` (atomically)."""
+        from .store import save
+
+        save(self, path)
+
+    def to_recipe(self) -> str:
+        """Return the TOML recipe that refits this chain from its data."""
+        from .recipe import chain_to_recipe
+
+        return chain_to_recipe(self)
+
+
+def _sub_progress(progress: ProgressFn | None, i: int, n: int) -> ProgressFn | None:
+    if progress is None:
+        return None
+    if n == 1:
+        return progress
+
+    def report(fraction: float, message: str = "") -> None:
+        progress((i + fraction) / n, f"stage {i + 1} of {n}: {message}")
+
+    return report

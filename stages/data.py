@@ -1,0 +1,416 @@
+"""The data layer: read files, infer column roles and the task, and build the feature matrix.
+
+Reading
+    ``read_table`` reads CSV (``.csv``, ``.tsv``, ``.txt``, ``.csv.gz`` and any unknown
+    extension) and Parquet (``.parquet``, ``.pq``). The CSV delimiter is sniffed among
+    ``, ; TAB |``; text must be UTF-8 (a byte-order mark is removed). Every problem a user
+    can fix is a ``DataError`` whose one-line message names the file, the column and the value.
+
+Column roles (``infer_role``), first rule that applies wins
+    1. every value missing -> excluded ("every value is missing");
+    2. a single distinct value -> excluded ("constant"), whatever the dtype;
+    3. bool dtype, or text whose values are exactly two of true/false/yes/no (any case,
+       one of each side) -> BOOLEAN; numeric 0/1 columns stay NUMERIC;
+    4. numeric dtype -> NUMERIC;
+    5. datetime dtype, or text where at least 95% of a sample of up to 500 values parses
+       as a date (pure numbers never count as dates) -> DATETIME: not a feature, but
+       usable to order rows by time;
+    6. other text: every non-missing value unique with more than 20 of them -> excluded
+       ("an ID?"); more than 1,000 distinct levels -> excluded; otherwise CATEGORICAL.
+    Durations and cells holding lists or other unhashable objects are excluded.
+
+Task (``infer_task``)
+    bool dtype, numeric values exactly {0, 1}, or exactly two distinct strings -> binary;
+    other numbers (or text that is mostly numbers) -> regression; 3+ classes -> DataError.
+"""
+
+from __future__ import annotations
+
+import bz2
+import difflib
+import gzip
+import lzma
+import warnings
+from collections import Counter
+from collections.abc import Sequence
+from dataclasses import dataclass
+
+import numpy as np
+import pandas as pd
+from pandas.api import types as pdt
+
+from .errors import DataError, SchemaError
+from .reading import check_duplicates, load_frame, read_table, source_name
+from .schema import BOOLEAN, CATEGORICAL, DATETIME, NUMERIC, ColumnInfo, Schema
+
+EXCLUDED = "excluded"
+TASKS = ("regression", "binary")
+MAX_LEVELS = 1_000
+ID_MIN_ROWS = 20
+DATE_SAMPLE = 500
+DATE_SHARE = 0.95
+
+_PARQUET_SUFFIXES = (".parquet", ".pq")
+_COMPRESSION = {".gz": ("gzip", gzip.open), ".bz2": ("bz2", bz2.open), ".xz": ("xz", lzma.open)}
+_DELIMITERS = ",;\t|"
+_SNIFF_BYTES = 64 * 1024
+_MAX_HEADER_BYTES = 64 * 1024 * 1024
+_TRUE_WORDS = {"true", "yes"}
+_FALSE_WORDS = {"false", "no"}
+_POSITIVE_WORDS = ("1", "true", "yes", "y", "positive")
+
+# ----------------------------------------------------------------------------- roles
+
+
+@dataclass(frozen=True)
+class ColumnReport:
+    """What ``describe_columns`` says about one column."""
+
+    name: str
+    role: str
+    dtype: str
+    n_missing: int
+    n_unique: int
+    examples: tuple[str, ...]
+    note: str
+
+
+def infer_role(values: pd.Series) -> tuple[str, str]:
+    """Return the column's role (a schema role or ``"excluded"``) and a note saying why."""
+    try:
+        non_missing, uniques = _distinct(values)
+    except TypeError:
+        return EXCLUDED, _NOT_PLAIN
+    return _role(values.dtype, non_missing, uniques)
+
+
+def describe_columns(frame: pd.DataFrame) -> list[ColumnReport]:
+    """Return one ColumnReport per column of ``frame``, in column order."""
+    reports = []
+    for j, name in enumerate(frame.columns):
+        values = frame.iloc[:, j]
+        try:
+            non_missing, uniques = _distinct(values)
+            role, note = _role(values.dtype, non_missing, uniques)
+        except TypeError:
+            non_missing = uniques = values.dropna().to_numpy()
+            role, note = EXCLUDED, _NOT_PLAIN
+        examples = tuple(str(v) for v in uniques[:3])
+        n_missing = len(values) - len(non_missing)
+        reports.append(ColumnReport(str(name), role, str(values.dtype), n_missing, len(uniques), examples, note))
+    return reports
+
+
+_NOT_PLAIN = "holds lists or other values that are not plain"
+
+
+def _distinct(values: pd.Series) -> tuple[np.ndarray, np.ndarray]:
+    """Return the non-missing values of a column and its distinct values, in order seen."""
+    array = values.to_numpy()
+    non_missing = array[~pd.isna(array)]
+    return non_missing, pd.unique(non_missing)
+
+
+def _role(dtype: object, non_missing: np.ndarray, uniques: np.ndarray) -> tuple[str, str]:
+    if len(non_missing) == 0:
+        return EXCLUDED, "every value is missing"
+    if len(uniques) == 1:
+        return EXCLUDED, f"constant (every value is {uniques[0]!s})"
+    if pdt.is_bool_dtype(dtype):
+        return BOOLEAN, ""
+    if pdt.is_object_dtype(dtype):
+        inferred = pd.Series(non_missing).infer_objects().dtype
+        if pdt.is_numeric_dtype(inferred) and not pdt.is_bool_dtype(inferred):
+            return NUMERIC, ""
+    if pdt.is_numeric_dtype(dtype):
+        return NUMERIC, ""
+    if pdt.is_datetime64_any_dtype(dtype):
+        return DATETIME, "dates: usable to order rows by time"
+    if pdt.is_timedelta64_dtype(dtype):
+        return EXCLUDED, "durations are not supported (convert them to numbers)"
+    return _text_role(non_missing, uniques)
+
+
+def _text_role(non_missing: np.ndarray, uniques: np.ndarray) -> tuple[str, str]:
+    if len(uniques) <= 8:
+        words = set(pd.Series(uniques).astype("string").str.strip().str.lower())
+        if len(words) == 2 and words & _TRUE_WORDS and words & _FALSE_WORDS:
+            return BOOLEAN, ""
+    if _looks_like_dates(non_missing):
+        return DATETIME, "dates: usable to order rows by time"
+    if len(uniques) == len(non_missing) and len(non_missing) > ID_MIN_ROWS:
+        return EXCLUDED, "every value is unique (an ID?)"
+    if len(uniques) > MAX_LEVELS:
+        return EXCLUDED, f"{len(uniques):,} distinct values (more than {MAX_LEVELS:,})"
+    return CATEGORICAL, ""
+
+
+def _looks_like_dates(non_missing: np.ndarray) -> bool:
+    """Return True when at least 95% of an even sample of the values parses as a date."""
+    step = max(1, len(non_missing) // DATE_SAMPLE)
+    sample = pd.Series(non_missing[::step][:DATE_SAMPLE]).astype("string")
+    if sample.str.contains(r"\d", regex=True).mean() < DATE_SHARE:
+        return False
+    is_number = pd.to_numeric(sample, errors="coerce").notna().to_numpy()
+    if is_number.mean() > 1 - DATE_SHARE:
+        return False
+    try:
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            parsed = pd.to_datetime(sample, errors="coerce", format="mixed", utc=True)
+    except (ValueError, TypeError, OverflowError):
+        return False
+    is_date = parsed.notna().to_numpy() & ~is_number
+    return bool(is_date.mean() >= DATE_SHARE)
+
+
+# ----------------------------------------------------------------------------- task
+
+
+def infer_task(values: pd.Series, *, source: str = "data", target: str = "") -> str:
+    """Return ``"regression"`` or ``"binary"`` for a target column; DataError for multiclass."""
+    non_missing = values.dropna()
+    label = f"target {target!r}" if target else "the target"
+    if len(non_missing) == 0:
+        raise DataError(f"{source}: {label} has no values (every row is missing)")
+    if pdt.is_bool_dtype(values.dtype):
+        return "binary"
+    if pdt.is_datetime64_any_dtype(values.dtype) or pdt.is_timedelta64_dtype(values.dtype):
+        raise DataError(f"{source}: {label} holds dates or durations; a target must be numbers or two classes")
+    numbers = pd.to_numeric(non_missing, errors="coerce")
+    if numbers.notna().all():
+        return "binary" if set(pd.unique(numbers.to_numpy())) == {0, 1} else "regression"
+    n_classes = non_missing.astype("string").nunique()
+    if n_classes == 2:
+        return "binary"
+    if numbers.notna().mean() > 0.5:
+        return "regression"
+    if n_classes < 2:
+        raise DataError(f"{source}: {label} has a single value ({non_missing.iloc[0]!r}); nothing to predict")
+    raise _multiclass_error(source, label, n_classes)
+
+
+def _multiclass_error(source: str, label: str, n_classes: int) -> DataError:
+    return DataError(f"{source}: {label} has {n_classes:,} classes; multiclass targets are not supported yet "
+                     "(use a numeric target or one with two classes)")
+
+
+# ----------------------------------------------------------------------------- prepare
+
+
+@dataclass
+class Prepared:
+    """A frame ready for a chain: its schema, feature matrix, target and the rows kept."""
+
+    schema: Schema
+    matrix: np.ndarray
+    y: np.ndarray
+    rows: np.ndarray
+    frame: pd.DataFrame
+    notes: tuple[str, ...]
+
+
+def prepare(
+    frame: pd.DataFrame,
+    target: str,
+    *,
+    ignore: Sequence[str] = (),
+    features: Sequence[str] | None = None,
+    task: str | None = None,
+    positive: str | None = None,
+    source: str = "frame",
+) -> Prepared:
+    """Return the Prepared data for fitting a chain on ``frame`` to predict ``target``.
+
+    Rows with a missing target are dropped; features default to every usable column
+    other than the target and ``ignore``. Raises DataError for anything unusable.
+    """
+    frame = _string_columns(frame, source)
+    _require_columns([target], frame, source, what="target")
+    notes = [f"ignored column {name!r} is not in the data" for name in ignore if name not in frame.columns]
+    rows = _rows_with_target(frame[target], target, source, notes)
+    kept = frame.iloc[rows].reset_index(drop=True)
+    values = kept[target]
+    if task is None:
+        task = infer_task(values, source=source, target=target)
+    if task not in TASKS:
+        raise DataError(f"{source}: unknown task {task!r} (use 'regression' or 'binary')")
+    if task == "regression":
+        y, classes = _regression_target(values, rows, target, source), ()
+    else:
+        y, classes = _binary_target(values, target, positive, source, notes)
+    columns = _feature_columns(kept, target, set(ignore), features, source, notes)
+    schema = Schema(tuple(columns), target, task, classes, tuple(notes))
+    try:
+        matrix, _ = schema.encode(kept, source=source)
+    except SchemaError as err:
+        raise DataError(str(err)) from None
+    return Prepared(schema, matrix, y, rows, kept, tuple(notes))
+
+
+def _string_columns(frame: pd.DataFrame, source: str) -> pd.DataFrame:
+    """Return ``frame`` with text column names; DataError for a duplicated name."""
+    if not isinstance(frame, pd.DataFrame):
+        raise DataError(f"{source}: expected a pandas DataFrame, got {type(frame).__name__}")
+    names = [str(c) for c in frame.columns]
+    check_duplicates(names, source)
+    if any(not isinstance(c, str) for c in frame.columns):
+        frame = frame.set_axis(names, axis=1)
+    return frame
+
+
+def _require_columns(names: Sequence[str], frame: pd.DataFrame, source: str, *, what: str) -> None:
+    existing = list(frame.columns)
+    for name in names:
+        if name in frame.columns:
+            continue
+        close = difflib.get_close_matches(str(name), existing, n=1)
+        hint = f" (did you mean {close[0]!r}?)" if close else ""
+        shown = ", ".join(repr(c) for c in existing[:5])
+        more = f" and {len(existing) - 5:,} more" if len(existing) > 5 else ""
+        raise DataError(f"{source}: {what} {name!r} is not a column{hint}; the columns are {shown}{more}")
+
+
+def _rows_with_target(values: pd.Series, target: str, source: str, notes: list[str]) -> np.ndarray:
+    missing = values.isna().to_numpy()
+    if pdt.is_string_dtype(values.dtype) or pdt.is_object_dtype(values.dtype):
+        blank = values.astype("string").str.strip().eq("").to_numpy(dtype=bool, na_value=False)
+        missing = missing | blank
+    rows = np.flatnonzero(~missing).astype(np.int64)
+    dropped = len(values) - len(rows)
+    if dropped:
+        notes.append(f"dropped {dropped:,} {_rows(dropped)} whose target {target!r} is missing")
+    if len(rows) < 2:
+        verb = "row has" if len(rows) == 1 else "rows have"
+        raise DataError(f"{source}: only {len(rows)} {verb} a value for target {target!r} (at least 2 are needed)")
+    return rows
+
+
+def _rows(count: int) -> str:
+    return "row" if count == 1 else "rows"
+
+
+def _regression_target(values: pd.Series, rows: np.ndarray, target: str, source: str) -> np.ndarray:
+    if pdt.is_datetime64_any_dtype(values.dtype) or pdt.is_timedelta64_dtype(values.dtype):
+        raise DataError(f"{source}: target {target!r} holds dates or durations, not numbers")
+    numbers = pd.to_numeric(values, errors="coerce")
+    bad = numbers.isna().to_numpy()
+    if bad.any():
+        first = int(np.flatnonzero(bad)[0])
+        raise DataError(f"{source}: target {target!r} is not numeric (row {rows[first] + 1}: {values.iloc[first]!r})")
+    y = numbers.to_numpy(dtype=np.float64)
+    infinite = int(np.isinf(y).sum())
+    if infinite:
+        raise DataError(f"{source}: target {target!r} is infinite in {infinite:,} {_rows(infinite)}")
+    if np.all(y == y[0]):
+        raise DataError(f"{source}: target {target!r} is constant (every row is {y[0]:g}); nothing to predict")
+    return y
+
+
+def _binary_target(values: pd.Series, target: str, positive: str | None, source: str,
+                   notes: list[str]) -> tuple[np.ndarray, tuple[str, str]]:
+    """Return y (1.0 for the positive class) and the classes, negative then positive."""
+    uniques = list(pd.unique(values.to_numpy()))
+    labels = {_class_label(u): u for u in uniques}
+    if len(labels) > 2:
+        raise _multiclass_error(source, f"target {target!r}", len(labels))
+    if len(labels) < 2:
+        raise DataError(f"{source}: target {target!r} has one class ({uniques[0]!s}); a binary target needs two")
+    try:
+        ordered = [_class_label(u) for u in sorted(uniques)]
+    except TypeError:
+        ordered = sorted(labels)
+    chosen = _positive_label(ordered, positive, target, source)
+    negative = ordered[0] if ordered[1] == chosen else ordered[1]
+    notes.append(f"positive class of {target!r} is {chosen!r} (negative: {negative!r})")
+    y = (values == labels[chosen]).to_numpy(dtype=np.float64)
+    return y, (negative, chosen)
+
+
+def _class_label(value: object) -> str:
+    """Return a class as text: whole floats lose their ``.0`` so 0/1 read as "0"/"1"."""
+    if isinstance(value, float | np.floating) and float(value).is_integer():
+        return str(int(value))
+    return str(value)
+
+
+def _positive_label(ordered: list[str], positive: str | None, target: str, source: str) -> str:
+    if positive is not None:
+        wanted = str(positive)
+        matches = [c for c in ordered if c == wanted] or [c for c in ordered if c.lower() == wanted.lower()]
+        if len(matches) != 1:
+            raise DataError(f"{source}: positive class {wanted!r} is not one of target {target!r}'s "
+                            f"classes {ordered[0]!r} and {ordered[1]!r}")
+        return matches[0]
+    for word in _POSITIVE_WORDS:
+        for label in ordered:
+            if label.strip().lower() == word:
+                return label
+    return ordered[1]
+
+
+def _feature_columns(kept: pd.DataFrame, target: str, ignore: set[str], features: Sequence[str] | None,
+                     source: str, notes: list[str]) -> list[ColumnInfo]:
+    """Return the feature columns: the listed ones, or every usable column (noting exclusions)."""
+    if features is not None:
+        return _listed_features(kept, target, ignore, list(features), source)
+    columns = []
+    for name in kept.columns:
+        if name == target or name in ignore:
+            continue
+        values = kept[name]
+        role, note = infer_role(values)
+        if role == EXCLUDED:
+            notes.append(f"column {name!r} excluded: {note}")
+        elif role == DATETIME:
+            notes.append(f"column {name!r} is not a feature: it holds dates (usable to order rows by time)")
+        else:
+            columns.append(_column_info(name, role, values))
+    if not columns:
+        raise DataError(f"{source}: no usable feature columns (every column but target {target!r} is ignored or excluded)")
+    return columns
+
+
+def _listed_features(kept: pd.DataFrame, target: str, ignore: set[str], features: list[str],
+                     source: str) -> list[ColumnInfo]:
+    """Return the columns the user listed, keeping any infer_role would exclude (but not dates)."""
+    _require_columns(features, kept, source, what="feature")
+    repeated = [name for name, count in Counter(features).items() if count > 1]
+    if repeated:
+        raise DataError(f"{source}: feature {repeated[0]!r} is listed twice")
+    if target in features:
+        raise DataError(f"{source}: target {target!r} cannot also be a feature")
+    columns = []
+    for name in features:
+        if name in ignore:
+            continue
+        values = kept[name]
+        role, _ = infer_role(values)
+        if role == DATETIME:
+            raise DataError(f"{source}: feature {name!r} holds dates; dates are not features (use them to order rows)")
+        if role == EXCLUDED:
+            role = _role_of_dtype(values)
+        columns.append(_column_info(name, role, values))
+    if not columns:
+        raise DataError(f"{source}: no usable feature columns (every listed feature is ignored)")
+    return columns
+
+
+def _role_of_dtype(values: pd.Series) -> str:
+    """Return the role a column the user asked for keeps: its dtype's, else CATEGORICAL."""
+    if pdt.is_bool_dtype(values.dtype):
+        return BOOLEAN
+    if pdt.is_numeric_dtype(values.dtype):
+        return NUMERIC
+    return CATEGORICAL
+
+
+def _column_info(name: str, role: str, values: pd.Series) -> ColumnInfo:
+    levels: tuple[str, ...] = ()
+    if role == CATEGORICAL:
+        levels = tuple(sorted(values.astype("string").dropna().unique()))
+    return ColumnInfo(name, role, str(values.dtype), levels)
+
+
+__all__ = ["ColumnReport", "Prepared", "describe_columns", "infer_role", "infer_task", "prepare",
+           "load_frame", "read_table", "source_name", "EXCLUDED"]

@@ -1,0 +1,47 @@
+"""Feature importance of one stage: the learner's own where it has one, else permutation on validation rows."""
+
+from __future__ import annotations
+
+from typing import TYPE_CHECKING
+
+import numpy as np
+
+from . import scoring
+from .errors import StageSpecError
+from .kinds import get_kind
+
+if TYPE_CHECKING:
+    from .chain import Chain
+
+
+def stage_importance(chain: Chain, row: int, *, sample: int = 2000) -> dict[str, float]:
+    """Return feature -> importance for stage ``row``, normalised to sum to 1 (all zero stays zero)."""
+    if not 1 <= row <= len(chain.stages):
+        raise StageSpecError(f"there is no stage {row}; the chain has {len(chain.stages)}")
+    stage = chain.stages[row - 1]
+    columns = chain.schema.subset(list(stage.feature_index))
+    names = [c.name for c in columns]
+    learner = stage.learners[0]
+    values = get_kind(stage.kind).importance(learner, columns)
+    if values is None:
+        values = _permutation(chain, row, sample)
+    values = np.asarray(values, dtype=np.float64)
+    total = float(values.sum())
+    if total > 0:
+        values = values / total
+    return dict(zip(names, (float(v) for v in values), strict=True))
+
+
+def _permutation(chain: Chain, row: int, sample: int) -> np.ndarray:
+    stage = chain.stages[row - 1]
+    layout = chain.layout
+    part = layout.valid if layout.n_valid else layout.train
+    X = chain.matrix[part][:, list(stage.feature_index)]
+    y = chain.y[part]
+    base = chain.outputs(row - 1)[0][part]
+    learner, scale = stage.learners[0], stage.scale
+
+    def predict(rows: np.ndarray) -> np.ndarray:
+        return scale * np.asarray(learner.predict(rows), dtype=np.float64)
+
+    return scoring.permutation_importance(predict, X, y, base, chain.loss, sample=sample, seed=chain.seed)

@@ -1,0 +1,133 @@
+"""What a stage kind is: its defaults, how it fits, and how its fitted state becomes a safe artifact.
+
+A kind never imports the store: it turns a fitted learner into an ``Artifact`` (bytes plus a
+format tag) and back. The formats are data only: JSON, ``.npz`` read with
+``allow_pickle=False``, LightGBM's model text, or skops with an explicit list of trusted types.
+"""
+
+from __future__ import annotations
+
+import threading
+from abc import ABC, abstractmethod
+from collections.abc import Callable
+from dataclasses import dataclass, field
+from typing import Any, ClassVar
+
+import numpy as np
+
+from ..errors import StageSpecError
+from ..schema import ColumnInfo
+
+ProgressFn = Callable[[float, str], None]
+
+
+@dataclass
+class FitRequest:
+    """Everything a kind needs to fit one stage on one track of the chain.
+
+    ``X`` holds the fitting rows and only the stage's features, as the schema's float64
+    matrix (category codes, NaN for missing). ``residual`` is the loss's negative gradient at
+    ``raw``, the chain's current output on those rows (log-odds for binary chains).
+    """
+
+    X: np.ndarray
+    columns: tuple[ColumnInfo, ...]
+    residual: np.ndarray
+    y: np.ndarray
+    raw: np.ndarray
+    loss: Any
+    task: str
+    random_state: np.random.RandomState
+    cancel: threading.Event | None = None
+    progress: ProgressFn | None = None
+
+    def check_cancel(self) -> None:
+        """Raise FitCancelled when the user asked to stop."""
+        if self.cancel is not None and self.cancel.is_set():
+            from ..errors import FitCancelled
+
+            raise FitCancelled("fit cancelled")
+
+
+@dataclass(frozen=True)
+class Artifact:
+    """A fitted learner in a safe, data-only form: ``fmt`` is one of json, npz, lgb, skops."""
+
+    fmt: str
+    payload: bytes
+    meta: dict[str, Any] = field(default_factory=dict)
+
+    SUFFIX: ClassVar[dict[str, str]] = {"json": ".json", "npz": ".npz", "lgb": ".txt", "skops": ".skops"}
+
+    @property
+    def suffix(self) -> str:
+        """Return the file suffix of this artifact inside a chain file."""
+        return self.SUFFIX[self.fmt]
+
+
+class StageKind(ABC):
+    """One kind of stage. Subclasses set the class attributes and implement fit/save/load.
+
+    ``fit`` returns a learner: any object with ``predict(X) -> ndarray`` giving the stage's
+    output before shrinkage, on the same feature columns it was fit on.
+    """
+
+    name: ClassVar[str]
+    summary: ClassVar[str]
+    defaults: ClassVar[dict[str, Any]] = {}
+    main_params: ClassVar[tuple[str, ...]] = ()
+    #: True when the kind fits the loss itself from ``y`` and ``raw`` (an offset), rather than
+    #: regressing the residuals; such a stage needs no line search.
+    fits_loss: ClassVar[bool] = False
+    #: True when the learner's leaves take loss-specific values after the fit (tree kinds).
+    refines_leaves: ClassVar[bool] = False
+    #: Parameter names accepted besides the underlying estimator's own.
+    extra_params: ClassVar[tuple[str, ...]] = ()
+
+    def accepted_params(self) -> set[str] | None:
+        """Return the parameter names this kind accepts, or None when any name is accepted."""
+        return set(self.defaults) | set(self.extra_params)
+
+    def resolve_params(self, params: dict[str, Any] | None, task: str) -> dict[str, Any]:
+        """Return the defaults overlaid with ``params``; raise StageSpecError for an unknown name."""
+        params = dict(params or {})
+        accepted = self.accepted_params()
+        if accepted is not None:
+            unknown = sorted(set(params) - accepted)
+            if unknown:
+                known = ", ".join(sorted(accepted)) or "none"
+                raise StageSpecError(
+                    f"kind {self.name!r} has no parameter {unknown[0]!r} (it takes: {known})"
+                )
+        resolved = {**self.task_defaults(task), **params}
+        return resolved
+
+    def task_defaults(self, task: str) -> dict[str, Any]:
+        """Return the default parameters for ``task`` (regression or binary)."""
+        return dict(self.defaults)
+
+    @abstractmethod
+    def fit(self, request: FitRequest, params: dict[str, Any]) -> Any:
+        """Return a fitted learner for ``request`` with the resolved ``params``."""
+
+    def refine(self, learner: Any, request: FitRequest) -> None:
+        """Set loss-specific leaf values on ``learner`` (only for kinds that refine leaves)."""
+        return None
+
+    @abstractmethod
+    def save(self, learner: Any) -> Artifact:
+        """Return the learner as a safe artifact."""
+
+    @abstractmethod
+    def load(self, artifact: Artifact) -> Any:
+        """Return the learner stored in ``artifact``; raise ChainFileError if it is not acceptable."""
+
+    def importance(self, learner: Any, columns: tuple[ColumnInfo, ...]) -> np.ndarray | None:
+        """Return one non-negative importance per feature column, or None when the learner has none."""
+        return None
+
+
+def check_has_features(X: np.ndarray, kind: str) -> None:
+    """Raise StageSpecError when ``X`` has no feature columns (a stage must use at least one)."""
+    if X.ndim != 2 or X.shape[1] == 0:
+        raise StageSpecError(f"kind {kind!r} needs at least one feature column")

@@ -1,0 +1,125 @@
+"""The ``forest`` and ``extra_trees`` kinds: a whole random forest, or extremely randomised trees, as one stage.
+
+Both are regressed on the residuals (the chain line-searches their step for non-squared
+losses). The defaults follow Breiman's random forests as randomForest sets them (Breiman 2001,
+Random Forests, Machine Learning 45:5-32; Liaw & Wiener 2002, Classification and Regression
+by randomForest, R News 2(3):18-22): a third of the features tried at each split and leaves of
+at least five rows for regression; the square root of the features and single-row leaves for
+binary chains. Extra trees (Geurts, Ernst & Wehenkel 2006, Extremely randomized trees,
+Machine Learning 63:3-42) share these defaults but draw thresholds at random and, by
+default, grow every tree on all rows. Missing values go to the trees as NaN, which
+scikit-learn's forests route natively (RandomForest since 1.4, ExtraTrees since 1.6).
+"""
+
+from __future__ import annotations
+
+from typing import Any, ClassVar
+
+import numpy as np
+
+from ..errors import ChainFileError, StageSpecError
+from . import register, skops_io
+from .base import Artifact, FitRequest, StageKind, check_has_features
+
+_SEED_NOTE = "the chain's seed sets it (the [chain] seed of a recipe)"
+
+
+def _forest_defaults(bootstrap: bool) -> dict[str, Any]:
+    """Return every constructor parameter of a scikit-learn forest regressor with the stage's defaults."""
+    return {
+        "n_estimators": 100,
+        "criterion": "squared_error",
+        "max_depth": None,
+        "min_samples_split": 2,
+        "min_samples_leaf": 5,
+        "min_weight_fraction_leaf": 0.0,
+        "max_features": 1 / 3,
+        "max_leaf_nodes": None,
+        "min_impurity_decrease": 0.0,
+        "bootstrap": bootstrap,
+        "oob_score": False,
+        "n_jobs": None,
+        "verbose": 0,
+        "warm_start": False,
+        "ccp_alpha": 0.0,
+        "max_samples": None,
+        "monotonic_cst": None,
+    }
+
+
+class ForestKind(StageKind):
+    """Shared base of the forest kinds: fit a scikit-learn forest regressor to the residuals."""
+
+    main_params: ClassVar[tuple[str, ...]] = ("n_estimators", "max_features", "min_samples_leaf")
+    #: import path of the scikit-learn estimator, as module and class name
+    estimator_path: ClassVar[tuple[str, str]]
+
+    def task_defaults(self, task: str) -> dict[str, Any]:
+        """Return the defaults for ``task``: mtry p/3 and leaves of 5 rows for regression, sqrt(p) and 1 for binary."""
+        out = dict(self.defaults)
+        if task == "binary":
+            out.update(max_features="sqrt", min_samples_leaf=1)
+        return out
+
+    def resolve_params(self, params: dict[str, Any] | None, task: str) -> dict[str, Any]:
+        """Return the defaults overlaid with ``params``; raise StageSpecError for an unknown name."""
+        if params and "random_state" in params:
+            raise StageSpecError(f"kind {self.name!r} does not take 'random_state': {_SEED_NOTE}")
+        return super().resolve_params(params, task)
+
+    def estimator_class(self) -> type:
+        """Return the scikit-learn estimator class this kind fits."""
+        import importlib
+
+        module, cls = self.estimator_path
+        return getattr(importlib.import_module(module), cls)
+
+    def fit(self, request: FitRequest, params: dict[str, Any]) -> Any:
+        """Return the forest fit to the residuals, its trees seeded from the chain's stream."""
+        check_has_features(request.X, self.name)
+        request.check_cancel()
+        report = request.progress or (lambda fraction, message: None)
+        n_trees = params.get("n_estimators", 0)
+        report(0.0, f"fitting {n_trees} trees")
+        forest = self.estimator_class()(random_state=request.random_state, **params)
+        forest.fit(request.X, request.residual)  # scikit-learn casts the features to float32
+        report(1.0, f"{n_trees} trees fitted")
+        return forest
+
+    def save(self, learner: Any) -> Artifact:
+        """Return the forest as a skops artifact."""
+        learner.random_state = None  # the chain's stream is not part of the fitted model
+        return Artifact("skops", skops_io.dump(learner))
+
+    def load(self, artifact: Artifact) -> Any:
+        """Return the forest stored in ``artifact``; raise ChainFileError for an untrusted payload."""
+        learner = skops_io.load(artifact.payload)
+        if type(learner) is not self.estimator_class():
+            raise ChainFileError(f"{self.name} stage artifact holds a {type(learner).__name__}, not a forest")
+        return learner
+
+    def importance(self, learner: Any, columns) -> np.ndarray:
+        """Return the forest's impurity-based importances (they sum to 1)."""
+        return np.asarray(learner.feature_importances_, dtype=np.float64)
+
+
+class RandomForestKind(ForestKind):
+    """Breiman's random forest: bootstrap samples, a random subset of features at each split."""
+
+    name: ClassVar[str] = "forest"
+    summary: ClassVar[str] = "a random forest fit to the residuals (bootstrap, p/3 features per split)"
+    defaults: ClassVar[dict[str, Any]] = _forest_defaults(bootstrap=True)
+    estimator_path: ClassVar[tuple[str, str]] = ("sklearn.ensemble", "RandomForestRegressor")
+
+
+class ExtraTreesKind(ForestKind):
+    """Extremely randomised trees: random thresholds, every row in every tree."""
+
+    name: ClassVar[str] = "extra_trees"
+    summary: ClassVar[str] = "extremely randomised trees fit to the residuals (random thresholds)"
+    defaults: ClassVar[dict[str, Any]] = _forest_defaults(bootstrap=False)
+    estimator_path: ClassVar[tuple[str, str]] = ("sklearn.ensemble", "ExtraTreesRegressor")
+
+
+register(RandomForestKind())
+register(ExtraTreesKind())

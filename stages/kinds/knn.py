@@ -1,0 +1,103 @@
+"""The ``knn`` kind: k nearest neighbours on the standardised linear design.
+
+The residual at a row is predicted by the mean residual of its nearest fitting rows,
+measured on the imputed, standardised, one-hot encoded design. The artifact stores the
+fitting rows' design matrix and residuals as ``.npz``; loading refits the neighbour search
+on them, which is deterministic.
+"""
+
+from __future__ import annotations
+
+import io
+from dataclasses import dataclass
+from typing import Any, ClassVar
+
+import numpy as np
+
+from ..errors import ChainFileError, StageSpecError
+from . import register
+from .base import Artifact, FitRequest, StageKind, check_has_features
+from .design import LinearDesign
+from .linear import fit_estimator
+
+
+@dataclass
+class NeighboursModel:
+    """A fitted k-NN stage: its design, the fitted KNeighborsRegressor, and what it was fit on."""
+
+    design: LinearDesign
+    estimator: Any
+    matrix: np.ndarray
+    target: np.ndarray
+    params: dict[str, Any]
+
+    def predict(self, X: np.ndarray) -> np.ndarray:
+        """Return the mean (or distance-weighted) residual of each row's nearest fitting rows."""
+        if X.shape[0] == 0:
+            return np.zeros(0)
+        return self.estimator.predict(self.design.transform(X))
+
+
+def fit_neighbours(matrix: np.ndarray, target: np.ndarray, params: dict[str, Any], kind: str) -> Any:
+    """Return a KNeighborsRegressor fit on ``matrix``; raise StageSpecError when k exceeds the rows."""
+    from sklearn.neighbors import KNeighborsRegressor
+
+    k = params["n_neighbors"]
+    if isinstance(k, int) and not isinstance(k, bool) and k > matrix.shape[0]:
+        raise StageSpecError(f"kind {kind!r}: n_neighbors={k} is more than the {matrix.shape[0]} fitting rows")
+    return fit_estimator(KNeighborsRegressor(**params), matrix, target, kind)
+
+
+class KnnKind(StageKind):
+    """Nearest-neighbour regression of the residuals."""
+
+    name: ClassVar[str] = "knn"
+    summary: ClassVar[str] = "k nearest neighbours on standardised features: local averages of the residuals"
+    defaults: ClassVar[dict[str, Any]] = {
+        "n_neighbors": 10, "weights": "uniform", "p": 2, "algorithm": "auto", "leaf_size": 30,
+    }
+    main_params: ClassVar[tuple[str, ...]] = ("n_neighbors", "weights")
+
+    def fit(self, request: FitRequest, params: dict[str, Any]) -> NeighboursModel:
+        """Return the k-NN model fit to the residuals on the standardised design."""
+        check_has_features(request.X, self.name)
+        design = LinearDesign.fit(request.X, request.columns)
+        matrix = design.transform(request.X)
+        if matrix.shape[1] == 0:
+            raise StageSpecError(f"kind {self.name!r}: its features have no value in the fitting rows")
+        target = np.asarray(request.residual, dtype=np.float64).copy()
+        estimator = fit_neighbours(matrix, target, params, self.name)
+        return NeighboursModel(design, estimator, matrix, target, dict(params))
+
+    def save(self, learner: NeighboursModel) -> Artifact:
+        """Return the fitting rows' design and residuals as npz, the design and params in ``meta``."""
+        buffer = io.BytesIO()
+        np.savez(buffer, matrix=learner.matrix, target=learner.target)
+        meta = {"design": learner.design.to_dict(), "params": dict(learner.params)}
+        return Artifact("npz", buffer.getvalue(), meta)
+
+    def load(self, artifact: Artifact) -> NeighboursModel:
+        """Return the model in ``artifact``, refitting the neighbour search on the stored rows."""
+        if artifact.fmt != "npz":
+            raise ChainFileError(f"knn stage artifact must be npz, not {artifact.fmt}")
+        try:
+            with np.load(io.BytesIO(artifact.payload), allow_pickle=False) as stored:
+                matrix = np.asarray(stored["matrix"], dtype=np.float64)
+                target = np.asarray(stored["target"], dtype=np.float64)
+            design = LinearDesign.from_dict(artifact.meta["design"])
+            params = {**self.defaults, **dict(artifact.meta["params"])}
+        except (OSError, ValueError, KeyError, TypeError) as exc:
+            raise ChainFileError(f"knn stage artifact is not valid ({exc!r})") from None
+        if matrix.ndim != 2 or matrix.shape != (len(target), design.width):
+            raise ChainFileError("knn stage artifact: stored rows do not match its design")
+        unknown = sorted(set(params) - set(self.defaults))
+        if unknown:
+            raise ChainFileError(f"knn stage artifact has an unknown parameter {unknown[0]!r}")
+        try:
+            estimator = fit_neighbours(matrix, target, params, self.name)
+        except StageSpecError as exc:
+            raise ChainFileError(f"knn stage artifact cannot be refit ({exc})") from None
+        return NeighboursModel(design, estimator, matrix, target, params)
+
+
+KNN = register(KnnKind())

@@ -1,0 +1,197 @@
+"""The ``linear``, ``ridge`` and ``lasso`` kinds: least squares on the shared linear design.
+
+Each fits scikit-learn's estimator of the same name to the residuals on the imputed,
+standardised, one-hot encoded design (see ``design.py``), then keeps only its coefficients:
+the learner is ``design.transform(X) @ coef + intercept`` and its artifact is JSON.
+"""
+
+from __future__ import annotations
+
+import json
+from dataclasses import dataclass
+from typing import Any, ClassVar, Protocol
+
+import numpy as np
+
+from ..errors import ChainFileError, StageFitError, StageSpecError
+from . import register
+from .base import Artifact, FitRequest, StageKind, check_has_features
+from .design import LinearDesign, group_sum
+
+
+class Design(Protocol):
+    """What a linear learner needs of its preprocessing."""
+
+    def transform(self, X: np.ndarray) -> np.ndarray:
+        """Return the design matrix of ``X``."""
+
+    def feature_groups(self) -> list[int]:
+        """Return the input column of each design column."""
+
+    def to_dict(self) -> dict[str, Any]:
+        """Return a JSON-ready dict."""
+
+
+@dataclass
+class LinearModel:
+    """A fitted linear stage: its preprocessing, one coefficient per design column, an intercept."""
+
+    design: Design
+    coef: np.ndarray
+    intercept: float
+
+    def predict(self, X: np.ndarray) -> np.ndarray:
+        """Return the stage's output on the rows ``X``: ``design.transform(X) @ coef + intercept``."""
+        return self.design.transform(X) @ self.coef + self.intercept
+
+
+def checked_coefficients(coef: Any, intercept: Any, kind: str) -> tuple[np.ndarray, float]:
+    """Return the coefficients as a float64 vector and the intercept as a float; raise StageFitError if not finite."""
+    coef = np.asarray(coef, dtype=np.float64).ravel()
+    intercept = float(np.asarray(intercept, dtype=np.float64).ravel()[0]) if np.size(intercept) else 0.0
+    if not (np.all(np.isfinite(coef)) and np.isfinite(intercept)):
+        raise StageFitError(f"kind {kind!r} produced coefficients that are not finite numbers")
+    return coef, intercept
+
+
+def fit_estimator(estimator: Any, matrix: np.ndarray, target: np.ndarray, kind: str) -> Any:
+    """Return ``estimator`` fit to ``matrix`` and ``target``; a rejected parameter value raises StageSpecError."""
+    from sklearn.utils._param_validation import InvalidParameterError
+
+    try:
+        return estimator.fit(matrix, target)
+    except InvalidParameterError as exc:
+        raise StageSpecError(f"kind {kind!r}: {str(exc).splitlines()[0]}") from None
+
+
+def linear_importance(model: LinearModel, n_columns: int) -> np.ndarray:
+    """Return |coef| per design column summed per input column."""
+    return group_sum(np.abs(model.coef), model.design.feature_groups(), n_columns)
+
+
+def dump_linear(model: LinearModel, estimator: str) -> Artifact:
+    """Return a linear learner as a JSON artifact (design, coefficients, intercept, estimator name)."""
+    body = {
+        "estimator": estimator,
+        "design": model.design.to_dict(),
+        "coef": [float(c) for c in model.coef],
+        "intercept": float(model.intercept),
+    }
+    return Artifact("json", json.dumps(body).encode())
+
+
+def read_linear(artifact: Artifact, estimator: str) -> tuple[dict[str, Any], np.ndarray, float]:
+    """Return the design dict, coefficients and intercept of a JSON artifact written for ``estimator``.
+
+    Raise ChainFileError when the artifact is not JSON, was written by another kind, or is
+    incomplete.
+    """
+    if artifact.fmt != "json":
+        raise ChainFileError(f"{estimator} stage artifact must be json, not {artifact.fmt}")
+    try:
+        body = json.loads(artifact.payload)
+        found = body["estimator"]
+        coef = np.asarray([float(c) for c in body["coef"]], dtype=np.float64)
+        design, intercept = body["design"], float(body["intercept"])
+    except (ValueError, KeyError, TypeError) as exc:
+        raise ChainFileError(f"{estimator} stage artifact is not valid ({exc!r})") from None
+    if found != estimator:
+        raise ChainFileError(f"{estimator} stage artifact was written by kind {found!r}")
+    return design, coef, intercept
+
+
+def load_linear(artifact: Artifact, estimator: str) -> LinearModel:
+    """Return the LinearModel (with a LinearDesign) stored in a JSON artifact for ``estimator``."""
+    design_dict, coef, intercept = read_linear(artifact, estimator)
+    design = LinearDesign.from_dict(design_dict)
+    if len(coef) != design.width:
+        raise ChainFileError(f"{estimator} stage artifact has {len(coef)} coefficients for {design.width} design columns")
+    return LinearModel(design, coef, intercept)
+
+
+class LinearFamilyKind(StageKind):
+    """Shared fitting for the least-squares kinds: build the design, fit the estimator, keep coefficients."""
+
+    def make_estimator(self, params: dict[str, Any], request: FitRequest) -> Any:
+        """Return the unfitted scikit-learn estimator for ``params``."""
+        raise NotImplementedError
+
+    def fit(self, request: FitRequest, params: dict[str, Any]) -> LinearModel:
+        """Return the linear model fit to the residuals on the shared design."""
+        check_has_features(request.X, self.name)
+        design = LinearDesign.fit(request.X, request.columns)
+        matrix = design.transform(request.X)
+        target = np.asarray(request.residual, dtype=np.float64)
+        if matrix.shape[1] == 0:  # e.g. a categorical column with no value in the fitting rows
+            intercept = float(np.mean(target)) if params.get("fit_intercept", True) else 0.0
+            return LinearModel(design, np.zeros(0), intercept)
+        estimator = self.make_estimator(params, request)
+        fit_estimator(estimator, matrix, target, self.name)
+        coef, intercept = checked_coefficients(estimator.coef_, estimator.intercept_, self.name)
+        return LinearModel(design, coef, intercept)
+
+    def save(self, learner: LinearModel) -> Artifact:
+        """Return the model as JSON."""
+        return dump_linear(learner, self.name)
+
+    def load(self, artifact: Artifact) -> LinearModel:
+        """Return the model stored in ``artifact``."""
+        return load_linear(artifact, self.name)
+
+    def importance(self, learner: LinearModel, columns) -> np.ndarray:
+        """Return |coef| on the standardised design, summed per input column."""
+        return linear_importance(learner, len(columns))
+
+
+class LinearKind(LinearFamilyKind):
+    """Ordinary least squares (scikit-learn's LinearRegression)."""
+
+    name: ClassVar[str] = "linear"
+    summary: ClassVar[str] = "least squares on all features (imputed, standardised, one-hot)"
+    defaults: ClassVar[dict[str, Any]] = {"fit_intercept": True}
+    main_params: ClassVar[tuple[str, ...]] = ("fit_intercept",)
+
+    def make_estimator(self, params: dict[str, Any], request: FitRequest) -> Any:
+        """Return a LinearRegression."""
+        from sklearn.linear_model import LinearRegression
+
+        return LinearRegression(**params)
+
+
+class RidgeKind(LinearFamilyKind):
+    """Least squares with an L2 penalty (scikit-learn's Ridge)."""
+
+    name: ClassVar[str] = "ridge"
+    summary: ClassVar[str] = "least squares with an L2 penalty (alpha) on standardised features"
+    defaults: ClassVar[dict[str, Any]] = {"alpha": 1.0, "fit_intercept": True, "solver": "auto"}
+    main_params: ClassVar[tuple[str, ...]] = ("alpha",)
+
+    def make_estimator(self, params: dict[str, Any], request: FitRequest) -> Any:
+        """Return a Ridge."""
+        from sklearn.linear_model import Ridge
+
+        return Ridge(**params)
+
+
+class LassoKind(LinearFamilyKind):
+    """Least squares with an L1 penalty (scikit-learn's Lasso): some coefficients become exactly zero."""
+
+    name: ClassVar[str] = "lasso"
+    summary: ClassVar[str] = "least squares with an L1 penalty (alpha): drops weak features"
+    defaults: ClassVar[dict[str, Any]] = {
+        "alpha": 1.0, "max_iter": 1000, "tol": 1e-4, "fit_intercept": True, "selection": "cyclic",
+    }
+    main_params: ClassVar[tuple[str, ...]] = ("alpha", "selection")
+
+    def make_estimator(self, params: dict[str, Any], request: FitRequest) -> Any:
+        """Return a Lasso; with ``selection="random"`` it draws from the chain's stream."""
+        from sklearn.linear_model import Lasso
+
+        # only random selection uses the stream, so a cyclic lasso leaves it untouched
+        stream = request.random_state if params.get("selection") == "random" else None
+        return Lasso(random_state=stream, **params)
+
+
+LINEAR = register(LinearKind())
+RIDGE = register(RidgeKind())
+LASSO = register(LassoKind())

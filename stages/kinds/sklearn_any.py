@@ -1,0 +1,165 @@
+"""The ``sklearn:<module>.<Class>`` kinds: any scikit-learn regressor, named by its import path.
+
+The regressor is fit to the residuals on the shared linear design (imputed, standardised,
+one-hot). Its artifact is skops; on load only the regressor's own class and the scikit-learn,
+NumPy and SciPy types skops reports are trusted, anything else is refused.
+"""
+
+from __future__ import annotations
+
+import importlib
+import inspect
+from dataclasses import dataclass
+from typing import Any, ClassVar
+
+import numpy as np
+
+from ..errors import ChainFileError, StageSpecError
+from . import SKLEARN_PREFIX, skops_io
+from .base import Artifact, FitRequest, StageKind, check_has_features
+from .design import LinearDesign, group_sum
+from .linear import fit_estimator
+
+#: modules whose types a skops artifact of this kind may hold besides the regressor itself
+TRUSTED_MODULE_PREFIXES = ("sklearn.", "numpy.", "scipy.")
+
+_SCALARS = (bool, int, float, str, type(None))
+
+
+@dataclass
+class SklearnModel:
+    """A fitted stage of any scikit-learn regressor: the linear design and the fitted estimator."""
+
+    design: LinearDesign
+    estimator: Any
+
+    def predict(self, X: np.ndarray) -> np.ndarray:
+        """Return the estimator's prediction on the design of the rows ``X``."""
+        if X.shape[0] == 0:
+            return np.zeros(0)
+        return np.asarray(self.estimator.predict(self.design.transform(X)), dtype=np.float64).ravel()
+
+
+def import_regressor(path: str) -> type:
+    """Return the regressor class at ``path`` (``sklearn.<module>.<Class>``); raise StageSpecError otherwise."""
+    from sklearn.base import is_regressor
+
+    module_name, _, class_name = path.rpartition(".")
+    if not module_name.startswith("sklearn.") or not class_name:
+        raise StageSpecError(
+            f"only scikit-learn regressors can be named by path; {path!r} is not in scikit-learn "
+            f"(write {SKLEARN_PREFIX}sklearn.<module>.<Class>, e.g. {SKLEARN_PREFIX}sklearn.svm.SVR)"
+        )
+    try:
+        module = importlib.import_module(module_name)
+    except ImportError:
+        raise StageSpecError(f"scikit-learn has no module {module_name!r} (in kind {SKLEARN_PREFIX}{path})") from None
+    cls = getattr(module, class_name, None)
+    if not inspect.isclass(cls):
+        raise StageSpecError(f"scikit-learn module {module_name!r} has no class {class_name!r}")
+    try:
+        instance = cls()
+    except Exception:
+        raise StageSpecError(f"{path!r} cannot be built without arguments, so it cannot be a stage") from None
+    if not is_regressor(instance):
+        raise StageSpecError(f"{path!r} is not a regressor (a stage fits residuals, so it needs one)")
+    return cls
+
+
+def class_path(cls: type) -> str:
+    """Return the module-qualified name skops reports for ``cls``."""
+    return f"{cls.__module__}.{cls.__qualname__}"
+
+
+class SklearnKind(StageKind):
+    """A stage of one scikit-learn regressor class; build it with ``SklearnKind.for_path``."""
+
+    name: ClassVar[str] = SKLEARN_PREFIX
+    summary: ClassVar[str] = "any scikit-learn regressor, by import path"
+    _cache: ClassVar[dict[str, SklearnKind]] = {}
+
+    def __init__(self, path: str, cls: type) -> None:
+        self.path = path
+        self.cls = cls
+        self.name = f"{SKLEARN_PREFIX}{path}"  # type: ignore[misc]  # one kind instance per path
+        shallow = cls().get_params(deep=False)
+        order = [p for p in inspect.signature(cls.__init__).parameters if p in shallow]
+        # defaults the form can show; random_state is left out so an unset one comes from the stream
+        self.defaults = {  # type: ignore[misc]
+            k: shallow[k] for k in order if k != "random_state" and isinstance(shallow[k], _SCALARS)
+        }
+        self.main_params = tuple(k for k in order if k != "random_state")[:3]  # type: ignore[misc]
+        self._accepted = set(cls().get_params(deep=True))
+
+    @classmethod
+    def for_path(cls, path: str) -> SklearnKind:
+        """Return the kind for the regressor at ``path``, built once per path; raise StageSpecError if it is not one."""
+        if path not in cls._cache:
+            cls._cache[path] = cls(path, import_regressor(path))
+        return cls._cache[path]
+
+    def accepted_params(self) -> set[str] | None:
+        """Return the estimator's own parameter names (nested ones included, as set_params takes them)."""
+        return set(self._accepted)
+
+    def fit(self, request: FitRequest, params: dict[str, Any]) -> SklearnModel:
+        """Return the regressor fit to the residuals on the linear design."""
+        check_has_features(request.X, self.name)
+        design = LinearDesign.fit(request.X, request.columns)
+        matrix = design.transform(request.X)
+        if matrix.shape[1] == 0:
+            raise StageSpecError(f"kind {self.name!r}: its features have no value in the fitting rows")
+        estimator = self.cls()
+        from_stream = "random_state" in self._accepted and "random_state" not in params
+        settings = {**params, "random_state": request.random_state} if from_stream else dict(params)
+        try:
+            estimator.set_params(**settings)
+        except ValueError as exc:
+            raise StageSpecError(f"kind {self.name!r}: {str(exc).splitlines()[0]}") from None
+        fit_estimator(estimator, matrix, np.asarray(request.residual, dtype=np.float64), self.name)
+        if from_stream:
+            estimator.set_params(random_state=None)  # the fitted model must not hold the chain's stream
+        return SklearnModel(design, estimator)
+
+    def save(self, learner: SklearnModel) -> Artifact:
+        """Return the estimator as skops, with the design and the class path in ``meta``."""
+        meta = {"design": learner.design.to_dict(), "estimator": self.path}
+        return Artifact("skops", skops_io.dump(learner.estimator), meta)
+
+    def load(self, artifact: Artifact) -> SklearnModel:
+        """Return the model in ``artifact``; raise ChainFileError for an untrusted type or another class."""
+        if artifact.fmt != "skops":
+            raise ChainFileError(f"{self.name} stage artifact must be skops, not {artifact.fmt}")
+        estimator = skops_io.load(artifact.payload, self.trusted_types(artifact.payload))
+        if type(estimator) is not self.cls:
+            raise ChainFileError(f"{self.name} stage artifact holds a {type(estimator).__name__}, not a {self.cls.__name__}")
+        try:
+            design = LinearDesign.from_dict(artifact.meta["design"])
+        except (KeyError, TypeError) as exc:
+            raise ChainFileError(f"{self.name} stage artifact has no valid design ({exc!r})") from None
+        return SklearnModel(design, estimator)
+
+    def trusted_types(self, payload: bytes) -> tuple[str, ...]:
+        """Return the types to trust in ``payload``: this kind's class and scikit-learn, NumPy, SciPy types."""
+        import skops.io as sio
+
+        try:
+            found = sio.get_untrusted_types(data=payload)
+        except Exception as exc:  # skops raises several kinds on damaged data
+            raise ChainFileError(f"{self.name} stage artifact is not a readable skops file ({exc})") from None
+        internal = [t for t in found if t.startswith(TRUSTED_MODULE_PREFIXES)]
+        return (class_path(self.cls), *internal)
+
+    def importance(self, learner: SklearnModel, columns) -> np.ndarray | None:
+        """Return the estimator's feature_importances_ or |coef_| summed per input column, else None."""
+        estimator = learner.estimator
+        values = getattr(estimator, "feature_importances_", None)
+        if values is None:
+            values = getattr(estimator, "coef_", None)
+        if values is None:
+            return None
+        values = np.abs(np.asarray(values, dtype=np.float64)).ravel()
+        groups = learner.design.feature_groups()
+        if len(values) != len(groups):
+            return None
+        return group_sum(values, groups, len(columns))

@@ -1,0 +1,72 @@
+"""The ``tree`` kind: one regression tree (scikit-learn's exact CART), leaves refined for the loss.
+
+With float32 features and the chain's single random stream, a
+chain of tree stages reproduces scikit-learn's gradient boosting stage for stage.
+"""
+
+from __future__ import annotations
+
+from typing import Any, ClassVar
+
+import numpy as np
+
+from . import register, skops_io
+from .base import Artifact, FitRequest, StageKind, check_has_features
+
+
+def refine_tree_leaves(tree: Any, X: np.ndarray, request: FitRequest) -> None:
+    """Set each leaf of a fitted scikit-learn tree to the loss's optimal value on its rows."""
+    loss = request.loss
+    context = loss.refinement_context(request.y, request.raw)
+    if loss.leaf_value(request.y[:1], request.raw[:1], request.residual[:1], context) is None:
+        return
+    leaves = tree.apply(X.astype(np.float32))
+    values = tree.tree_.value
+    order = np.argsort(leaves, kind="stable")
+    boundaries = np.flatnonzero(np.diff(leaves[order])) + 1
+    for rows in np.split(order, boundaries):
+        leaf = leaves[rows[0]]
+        values[leaf, 0, 0] = loss.leaf_value(request.y[rows], request.raw[rows], request.residual[rows], context)
+
+
+class TreeKind(StageKind):
+    """A single decision tree fit to the residuals."""
+
+    name: ClassVar[str] = "tree"
+    summary: ClassVar[str] = "one regression tree (exact splits), leaves set for the loss"
+    defaults: ClassVar[dict[str, Any]] = {
+        "max_depth": 3, "min_samples_leaf": 1, "min_samples_split": 2, "criterion": "squared_error",
+        "max_features": None, "max_leaf_nodes": None, "min_impurity_decrease": 0.0, "ccp_alpha": 0.0,
+        "min_weight_fraction_leaf": 0.0,
+    }
+    main_params: ClassVar[tuple[str, ...]] = ("max_depth", "min_samples_leaf")
+    refines_leaves: ClassVar[bool] = True
+
+    def fit(self, request: FitRequest, params: dict[str, Any]) -> Any:
+        """Return a DecisionTreeRegressor fit to the residuals, with leaves refined for the loss."""
+        from sklearn.tree import DecisionTreeRegressor
+
+        check_has_features(request.X, self.name)
+        tree = DecisionTreeRegressor(splitter="best", random_state=request.random_state, **params)
+        tree.fit(request.X.astype(np.float32), request.residual)
+        return tree
+
+    def refine(self, learner: Any, request: FitRequest) -> None:
+        """Set each leaf to the loss's optimal value (median for absolute, Newton step for log loss)."""
+        refine_tree_leaves(learner, request.X, request)
+
+    def save(self, learner: Any) -> Artifact:
+        """Return the tree as a skops artifact."""
+        learner.random_state = None  # the chain's stream is not part of the fitted model
+        return Artifact("skops", skops_io.dump(learner))
+
+    def load(self, artifact: Artifact) -> Any:
+        """Return the tree stored in ``artifact``."""
+        return skops_io.load(artifact.payload)
+
+    def importance(self, learner: Any, columns) -> np.ndarray:
+        """Return the tree's impurity-based importances."""
+        return np.asarray(learner.feature_importances_, dtype=np.float64)
+
+
+register(TreeKind())

@@ -1,0 +1,106 @@
+"""A fitted chain reduced to what predicting needs: schema, loss, start value and stages."""
+
+from __future__ import annotations
+
+import warnings
+from dataclasses import dataclass, field
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+from .losses import Loss
+from .schema import Schema
+from .spec import StageSpec
+
+
+class UnseenLevelsWarning(UserWarning):
+    """Category levels never seen in training reached a prediction (handled as missing)."""
+
+
+@dataclass(frozen=True, eq=False)
+class FittedStage:
+    """One stage of a fitted chain: its learner, the scale of its output, and its columns."""
+
+    spec: StageSpec
+    params: dict[str, Any]
+    learner: Any
+    scale: float
+    feature_index: tuple[int, ...]
+    scores: dict[str, Any] = field(default_factory=dict)
+    fit_seconds: float = 0.0
+
+    @property
+    def kind(self) -> str:
+        """Return the stage's kind name."""
+        return self.spec.kind
+
+
+@dataclass(eq=False)
+class FittedChain:
+    """A chain ready to predict: ``predict`` and, for binary chains, ``predict_proba``."""
+
+    schema: Schema
+    loss: Loss
+    start: float
+    stages: list[FittedStage]
+    meta: dict[str, Any] = field(default_factory=dict)
+    start_scores: dict[str, Any] = field(default_factory=dict)
+
+    @property
+    def task(self) -> str:
+        """Return "regression" or "binary"."""
+        return self.schema.task
+
+    def raw_from_matrix(self, matrix: np.ndarray, upto: int | None = None) -> np.ndarray:
+        """Return the raw output (log-odds for binary) of the first ``upto`` stages on a schema matrix."""
+        raw = np.full(matrix.shape[0], self.start, dtype=np.float64)
+        n_all = len(self.schema.columns)
+        for stage in self.stages[:upto]:
+            cols = stage.feature_index
+            X = matrix if cols == tuple(range(n_all)) else matrix[:, list(cols)]
+            raw = raw + stage.scale * np.asarray(stage.learner.predict(X), dtype=np.float64)
+        return raw
+
+    def encode(self, frame: pd.DataFrame, *, source: str = "data") -> np.ndarray:
+        """Return the schema matrix of ``frame``, warning once with the count of unseen levels."""
+        matrix, unseen = self.schema.encode(frame, source=source)
+        if unseen:
+            detail = ", ".join(f"{name!r}: {count:,}" for name, count in unseen.items())
+            warnings.warn(f"{source}: category levels never seen in training were treated as missing ({detail})",
+                          UnseenLevelsWarning, stacklevel=3)
+        return matrix
+
+    def predict_raw(self, frame: pd.DataFrame, *, source: str = "data") -> np.ndarray:
+        """Return the raw output for every row of ``frame``, in its order."""
+        return self.raw_from_matrix(self.encode(frame, source=source))
+
+    def predict(self, frame: pd.DataFrame, *, threshold: float = 0.5, source: str = "data") -> np.ndarray:
+        """Return predictions: values for regression, class labels for binary chains (positive at ``threshold``)."""
+        raw = self.predict_raw(frame, source=source)
+        if self.task != "binary":
+            return raw
+        positive = self.loss.link(raw) >= threshold
+        return np.where(positive, _label(self.schema.classes[1]), _label(self.schema.classes[0]))
+
+    def predict_proba(self, frame: pd.DataFrame, *, source: str = "data") -> np.ndarray:
+        """Return an (n, 2) array of class probabilities, negative class first (binary chains only)."""
+        if self.task != "binary":
+            raise TypeError("predict_proba is for binary chains; this chain is a regression")
+        p = self.loss.link(self.predict_raw(frame, source=source))
+        return np.column_stack([1.0 - p, p])
+
+    def as_estimator(self):
+        """Return this chain as a fitted scikit-learn estimator (regressor or classifier)."""
+        from .estimator import wrap_fitted
+
+        return wrap_fitted(self)
+
+
+def _label(text: str) -> Any:
+    """Return a class label as an int when it is written as one, else as the text."""
+    try:
+        number = float(text)
+    except ValueError:
+        return text
+    return int(number) if number.is_integer() else number

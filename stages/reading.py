@@ -1,0 +1,225 @@
+"""Reading data files: CSV (delimiter sniffed, UTF-8, compressed) and Parquet, with clear errors.
+
+``read_table`` reads CSV (``.csv``, ``.tsv``, ``.txt``, ``.csv.gz``/``.bz2``/``.xz`` and any unknown
+extension) and Parquet (``.parquet``, ``.pq``). The CSV delimiter is sniffed among
+``, ; TAB |``; text must be UTF-8 (a byte-order mark is removed). Every problem a user
+can fix is a ``DataError`` whose one-line message names the file, the column and the value.
+"""
+
+from __future__ import annotations
+
+import bz2
+import codecs
+import csv
+import gzip
+import io
+import lzma
+import os
+import re
+import warnings
+from collections import Counter
+from collections.abc import Sequence
+from pathlib import Path
+
+import pandas as pd
+
+from .errors import DataError
+
+EXCLUDED = "excluded"
+TASKS = ("regression", "binary")
+MAX_LEVELS = 1_000
+ID_MIN_ROWS = 20
+DATE_SAMPLE = 500
+DATE_SHARE = 0.95
+
+_PARQUET_SUFFIXES = (".parquet", ".pq")
+_COMPRESSION = {".gz": ("gzip", gzip.open), ".bz2": ("bz2", bz2.open), ".xz": ("xz", lzma.open)}
+_DELIMITERS = ",;\t|"
+_SNIFF_BYTES = 64 * 1024
+_MAX_HEADER_BYTES = 64 * 1024 * 1024
+_TRUE_WORDS = {"true", "yes"}
+_FALSE_WORDS = {"false", "no"}
+_POSITIVE_WORDS = ("1", "true", "yes", "y", "positive")
+
+
+
+def source_name(path: str | os.PathLike) -> str:
+    """Return the name used for ``path`` in messages: the file's name, never an absolute path."""
+    text = os.fspath(path)
+    return Path(text).name or text
+
+
+def load_frame(source: str | os.PathLike | pd.DataFrame) -> tuple[pd.DataFrame, str]:
+    """Return the frame of ``source`` (a file or a DataFrame) and the name to use in messages."""
+    if isinstance(source, pd.DataFrame):
+        return source, "frame"
+    return read_table(source), source_name(source)
+
+
+def read_table(path: str | os.PathLike) -> pd.DataFrame:
+    """Return the table in a CSV or Parquet file; raise DataError for anything unusable.
+
+    Parquet is chosen by extension (``.parquet``, ``.pq``) or by its magic bytes; every
+    other file is read as delimited text.
+    """
+    name = source_name(path)
+    file = Path(os.fspath(path))
+    head = _check_readable(file, name)
+    if file.suffix.lower() in _PARQUET_SUFFIXES or head == b"PAR1":
+        frame = _read_parquet(file, name)
+        kind = "column names"
+    else:
+        frame = _read_csv(file, name)
+        kind = "a header"
+    if frame.shape[1] == 0:
+        raise DataError(f"{name}: the file has no columns")
+    if len(frame) == 0:
+        raise DataError(f"{name}: the file has {kind} but no rows")
+    return frame
+
+
+def _check_readable(file: Path, name: str) -> bytes:
+    """Return the first four bytes of ``file``, raising DataError if it cannot be read."""
+    try:
+        if not file.exists():
+            raise DataError(f"{name}: no such file")
+        if file.is_dir():
+            raise DataError(f"{name}: is a folder, not a data file")
+        with open(file, "rb") as handle:
+            head = handle.read(4)
+    except PermissionError:
+        raise DataError(f"{name}: permission denied (the file cannot be read)") from None
+    except OSError as err:
+        raise DataError(f"{name}: cannot be read ({err.strerror or err})") from None
+    if not head:
+        raise DataError(f"{name}: the file is empty")
+    return head
+
+
+def _read_parquet(file: Path, name: str) -> pd.DataFrame:
+    import pyarrow as pa
+    import pyarrow.parquet as pq
+
+    try:
+        schema = pq.read_schema(file)
+    except (pa.ArrowException, OSError, ValueError):
+        raise DataError(f"{name}: is not a valid Parquet file") from None
+    for field in schema:
+        if pa.types.is_nested(field.type):
+            raise DataError(f"{name}: column {field.name!r} holds nested values ({field.type}); "
+                            "each cell must be one plain value")
+    check_duplicates(schema.names, name)
+    try:
+        frame = pq.read_table(file).to_pandas()
+    except (pa.ArrowException, OSError, ValueError) as err:
+        raise DataError(f"{name}: cannot read the Parquet file ({_first_line(err)})") from None
+    if not isinstance(frame.index, pd.RangeIndex):
+        frame = frame.reset_index(drop=all(n is None for n in frame.index.names))
+    return frame
+
+
+def _read_csv(file: Path, name: str) -> pd.DataFrame:
+    compression, opener = _COMPRESSION.get(file.suffix.lower(), (None, open))
+    sample = _text_sample(file, name, opener)
+    if not sample.strip():
+        raise DataError(f"{name}: the file is empty")
+    delimiter = _sniff_delimiter(sample, default="\t" if ".tsv" in file.suffixes else ",")
+    header = next(csv.reader(io.StringIO(sample), delimiter=delimiter), [])
+    check_duplicates(header, name)
+    try:
+        with warnings.catch_warnings(record=True) as caught:
+            warnings.simplefilter("always", pd.errors.ParserWarning)
+            frame = pd.read_csv(file, sep=delimiter, encoding="utf-8-sig", compression=compression,
+                                low_memory=False, index_col=False)
+    except UnicodeDecodeError:
+        raise DataError(_not_utf8_message(file, name, opener)) from None
+    except pd.errors.EmptyDataError:
+        raise DataError(f"{name}: the file is empty") from None
+    except pd.errors.ParserError as err:
+        raise DataError(f"{name}: {_parser_problem(str(err))}") from None
+    except (OSError, ValueError, EOFError) as err:
+        raise DataError(f"{name}: cannot be read as CSV ({_first_line(err)})") from None
+    if any("Length of header" in str(w.message) for w in caught):
+        raise DataError(f"{name}: the rows have more fields than the header ({frame.shape[1]} names)")
+    return frame
+
+
+def _text_sample(file: Path, name: str, opener) -> str:
+    """Return the decoded start of the file: at least 64 KiB, and at least two whole lines."""
+    decoder = codecs.getincrementaldecoder("utf-8")()
+    parts: list[str] = []
+    offset = 0
+    try:
+        with opener(file, "rb") as handle:
+            while offset < _MAX_HEADER_BYTES:
+                block = handle.read(_SNIFF_BYTES)
+                if not block:
+                    break
+                try:
+                    parts.append(decoder.decode(block, final=False))
+                except UnicodeDecodeError as err:
+                    raise DataError(_utf8_error(name, block, offset + err.start, err.start)) from None
+                offset += len(block)
+                if sum(p.count("\n") for p in parts) >= 2 or sum(p.count("\r") for p in parts) >= 2:
+                    break
+    except (OSError, EOFError) as err:
+        raise DataError(f"{name}: cannot be read ({_first_line(err)})") from None
+    return "".join(parts).removeprefix("\ufeff")
+
+
+def _not_utf8_message(file: Path, name: str, opener) -> str:
+    """Return the message naming the byte offset of the first byte that is not UTF-8."""
+    decoder = codecs.getincrementaldecoder("utf-8")()
+    offset = 0
+    with opener(file, "rb") as handle:
+        while block := handle.read(1 << 20):
+            try:
+                decoder.decode(block, final=False)
+            except UnicodeDecodeError as err:
+                return _utf8_error(name, block, offset + err.start, err.start)
+            offset += len(block)
+    return f"{name}: the text is not UTF-8 (it ends inside a character); save it as UTF-8"
+
+
+def _utf8_error(name: str, block: bytes, offset: int, start: int) -> str:
+    return f"{name}: the text is not UTF-8 (byte 0x{block[start]:02x} at offset {offset}); save it as UTF-8"
+
+
+def _sniff_delimiter(sample: str, default: str) -> str:
+    """Return the delimiter csv.Sniffer finds among ``, ; TAB |``, or ``default``."""
+    cut = max(sample.rfind("\n"), sample.rfind("\r"))
+    text = sample[:cut] if cut > 0 else sample
+    try:
+        found = csv.Sniffer().sniff(text, delimiters=_DELIMITERS).delimiter
+    except csv.Error:
+        return default
+    first_line = text.splitlines()[0] if text else ""
+    if found not in first_line and default in first_line:
+        return default
+    return found
+
+
+def check_duplicates(names: Sequence[object], source: str) -> None:
+    counts = Counter(str(n) for n in names)
+    for column in counts:
+        if counts[column] > 1 and column.strip():
+            raise DataError(f"{source}: column {column!r} appears twice in the header")
+
+
+def _parser_problem(message: str) -> str:
+    """Return a short phrase for a pandas parser error, naming the line."""
+    fields = re.search(r"Expected (\d+) fields in line (\d+), saw (\d+)", message)
+    if fields:
+        expected, line, saw = fields.groups()
+        return f"line {line} has {saw} fields, but the header has {expected}"
+    quote = re.search(r"EOF inside string starting at row (\d+)", message)
+    if quote:
+        return f"a quote opened on line {int(quote.group(1)) + 1} is never closed"
+    line = re.search(r"line (\d+)", message)
+    where = f" near line {line.group(1)}" if line else ""
+    return f"cannot be parsed as CSV{where} ({_first_line(message)})"
+
+
+def _first_line(err: object) -> str:
+    lines = str(err).strip().splitlines()
+    return lines[-1] if lines else type(err).__name__

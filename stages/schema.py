@@ -1,0 +1,170 @@
+"""The feature schema: which columns a chain uses, their roles, and how a frame becomes a matrix.
+
+Every stage kind reads one shared representation of the data: a float64 matrix with one
+column per feature, in schema order. Numeric and boolean columns are their values (NaN for
+missing); categorical columns are integer codes into the levels seen at fit time (NaN for a
+missing value or a level never seen). Keeping one matrix keeps memory near the size of the
+data whatever the number of stages.
+"""
+
+from __future__ import annotations
+
+from dataclasses import asdict, dataclass, field
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+from .errors import SchemaError
+
+NUMERIC = "numeric"
+CATEGORICAL = "categorical"
+BOOLEAN = "boolean"
+DATETIME = "datetime"
+ROLES = (NUMERIC, CATEGORICAL, BOOLEAN, DATETIME)
+FEATURE_ROLES = (NUMERIC, CATEGORICAL, BOOLEAN)
+
+
+@dataclass(frozen=True)
+class ColumnInfo:
+    """One feature column: its name, role, the dtype it was read with and, for categories, its levels."""
+
+    name: str
+    role: str
+    dtype: str
+    levels: tuple[str, ...] = ()
+
+    @property
+    def is_categorical(self) -> bool:
+        """Return True when the column holds category codes."""
+        return self.role == CATEGORICAL
+
+    def to_dict(self) -> dict[str, Any]:
+        """Return a JSON-ready dict of this column."""
+        out = asdict(self)
+        out["levels"] = list(self.levels)
+        return out
+
+    @classmethod
+    def from_dict(cls, data: dict[str, Any]) -> ColumnInfo:
+        """Return the column described by ``data`` (the output of ``to_dict``)."""
+        return cls(data["name"], data["role"], data["dtype"], tuple(data.get("levels", ())))
+
+
+@dataclass(frozen=True)
+class Schema:
+    """The features of a chain, in matrix order, and its target.
+
+    ``task`` is ``"regression"`` or ``"binary"``; for binary chains ``classes`` holds the
+    negative then the positive class as strings, as they appeared in the data.
+    """
+
+    columns: tuple[ColumnInfo, ...]
+    target: str
+    task: str = "regression"
+    classes: tuple[str, ...] = ()
+    notes: tuple[str, ...] = field(default=(), compare=False)
+
+    @property
+    def names(self) -> list[str]:
+        """Return the feature names in matrix order."""
+        return [c.name for c in self.columns]
+
+    @property
+    def positive_class(self) -> str | None:
+        """Return the positive class of a binary chain, else None."""
+        return self.classes[1] if len(self.classes) == 2 else None
+
+    def index_of(self, names: list[str] | tuple[str, ...]) -> list[int]:
+        """Return the matrix column indices of ``names``; raise SchemaError for an unknown one."""
+        lookup = {c.name: i for i, c in enumerate(self.columns)}
+        missing = [n for n in names if n not in lookup]
+        if missing:
+            raise SchemaError(f"feature {missing[0]!r} is not among the chain's features")
+        return [lookup[n] for n in names]
+
+    def subset(self, indices: list[int]) -> tuple[ColumnInfo, ...]:
+        """Return the column infos at ``indices``."""
+        return tuple(self.columns[i] for i in indices)
+
+    def encode(self, frame: pd.DataFrame, *, source: str = "data") -> tuple[np.ndarray, dict[str, int]]:
+        """Return the float64 feature matrix of ``frame`` and the count of unseen levels per column.
+
+        Columns not in the schema are ignored. A missing column, or a column whose type
+        no longer fits its role, raises SchemaError naming the column.
+        """
+        missing = [c.name for c in self.columns if c.name not in frame.columns]
+        if missing:
+            raise SchemaError(f"{source}: column {missing[0]!r} is missing (the chain was fit with it)")
+        matrix = np.empty((len(frame), len(self.columns)), dtype=np.float64)
+        unseen: dict[str, int] = {}
+        for j, col in enumerate(self.columns):
+            matrix[:, j], count = encode_column(frame[col.name], col, source=source)
+            if count:
+                unseen[col.name] = count
+        return matrix, unseen
+
+    def to_dict(self) -> dict[str, Any]:
+        """Return a JSON-ready dict of the schema."""
+        return {
+            "target": self.target,
+            "task": self.task,
+            "classes": list(self.classes),
+            "columns": [c.to_dict() for c in self.columns],
+        }
+
+    @classmethod
+    def from_dict(cls, data: dict[str, Any]) -> Schema:
+        """Return the schema described by ``data`` (the output of ``to_dict``)."""
+        return cls(
+            columns=tuple(ColumnInfo.from_dict(c) for c in data["columns"]),
+            target=data["target"],
+            task=data.get("task", "regression"),
+            classes=tuple(data.get("classes", ())),
+        )
+
+
+def encode_column(values: pd.Series, col: ColumnInfo, *, source: str = "data") -> tuple[np.ndarray, int]:
+    """Return one column as float64 for the matrix, and how many of its values were unseen levels."""
+    if col.role == CATEGORICAL:
+        as_text = values.astype("string")
+        codes = pd.Categorical(as_text, categories=list(col.levels)).codes.astype(np.float64)
+        unseen = int(((codes < 0) & as_text.notna().to_numpy()).sum())
+        codes[codes < 0] = np.nan
+        return codes, unseen
+    if col.role == BOOLEAN:
+        return _encode_boolean(values, col, source), 0
+    numeric = pd.to_numeric(values, errors="coerce")
+    bad = numeric.isna() & values.notna()
+    if bad.any():
+        first = int(np.flatnonzero(bad.to_numpy())[0])
+        raise SchemaError(
+            f"{source}: column {col.name!r} was numeric when the chain was fit, "
+            f"but row {first + 1} holds {values.iloc[first]!r}"
+        )
+    return numeric.to_numpy(dtype=np.float64, na_value=np.nan), 0
+
+
+_TRUE = {"true", "1", "yes", "y", "t", "1.0"}
+_FALSE = {"false", "0", "no", "n", "f", "0.0"}
+
+
+def _encode_boolean(values: pd.Series, col: ColumnInfo, source: str) -> np.ndarray:
+    if pd.api.types.is_bool_dtype(values) or pd.api.types.is_numeric_dtype(values):
+        out = pd.to_numeric(values, errors="coerce").to_numpy(dtype=np.float64, na_value=np.nan)
+        bad = ~np.isnan(out) & (out != 0) & (out != 1)
+        if bad.any():
+            first = int(np.flatnonzero(bad)[0])
+            raise SchemaError(f"{source}: column {col.name!r} is boolean but row {first + 1} holds {out[first]!r}")
+        return out
+    text = values.astype("string").str.strip().str.lower()
+    out = np.full(len(values), np.nan)
+    is_true = text.isin(_TRUE).to_numpy(dtype=bool, na_value=False)
+    is_false = text.isin(_FALSE).to_numpy(dtype=bool, na_value=False)
+    out[is_true] = 1.0
+    out[is_false] = 0.0
+    bad = ~(is_true | is_false) & text.notna().to_numpy()
+    if bad.any():
+        first = int(np.flatnonzero(bad)[0])
+        raise SchemaError(f"{source}: column {col.name!r} is boolean but row {first + 1} holds {values.iloc[first]!r}")
+    return out

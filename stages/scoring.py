@@ -1,0 +1,127 @@
+"""Scores per stage, overfit and best-stage flags, residual histograms, and permutation importance."""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from .losses import Loss
+from .metrics import HIGHER_IS_BETTER
+from .tracks import Layout
+
+
+@dataclass(frozen=True)
+class Scores:
+    """Metrics of one chain state: ``train`` and ``valid`` dicts, per-fold validation, and test once revealed."""
+
+    train: dict[str, float]
+    valid: dict[str, float]
+    fold_valid: tuple[float, ...] = ()
+    test: dict[str, float] = field(default_factory=dict)
+
+    def to_dict(self) -> dict:
+        """Return a JSON-ready dict of the scores."""
+        out = {"train": self.train, "valid": self.valid}
+        if self.fold_valid:
+            out["fold_valid"] = list(self.fold_valid)
+        if self.test:
+            out["test"] = self.test
+        return out
+
+
+def validation_raw(layout: Layout, outputs: tuple[np.ndarray, ...]) -> np.ndarray:
+    """Return the raw output on the validation rows: holdout rows, or out-of-fold rows in chain order."""
+    if not layout.is_kfold:
+        return outputs[0][layout.valid]
+    assembled = np.empty(layout.n_train, dtype=np.float64)
+    for track, output in zip(layout.tracks[1:], outputs[1:], strict=True):
+        assembled[track.evaluate] = output[track.evaluate]
+    return assembled
+
+
+def validation_y(layout: Layout, y: np.ndarray) -> np.ndarray:
+    """Return the targets of the validation rows, in the order ``validation_raw`` uses."""
+    return y[: layout.n_train] if layout.is_kfold else y[layout.valid]
+
+
+def score_state(loss: Loss, layout: Layout, y: np.ndarray, outputs: tuple[np.ndarray, ...], threshold: float = 0.5) -> Scores:
+    """Return train, validation and per-fold scores for one set of track outputs."""
+    train = loss.scores(y[layout.train], outputs[0][layout.train], threshold)
+    valid_y = validation_y(layout, y)
+    if len(valid_y):
+        valid = loss.scores(valid_y, validation_raw(layout, outputs), threshold)
+    else:  # every row fits (no validation part): nothing to score
+        valid = {name: float("nan") for name in train}
+    folds: tuple[float, ...] = ()
+    if layout.is_kfold:
+        folds = tuple(
+            loss.scores(y[track.evaluate], output[track.evaluate], threshold)[loss.primary]
+            for track, output in zip(layout.tracks[1:], outputs[1:], strict=True)
+        )
+    return Scores(train, valid, folds)
+
+
+def test_scores(loss: Loss, layout: Layout, y: np.ndarray, output: np.ndarray, threshold: float = 0.5) -> dict[str, float]:
+    """Return the scores of the main track on the locked test rows."""
+    return loss.scores(y[layout.test], output[layout.test], threshold)
+
+
+def better(metric: str, new: float, old: float) -> bool:
+    """Return True when ``new`` is strictly better than ``old`` for ``metric``."""
+    if not (np.isfinite(new) and np.isfinite(old)):
+        return False
+    return new > old if HIGHER_IS_BETTER.get(metric, False) else new < old
+
+
+def overfit_flags(metric: str, scores: list[Scores]) -> list[bool]:
+    """Return, per row, whether train improved while validation got worse against the row before."""
+    flags = [False]
+    for prev, cur in zip(scores, scores[1:], strict=False):
+        flags.append(better(metric, cur.train[metric], prev.train[metric])
+                     and better(metric, prev.valid[metric], cur.valid[metric]))
+    return flags
+
+
+def best_row(metric: str, scores: list[Scores]) -> int:
+    """Return the row (0 is the start value) with the best validation score; the earliest on ties."""
+    best = 0
+    for i, s in enumerate(scores):
+        if better(metric, s.valid[metric], scores[best].valid[metric]):
+            best = i
+    return best
+
+
+def histogram(values: list[np.ndarray], bins: int | str = "auto", max_bins: int = 60) -> tuple[list[np.ndarray], np.ndarray]:
+    """Return counts per array over shared bin edges (numpy's bin rule on all values, at most ``max_bins``)."""
+    finite = [v[np.isfinite(v)] for v in values]
+    pooled = np.concatenate(finite) if finite else np.array([0.0])
+    if pooled.size == 0:
+        pooled = np.array([0.0])
+    edges = np.histogram_bin_edges(pooled, bins=bins)
+    if len(edges) - 1 > max_bins:
+        edges = np.histogram_bin_edges(pooled, bins=max_bins)
+    return [np.histogram(v, bins=edges)[0] for v in finite], edges
+
+
+def permutation_importance(
+    predict, X: np.ndarray, y: np.ndarray, base_raw: np.ndarray, loss: Loss,
+    *, sample: int = 2000, repeats: int = 3, seed: int = 0,
+) -> np.ndarray:
+    """Return per feature the mean rise in loss when that feature's column is shuffled.
+
+    ``predict(X)`` is the stage's scaled output; ``base_raw`` the chain's raw output before
+    the stage. At most ``sample`` rows are used, drawn with ``seed``.
+    """
+    rng = np.random.RandomState(seed)
+    if len(y) > sample:
+        rows = np.sort(rng.choice(len(y), size=sample, replace=False))
+        X, y, base_raw = X[rows], y[rows], base_raw[rows]
+    reference = loss.value(y, base_raw + predict(X))
+    rises = np.zeros(X.shape[1])
+    for j in range(X.shape[1]):
+        shuffled = X.copy()
+        for _ in range(repeats):
+            shuffled[:, j] = X[rng.permutation(len(y)), j]
+            rises[j] += loss.value(y, base_raw + predict(shuffled)) - reference
+    return np.maximum(rises / repeats, 0.0)

@@ -1,0 +1,63 @@
+"""The stage table: one row per stage (row 0 is the start value), as a pandas DataFrame."""
+
+from __future__ import annotations
+
+from typing import TYPE_CHECKING
+
+import numpy as np
+import pandas as pd
+
+from . import scoring
+
+if TYPE_CHECKING:
+    from .chain import Chain
+
+#: the second metric shown beside the one the chain is judged by
+SECONDARY = {"regression": "r2", "binary": "auc"}
+
+
+def fold_spread(values: tuple[float, ...]) -> float:
+    """Return the standard error of per-fold scores (std with ddof=1 over sqrt(k)); NaN for fewer than 2."""
+    if len(values) < 2:
+        return float("nan")
+    return float(np.std(values, ddof=1) / np.sqrt(len(values)))
+
+
+def stage_table(chain: Chain) -> pd.DataFrame:
+    """Return the chain's stage table: kind, shrinkage, features, scores, change, seconds and flags."""
+    metric = chain.metric
+    second = SECONDARY[chain.task]
+    scores = chain.scores()
+    flags = scoring.overfit_flags(metric, scores)
+    best = scoring.best_row(metric, scores)
+    n_features = len(chain.schema.columns)
+    rows = []
+    for i, s in enumerate(scores):
+        stage = chain.stages[i - 1] if i else None
+        row = {
+            "stage": i,
+            "kind": stage.kind if stage else "start",
+            "shrinkage": stage.spec.shrinkage if stage else np.nan,
+            "features": _features(stage, n_features),
+            f"train_{metric}": s.train[metric],
+            f"valid_{metric}": s.valid[metric],
+            "change": s.valid[metric] - scores[i - 1].valid[metric] if i else np.nan,
+            f"valid_{second}": s.valid.get(second, np.nan),
+            "seconds": stage.fit_seconds if stage else 0.0,
+            "overfit": flags[i],
+            "best": i == best,
+        }
+        if chain.layout.is_kfold:
+            row["fold_spread"] = fold_spread(s.fold_valid)
+        if chain.test_revealed:
+            row[f"test_{metric}"] = s.test.get(metric, np.nan)
+        rows.append(row)
+    return pd.DataFrame(rows)
+
+
+def _features(stage, n_features: int) -> str:
+    if stage is None:
+        return ""
+    if not stage.spec.features or len(stage.feature_index) == n_features:
+        return "all"
+    return ",".join(stage.spec.features)
