@@ -117,12 +117,10 @@ def _explain(exc: BaseException, number: int, spec: StageSpec) -> BaseException:
     where = f"stage {number} ({spec.kind})"
     if isinstance(exc, FitCancelled):
         return FitCancelled(f"{where}: fit cancelled")
-    if isinstance(exc, StageFitError):
-        return exc
     if isinstance(exc, MemoryError):
         return StageFitError(f"{where}: ran out of memory while fitting")
     if isinstance(exc, RemnantError):
-        return type(exc)(f"{where}: {exc}")
+        return exc if str(exc).startswith("stage ") else type(exc)(f"{where}: {exc}")
     if isinstance(exc, KeyboardInterrupt | SystemExit):
         return exc
     reason = str(exc).strip().splitlines()[0] if str(exc).strip() else type(exc).__name__

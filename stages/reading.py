@@ -223,3 +223,23 @@ def _parser_problem(message: str) -> str:
 def _first_line(err: object) -> str:
     lines = str(err).strip().splitlines()
     return lines[-1] if lines else type(err).__name__
+
+
+def read_options(path: str | os.PathLike) -> tuple[str, dict[str, object]]:
+    """Return how ``read_table`` reads ``path``: ``("parquet", {})``, or ``("csv", options)`` with the
+    ``pandas.read_csv`` options it uses (sep, encoding, compression, index_col), for reading in chunks.
+
+    Raise DataError for a missing, empty or unreadable file, or a header naming a column twice.
+    """
+    name = source_name(path)
+    file = Path(os.fspath(path))
+    head = _check_readable(file, name)
+    if file.suffix.lower() in _PARQUET_SUFFIXES or head == b"PAR1":
+        return "parquet", {}
+    compression, opener = _COMPRESSION.get(file.suffix.lower(), (None, open))
+    sample = _text_sample(file, name, opener)
+    if not sample.strip():
+        raise DataError(f"{name}: the file is empty")
+    delimiter = _sniff_delimiter(sample, default="\t" if ".tsv" in file.suffixes else ",")
+    check_duplicates(next(csv.reader(io.StringIO(sample), delimiter=delimiter), []), name)
+    return "csv", {"sep": delimiter, "encoding": "utf-8-sig", "compression": compression, "index_col": False}
