@@ -75,13 +75,20 @@ class FittedChain:
         """Return the raw output for every row of ``frame``, in its order."""
         return self.raw_from_matrix(self.encode(frame, source=source))
 
-    def predict(self, frame: pd.DataFrame, *, threshold: float = 0.5, source: str = "data") -> np.ndarray:
-        """Return predictions: values for regression, class labels for binary chains (positive at ``threshold``)."""
+    @property
+    def threshold(self) -> float:
+        """Return the probability at or above which a binary chain predicts the positive class."""
+        return float(self.meta.get("threshold", 0.5))
+
+    def predict(self, frame: pd.DataFrame, *, threshold: float | None = None, source: str = "data") -> np.ndarray:
+        """Return predictions: values for regression, class labels for binary chains (positive at ``threshold``,
+        by default the chain's own)."""
         raw = self.predict_raw(frame, source=source)
         if self.task != "binary":
             return raw
+        threshold = self.threshold if threshold is None else threshold
         positive = self.loss.link(raw) >= threshold
-        return np.where(positive, _label(self.schema.classes[1]), _label(self.schema.classes[0]))
+        return np.where(positive, class_label(self.schema.classes[1]), class_label(self.schema.classes[0]))
 
     def predict_proba(self, frame: pd.DataFrame, *, source: str = "data") -> np.ndarray:
         """Return an (n, 2) array of class probabilities, negative class first (binary chains only)."""
@@ -97,7 +104,7 @@ class FittedChain:
         return wrap_fitted(self)
 
 
-def _label(text: str) -> Any:
+def class_label(text: str) -> Any:
     """Return a class label as an int when it is written as one, else as the text."""
     try:
         number = float(text)

@@ -128,10 +128,11 @@ def encode_column(values: pd.Series, col: ColumnInfo, *, source: str = "data") -
     """Return one column as float64 for the matrix, and how many of its values were unseen levels."""
     if col.role == CATEGORICAL:
         as_text = values.astype("string")
-        codes = pd.Categorical(as_text, categories=list(col.levels)).codes.astype(np.float64)
-        unseen = int(((codes < 0) & as_text.notna().to_numpy()).sum())
+        known = as_text.isin(col.levels).to_numpy(dtype=bool, na_value=False)
+        present = as_text.notna().to_numpy(dtype=bool)
+        codes = pd.Categorical(as_text.where(known), categories=list(col.levels)).codes.astype(np.float64)
         codes[codes < 0] = np.nan
-        return codes, unseen
+        return codes, int((present & ~known).sum())
     if col.role == BOOLEAN:
         return _encode_boolean(values, col, source), 0
     numeric = pd.to_numeric(values, errors="coerce")

@@ -44,7 +44,7 @@ class MeanKind(StageKind):
 
     def save(self, learner: Constant) -> Artifact:
         """Return the constant as JSON."""
-        return Artifact("json", json.dumps({"value": learner.value}).encode())
+        return Artifact("json", json.dumps({"value": learner.value}, allow_nan=False).encode())
 
     def load(self, artifact: Artifact) -> Constant:
         """Return the constant stored in ``artifact``."""

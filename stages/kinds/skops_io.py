@@ -26,8 +26,13 @@ def dump(obj: Any) -> bytes:
     return sio.dumps(obj)
 
 
-def load(payload: bytes, extra_trusted: tuple[str, ...] = ()) -> Any:
-    """Return the object in ``payload``; raise ChainFileError when it holds a type not trusted."""
+def load(payload: bytes, extra_trusted: tuple[str, ...] = (), expected: tuple[type, ...] = ()) -> Any:
+    """Return the object in ``payload``; raise ChainFileError when it holds a type not trusted.
+
+    skops trusts scikit-learn's own estimators by default, so ``expected`` names the classes
+    the top-level object may be; any other estimator is refused after loading (loading a
+    trusted scikit-learn type runs no code from the file).
+    """
     import skops.io as sio
 
     trusted = set(TRUSTED_TYPES) | set(extra_trusted)
@@ -39,6 +44,10 @@ def load(payload: bytes, extra_trusted: tuple[str, ...] = ()) -> Any:
     if refused:
         raise ChainFileError(f"stage artifact holds a type that is not trusted: {refused[0]}")
     try:
-        return sio.loads(payload, trusted=sorted(set(found)))
+        obj = sio.loads(payload, trusted=sorted(set(found)))
     except Exception as exc:
         raise ChainFileError(f"stage artifact could not be loaded ({exc})") from None
+    if expected and type(obj) not in expected:
+        names = ", ".join(cls.__name__ for cls in expected)
+        raise ChainFileError(f"stage artifact holds a {type(obj).__name__}, expected {names}")
+    return obj

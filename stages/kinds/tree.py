@@ -6,6 +6,7 @@ chain of tree stages reproduces scikit-learn's gradient boosting stage for stage
 
 from __future__ import annotations
 
+import copy
 from typing import Any, ClassVar
 
 import numpy as np
@@ -57,12 +58,15 @@ class TreeKind(StageKind):
 
     def save(self, learner: Any) -> Artifact:
         """Return the tree as a skops artifact."""
-        learner.random_state = None  # the chain's stream is not part of the fitted model
-        return Artifact("skops", skops_io.dump(learner))
+        stored = copy.copy(learner)
+        stored.random_state = None  # the chain's stream is not part of the fitted model
+        return Artifact("skops", skops_io.dump(stored))
 
     def load(self, artifact: Artifact) -> Any:
         """Return the tree stored in ``artifact``."""
-        return skops_io.load(artifact.payload)
+        from sklearn.tree import DecisionTreeRegressor
+
+        return skops_io.load(artifact.payload, expected=(DecisionTreeRegressor,))
 
     def importance(self, learner: Any, columns) -> np.ndarray:
         """Return the tree's impurity-based importances."""
