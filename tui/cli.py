@@ -1,0 +1,373 @@
+"""The ``remnant`` command: headless verbs (fit, predict, show, demo --headless) and the workbench.
+
+Exit status: 0 done; 2 bad input or usage (one ``error:`` line on stderr, no traceback);
+1 an internal fault. Nothing heavy is imported at module level, so ``remnant --help``
+answers at once: each command imports the engine (pandas, scikit-learn, LightGBM) itself.
+"""
+
+from __future__ import annotations
+
+import argparse
+import contextlib
+import os
+import sys
+import time
+from pathlib import Path
+from typing import IO, Any, NoReturn
+
+CAUTION = ("caution: these scores come from the data the chain was fit and validated on; before relying "
+           "on it, score data it never saw, and check for leakage and drift")
+DEFAULT_CHUNK_ROWS = 100_000
+
+
+class UsageError(Exception):
+    """Bad input the command line found itself (exit status 2); ``str(err)`` is the message."""
+
+
+# ----------------------------------------------------------------------------- parser
+
+
+class _Parser(argparse.ArgumentParser):
+    """An argument parser whose usage errors are one ``error:`` line and exit status 2."""
+
+    def error(self, message: str) -> NoReturn:
+        """Print one error line naming the command's help, then exit with status 2."""
+        self.exit(2, f"error: {message} (see '{self.prog} --help')\n")
+
+
+class _Version(argparse.Action):
+    """Print the installed version; looked up only when asked for."""
+
+    def __init__(self, option_strings: list[str], dest: str = argparse.SUPPRESS, **kwargs: Any) -> None:
+        super().__init__(option_strings, dest, nargs=0, default=argparse.SUPPRESS, **kwargs)
+
+    def __call__(self, parser: argparse.ArgumentParser, *args: Any, **kwargs: Any) -> None:
+        from importlib import metadata
+
+        try:
+            version = metadata.version("remnant")
+        except metadata.PackageNotFoundError:
+            version = "unknown (not installed)"
+        sys.stdout.write(f"remnant {version}\n")
+        parser.exit(0)
+
+
+def _positive(text: str) -> int:
+    try:
+        value = int(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"{text!r} is not a whole number") from None
+    if value < 1:
+        raise argparse.ArgumentTypeError(f"must be at least 1, not {value}")
+    return value
+
+
+def _add_format(command: argparse.ArgumentParser) -> None:
+    command.add_argument("--format", choices=("table", "csv"), default="table",
+                         help="the stage table as aligned text (default) or as CSV")
+
+
+_RAW = argparse.RawDescriptionHelpFormatter
+_DEMO = """Open the workbench on the built-in demo data (refrigerated deliveries) with
+its demo chain started. With --headless, fit the demo recipe without a screen
+and print the stage table."""
+_EXPLORE = """Open the workbench on a CSV or Parquet file. Given a chain file (.chain),
+open it read-only."""
+_FIT = """Fit a TOML recipe without a screen, print the stage table and write the
+chain file.
+
+example:
+  remnant fit houses.toml --data houses_2025.csv --out houses.chain"""
+_PREDICT = """Predict every row of DATA with a chain file and write CSV: column 'prediction',
+and 'probability' for a binary chain; one row per input row, in input order.
+The data is read in chunks, so files larger than memory can be scored.
+
+example:
+  remnant predict houses.chain new.parquet --id listing_id --out scores.csv"""
+_SHOW = """Print a chain file's settings, its stage table (the scores stored when it was
+saved) and its schema. With --format csv, only the stage table, as CSV."""
+
+
+def build_parser() -> argparse.ArgumentParser:
+    """Return the parser of the ``remnant`` command and its subcommands."""
+    parser = _Parser(prog="remnant", description="Build residual chains: a start value, then stages each "
+                     "fit to what the chain so far gets wrong.",
+                     epilog="Run 'remnant COMMAND --help' for the options of a command.")
+    parser.add_argument("--version", action=_Version, help="print the version and exit")
+    commands = parser.add_subparsers(dest="command", metavar="COMMAND", required=True, parser_class=_Parser)
+    _add_workbench_commands(commands)
+    _add_headless_commands(commands)
+    return parser
+
+
+def _add_workbench_commands(commands: Any) -> None:
+    demo = commands.add_parser("demo", help="the workbench on the built-in delivery data", description=_DEMO,
+                               formatter_class=_RAW)
+    demo.add_argument("--headless", action="store_true", help="fit the demo recipe and print the stage table")
+    _add_format(demo)
+    demo.set_defaults(run=run_demo)
+    explore = commands.add_parser("explore", help="the workbench on a CSV or Parquet file (or a chain file)",
+                                  description=_EXPLORE, formatter_class=_RAW)
+    explore.add_argument("data", metavar="DATA", help="a CSV or Parquet file, or a .chain file")
+    explore.add_argument("--target", metavar="COL", help="the column to predict")
+    explore.set_defaults(run=run_explore)
+
+
+def _add_headless_commands(commands: Any) -> None:
+    fit = commands.add_parser("fit", help="fit a recipe, print the stage table, write the chain file",
+                              description=_FIT, formatter_class=_RAW)
+    fit.add_argument("recipe", metavar="RECIPE", help="the TOML recipe")
+    fit.add_argument("--data", metavar="DATA", help="fit on this CSV or Parquet file instead of the recipe's")
+    fit.add_argument("--out", metavar="CHAIN", required=True,
+                     help="the chain file to write (replaced only when the new one is complete)")
+    _add_format(fit)
+    fit.set_defaults(run=run_fit)
+    predict = commands.add_parser("predict", help="write predictions of a chain file as CSV",
+                                  description=_PREDICT, formatter_class=_RAW)
+    predict.add_argument("chain", metavar="CHAIN", help="a chain file written by 'remnant fit' or the workbench")
+    predict.add_argument("data", metavar="DATA", help="a CSV or Parquet file with the chain's feature columns")
+    predict.add_argument("--out", metavar="FILE", help="write here instead of to standard output")
+    predict.add_argument("--id", metavar="COL", help="copy this column first into the output")
+    predict.add_argument("--chunk-rows", metavar="N", type=_positive, default=DEFAULT_CHUNK_ROWS,
+                         help=f"rows read at a time (default {DEFAULT_CHUNK_ROWS:,})")
+    predict.set_defaults(run=run_predict)
+    show = commands.add_parser("show", help="print a chain file's stages, scores and schema", description=_SHOW,
+                               formatter_class=_RAW)
+    show.add_argument("chain", metavar="CHAIN", help="a chain file")
+    _add_format(show)
+    show.set_defaults(run=run_show)
+
+
+# ----------------------------------------------------------------------------- main
+
+
+def main(argv: list[str] | None = None) -> int:
+    """Run the ``remnant`` command with ``argv`` (default: the process's arguments); return the exit status."""
+    try:
+        args = build_parser().parse_args(argv)
+    except SystemExit as done:  # --help, --version and usage errors
+        return done.code if isinstance(done.code, int) else 0
+    return _run(args)
+
+
+def _run(args: argparse.Namespace) -> int:
+    import warnings
+
+    from stages.errors import RemnantError
+
+    shown: set[str] = set()
+
+    def show_warning(message: Any, category: Any, *rest: Any, **kwargs: Any) -> None:
+        line = _one_line(str(message))
+        if line not in shown:
+            shown.add(line)
+            print(f"warning: {line}", file=sys.stderr)
+
+    try:
+        with warnings.catch_warnings():
+            warnings.showwarning = show_warning
+            return args.run(args)
+    except (RemnantError, UsageError) as err:
+        return _fail(str(err))
+    except BrokenPipeError:  # the reader of standard output went away (e.g. `| head`)
+        _silence_stdout()
+        return 0
+    except OSError as err:
+        where = f"{err.filename}: " if err.filename else ""
+        return _fail(f"{where}{err.strerror or err}")
+    except KeyboardInterrupt:
+        _fail("interrupted; nothing was written")
+        return 130
+
+
+def _fail(message: str) -> int:
+    print(f"error: {_one_line(message)}", file=sys.stderr)
+    return 2
+
+
+def _one_line(text: str) -> str:
+    return " ".join(text.split()) or "(no message)"
+
+
+def _silence_stdout() -> None:
+    devnull = os.open(os.devnull, os.O_WRONLY)
+    with contextlib.suppress(OSError, ValueError):
+        os.dup2(devnull, sys.stdout.fileno())
+
+
+# ----------------------------------------------------------------------------- helpers
+
+
+def demo_folder() -> Path:
+    """Return the folder of the built-in demo data and recipes."""
+    import tui
+
+    return Path(tui.__file__).resolve().parent.parent / "demo"
+
+
+def _same_file(a: str | os.PathLike, b: str | os.PathLike) -> bool:
+    try:
+        return os.path.samefile(a, b)
+    except OSError:
+        return os.path.realpath(a) == os.path.realpath(b)
+
+
+def check_out(out: str, inputs: dict[str, str | os.PathLike | None]) -> None:
+    """Raise UsageError when ``out`` is one of the inputs, a folder, or in a folder that does not exist."""
+    for what, path in inputs.items():
+        if path is not None and _same_file(out, path):
+            raise UsageError(f"--out {out} is the {what}; choose another file (nothing was written)")
+    if os.path.isdir(out):
+        raise UsageError(f"--out {out} is a folder; give a file name")
+    folder = os.path.dirname(os.path.abspath(out))
+    if not os.path.isdir(folder):
+        raise UsageError(f"--out {out}: the folder {os.path.dirname(out) or folder} does not exist")
+
+
+class Progress:
+    """Progress of a fit as one rewritten line on a terminal's stderr; silent elsewhere."""
+
+    def __init__(self, stream: IO[str]) -> None:
+        self.stream = stream
+        self.active = stream.isatty()
+        self.last = 0.0
+        self.drawn = False
+
+    def __call__(self, fraction: float, message: str = "") -> None:
+        """Redraw the line at most ten times a second."""
+        now = time.monotonic()
+        if not self.active or (now - self.last < 0.1 and fraction < 1):
+            return
+        self.last = now
+        width = max(20, _terminal_width() - 1)
+        self.stream.write("\r" + f"{fraction * 100:3.0f}%  {message}"[:width].ljust(width))
+        self.stream.flush()
+        self.drawn = True
+
+    def clear(self) -> None:
+        """Remove the progress line, if one was drawn."""
+        if self.drawn:
+            self.stream.write("\r" + " " * (_terminal_width() - 1) + "\r")
+            self.stream.flush()
+            self.drawn = False
+
+
+def _terminal_width() -> int:
+    import shutil
+
+    return shutil.get_terminal_size((80, 24)).columns
+
+
+def print_table(table: Any, fmt: str) -> None:
+    """Print a stage table to stdout as aligned text or CSV."""
+    from tui.table_text import format_csv, format_table
+
+    sys.stdout.write(format_csv(table) if fmt == "csv" else format_table(table))
+    sys.stdout.flush()
+
+
+def _fit_and_print(recipe: Any, data: str | None, fmt: str) -> Any:
+    from stages.recipe import fit_recipe
+
+    progress = Progress(sys.stderr)
+    try:
+        chain = fit_recipe(recipe, data=data, progress=progress)
+    finally:
+        progress.clear()
+    for note in chain.notes:
+        print(f"note: {_one_line(note)}", file=sys.stderr)
+    return chain
+
+
+# ----------------------------------------------------------------------------- commands
+
+
+def run_fit(args: argparse.Namespace) -> int:
+    """Fit a recipe, write the chain file, print the stage table; return 0."""
+    from stages import store
+    from stages.recipe import read_recipe
+
+    recipe = read_recipe(args.recipe)
+    check_out(args.out, {"recipe": args.recipe, "input data file": args.data or recipe.data_path})
+    chain = _fit_and_print(recipe, args.data, args.format)
+    store.save(chain, args.out)
+    print_table(chain.table(), args.format)
+    print(CAUTION, file=sys.stderr)
+    print(f"saved {args.out} ({len(chain)} stages)", file=sys.stderr)
+    return 0
+
+
+def run_demo(args: argparse.Namespace) -> int:
+    """Fit the demo recipe and print its table (--headless), or open the workbench on the demo."""
+    folder = demo_folder()
+    recipe_path = folder / "deliveries.toml"
+    if not args.headless:
+        return _open_app(data_path=str(folder / "deliveries.csv"), recipe_path=str(recipe_path))
+    from stages.recipe import read_recipe
+
+    chain = _fit_and_print(read_recipe(recipe_path), None, args.format)
+    print_table(chain.table(), args.format)
+    print(CAUTION, file=sys.stderr)
+    return 0
+
+
+def run_explore(args: argparse.Namespace) -> int:
+    """Open the workbench on a data file, or read-only on a chain file."""
+    path = args.data
+    if not os.path.exists(path):
+        raise UsageError(f"{path}: no such file")
+    if os.path.isdir(path):
+        raise UsageError(f"{path}: is a folder, not a data file")
+    if _is_chain_file(path):
+        if args.target:
+            raise UsageError("--target is for data files; a chain file knows its target")
+        return _open_app(chain_path=path)
+    return _open_app(data_path=path, target=args.target)
+
+
+def _is_chain_file(path: str) -> bool:
+    if path.lower().endswith(".chain"):
+        return True
+    with open(path, "rb") as handle:
+        return handle.read(4) == b"PK\x03\x04"
+
+
+def _open_app(**kwargs: Any) -> int:
+    try:
+        from tui.app import run
+    except ImportError as err:
+        print(f"error: the workbench cannot start ({err})", file=sys.stderr)
+        return 1
+    return int(run(**kwargs) or 0)
+
+
+def run_show(args: argparse.Namespace) -> int:
+    """Print a chain file's settings, stage table and schema; return 0."""
+    from stages import store
+    from tui.table_text import describe_chain, describe_schema, fitted_table
+
+    fitted = store.load(args.chain)
+    table = fitted_table(fitted)
+    if args.format == "csv":
+        print_table(table, "csv")
+        return 0
+    sys.stdout.write(describe_chain(args.chain, fitted) + "\n")
+    print_table(table, "table")
+    sys.stdout.write("\n" + describe_schema(fitted))
+    return 0
+
+
+def run_predict(args: argparse.Namespace) -> int:
+    """Write predictions of a chain file for every row of a data file; return 0."""
+    from stages import store
+    from tui.predicting import write_predictions
+
+    if args.out is not None:
+        check_out(args.out, {"input data file": args.data, "chain file": args.chain})
+    fitted = store.load(args.chain)
+    write_predictions(fitted, args.data, args.out, id_column=args.id, chunk_rows=args.chunk_rows)
+    return 0
+
+
+if __name__ == "__main__":
+    raise SystemExit(main())

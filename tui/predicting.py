@@ -1,0 +1,169 @@
+"""Streaming predictions for ``remnant predict``: read a data file in chunks, check each chunk
+against the chain's schema, and write CSV with one row per input row, in input order.
+
+CSV is read with ``pandas.read_csv(chunksize=...)`` using the delimiter ``read_table`` would
+sniff, categorical columns (and the id column) as text so that "007" stays "007"; Parquet with
+``ParquetFile.iter_batches``. Only the chain's columns and the id column are kept in memory.
+"""
+
+from __future__ import annotations
+
+import contextlib
+import os
+import re
+import sys
+import tempfile
+import warnings
+from collections.abc import Iterator
+from typing import IO, Any
+
+import numpy as np
+import pandas as pd
+
+from stages.errors import DataError, SchemaError
+from stages.predictor import FittedChain, UnseenLevelsWarning
+from stages.reading import read_options, source_name
+
+OUTPUT_COLUMNS = ("prediction", "probability")
+
+
+def iter_chunks(path: str, columns: list[str], text_columns: list[str], chunk_rows: int) -> Iterator[pd.DataFrame]:
+    """Yield the file's rows ``chunk_rows`` at a time, keeping only ``columns`` that exist;
+    ``text_columns`` are read as text. Raise DataError for anything unreadable."""
+    name = source_name(path)
+    kind, options = read_options(path)
+    wanted = set(columns)
+    if kind == "parquet":
+        yield from _parquet_chunks(path, name, columns, chunk_rows)
+        return
+    dtype = {column: "string" for column in text_columns}
+    try:
+        with pd.read_csv(path, chunksize=chunk_rows, dtype=dtype, usecols=lambda c: c in wanted,
+                         low_memory=False, **options) as reader:
+            yield from reader
+    except UnicodeDecodeError as err:
+        raise DataError(f"{name}: the text is not UTF-8 ({err.reason}); save it as UTF-8") from None
+    except pd.errors.EmptyDataError:
+        raise DataError(f"{name}: the file is empty") from None
+    except (pd.errors.ParserError, ValueError) as err:
+        raise DataError(f"{name}: {_parser_problem(str(err))}") from None
+
+
+def _parquet_chunks(path: str, name: str, columns: list[str], chunk_rows: int) -> Iterator[pd.DataFrame]:
+    import pyarrow as pa
+    import pyarrow.parquet as pq
+
+    try:
+        file = pq.ParquetFile(path)
+        present = set(file.schema_arrow.names)
+        batches = file.iter_batches(batch_size=chunk_rows, columns=[c for c in columns if c in present])
+        for batch in batches:
+            yield batch.to_pandas()
+    except (pa.ArrowException, OSError) as err:
+        raise DataError(f"{name}: cannot read the Parquet file ({_first_line(err)})") from None
+
+
+def _parser_problem(message: str) -> str:
+    fields = re.search(r"Expected (\d+) fields in line (\d+), saw (\d+)", message)
+    if fields:
+        expected, line, saw = fields.groups()
+        return f"line {line} has {saw} fields, but the header has {expected}"
+    return f"cannot be parsed as CSV ({_first_line(message)})"
+
+
+def _first_line(err: object) -> str:
+    lines = str(err).strip().splitlines()
+    return lines[-1] if lines else type(err).__name__
+
+
+def predict_chunk(fitted: FittedChain, chunk: pd.DataFrame, *, threshold: float, id_column: str | None,
+                  source: str, offset: int = 0) -> tuple[pd.DataFrame, dict[str, int]]:
+    """Return the output rows of one chunk (id, prediction, probability) and its unseen levels per column.
+
+    ``offset`` is the number of rows before the chunk, so that messages name rows of the whole file.
+    """
+    if id_column is not None and id_column not in chunk.columns:
+        raise DataError(f"{source}: id column {id_column!r} is not a column")
+    try:
+        matrix, unseen = fitted.schema.encode(chunk, source=source)
+    except SchemaError as err:
+        text = re.sub(r"\brow (\d+)", lambda m: f"row {int(m.group(1)) + offset}", str(err))
+        raise SchemaError(text) from None
+    if len(chunk) == 0:  # a header-only file: the columns were checked, there is nothing to predict
+        return pd.DataFrame(), unseen
+    raw = fitted.raw_from_matrix(matrix)
+    out: dict[str, Any] = {}
+    if id_column is not None:
+        out[id_column] = chunk[id_column].to_numpy()
+    if fitted.task == "binary":
+        probability = fitted.loss.link(raw)
+        negative, positive = fitted.schema.classes
+        out["prediction"] = np.where(probability >= threshold, positive, negative)
+        out["probability"] = probability
+    else:
+        out["prediction"] = raw
+    return pd.DataFrame(out), unseen
+
+
+def write_predictions(fitted: FittedChain, data: str, out: str | None, *, id_column: str | None = None,
+                      chunk_rows: int = 100_000) -> int:
+    """Write the predictions of every row of ``data`` as CSV to ``out`` (stdout when None); return the row count.
+
+    ``out`` is written to a temporary file beside it and renamed only when every row is done.
+    """
+    if id_column in OUTPUT_COLUMNS:
+        raise DataError(f"--id {id_column!r} would clash with an output column; the id must have another name")
+    name = source_name(data)
+    schema = fitted.schema
+    columns = schema.names + ([id_column] if id_column and id_column not in schema.names else [])
+    text = [c.name for c in schema.columns if c.is_categorical] + ([id_column] if id_column else [])
+    threshold = float(fitted.meta.get("threshold", 0.5) or 0.5)
+    with _output(out) as handle:
+        rows, unseen = 0, {}
+        for chunk in iter_chunks(data, columns, text, chunk_rows):
+            frame, found = predict_chunk(fitted, chunk, threshold=threshold, id_column=id_column,
+                                         source=name, offset=rows)
+            for column, count in found.items():
+                unseen[column] = unseen.get(column, 0) + count
+            if len(frame):
+                frame.to_csv(handle, index=False, header=rows == 0, lineterminator="\n")
+                rows += len(frame)
+        if rows == 0:
+            raise DataError(f"{name}: the file has a header but no rows")
+    if unseen:
+        detail = ", ".join(f"{column!r}: {count:,}" for column, count in unseen.items())
+        warnings.warn(f"{name}: category levels never seen in training were treated as missing ({detail})",
+                      UnseenLevelsWarning, stacklevel=2)
+    return rows
+
+
+@contextlib.contextmanager
+def _output(out: str | None) -> Iterator[IO[str]]:
+    """Yield stdout, or a temporary file beside ``out`` that replaces ``out`` only on success."""
+    if out is None:
+        yield sys.stdout
+        sys.stdout.flush()
+        return
+    folder = os.path.dirname(os.path.abspath(out))
+    descriptor, temporary = tempfile.mkstemp(prefix=f".{os.path.basename(out)}.", suffix=".tmp", dir=folder)
+    try:
+        with os.fdopen(descriptor, "w", encoding="utf-8", newline="") as handle:
+            yield handle
+            handle.flush()
+            os.fsync(handle.fileno())
+        os.chmod(temporary, _file_mode(out))
+        os.replace(temporary, out)
+    except BaseException:
+        with contextlib.suppress(OSError):
+            os.unlink(temporary)
+        raise
+
+
+def _file_mode(path: str) -> int:
+    """Return the mode a new file at ``path`` gets: the existing file's, else 0o666 less the umask."""
+    try:
+        return os.stat(path).st_mode & 0o7777
+    except OSError:
+        mask = os.umask(0)
+        os.umask(mask)
+        return 0o666 & ~mask

@@ -1,0 +1,228 @@
+"""The stage table as text: aligned columns for a terminal, or CSV for other programs; and a
+loaded chain file's settings and schema as text.
+
+Both read the DataFrame of ``Chain.table()`` (or ``fitted_table`` for a loaded chain file):
+columns ``stage, kind, shrinkage, features, train_<metric>, valid_<metric>, change,
+valid_<second>, seconds, overfit, best`` and, when present, ``fold_spread`` and ``test_<metric>``.
+"""
+
+from __future__ import annotations
+
+import io
+import math
+from typing import TYPE_CHECKING, Any
+
+import pandas as pd
+
+if TYPE_CHECKING:
+    from stages.predictor import FittedChain
+
+SIGNIFICANT = 4
+FEATURES_WIDTH = 24
+
+
+def format_number(value: Any, digits: int = SIGNIFICANT, *, signed: bool = False) -> str:
+    """Return ``value`` with ``digits`` significant digits (never fewer integer digits); "" for NaN."""
+    if value is None or (isinstance(value, float) and math.isnan(value)):
+        return ""
+    number = float(value)
+    if math.isinf(number):
+        return ("+" if signed and number > 0 else "") + ("inf" if number > 0 else "-inf")
+    sign = "+" if signed else ""
+    size = abs(number)
+    if size != 0 and (size >= 1e7 or size < 1e-4):
+        return f"{number:{sign}.{digits - 1}e}"
+    if size == 0:
+        decimals = digits - 1
+    elif size >= 1:
+        decimals = max(0, digits - (math.floor(math.log10(size)) + 1))
+    else:  # leading zeros after the point do not count as significant
+        decimals = digits - math.floor(math.log10(size)) - 1
+    return f"{number:{sign}.{decimals}f}"
+
+
+def _needed_decimals(value: float, digits: int) -> int:
+    size = abs(value)
+    if size >= 1:
+        return max(0, digits - (math.floor(math.log10(size)) + 1))
+    return digits - math.floor(math.log10(size)) - 1
+
+
+def column_decimals(values: list[Any], digits: int = SIGNIFICANT) -> int:
+    """Return the decimals that show every value of a column (from 1e-4 up) with ``digits`` significant digits."""
+    finite = [abs(float(v)) for v in values if v is not None and math.isfinite(float(v))]
+    needed = [_needed_decimals(v, digits) for v in finite if 1e-4 <= v < 1e7]
+    return min(6, max(needed, default=digits - 1))
+
+
+def format_fixed(value: Any, decimals: int, *, signed: bool = False) -> str:
+    """Return ``value`` with ``decimals`` decimals, or in scientific notation when that would
+    show fewer than two significant digits (or the value is 1e7 or more); "" for NaN."""
+    if value is None or math.isnan(float(value)):
+        return ""
+    number, sign = float(value), "+" if signed else ""
+    size = abs(number)
+    if math.isinf(number) or (size != 0 and (size >= 1e7 or size < 10 ** (1 - decimals))):
+        return format_number(number, signed=signed)
+    return f"{number:{sign}.{decimals}f}"
+
+
+def _metric(table: pd.DataFrame) -> str:
+    for column in table.columns:
+        if column.startswith("train_"):
+            return column.removeprefix("train_")
+    raise ValueError("a stage table needs a train_<metric> column")
+
+
+def _columns(table: pd.DataFrame) -> list[tuple[str, str, str]]:
+    """Return (column, header, style) for each shown column; style is text, number, change or seconds."""
+    metric = _metric(table)
+    shown = [("stage", "stage", "int"), ("kind", "kind", "text"), ("shrinkage", "shrink", "shrink"),
+             (f"train_{metric}", f"train {metric}", "number"), (f"valid_{metric}", f"valid {metric}", "number"),
+             ("change", "change", "change")]
+    for column in table.columns:
+        if column.startswith("valid_") and column != f"valid_{metric}":
+            shown.append((column, column.replace("_", " ", 1), "number"))
+    if "fold_spread" in table.columns:
+        shown.append(("fold_spread", "fold se", "number"))
+    if f"test_{metric}" in table.columns:
+        shown.append((f"test_{metric}", f"test {metric}", "number"))
+    shown += [("features", "features", "text"), ("seconds", "secs", "seconds"), ("flags", "flags", "text")]
+    return shown
+
+
+def _cell(value: Any, style: str, decimals: int) -> str:
+    if style == "text":
+        text = "" if value is None or (isinstance(value, float) and math.isnan(value)) else str(value)
+        return text if len(text) <= FEATURES_WIDTH else text[: FEATURES_WIDTH - 3] + "..."
+    if value is None or (isinstance(value, float) and math.isnan(value)):
+        return ""
+    if style == "int":
+        return str(int(value))
+    if style == "shrink":
+        return f"{float(value):g}"
+    if style == "seconds":
+        return f"{float(value):.2f}"
+    return format_fixed(value, decimals, signed=style == "change")
+
+
+def flags_of(row: pd.Series) -> str:
+    """Return the short text flags of one table row: "best", "overfit", or both."""
+    marks = []
+    if bool(row.get("best", False)):
+        marks.append("best")
+    if bool(row.get("overfit", False)):
+        marks.append("overfit")
+    return " ".join(marks)
+
+
+def format_table(table: pd.DataFrame) -> str:
+    """Return the stage table as aligned text: numbers right-aligned, text left-aligned."""
+    table = table.assign(flags=[flags_of(row) for _, row in table.iterrows()])
+    if "seconds" in table.columns:  # the start value takes no fit time: leave its cell empty
+        table["seconds"] = table["seconds"].where(table["kind"] != "start")
+    columns = _columns(table)
+    decimals = {column: column_decimals(list(table[column])) for column, _, style in columns
+                if style in ("number", "change")}
+    cells = [[header for _, header, _ in columns]]
+    for _, row in table.iterrows():
+        cells.append([_cell(row.get(column), style, decimals.get(column, 0)) for column, _, style in columns])
+    widths = [max(len(line[j]) for line in cells) for j in range(len(columns))]
+    lines = []
+    for line in cells:
+        parts = [text.ljust(width) if style == "text" else text.rjust(width)
+                 for text, width, (_, _, style) in zip(line, widths, columns, strict=True)]
+        lines.append("  ".join(parts).rstrip())
+    return "\n".join(lines) + "\n"
+
+
+def format_csv(table: pd.DataFrame) -> str:
+    """Return the stage table as CSV, every number at full precision, flags as true/false."""
+    out = table.copy()
+    for column in ("overfit", "best"):
+        if column in out.columns:
+            out[column] = out[column].map(lambda v: "true" if bool(v) else "false")
+    buffer = io.StringIO()
+    out.to_csv(buffer, index=False, lineterminator="\n")
+    return buffer.getvalue()
+
+
+def fitted_table(fitted: FittedChain) -> pd.DataFrame:
+    """Return the stage table of a loaded chain file, from the scores its manifest stored."""
+    from stages.scoring import Scores, best_row, overfit_flags
+    from stages.table import SECONDARY, fold_spread
+
+    metric, second = fitted.loss.primary, SECONDARY[fitted.task]
+    raw = [fitted.start_scores, *(stage.scores for stage in fitted.stages)]
+    scores = [Scores(dict(s.get("train", {})), dict(s.get("valid", {})), tuple(s.get("fold_valid", ())),
+                     dict(s.get("test", {}))) for s in raw]
+    flags, best = overfit_flags(metric, scores), best_row(metric, scores)
+    kfold = (fitted.meta.get("validation") or {}).get("scheme") == "kfold"
+    tested = any(s.test for s in scores)
+    n_features, rows = len(fitted.schema.columns), []
+    for i, s in enumerate(scores):
+        stage = fitted.stages[i - 1] if i else None
+        row = {
+            "stage": i, "kind": stage.kind if stage else "start",
+            "shrinkage": stage.spec.shrinkage if stage else math.nan,
+            "features": _features(stage, n_features),
+            f"train_{metric}": _get(s.train, metric), f"valid_{metric}": _get(s.valid, metric),
+            "change": _get(s.valid, metric) - _get(scores[i - 1].valid, metric) if i else math.nan,
+            f"valid_{second}": _get(s.valid, second), "seconds": stage.fit_seconds if stage else 0.0,
+            "overfit": flags[i], "best": i == best,
+        }
+        if kfold:
+            row["fold_spread"] = fold_spread(s.fold_valid)
+        if tested:
+            row[f"test_{metric}"] = _get(s.test, metric)
+        rows.append(row)
+    return pd.DataFrame(rows)
+
+
+def _get(scores: dict[str, Any], name: str) -> float:
+    value = scores.get(name)
+    return math.nan if value is None else float(value)
+
+
+def _features(stage: Any, n_features: int) -> str:
+    if stage is None:
+        return ""
+    if not stage.spec.features or len(stage.feature_index) == n_features:
+        return "all"
+    return ",".join(stage.spec.features)
+
+
+def describe_chain(path: str, fitted: Any) -> str:
+    """Return the settings of a loaded chain file, one ``name  value`` line each."""
+    meta, schema = fitted.meta, fitted.schema
+    task = schema.task + (f" (positive class {schema.positive_class!r})" if schema.positive_class else "")
+    rows = meta.get("rows") or {}
+    lines = [("chain file", path), ("target", f"{schema.target!r}, {task}"), ("loss", fitted.loss.name),
+             ("start value", f"{fitted.start:.6g}"), ("validation", _validation_text(meta.get("validation"))),
+             ("seed", str(meta.get("seed"))), ("data", str(meta.get("source") or "")),
+             ("rows", ", ".join(f"{rows[k]:,} {k}" for k in ("train", "valid", "test") if k in rows))]
+    versions = meta.get("versions") or {}
+    if versions:
+        lines.append(("saved with", ", ".join(f"{k} {v}" for k, v in versions.items() if v)))
+    width = max(len(name) for name, _ in lines)
+    return "\n".join(f"{name.ljust(width)}  {value}" for name, value in lines) + "\n"
+
+
+def _validation_text(spec: Any) -> str:
+    from stages.validation import spec_from_dict
+
+    try:
+        return spec_from_dict(dict(spec)).describe()
+    except Exception:  # an older or unusual manifest: show it as stored
+        return str(spec)
+
+
+def describe_schema(fitted: Any) -> str:
+    """Return the chain's feature columns as an aligned table: column, role, dtype, levels."""
+    cells = [("column", "role", "dtype", "levels")]
+    for col in fitted.schema.columns:
+        cells.append((col.name, col.role, col.dtype, str(len(col.levels)) if col.is_categorical else ""))
+    widths = [max(len(row[j]) for row in cells) for j in range(4)]
+    lines = ["  ".join((*(c.ljust(w) for c, w in zip(row[:3], widths, strict=False)), row[3].rjust(widths[3])))
+             .rstrip() for row in cells]
+    return "\n".join(lines) + "\n"
