@@ -404,6 +404,54 @@ class Chain:
 
         return chain_to_recipe(self)
 
+    # ----- deciding the next stage: stages.audition, stages.grow, stages.references ---------
+    def audition(self, specs: list[StageSpec | dict[str, Any]], *, cancel: threading.Event | None = None,
+                 progress: ProgressFn | None = None, workers: int = 2) -> list[Any]:
+        """Return a stages.audition.Candidate per spec (grids expanded), fit side by side; the chain is unchanged."""
+        from .audition import audition
+
+        return audition(self, specs, cancel=cancel, progress=progress, workers=workers)
+
+    def keep(self, candidate: Any) -> Stage:
+        """Commit an auditioned candidate as the next stage with no refit, and return its stage."""
+        from .audition import keep
+
+        return keep(self, candidate)
+
+    def grow(self, kind: str, shrinkage: float = 0.1, **options: Any) -> Any:
+        """Append stages of ``kind`` until validation stops improving, trim to the best; return a GrowResult."""
+        from .grow import grow
+
+        return grow(self, kind, shrinkage, **options)
+
+    def references(self, **options: Any) -> pd.DataFrame:
+        """Return the reference models' scores on this chain's split (see stages.references)."""
+        from .references import reference_scores
+
+        return reference_scores(self, **options)
+
+    def _restore(self, stages: list[Stage], removals: list[tuple[str, list[Stage]]], streams: tuple[Any, ...],
+                 *, revealed: bool = False, reveals: int = 0) -> None:
+        """Put back stages fitted earlier (a restored session): rescore them, set the removal stack,
+        the random streams and the test reveals; return None."""
+        with self._lock:
+            scored: dict[int, Scores] = {}
+
+            def score(stage: Stage) -> Scores:
+                if id(stage) not in scored:
+                    scored[id(stage)] = scoring.score_state(self.loss, self.layout, self.y, stage.outputs,
+                                                            self.threshold)
+                return scored[id(stage)]
+
+            self.stages = list(stages)
+            self._scores = [score(s) for s in self.stages]
+            self._removals = [Removal(action, tuple(kept), tuple(score(s) for s in kept)) for action, kept in removals]
+            self._restore_streams(streams)
+            self._relock()
+            if revealed and self.layout.n_test:
+                self.reveal_test()
+            self.reveal_count = int(reveals)
+
 
 def _sub_progress(progress: ProgressFn | None, i: int, n: int) -> ProgressFn | None:
     if progress is None:

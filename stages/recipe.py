@@ -22,6 +22,7 @@ from typing import TYPE_CHECKING, Any
 
 from .errors import RecipeError, RemnantError, StageSpecError, ValidationSpecError
 from .kinds.base import ProgressFn
+from .recipe_steps import Audition, parse_auditions, replay
 from .spec import StageSpec
 from .toml_text import KeyLines, toml_key, toml_value
 from .validation import SCHEMES, ValidationSpec, spec_from_dict
@@ -31,13 +32,13 @@ if TYPE_CHECKING:
 
     from .chain import Chain
 
-TABLES = ("data", "chain", "validation", "stage")
+TABLES = ("data", "chain", "validation", "stage", "audition")
 DATA_KEYS = ("path", "target", "ignore", "features", "task", "positive")
 CHAIN_KEYS = ("loss", "seed", "threshold")
-STAGE_KEYS = ("kind", "shrinkage", "features", "params", "repeat")
+STAGE_KEYS = ("kind", "shrinkage", "features", "params", "repeat", "patience")
 TASKS = ("regression", "binary")
 NONE_TEXT = "none"
-_SHOWN_TABLES = "[data], [chain], [validation], [[stage]]"
+_SHOWN_TABLES = "[data], [chain], [validation], [[stage]], [[audition]]"
 
 
 @dataclass(frozen=True)
@@ -58,6 +59,8 @@ class Recipe:
     threshold: float = 0.5
     source: str = "recipe"
     lines: KeyLines | None = field(default=None, compare=False, repr=False)
+    patience: dict[int, int] = field(default_factory=dict)   # stage entry -> patience (grow)
+    auditions: tuple[Audition, ...] = ()
 
     @property
     def name(self) -> str:
@@ -117,8 +120,11 @@ def parse_recipe(text: str, base_dir: str | os.PathLike = ".", source: str = "re
         raise reader.fail(f"threshold must be between 0 and 1, not {threshold:g}", "chain", 0, "threshold")
     validation = reader.validation(reader.table(doc, "validation"), seed)
     stages = reader.stages(doc, settings["task"])
+    patience = reader.patience(doc)
+    auditions = parse_auditions(doc.get("audition"), lambda i, key: probe.where("audition", i, key), len(stages),
+                                settings["task"])
     return Recipe(validation=validation, stages=stages, loss=loss, seed=seed, threshold=threshold,
-                  source=source, lines=probe.lines, **settings)
+                  source=source, lines=probe.lines, patience=patience, auditions=auditions, **settings)
 
 
 def _syntax_message(name: str, err: tomllib.TOMLDecodeError) -> str:
@@ -273,6 +279,17 @@ class _Reader:
             raise self.fail(f"repeat must be at least 1, not {repeat}", "stage", i, "repeat")
         return spec, repeat
 
+    def patience(self, doc: dict[str, Any]) -> dict[int, int]:
+        """Return stage entry -> patience for the entries that grow (``repeat`` with ``patience``)."""
+        found = {}
+        for i, entry in enumerate(doc.get("stage") or []):
+            if "patience" in entry:
+                value = self.integer(entry, "stage", i, "patience", 10)
+                if value < 1:
+                    raise self.fail(f"patience must be at least 1, not {value}", "stage", i, "patience")
+                found[i] = value
+        return found
+
 
 def _from_toml(value: Any, none: Any = NONE_TEXT, to: Any = None) -> Any:
     """Return a params value with ``none`` replaced by ``to`` at any depth (TOML's stand-in for None)."""
@@ -300,13 +317,23 @@ def recipe_to_toml(recipe: Recipe, base_dir: str | os.PathLike | None = None) ->
     out += _pairs({k: v for k, v in {"loss": recipe.loss, "seed": recipe.seed, "threshold": recipe.threshold}.items()
                    if v is not None})
     out += ["", "[validation]", *_pairs(recipe.validation.to_dict())]
-    for spec, repeat in recipe.stages:
+    for i, (spec, repeat) in enumerate(recipe.stages):
         entry = spec.to_dict()
         if "params" in entry:
             entry["params"] = _from_toml(entry["params"], None, NONE_TEXT)
         if repeat > 1:
             entry["repeat"] = repeat
+        if i in recipe.patience:
+            entry["patience"] = recipe.patience[i]
         out += ["", "[[stage]]", *_pairs(entry)]
+    for audition in recipe.auditions:
+        settings = audition.to_dict()
+        candidates = settings.pop("candidate")
+        out += ["", "[[audition]]", *_pairs(settings)]
+        for candidate in candidates:
+            if "params" in candidate:
+                candidate["params"] = _from_toml(candidate["params"], None, NONE_TEXT)
+            out += ["[[audition.candidate]]", *_pairs(candidate)]
     return "\n".join(out) + "\n"
 
 
@@ -385,7 +412,7 @@ def fit_recipe(recipe_or_path: Recipe | str | os.PathLike, data: str | os.PathLi
     if isinstance(source, str | os.PathLike):
         chain.data_path = os.fspath(source)
     _check_stage_features(recipe, chain)
-    chain.add_specs(recipe.specs(), cancel=cancel, progress=progress)
+    replay(chain, recipe, cancel=cancel, progress=progress)
     return chain
 
 

@@ -13,13 +13,13 @@ import numpy as np
 
 from .errors import RecipeError
 
-_BARE_KEY = re.compile(r"^[A-Za-z0-9_-]+$")
+_BARE_KEY = re.compile(r"[A-Za-z0-9_-]+")
 _ESCAPES = {"\\": "\\\\", '"': '\\"', "\b": "\\b", "\t": "\\t", "\n": "\\n", "\f": "\\f", "\r": "\\r"}
 
 
 def toml_key(key: str) -> str:
     """Return ``key`` as a TOML key: bare when it can be, else a quoted string."""
-    return key if _BARE_KEY.match(key) else toml_string(key)
+    return key if _BARE_KEY.fullmatch(key) else toml_string(key)
 
 
 def toml_string(text: str) -> str:

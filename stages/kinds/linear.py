@@ -32,6 +32,18 @@ class Design(Protocol):
         """Return a JSON-ready dict."""
 
 
+def row_products(Z: np.ndarray, coef: np.ndarray) -> np.ndarray:
+    """Return Z @ coef, summed column by column in a fixed order.
+
+    A BLAS product rounds differently depending on how many rows it gets at once; this sum
+    does not, so predicting in chunks gives the same bits as predicting all rows together.
+    """
+    out = np.zeros(Z.shape[0], dtype=np.float64)
+    for j, weight in enumerate(coef):
+        out += Z[:, j] * weight
+    return out
+
+
 @dataclass
 class LinearModel:
     """A fitted linear stage: its preprocessing, one coefficient per design column, an intercept."""
@@ -42,9 +54,7 @@ class LinearModel:
 
     def predict(self, X: np.ndarray) -> np.ndarray:
         """Return the stage's output on the rows ``X``: ``design.transform(X) @ coef + intercept``."""
-        # einsum, not a BLAS product: its rounding does not depend on how many rows come at once,
-        # so predicting in chunks gives the same bits as predicting all rows together
-        return np.einsum("ij,j->i", self.design.transform(X), self.coef) + self.intercept
+        return row_products(self.design.transform(X), self.coef) + self.intercept
 
 
 def checked_coefficients(coef: Any, intercept: Any, kind: str) -> tuple[np.ndarray, float]:

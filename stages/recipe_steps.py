@@ -1,0 +1,134 @@
+"""The steps of a recipe beyond plain stages: growing with ``patience`` and ``[[audition]]`` tables.
+
+A ``[[stage]]`` entry with ``repeat = N`` and ``patience = P`` grows up to N stages and stops
+when the validation score has not improved for P stages, then trims back to the best.
+
+An ``[[audition]]`` table fits candidate stages side by side on the residuals at that point and
+keeps one::
+
+    [[audition]]
+    after = 1                 # after the first [[stage]] entry; default: after the last one
+    choose = "best"           # best | one_standard_error
+    [[audition.candidate]]
+    kind = "forest"
+    params = { max_features = [0.33, 0.5, 1.0] }   # a list is a grid: three candidates
+    [[audition.candidate]]
+    kind = "lightgbm"
+    params = { num_leaves = [15, 63] }
+"""
+
+from __future__ import annotations
+
+import threading
+from dataclasses import dataclass
+from typing import TYPE_CHECKING, Any
+
+from .errors import RecipeError, StageSpecError
+from .kinds.base import ProgressFn
+from .spec import StageSpec
+
+if TYPE_CHECKING:
+    from .chain import Chain
+    from .recipe import Recipe
+
+AUDITION_KEYS = ("after", "choose", "candidate")
+CANDIDATE_KEYS = ("kind", "shrinkage", "features", "params")
+
+
+@dataclass(frozen=True)
+class Audition:
+    """Candidates to fit side by side after ``after`` stage entries, and the rule that keeps one."""
+
+    after: int | None
+    candidates: tuple[StageSpec, ...]
+    choose: str = "best"
+
+    def to_dict(self) -> dict[str, Any]:
+        """Return the audition as a TOML-ready dict (candidates as a list of stage dicts)."""
+        out: dict[str, Any] = {"choose": self.choose}
+        if self.after is not None:
+            out["after"] = self.after
+        out["candidate"] = [spec.to_dict() for spec in self.candidates]
+        return out
+
+
+def parse_auditions(entries: Any, where, n_stage_entries: int, task: str | None) -> tuple[Audition, ...]:
+    """Return the checked ``[[audition]]`` tables; ``where(i, key)`` names the recipe line for messages."""
+    from .audition import CHOICE_RULES, expand_grid
+
+    if entries is None:
+        return ()
+    if not isinstance(entries, list) or not all(isinstance(e, dict) for e in entries):
+        raise RecipeError(f"{where(0, None)}: auditions must be written [[audition]], one table each")
+    found = []
+    for i, entry in enumerate(entries):
+        for key in entry:
+            if key not in AUDITION_KEYS:
+                raise RecipeError(f"{where(i, key)}: unknown key {key!r} in [[audition]] (keys: {', '.join(AUDITION_KEYS)})")
+        after = entry.get("after")
+        if after is not None and (isinstance(after, bool) or not isinstance(after, int) or not 0 <= after <= n_stage_entries):
+            raise RecipeError(f"{where(i, 'after')}: after must be a whole number from 0 to {n_stage_entries}, not {after!r}")
+        choose = entry.get("choose", "best")
+        if choose not in CHOICE_RULES:
+            raise RecipeError(f"{where(i, 'choose')}: choose must be one of {', '.join(CHOICE_RULES)}, not {choose!r}")
+        candidates = entry.get("candidate")
+        if not isinstance(candidates, list) or not candidates or not all(isinstance(c, dict) for c in candidates):
+            raise RecipeError(f"{where(i, 'candidate')}: [[audition]] needs at least one [[audition.candidate]]")
+        specs: list[StageSpec] = []
+        for candidate in candidates:
+            unknown = sorted(set(candidate) - set(CANDIDATE_KEYS))
+            if unknown:
+                raise RecipeError(f"{where(i, 'candidate')}: unknown key {unknown[0]!r} in [[audition.candidate]] "
+                                  f"(keys: {', '.join(CANDIDATE_KEYS)})")
+            try:
+                grid = expand_grid(candidate)
+                for spec in grid:
+                    _check_spec(spec, task)
+            except StageSpecError as err:
+                raise RecipeError(f"{where(i, 'candidate')}: {err}") from None
+            specs.extend(grid)
+        found.append(Audition(after, tuple(specs), choose))
+    return tuple(found)
+
+
+def _check_spec(spec: StageSpec, task: str | None) -> None:
+    from .kinds import get_kind
+
+    get_kind(spec.kind).resolve_params(spec.params, task or "regression")
+
+
+def replay(chain: Chain, recipe: Recipe, *, cancel: threading.Event | None = None,
+           progress: ProgressFn | None = None) -> None:
+    """Fit the recipe's stage entries in order on ``chain``: plain repeats, grows with patience, auditions."""
+    from .audition import CHOICE_RULES
+    from .grow import grow_spec
+
+    entries = list(recipe.stages)
+    steps = len(entries) + len(recipe.auditions)
+    done = 0
+
+    def step_progress(fraction: float, message: str = "") -> None:
+        if progress is not None:
+            progress((done + fraction) / steps, message)
+
+    def run_auditions(position: int) -> None:
+        nonlocal done
+        for audition in recipe.auditions:
+            at = len(entries) if audition.after is None else audition.after
+            if at == position:
+                candidates = chain.audition(list(audition.candidates), cancel=cancel, progress=step_progress)
+                chain.keep(CHOICE_RULES[audition.choose](candidates))
+                done += 1
+
+    for i, (spec, repeat) in enumerate(entries):
+        run_auditions(i)
+        patience = recipe.patience.get(i)
+        if patience is None:
+            chain.add_specs([spec] * repeat, cancel=cancel, progress=step_progress)
+        else:
+            try:
+                grow_spec(chain, spec, max_stages=repeat, patience=patience, cancel=cancel, progress=step_progress)
+            except StageSpecError as err:
+                raise RecipeError(f"{recipe.where('stage', i, 'patience')}: {err}") from None
+        done += 1
+    run_auditions(len(entries))

@@ -1,0 +1,139 @@
+"""Reference models on the chain's own split, so a user can see whether the chain is competitive.
+
+Two references: the linear model alone (the chain's start value plus one ``linear`` stage,
+``logistic`` for binary chains), and LightGBM with its default parameters, trained with
+``lightgbm.train`` under the objective of the chain's loss and early-stopped on the chain's
+validation part. With k-fold validation LightGBM is fit on each fold track, early-stopped on
+that fold and scored out of fold; the full fit then runs the mean best iteration.
+"""
+
+from __future__ import annotations
+
+import threading
+import time
+from typing import TYPE_CHECKING, Any
+
+import numpy as np
+import pandas as pd
+
+from . import scoring
+from .errors import FitCancelled, StageFitError
+from .fitting import FitContext, fit_stage
+from .spec import StageSpec
+from .table import fold_spread
+
+if TYPE_CHECKING:
+    from .chain import Chain
+
+#: LightGBM's default number of rounds, used when there is no validation part to stop on
+DEFAULT_ROUNDS = 100
+
+
+def reference_scores(chain: Chain, *, lightgbm_params: dict[str, Any] | None = None, rounds: int = 1000,
+                     early_stopping_rounds: int = 50, cancel: threading.Event | None = None) -> pd.DataFrame:
+    """Return one row per reference model: model, train / valid (and, once revealed, test) metric,
+    fold spread (k-fold), best iteration and seconds.
+
+    ``lightgbm_params`` overlays LightGBM's defaults (native names); ``rounds`` caps the
+    boosting rounds and ``early_stopping_rounds`` is the patience on the validation part.
+    """
+    rows = [linear_reference(chain), lightgbm_reference(chain, lightgbm_params, rounds, early_stopping_rounds, cancel)]
+    frame = pd.DataFrame(rows)
+    if not chain.layout.is_kfold:
+        frame = frame.drop(columns="fold_spread")
+    return frame
+
+
+def _row(chain: Chain, model: str, outputs: tuple[np.ndarray, ...], best: float, seconds: float) -> dict[str, Any]:
+    metric = chain.metric
+    scores = scoring.score_state(chain.loss, chain.layout, chain.y, outputs, chain.threshold)
+    row = {"model": model, f"train_{metric}": scores.train[metric], f"valid_{metric}": scores.valid[metric],
+           "fold_spread": fold_spread(scores.fold_valid)}
+    if chain.test_revealed:
+        test = scoring.test_scores(chain.loss, chain.layout, chain.y, outputs[0], chain.threshold)
+        row[f"test_{metric}"] = test[metric]
+    row["best_iteration"] = best
+    row["seconds"] = seconds
+    return row
+
+
+def linear_reference(chain: Chain) -> dict[str, Any]:
+    """Return the row of the linear model alone: the chain's start plus one linear (logistic) stage."""
+    kind = "logistic" if chain.task == "binary" else "linear"
+    rngs = [np.random.RandomState(chain.seed)] + [
+        np.random.RandomState([chain.seed, t]) for t in range(1, len(chain.layout.tracks))
+    ]
+    ctx = FitContext(chain.matrix, chain.y, chain.schema, chain.layout, chain.loss, rngs)
+    stage = fit_stage(ctx, StageSpec(kind), chain.outputs(0), number=1)
+    return _row(chain, "linear alone", stage.outputs, float("nan"), stage.fit_seconds)
+
+
+def lightgbm_defaults(chain: Chain, user: dict[str, Any] | None = None) -> dict[str, Any]:
+    """Return the parameters of the LightGBM reference: the objective of the chain's loss, its seed,
+    quiet and deterministic (which change no model setting), overlaid with ``user``."""
+    params: dict[str, Any] = {"objective": chain.loss.lightgbm_objective, "seed": chain.seed,
+                              "verbosity": -1, "deterministic": True, "force_row_wise": True}
+    if params["objective"] == "huber":
+        fit = chain.layout.train
+        params["alpha"] = chain.loss.delta(chain.y[fit], chain.outputs(0)[0][fit])
+    params.update(user or {})
+    return params
+
+
+def lightgbm_reference(chain: Chain, user: dict[str, Any] | None = None, rounds: int = 1000,
+                       early_stopping_rounds: int = 50, cancel: threading.Event | None = None) -> dict[str, Any]:
+    """Return the row of LightGBM with default parameters, early-stopped on the validation part."""
+    params = lightgbm_defaults(chain, user)
+    layout = chain.layout
+    started = time.perf_counter()
+    fit = _Fitter(chain, params, cancel)
+    if layout.is_kfold:
+        outputs: list[np.ndarray] = [np.empty(0)]
+        best = []
+        for track in layout.tracks[1:]:
+            booster = fit(track.fit_positions(), rounds, track.evaluate, early_stopping_rounds)
+            best.append(booster.best_iteration)
+            outputs.append(fit.predict(booster, slice(0, track.n_rows)))
+        full_rounds = max(1, int(np.rint(np.mean(best))))
+        outputs[0] = fit.predict(fit(layout.train, full_rounds), slice(None))
+        best_iteration = float(np.mean(best))
+    elif layout.n_valid:
+        booster = fit(layout.train, rounds, layout.valid, early_stopping_rounds)
+        outputs, best_iteration = [fit.predict(booster, slice(None))], float(booster.best_iteration)
+    else:
+        booster = fit(layout.train, DEFAULT_ROUNDS)
+        outputs, best_iteration = [fit.predict(booster, slice(None))], float(DEFAULT_ROUNDS)
+    return _row(chain, "LightGBM, default parameters", tuple(outputs), best_iteration, time.perf_counter() - started)
+
+
+class _Fitter:
+    """Trains LightGBM boosters on chosen rows of the chain's matrix and predicts raw scores."""
+
+    def __init__(self, chain: Chain, params: dict[str, Any], cancel: threading.Event | None) -> None:
+        self.chain, self.params, self.cancel = chain, params, cancel
+        self.categorical = [i for i, col in enumerate(chain.schema.columns) if col.is_categorical]
+
+    def __call__(self, rows: Any, rounds: int, stop_rows: Any = None, patience: int = 0) -> Any:
+        """Return a booster trained on ``rows``, early-stopped on ``stop_rows`` when given."""
+        import lightgbm
+
+        matrix, y = self.chain.matrix, self.chain.y
+        train = lightgbm.Dataset(matrix[rows], label=y[rows], categorical_feature=self.categorical)
+        valid_sets, callbacks = [], [self._check_cancel]
+        if stop_rows is not None:
+            valid_sets.append(lightgbm.Dataset(matrix[stop_rows], label=y[stop_rows], reference=train))
+            callbacks.append(lightgbm.early_stopping(patience, first_metric_only=True, verbose=False))
+        try:
+            return lightgbm.train(dict(self.params), train, num_boost_round=rounds, valid_sets=valid_sets,
+                                  callbacks=callbacks)
+        except lightgbm.basic.LightGBMError as exc:
+            raise StageFitError(f"LightGBM reference: {exc}") from None
+
+    def _check_cancel(self, env: Any) -> None:
+        if self.cancel is not None and self.cancel.is_set():
+            raise FitCancelled("reference fit cancelled")
+
+    def predict(self, booster: Any, rows: Any) -> np.ndarray:
+        """Return the booster's raw score at its best iteration on ``rows`` of the chain's matrix."""
+        best = booster.best_iteration or None
+        return np.asarray(booster.predict(self.chain.matrix[rows], num_iteration=best, raw_score=True), dtype=np.float64)
