@@ -80,7 +80,7 @@ class Chain:
         self.loss: Loss = get_loss(loss or default_loss(self.schema.task), self.schema.task)
         self.split = self.validation.split(self.prepared.frame, self.prepared.y, self.schema.task)
         self.layout = build_layout(self.split)
-        self.matrix = self.prepared.matrix[self.layout.order]
+        self.matrix = _permute_rows(self.prepared.matrix, self.layout.order)
         self.y = self.prepared.y[self.layout.order]
         self.prepared.matrix = None  # keep one copy of the features: the chain-ordered one
         self.seed = int(seed)
@@ -451,6 +451,19 @@ class Chain:
             if revealed and self.layout.n_test:
                 self.reveal_test()
             self.reveal_count = int(reveals)
+
+
+def _permute_rows(matrix: np.ndarray, order: np.ndarray) -> np.ndarray:
+    """Return ``matrix`` with its rows in ``order``, permuted in place one column at a time.
+
+    The matrix is the chain's own (built by ``prepare``); permuting a column at a time needs
+    one column of extra memory instead of a second copy of the whole matrix.
+    """
+    if np.array_equal(order, np.arange(len(order))):
+        return matrix
+    for j in range(matrix.shape[1]):
+        matrix[:, j] = matrix[order, j]
+    return matrix
 
 
 def _sub_progress(progress: ProgressFn | None, i: int, n: int) -> ProgressFn | None:

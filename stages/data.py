@@ -131,6 +131,14 @@ def _role(dtype: object, non_missing: np.ndarray, uniques: np.ndarray) -> tuple[
     return _text_role(non_missing, uniques)
 
 
+def _mostly_numbers(values: np.ndarray) -> bool:
+    """Return True when at least 95% of ``values`` (text) read as numbers, but not all."""
+    if len(values) == 0:
+        return False
+    stray = pd.to_numeric(pd.Series(values), errors="coerce").isna().to_numpy()
+    return bool(stray.any() and stray.mean() <= 0.05)
+
+
 def _text_role(non_missing: np.ndarray, uniques: np.ndarray) -> tuple[str, str]:
     if len(uniques) <= 8:
         words = set(pd.Series(uniques).astype("string").str.strip().str.lower())
@@ -138,6 +146,10 @@ def _text_role(non_missing: np.ndarray, uniques: np.ndarray) -> tuple[str, str]:
             return BOOLEAN, ""
     if _looks_like_dates(non_missing):
         return DATETIME, "dates: usable to order rows by time"
+    if _mostly_numbers(non_missing[:2000]) and _mostly_numbers(non_missing):
+        stray = pd.to_numeric(pd.Series(non_missing), errors="coerce").isna().to_numpy()
+        example = non_missing[np.flatnonzero(stray)[0]]
+        return NUMERIC, f"numbers with {int(stray.sum()):,} text values such as {example!r} (treated as missing)"
     if len(uniques) == len(non_missing) and len(non_missing) > ID_MIN_ROWS:
         return EXCLUDED, "every value is unique (an ID?)"
     if len(uniques) > MAX_LEVELS:
@@ -242,10 +254,21 @@ def prepare(
     columns = _feature_columns(kept, target, set(ignore), features, source, notes)
     schema = Schema(tuple(columns), target, task, classes, tuple(notes))
     try:
-        matrix, _ = schema.encode(kept, source=source)
+        matrix, unusable = schema.encode(kept, source=source)
     except SchemaError as err:
         raise DataError(str(err)) from None
+    notes += [_unusable_note(kept[name], name, count) for name, count in unusable.items()]
     return Prepared(schema, matrix, y, rows, kept, tuple(notes))
+
+
+def _unusable_note(values: pd.Series, name: str, count: int) -> str:
+    """Return the note for a numeric column whose text or infinite values were treated as missing."""
+    numbers = pd.to_numeric(values, errors="coerce")
+    odd = (numbers.isna() & values.notna()) | np.isinf(numbers.to_numpy(dtype=np.float64, na_value=np.nan))
+    first = int(np.flatnonzero(odd.to_numpy())[0]) if odd.any() else 0
+    what = "value" if count == 1 else "values"
+    return (f"column {name!r}: {count:,} {what} that are not numbers (such as {values.iloc[first]!r} "
+            f"in row {first + 1}) treated as missing")
 
 
 def _string_columns(frame: pd.DataFrame, source: str) -> pd.DataFrame:

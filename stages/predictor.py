@@ -59,15 +59,17 @@ class FittedChain:
         for stage in self.stages[:upto]:
             cols = stage.feature_index
             X = matrix if cols == tuple(range(n_all)) else matrix[:, list(cols)]
-            raw = raw + stage.scale * np.asarray(stage.learner.predict(X), dtype=np.float64)
+            raw += stage.scale * np.asarray(stage.learner.predict(X), dtype=np.float64)
         return raw
 
     def encode(self, frame: pd.DataFrame, *, source: str = "data") -> np.ndarray:
-        """Return the schema matrix of ``frame``, warning once with the count of unseen levels."""
-        matrix, unseen = self.schema.encode(frame, source=source)
+        """Return the schema matrix of ``frame`` (column-major, as ``DataFrame.to_numpy`` lays it out),
+        warning once with the count of unseen levels."""
+        matrix, unseen = self.schema.encode(frame, source=source, order="F")
         if unseen:
             detail = ", ".join(f"{name!r}: {count:,}" for name, count in unseen.items())
-            warnings.warn(f"{source}: category levels never seen in training were treated as missing ({detail})",
+            warnings.warn(f"{source}: values the chain cannot use (category levels never seen in training, "
+                          f"text or infinity in a numeric column) were treated as missing ({detail})",
                           UnseenLevelsWarning, stacklevel=3)
         return matrix
 

@@ -124,7 +124,7 @@ def _read_csv(file: Path, name: str) -> pd.DataFrame:
     if not sample.strip():
         raise DataError(f"{name}: the file is empty")
     delimiter = _sniff_delimiter(sample, default="\t" if ".tsv" in file.suffixes else ",")
-    header = next(csv.reader(io.StringIO(sample), delimiter=delimiter), [])
+    header = next(csv.reader(io.StringIO(sample, newline=""), delimiter=delimiter), [])
     check_duplicates(header, name)
     try:
         with warnings.catch_warnings(record=True) as caught:
@@ -241,5 +241,5 @@ def read_options(path: str | os.PathLike) -> tuple[str, dict[str, object]]:
     if not sample.strip():
         raise DataError(f"{name}: the file is empty")
     delimiter = _sniff_delimiter(sample, default="\t" if ".tsv" in file.suffixes else ",")
-    check_duplicates(next(csv.reader(io.StringIO(sample), delimiter=delimiter), []), name)
+    check_duplicates(next(csv.reader(io.StringIO(sample, newline=""), delimiter=delimiter), []), name)
     return "csv", {"sep": delimiter, "encoding": "utf-8-sig", "compression": compression, "index_col": False}

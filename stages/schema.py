@@ -87,21 +87,34 @@ class Schema:
         """Return the column infos at ``indices``."""
         return tuple(self.columns[i] for i in indices)
 
-    def encode(self, frame: pd.DataFrame, *, source: str = "data") -> tuple[np.ndarray, dict[str, int]]:
+    def encode(self, frame: pd.DataFrame, *, source: str = "data",
+               order: str = "C") -> tuple[np.ndarray, dict[str, int]]:
         """Return the float64 feature matrix of ``frame`` and the count of unseen levels per column.
 
+        ``order`` is the matrix's memory layout: "C" (row-major, what the chain gathers rows
+        from) or "F" (column-major, as ``DataFrame.to_numpy`` gives; quicker to build).
         Columns not in the schema are ignored. A missing column, or a column whose type
         no longer fits its role, raises SchemaError naming the column.
         """
         missing = [c.name for c in self.columns if c.name not in frame.columns]
         if missing:
             raise SchemaError(f"{source}: column {missing[0]!r} is missing (the chain was fit with it)")
-        matrix = np.empty((len(frame), len(self.columns)), dtype=np.float64)
+        matrix = np.empty((len(frame), len(self.columns)), dtype=np.float64, order=order)
         unseen: dict[str, int] = {}
+        plain: list[tuple[int, np.ndarray]] = []
         for j, col in enumerate(self.columns):
-            matrix[:, j], count = encode_column(frame[col.name], col, source=source)
+            values = frame[col.name]
+            ready = plain_numbers(values, col)
+            if ready is not None and order == "C":
+                plain.append((j, ready))
+                continue
+            if ready is not None:  # a column-major matrix takes whole columns quickly
+                matrix[:, j] = ready
+                continue
+            matrix[:, j], count = encode_column(values, col, source=source)
             if count:
                 unseen[col.name] = count
+        _fill_by_row_blocks(matrix, plain)
         return matrix, unseen
 
     def to_dict(self) -> dict[str, Any]:
@@ -124,6 +137,33 @@ class Schema:
         )
 
 
+def plain_numbers(values: pd.Series, col: ColumnInfo) -> np.ndarray | None:
+    """Return the column's values when they need no checking (numpy floats or integers in a
+    numeric column), else None."""
+    if col.role != NUMERIC or not isinstance(values.dtype, np.dtype) or values.dtype.kind not in "fiu":
+        return None
+    ready = values.to_numpy()
+    if ready.dtype.kind == "f" and np.isinf(ready).any():
+        return None  # infinities are treated as missing and counted, by encode_column
+    return ready
+
+
+# rows per block when copying columns into the row-major matrix: a block of every column stays
+# in the processor's cache, where writing whole columns one by one would stride through memory
+_BLOCK_BYTES = 4 * 1024 * 1024
+
+
+def _fill_by_row_blocks(matrix: np.ndarray, columns: list[tuple[int, np.ndarray]]) -> None:
+    """Copy each (position, values) column into ``matrix``, one block of rows at a time."""
+    if not columns:
+        return
+    step = max(256, _BLOCK_BYTES // (8 * matrix.shape[1]))
+    for start in range(0, matrix.shape[0], step):
+        block = matrix[start:start + step]
+        for j, values in columns:
+            block[:, j] = values[start:start + step]
+
+
 def encode_column(values: pd.Series, col: ColumnInfo, *, source: str = "data") -> tuple[np.ndarray, int]:
     """Return one column as float64 for the matrix, and how many of its values were unseen levels."""
     if col.role == CATEGORICAL:
@@ -136,14 +176,19 @@ def encode_column(values: pd.Series, col: ColumnInfo, *, source: str = "data") -
     if col.role == BOOLEAN:
         return _encode_boolean(values, col, source), 0
     numeric = pd.to_numeric(values, errors="coerce")
-    bad = numeric.isna() & values.notna()
-    if bad.any():
-        first = int(np.flatnonzero(bad.to_numpy())[0])
+    bad = (numeric.isna() & values.notna()).to_numpy(dtype=bool)
+    present = int(values.notna().sum())
+    if bad.any() and bad.sum() * 2 > present:  # mostly text: the column's type changed
+        first = int(np.flatnonzero(bad)[0])
         raise SchemaError(
             f"{source}: column {col.name!r} was numeric when the chain was fit, "
             f"but row {first + 1} holds {values.iloc[first]!r}"
         )
-    return numeric.to_numpy(dtype=np.float64, na_value=np.nan), 0
+    out = numeric.to_numpy(dtype=np.float64, na_value=np.nan, copy=True)
+    infinite = np.isinf(out)
+    out[infinite] = np.nan
+    # a few stray texts or infinities are treated as missing, and counted for a warning
+    return out, int(bad.sum() + infinite.sum())
 
 
 _TRUE = {"true", "1", "yes", "y", "t", "1.0"}

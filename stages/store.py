@@ -81,7 +81,7 @@ def save(chain: Chain | FittedChain, path: str | os.PathLike) -> None:
     else:
         fitted, probe, fingerprint = chain, _PROBES.get(chain), chain.meta.get("data")
     target = os.fspath(path)
-    _write_atomic(target, lambda handle: _write_archive(handle, fitted, probe, fingerprint, target))
+    write_atomic(target, lambda handle: _write_archive(handle, fitted, probe, fingerprint, target))
 
 
 def data_fingerprint(matrix: np.ndarray, y: np.ndarray, order: np.ndarray | None = None) -> dict[str, Any]:
@@ -149,7 +149,7 @@ def build_manifest(fitted: FittedChain, stages: list[dict[str, Any]], probe: dic
     chain = {key: meta.get(key) for key in _CHAIN_KEYS}
     tail = {"data": fingerprint, "schema": fitted.schema.to_dict(), "start_scores": fitted.start_scores,
             "stages": stages, "probe": probe}
-    return _plain({**head, **chain, **tail})
+    return json_ready({**head, **chain, **tail})
 
 
 def library_versions() -> dict[str, str | None]:
@@ -168,8 +168,12 @@ def library_versions() -> dict[str, str | None]:
             "python": platform.python_version()}
 
 
-def _write_atomic(path: str, write) -> None:
-    """Write through ``write(handle)`` into a temporary file beside ``path``, then rename it onto ``path``."""
+def write_atomic(path: str, write) -> None:
+    """Write through ``write(handle)`` into a temporary file beside ``path``, fsync it, rename it onto ``path``.
+
+    Return None. Raise ChainFileError naming ``path`` and the reason when it cannot be written; an
+    existing file at ``path`` is then untouched and the temporary file removed.
+    """
     folder = os.path.dirname(os.path.abspath(path))
     if not os.path.isdir(folder):
         raise ChainFileError(f"cannot write chain file '{path}': folder '{folder}' does not exist")
@@ -275,7 +279,7 @@ def _open_archive(path: str) -> zipfile.ZipFile:
 def _read_manifest(archive: zipfile.ZipFile, path: str) -> dict[str, Any]:
     if MANIFEST not in archive.namelist():
         raise ChainFileError(f"{path}: not a chain file (no {MANIFEST} inside)")
-    raw = _read_member(archive, MANIFEST, None, path, limit=MAX_MANIFEST_BYTES)
+    raw = read_member(archive, MANIFEST, None, path, limit=MAX_MANIFEST_BYTES)
     try:
         manifest = json.loads(raw.decode("utf-8"), parse_constant=_refuse_constant)
     except ValueError as exc:
@@ -301,7 +305,7 @@ def _check_format(manifest: dict[str, Any], path: str) -> None:
         raise ChainFileError(f"{path}: written by a newer remnant (format {version}; this one reads {FORMAT_VERSION})")
 
 
-def _read_member(archive: zipfile.ZipFile, name: Any, sha256: str | None, path: str, limit: int | None = None) -> bytes:
+def read_member(archive: zipfile.ZipFile, name: Any, sha256: str | None, path: str, limit: int | None = None) -> bytes:
     """Return the bytes of member ``name`` after checking its size (before reading) and its SHA-256."""
     limit = MAX_MEMBER_BYTES if limit is None else limit
     try:
@@ -333,7 +337,7 @@ def _load_stage(archive: zipfile.ZipFile, entry: Any, number: int, schema: Schem
         raise ChainFileError(f"{path}: stage {number} has an invalid spec ({_one_line(exc)})") from None
     if spec.kind != kind_name or entry["fmt"] not in Artifact.SUFFIX:
         raise ChainFileError(f"{path}: stage {number} has an inconsistent kind or artifact format")
-    payload = _read_member(archive, entry["member"], entry["sha256"], path)
+    payload = read_member(archive, entry["member"], entry["sha256"], path)
     try:
         learner = kind.load(Artifact(entry["fmt"], payload, dict(entry.get("meta") or {})))
     except ChainFileError as exc:
@@ -355,7 +359,7 @@ def _read_probe(archive: zipfile.ZipFile, entry: Any, schema: Schema, path: str)
     """Return the stored probe rows and raw outputs, or None when the file has none."""
     if entry is None:
         return None
-    payload = _read_member(archive, entry["member"], entry["sha256"], path)
+    payload = read_member(archive, entry["member"], entry["sha256"], path)
     try:
         with np.load(io.BytesIO(payload), allow_pickle=False) as stored:
             matrix = np.asarray(stored["matrix"], dtype=np.float64)
@@ -418,14 +422,14 @@ def probe_difference(now: np.ndarray, stored: np.ndarray) -> tuple[float, float]
 
 
 # ----------------------------------------------------------------------------- helpers
-def _plain(value: Any) -> Any:
+def json_ready(value: Any) -> Any:
     """Return ``value`` as strict-JSON data: NaN and inf become None, numpy types Python ones."""
     if isinstance(value, dict):
-        return {str(k): _plain(v) for k, v in value.items()}
+        return {str(k): json_ready(v) for k, v in value.items()}
     if isinstance(value, list | tuple):
-        return [_plain(v) for v in value]
+        return [json_ready(v) for v in value]
     if isinstance(value, np.ndarray):
-        return _plain(value.tolist())
+        return json_ready(value.tolist())
     if value is None or isinstance(value, bool | str):
         return value
     if isinstance(value, np.bool_):

@@ -38,9 +38,11 @@ def iter_chunks(path: str, columns: list[str], text_columns: list[str], chunk_ro
         return
     dtype = {column: "string" for column in text_columns}
     try:
-        with pd.read_csv(path, chunksize=chunk_rows, dtype=dtype, usecols=lambda c: c in wanted,
-                         low_memory=False, **options) as reader:
-            yield from reader
+        # every column is read (not usecols): only then does pandas refuse a row with more
+        # fields than the header, as `remnant fit` does, instead of dropping the extra field
+        with pd.read_csv(path, chunksize=chunk_rows, dtype=dtype, low_memory=False, **options) as reader:
+            for chunk in reader:
+                yield chunk[[c for c in chunk.columns if c in wanted]]
     except UnicodeDecodeError as err:
         raise DataError(f"{name}: the text is not UTF-8 ({err.reason}); save it as UTF-8") from None
     except pd.errors.EmptyDataError:

@@ -120,7 +120,7 @@ class LinearDesign:
     def transform(self, X: np.ndarray) -> np.ndarray:
         """Return the float64 design matrix of ``X`` (rows of the schema matrix, this design's columns)."""
         X = np.asarray(X, dtype=np.float64)
-        out = np.empty((X.shape[0], self.width), dtype=np.float64)
+        out = np.empty((X.shape[0], self.width), dtype=np.float64, order="F")  # filled column by column
         at = 0
         for j, step in enumerate(self.steps):
             values = X[:, j]

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import io
 import json
 import zipfile
 from pathlib import Path
@@ -169,10 +170,20 @@ def test_predict_names_an_unknown_id_column(fitted_files, run, keep):
 
 def test_predict_names_the_row_of_a_bad_value_in_a_later_chunk(fitted_files, work, run, keep):
     frame = pd.read_csv(work / "diabetes.csv").astype({"age": object})
-    frame.loc[19, "age"] = "old"
+    frame.loc[14:20, "age"] = "old"  # the whole third chunk is text: the column's type changed
     frame.to_csv(work / "bad_age.csv", index=False)
     assert_one_error(*predict_fails(run, keep, fitted_files["regression"], "bad_age.csv", "--chunk-rows", "7"),
-                     "column 'age' was numeric when the chain was fit, but row 20 holds 'old'")
+                     "column 'age' was numeric when the chain was fit, but row 15 holds 'old'")
+
+
+def test_predict_treats_a_stray_text_in_a_numeric_column_as_missing_with_a_warning(fitted_files, work, run):
+    frame = pd.read_csv(work / "diabetes.csv").astype({"age": object})
+    frame.loc[19, "age"] = "old"
+    frame.to_csv(work / "stray_age.csv", index=False)
+    status, out, err = run("predict", fitted_files["regression"], "stray_age.csv", "--chunk-rows", "7")
+    assert status == 0
+    assert len(pd.read_csv(io.StringIO(out))) == len(frame)
+    assert "warning:" in err and "'age'" in err
 
 
 @pytest.mark.parametrize(("header", "message"), [(False, "the file is empty"),

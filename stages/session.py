@@ -1,0 +1,378 @@
+"""The workbench's session: the chain saved after every completed action, restored without refitting.
+
+A session file lives in the user's data folder (``REMNANT_HOME`` replaces it), one per data
+file. It is a zip archive, written atomically like a chain file::
+
+    session.json               format and version; the data file's path, size, modification time
+                               and SHA-256; the column choices; loss, validation and seed; the
+                               random-stream states (each distinct one once); every distinct
+                               stage once (spec, params, per-track scales, the states before and
+                               after its fit, fit time, a SHA-256 of its outputs, its artifacts);
+                               the current stages and the removal stack as lists of stage ids
+    stages/0003/track-0.json   one safe artifact per stage and track (the kind's own format)
+
+Loading reads JSON and the kinds' safe formats only, checks every member's SHA-256, and
+turns any damage into a SessionError naming the file. Restoring refits nothing: each track's
+output is recomputed from the loaded learners in the order they were fit, which gives the
+saved outputs bit for bit.
+"""
+
+from __future__ import annotations
+
+import contextlib
+import hashlib
+import json
+import os
+import re
+import weakref
+import zipfile
+from datetime import UTC, datetime
+from pathlib import Path
+from typing import IO, Any
+
+import pandas as pd
+
+from . import store
+from .chain import Chain
+from .errors import ChainFileError, RemnantError
+from .fitting import Stage
+from .reading import load_frame
+from .session_parts import (
+    data_reference,
+    describe_changes,
+    encode_state,
+    file_sha256,
+    restore_stages,
+    split_digest,
+    stage_parts,
+)
+from .validation import spec_from_dict
+
+FORMAT_NAME = "remnant-session"
+FORMAT_VERSION = 1
+MANIFEST = "session.json"
+SUFFIX = ".session"
+#: environment variable naming the folder that replaces the platform's user data folder
+HOME_VARIABLE = "REMNANT_HOME"
+MAX_MANIFEST_BYTES = 512 * 1024**2
+
+
+class SessionError(RemnantError):
+    """A session file is damaged, from a newer format, or cannot be read or written."""
+
+
+class SessionSaveError(SessionError):
+    """A session could not be saved (full disk, unwritable folder); the previous file is intact."""
+
+
+class SessionDataChanged(SessionError):
+    """The data file changed since the session was saved; ``changes`` says how, one line each."""
+
+    def __init__(self, name: str, changes: list[str]) -> None:
+        self.changes = list(changes)
+        super().__init__(f"{name}: the data changed since the session was saved ({'; '.join(changes)})")
+
+
+# ----------------------------------------------------------------------------- where
+def sessions_folder() -> Path:
+    """Return the folder holding session files: ``$REMNANT_HOME/sessions`` or the user data folder's."""
+    home = os.environ.get(HOME_VARIABLE)
+    if not home:
+        import platformdirs
+
+        home = platformdirs.user_data_dir("remnant")
+    return Path(home) / "sessions"
+
+
+def session_path(data_path: str | os.PathLike) -> Path:
+    """Return the session file of a data file: ``<stem>-<12 hex of sha256(absolute path)>.session``."""
+    absolute = os.path.realpath(os.fspath(data_path))
+    stem = re.sub(r"[^A-Za-z0-9_.-]", "_", Path(absolute).stem)[:60] or "data"
+    key = hashlib.sha256(absolute.encode("utf-8", "surrogateescape")).hexdigest()[:12]
+    return sessions_folder() / f"{stem}-{key}{SUFFIX}"
+
+
+def data_changes(path: str | os.PathLike) -> list[str]:
+    """Return what changed in the session's data file since the session was saved (empty when unchanged).
+
+    Raise SessionError when the session file cannot be read, or holds no data file (a frame).
+    """
+    name = os.fspath(path)
+    with _open(name) as archive:
+        manifest = _read_manifest(archive, name)
+    reference = manifest.get("data")
+    if reference is None:
+        raise SessionError(f"{name}: the session was saved from a DataFrame, not a data file")
+    with _damaged(name):
+        return describe_changes(reference)
+
+
+def session_summary(path: str | os.PathLike) -> dict[str, Any]:
+    """Return what a resume offer shows: saved time, data file name, target, stage kinds, removals."""
+    name = os.fspath(path)
+    with _open(name) as archive:
+        manifest = _read_manifest(archive, name)
+    with _damaged(name):
+        kinds = {entry["id"]: entry["spec"]["kind"] for entry in manifest["stages"]}
+        return {"saved": manifest["saved"], "data": (manifest.get("data") or {}).get("name", "frame"),
+                "target": manifest["columns"]["target"], "stages": [kinds[i] for i in manifest["current"]],
+                "removals": len(manifest["removals"])}
+
+
+# ----------------------------------------------------------------------------- saving
+# per chain: its data reference and fingerprint, taken at its first save (the data it holds)
+_CHAIN_DATA: weakref.WeakKeyDictionary[Chain, dict[str, Any]] = weakref.WeakKeyDictionary()
+
+
+def save_session(chain: Chain, path: str | os.PathLike | None = None) -> Path:
+    """Write the chain's session atomically and return the file's path (default ``session_path``).
+
+    Takes the chain's lock while reading it, so it waits for a fit in progress. Raise
+    SessionSaveError naming the file when it cannot be written; the previous file and the
+    chain in memory are then untouched.
+    """
+    data_path = getattr(chain, "data_path", None)
+    if path is None:
+        if data_path is None:
+            raise SessionSaveError("the chain was not read from a file; name the session file to save it")
+        path = session_path(data_path)
+    target = Path(os.fspath(path))
+    try:
+        with chain._lock:
+            manifest, members = _snapshot(chain)
+    except RemnantError as exc:
+        raise SessionSaveError(f"cannot write session file '{target}': {exc}") from None
+    _prepare_folder(target)
+    try:
+        store.write_atomic(os.fspath(target), lambda handle: _write_archive(handle, manifest, members))
+    except ChainFileError as exc:
+        raise SessionSaveError(str(exc).replace("chain file", "session file", 1)) from None
+    return target
+
+
+def _prepare_folder(target: Path) -> None:
+    """Create the session folder and remove temporary files left by a killed save."""
+    try:
+        target.parent.mkdir(parents=True, exist_ok=True)
+    except OSError as exc:
+        reason = exc.strerror or type(exc).__name__
+        raise SessionSaveError(f"cannot write session file '{target}': its folder cannot be created ({reason})") from None
+    for leftover in target.parent.glob(f".{target.name}.*.tmp"):
+        with contextlib.suppress(OSError):
+            leftover.unlink()
+
+
+def _chain_data(chain: Chain) -> dict[str, Any]:
+    if chain not in _CHAIN_DATA:
+        data_path = getattr(chain, "data_path", None)
+        fingerprint = store.data_fingerprint(chain.matrix, chain.y, chain.layout.order)
+        _CHAIN_DATA[chain] = {
+            "data": None if data_path is None else data_reference(data_path),
+            "fingerprint": {**fingerprint, "split_sha256": split_digest(chain.layout)},
+        }
+    return _CHAIN_DATA[chain]
+
+
+def _snapshot(chain: Chain) -> tuple[dict[str, Any], dict[str, bytes]]:
+    """Return the session manifest and its artifact members for the chain as it is now."""
+    ids: dict[int, int] = {}
+    previous: dict[int, int | None] = {}
+    order: list[Stage] = []
+    lists = [list(chain.stages)] + [list(r.stages) for r in chain._removals]
+    for stages in lists:
+        for i, stage in enumerate(stages):
+            if id(stage) not in ids:
+                ids[id(stage)] = len(order)
+                previous[id(stage)] = ids[id(stages[i - 1])] if i else None
+                order.append(stage)
+    states: dict[bytes, int] = {}
+    table: list[list[Any]] = []
+
+    def state_id(state: Any) -> int:
+        encoded = encode_state(state)
+        key = json.dumps(encoded).encode()
+        if key not in states:
+            states[key] = len(table)
+            table.append(encoded)
+        return states[key]
+
+    entries, members = [], {}
+    for number, stage in enumerate(order):
+        artifacts, digest = stage_parts(stage)
+        learners = []
+        for t, artifact in enumerate(artifacts):
+            member = f"stages/{number:04d}/track-{t}{artifact.suffix}"
+            members[member] = artifact.payload
+            learners.append({"member": member, "sha256": hashlib.sha256(artifact.payload).hexdigest(),
+                             "fmt": artifact.fmt, "meta": artifact.meta})
+        entries.append({
+            "id": number, "previous": previous[id(stage)], "spec": stage.spec.to_dict(), "params": stage.params,
+            "feature_index": list(stage.feature_index), "scales": list(stage.scales),
+            "fit_seconds": stage.fit_seconds, "rng_before": [state_id(s) for s in stage.rng_before],
+            "rng_after": [state_id(s) for s in stage.rng_after], "outputs_sha256": digest, "learners": learners,
+        })
+    manifest = {
+        "format": FORMAT_NAME, "format_version": FORMAT_VERSION,
+        "saved": datetime.now(UTC).isoformat(timespec="seconds"), "versions": store.library_versions(),
+        **_chain_data(chain), "columns": _columns(chain), "loss": chain.loss.name,
+        "validation": chain.validation.to_dict(), "seed": chain.seed,
+        "test": {"revealed": chain.test_revealed, "reveals": chain.reveal_count},
+        "streams": [state_id(rng.get_state()) for rng in chain._rngs], "current": [ids[id(s)] for s in chain.stages],
+        "removals": [{"action": r.action, "stages": [ids[id(s)] for s in r.stages]} for r in chain._removals],
+        "stages": entries, "states": table,
+    }
+    return store.json_ready(manifest), members
+
+
+def _columns(chain: Chain) -> dict[str, Any]:
+    schema = chain.schema
+    return {"target": schema.target, "ignore": list(chain.ignore), "features": schema.names,
+            "task": schema.task, "positive": schema.positive_class, "threshold": chain.threshold,
+            "schema": schema.to_dict()}
+
+
+def _write_archive(handle: IO[bytes], manifest: dict[str, Any], members: dict[str, bytes]) -> None:
+    with zipfile.ZipFile(handle, "w", zipfile.ZIP_DEFLATED, compresslevel=1) as archive:
+        for name, payload in members.items():
+            archive.writestr(name, payload)
+        archive.writestr(MANIFEST, json.dumps(manifest, separators=(",", ":"), allow_nan=False))
+
+
+# ----------------------------------------------------------------------------- loading
+def load_session(path: str | os.PathLike, data: str | os.PathLike | pd.DataFrame | None = None, *,
+                 allow_changed: bool = False) -> Chain:
+    """Return the chain a session file holds, its stages restored without refitting.
+
+    ``data`` (a file or a DataFrame) replaces the session's data file. Raise SessionDataChanged
+    when the data differs from what the session was fit on, unless ``allow_changed``: then the
+    chain is rebuilt on the data as it is now and its stages are refit from their specs (the
+    removal stack is not kept). Raise SessionError for a damaged file, DataError when the data
+    file cannot be read.
+    """
+    name = os.fspath(path)
+    with _open(name) as archive:
+        manifest = _read_manifest(archive, name)
+        source = _data_source(manifest, data, name, allow_changed)
+        chain = _rebuild(manifest, source, name)
+        if not _same_data(chain, manifest):
+            if not allow_changed:
+                raise SessionDataChanged(name, ["its rows, columns or split differ from the session's"])
+            return _refit(chain, manifest, name)
+        with _damaged(name):
+            restore_stages(chain, manifest, lambda member, sha: _member(archive, member, sha, name), name)
+    return chain
+
+
+def _data_source(manifest: dict[str, Any], data: Any, name: str, allow_changed: bool) -> Any:
+    if data is not None:
+        return data
+    reference = manifest.get("data")
+    if reference is None:
+        raise SessionError(f"{name}: the session was saved from a DataFrame; pass that frame as data")
+    with _damaged(name):
+        changes = describe_changes(reference)
+        path = str(reference["path"])
+    if changes and not allow_changed:
+        raise SessionDataChanged(name, changes)
+    return path
+
+
+def _rebuild(manifest: dict[str, Any], source: Any, name: str) -> Chain:
+    """Return a chain without stages over ``source`` with the session's settings."""
+    frame, data_name = load_frame(source)
+    with _damaged(name):
+        columns = manifest["columns"]
+        settings = {"validation": spec_from_dict(dict(manifest["validation"])), "loss": str(manifest["loss"]),
+                    "seed": int(manifest["seed"]), "ignore": [str(c) for c in columns["ignore"]],
+                    "task": str(columns["task"]), "positive": columns["positive"],
+                    "threshold": float(columns["threshold"]), "source": data_name}
+        target, features = str(columns["target"]), [str(c) for c in columns["features"]]
+    try:
+        chain = Chain(frame, target, **settings)
+        if chain.schema.to_dict() != columns["schema"]:
+            chain = Chain(frame, target, features=features, **settings)
+    except Exception as exc:  # settings that do not fit this data: a damaged session or changed data
+        reason = " ".join(str(exc).split()) or type(exc).__name__
+        raise SessionError(f"{name}: the session's settings do not apply to {data_name} ({reason})") from None
+    if isinstance(source, str | os.PathLike):
+        chain.data_path = os.fspath(source)
+    return chain
+
+
+def _same_data(chain: Chain, manifest: dict[str, Any]) -> bool:
+    with contextlib.suppress(Exception):
+        stored = manifest["fingerprint"]
+        now = store.data_fingerprint(chain.matrix, chain.y, chain.layout.order)
+        return (chain.schema.to_dict() == manifest["columns"]["schema"] and now["sha256"] == stored["sha256"]
+                and split_digest(chain.layout) == stored["split_sha256"])
+    return False
+
+
+def _refit(chain: Chain, manifest: dict[str, Any], name: str) -> Chain:
+    from .spec import StageSpec
+
+    with _damaged(name):
+        specs = {entry["id"]: StageSpec.from_dict(entry["spec"]) for entry in manifest["stages"]}
+        current = [specs[i] for i in manifest["current"]]
+    chain.add_specs(current)
+    chain.prepared.notes = (*chain.prepared.notes,
+                            f"the data changed since the session was saved: its {len(current)} stages were refit")
+    return chain
+
+
+@contextlib.contextmanager
+def _damaged(name: str):
+    """Turn anything raised inside into a SessionError naming the file (SessionErrors pass through)."""
+    try:
+        yield
+    except SessionError:
+        raise
+    except Exception as exc:
+        reason = " ".join(str(exc).split()) or type(exc).__name__
+        raise SessionError(f"{name}: session file is damaged ({type(exc).__name__}: {reason})") from None
+
+
+def _open(name: str) -> zipfile.ZipFile:
+    if os.path.isdir(name):
+        raise SessionError(f"{name}: is a folder, not a session file")
+    if not os.path.exists(name):
+        raise SessionError(f"{name}: no such session file")
+    try:
+        return zipfile.ZipFile(name)
+    except (zipfile.BadZipFile, EOFError, ValueError):
+        raise SessionError(f"{name}: not a session file (not a zip archive)") from None
+    except OSError as exc:
+        raise SessionError(f"{name}: cannot be read ({exc.strerror or exc})") from None
+
+
+def _member(archive: zipfile.ZipFile, member: Any, sha256: Any, name: str, limit: int | None = None) -> bytes:
+    try:
+        return store.read_member(archive, member, sha256, name, limit=limit)
+    except ChainFileError as exc:
+        raise SessionError(str(exc)) from None
+    except Exception as exc:  # a damaged deflate stream (zlib.error) and the like
+        raise SessionError(f"{name}: member {member!r} cannot be read ({type(exc).__name__})") from None
+
+
+def _read_manifest(archive: zipfile.ZipFile, name: str) -> dict[str, Any]:
+    raw = _member(archive, MANIFEST, None, name, limit=MAX_MANIFEST_BYTES)
+    with _damaged(name):
+        manifest = json.loads(raw.decode("utf-8"), parse_constant=_refuse_constant)
+    if not isinstance(manifest, dict) or manifest.get("format") != FORMAT_NAME:
+        raise SessionError(f"{name}: not a remnant session file")
+    version = manifest.get("format_version")
+    if not isinstance(version, int) or isinstance(version, bool) or version < 1:
+        raise SessionError(f"{name}: session file has no valid format_version (found {version!r})")
+    if version > FORMAT_VERSION:
+        raise SessionError(f"{name}: written by a newer remnant (session format {version}; "
+                           f"this one reads {FORMAT_VERSION})")
+    return manifest
+
+
+def _refuse_constant(token: str) -> Any:
+    raise ValueError(f"{token} is not strict JSON")
+
+
+__all__ = ["SessionError", "SessionSaveError", "SessionDataChanged", "session_path", "sessions_folder",
+           "save_session", "load_session", "data_changes", "session_summary", "data_reference",
+           "file_sha256"]
