@@ -16,6 +16,7 @@ import os
 import re
 import threading
 import tomllib
+from collections.abc import Callable
 from dataclasses import dataclass, field, fields
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
@@ -390,12 +391,23 @@ def chain_to_recipe(chain: Chain, base_dir: str | os.PathLike | None = None) -> 
 
 
 def fit_recipe(recipe_or_path: Recipe | str | os.PathLike, data: str | os.PathLike | pd.DataFrame | None = None,
-               *, cancel: threading.Event | None = None, progress: ProgressFn | None = None) -> Chain:
-    """Return the chain a recipe describes, fitted; ``data`` (a file or a DataFrame) replaces its data path."""
+               *, cancel: threading.Event | None = None, progress: ProgressFn | None = None,
+               on_stage: Callable[[Chain], None] | None = None) -> Chain:
+    """Return the chain a recipe describes, fitted; ``data`` (a file or a DataFrame) replaces its data path.
+
+    ``on_stage(chain)`` is called after every stage is committed (a screen can draw it).
+    """
+    recipe = recipe_or_path if isinstance(recipe_or_path, Recipe) else read_recipe(recipe_or_path)
+    chain = build_chain(recipe, data)
+    replay(chain, recipe, cancel=cancel, progress=progress, on_stage=on_stage)
+    return chain
+
+
+def build_chain(recipe: Recipe, data: str | os.PathLike | pd.DataFrame | None = None) -> Chain:
+    """Return the recipe's chain with no stages yet: its data, columns, validation and loss checked."""
     from .chain import Chain
     from .data import load_frame
 
-    recipe = recipe_or_path if isinstance(recipe_or_path, Recipe) else read_recipe(recipe_or_path)
     source = data if data is not None else recipe.data_path
     if source is None:
         raise RecipeError(f"{recipe.where('data')}: [data] has no 'path' (name the data file there or pass --data)")
@@ -412,7 +424,6 @@ def fit_recipe(recipe_or_path: Recipe | str | os.PathLike, data: str | os.PathLi
     if isinstance(source, str | os.PathLike):
         chain.data_path = os.fspath(source)
     _check_stage_features(recipe, chain)
-    replay(chain, recipe, cancel=cancel, progress=progress)
     return chain
 
 

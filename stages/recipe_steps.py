@@ -20,6 +20,7 @@ keeps one::
 from __future__ import annotations
 
 import threading
+from collections.abc import Callable
 from dataclasses import dataclass
 from typing import TYPE_CHECKING, Any
 
@@ -98,8 +99,12 @@ def _check_spec(spec: StageSpec, task: str | None) -> None:
 
 
 def replay(chain: Chain, recipe: Recipe, *, cancel: threading.Event | None = None,
-           progress: ProgressFn | None = None) -> None:
-    """Fit the recipe's stage entries in order on ``chain``: plain repeats, grows with patience, auditions."""
+           progress: ProgressFn | None = None, on_stage: Callable[[Chain], None] | None = None) -> None:
+    """Fit the recipe's stage entries in order on ``chain``: plain repeats, grows with patience, auditions.
+
+    ``on_stage(chain)`` is called after every committed stage; a plain ``repeat`` is then fit one
+    stage at a time (the same stages: each is fit on the residuals of the one before).
+    """
     from .audition import CHOICE_RULES
     from .grow import grow_spec
 
@@ -119,15 +124,22 @@ def replay(chain: Chain, recipe: Recipe, *, cancel: threading.Event | None = Non
                 candidates = chain.audition(list(audition.candidates), cancel=cancel, progress=step_progress)
                 chain.keep(CHOICE_RULES[audition.choose](candidates))
                 done += 1
+                if on_stage is not None:
+                    on_stage(chain)
 
     for i, (spec, repeat) in enumerate(entries):
         run_auditions(i)
         patience = recipe.patience.get(i)
-        if patience is None:
+        if patience is None and on_stage is None:
             chain.add_specs([spec] * repeat, cancel=cancel, progress=step_progress)
+        elif patience is None:
+            for _ in range(repeat):
+                chain.add_specs([spec], cancel=cancel, progress=step_progress)
+                on_stage(chain)
         else:
             try:
-                grow_spec(chain, spec, max_stages=repeat, patience=patience, cancel=cancel, progress=step_progress)
+                grow_spec(chain, spec, max_stages=repeat, patience=patience, cancel=cancel, progress=step_progress,
+                          on_stage=on_stage)
             except StageSpecError as err:
                 raise RecipeError(f"{recipe.where('stage', i, 'patience')}: {err}") from None
         done += 1

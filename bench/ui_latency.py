@@ -1,0 +1,159 @@
+"""Responsiveness of the workbench while a LightGBM stage fits in the worker (a benchmark, not a test).
+
+The app runs headless (``App.run_test``) over a chain on generated data. A timer asks to tick
+every 20 ms and records the largest gap between ticks; simulated key presses record how long
+each waited before the app took it up. Both are measured while idle, then while a LightGBM
+stage fits in the fit worker. Target: during the fit, ticks and keys within 100 ms.
+
+    python bench/ui_latency.py               # 1,000,000 rows
+    python bench/ui_latency.py --rows 200000
+"""
+
+from __future__ import annotations
+
+import argparse
+import asyncio
+import statistics
+import time
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+from textual import events
+
+import stages
+import tui.app
+from stages.spec import StageSpec
+from tui import jobs
+from tui.app import RemnantApp
+
+TICK = 0.020
+TARGET = 0.100
+
+
+def make_frame(rows: int, seed: int = 0) -> pd.DataFrame:
+    """Return ``rows`` rows of made-up regression data: 8 numbers, one category, a bent target."""
+    rng = np.random.RandomState(seed)
+    X = rng.normal(size=(rows, 8))
+    depot = rng.randint(0, 5, size=rows)
+    y = X @ np.linspace(1.0, -1.0, 8) + 2 * np.sin(2 * X[:, 0]) * (X[:, 1] > 0) + depot + rng.normal(size=rows)
+    frame = pd.DataFrame(X, columns=[f"x{i}" for i in range(8)])
+    frame["depot"] = np.array(["north", "east", "south", "west", "centre"])[depot]
+    frame["y"] = y
+    return frame
+
+
+class ProbedApp(RemnantApp):
+    """The workbench, noting when each key event reaches the app and when each tick fires."""
+
+    CSS_PATH = str(Path(tui.app.__file__).with_name("app.tcss"))
+
+    def __init__(self, **kwargs) -> None:
+        super().__init__(**kwargs)
+        self.ticks: list[float] = []
+        self.key_seen: list[float] = []
+        self.worker_done = 0.0
+
+    def on_worker_state_changed(self, event) -> None:
+        """Note when the fit worker finished, then deliver its result as usual."""
+        if event.worker.group == "fit" and event.worker.is_finished:
+            self.worker_done = time.perf_counter()
+        super().on_worker_state_changed(event)
+
+    def on_mount(self) -> None:
+        """Open the workbench and start the 20 ms timer."""
+        super().on_mount()
+        self.set_interval(TICK, lambda: self.ticks.append(time.perf_counter()))
+
+    async def on_event(self, event: events.Event) -> None:
+        """Note the moment a key is taken up, then handle it as usual."""
+        if isinstance(event, events.Key):
+            self.key_seen.append(time.perf_counter())
+        await super().on_event(event)
+
+
+def largest_gap(ticks: list[float], start: float, end: float) -> float:
+    """Return the largest gap between consecutive ticks inside [start, end]."""
+    inside = [t for t in ticks if start <= t <= end]
+    return max((b - a for a, b in zip(inside, inside[1:], strict=False)), default=float("nan"))
+
+
+async def press_keys(app: ProbedApp, until) -> list[float]:
+    """Send a harmless key (down, in the chain table) every 100 ms until ``until()``, as a terminal's
+    driver would; return how long each waited before the app took it up."""
+    delays = []
+    while not until():
+        before = len(app.key_seen)
+        key = events.Key("down", None)
+        key.set_sender(app)
+        sent = time.perf_counter()
+        app._driver.send_message(key)
+        while len(app.key_seen) == before and time.perf_counter() - sent < 5:
+            await asyncio.sleep(0.001)
+        if len(app.key_seen) > before:
+            delays.append(app.key_seen[before] - sent)
+        await asyncio.sleep(0.1)
+    return delays
+
+
+async def measure(rows: int, rounds: int, threads: int = 0) -> dict[str, float]:
+    """Return the idle and during-fit figures for a LightGBM stage of ``rounds`` rounds on ``rows`` rows."""
+    built = time.perf_counter()
+    chain = stages.Chain(make_frame(rows), "y", stages.Holdout(fraction=0.2, seed=0), "squared")
+    print(f"built the chain on {rows:,} rows in {time.perf_counter() - built:.1f} s")
+    app = ProbedApp(chain=chain)
+    async with app.run_test(size=(100, 30)) as pilot:
+        await pilot.pause(0.5)
+        idle_start = time.perf_counter()
+        deadline = idle_start + 3.0
+        idle_keys = await press_keys(app, lambda: time.perf_counter() > deadline)
+        idle_end = time.perf_counter()
+        screen = app.screen
+        spec = StageSpec("lightgbm", 0.5, params={"n_estimators": rounds, "n_jobs": threads})
+        fit_start = time.perf_counter()
+        app.start_job(jobs.add_stages(screen, chain, screen.cache, screen.view, spec, 1))
+        fit_keys = await press_keys(app, lambda: not app.fitting)
+        fit_end = app.worker_done
+        await pilot.pause(0.5)
+        assert screen.view.n_stages == 1, "the stage was not added"
+        shown = time.perf_counter()
+    inside = [t for t in app.ticks if fit_start <= t <= fit_end]
+    gaps = sorted(((b - a, a - fit_start) for a, b in zip(inside, inside[1:], strict=False)), reverse=True)[:5]
+    print("largest gaps during the fit (gap ms @ s after start):",
+          ", ".join(f"{g * 1000:.0f} @ {at:.1f}" for g, at in gaps))
+    refresh = largest_gap(app.ticks, fit_end, shown)
+    return {
+        "refresh": refresh,
+        "fit": fit_end - fit_start,
+        "idle_gap": largest_gap(app.ticks, idle_start, idle_end),
+        "fit_gap": largest_gap(app.ticks, fit_start, fit_end),
+        "idle_key": max(idle_keys), "fit_key": max(fit_keys),
+        "fit_key_median": statistics.median(fit_keys), "keys": len(fit_keys),
+    }
+
+
+def main() -> None:
+    """Run the benchmark and print its figures."""
+    parser = argparse.ArgumentParser(description="UI latency while a LightGBM stage fits.")
+    parser.add_argument("--rows", type=int, default=1_000_000, help="rows of generated data (default 1,000,000)")
+    parser.add_argument("--rounds", type=int, default=100, help="LightGBM boosting rounds (default 100)")
+    parser.add_argument("--threads", type=int, default=0,
+                        help="LightGBM threads for the stage (default 0: LightGBM's own choice, all cores)")
+    args = parser.parse_args()
+    r = asyncio.run(measure(args.rows, args.rounds, args.threads))
+    ms = 1000
+    threads = f", {args.threads} threads" if args.threads else ""
+    print(f"LightGBM stage, {args.rounds} rounds on {args.rows:,} rows{threads}: {r['fit']:.1f} s in the worker")
+    print(f"timer every {TICK * ms:.0f} ms, largest gap: idle {r['idle_gap'] * ms:.0f} ms, "
+          f"during the fit {r['fit_gap'] * ms:.0f} ms (ratio {r['fit_gap'] / r['idle_gap']:.2f})")
+    print(f"key presses, longest wait: idle {r['idle_key'] * ms:.1f} ms, during the fit {r['fit_key'] * ms:.1f} ms "
+          f"(median {r['fit_key_median'] * ms:.1f} ms over {r['keys']} keys)")
+    print(f"showing the new stage once the fit is done (table, histogram, plots): largest gap "
+          f"{r['refresh'] * ms:.0f} ms")
+    worst = max(r["fit_gap"], r["fit_key"])
+    verdict = "met" if worst <= TARGET else "missed"
+    print(f"target: ticks and keys within {TARGET * ms:.0f} ms during the fit: {verdict} (worst {worst * ms:.0f} ms)")
+
+
+if __name__ == "__main__":
+    main()

@@ -1,0 +1,155 @@
+"""The workbench app: a thin App over the screens, the fit worker and the app-wide keys.
+
+``run`` is what the ``remnant`` command calls: on a data file it opens the setup screen, on a
+recipe it fits the recipe and shows the chain growing, on a chain file it shows the file
+read-only. Bad input is one ``error:`` line on stderr and exit status 2, before any screen.
+"""
+
+from __future__ import annotations
+
+import difflib
+import gc
+import sys
+from pathlib import Path
+from typing import Any
+
+from textual.app import App
+from textual.binding import Binding
+
+from stages.errors import DataError, RemnantError
+
+from .screens.add_stage import AddStageScreen
+from .screens.failure import FailureScreen
+from .screens.help import HelpScreen, describe
+from .screens.inspect import InspectScreen
+from .screens.setup import SetupScreen
+from .screens.workbench import WorkbenchScreen
+from .view import ChainView, ImportanceCache, view_of_chain, view_of_fitted
+from .widgets.column_roles import ColumnRoles
+from .worker import FitRunner
+
+
+class RemnantApp(FitRunner, App):
+    """The workbench: one chain, its panes, and every action by keyboard.
+
+    Give one of: ``frame`` (the setup screen), ``recipe`` (fit it, then the workbench),
+    ``chain`` (the workbench on a live chain) or ``fitted`` (a chain file, read-only).
+    ``timings=False`` hides elapsed and fit times, for screenshots that must not change.
+    """
+
+    CSS_PATH = "app.tcss"
+    TITLE = "remnant"
+    ENABLE_COMMAND_PALETTE = False
+    BINDINGS = [
+        Binding("question_mark,f1", "help", "help", tooltip="list every key"),
+        Binding("q", "quit", "quit", tooltip="quit (a running fit is cancelled)"),
+        Binding("ctrl+q", "quit", "quit", show=False),
+    ]
+
+    def __init__(self, *, frame: Any = None, source: str = "data", data_path: str | None = None,
+                 target: str | None = None, recipe: Any = None, recipe_data: str | None = None,
+                 chain: Any = None, fitted: Any = None, timings: bool = True) -> None:
+        super().__init__()
+        self.start = {"frame": frame, "source": source, "data_path": data_path, "target": target,
+                      "recipe": recipe, "recipe_data": recipe_data, "chain": chain, "fitted": fitted}
+        self.timings = timings
+
+    def on_mount(self) -> None:
+        """Open the first screen for what the app was given."""
+        s = self.start
+        if s["fitted"] is not None:
+            self.push_screen(InspectScreen(view_of_fitted(s["fitted"], s["source"]), timings=self.timings, alone=True))
+        elif s["recipe"] is not None:
+            self.push_screen(WorkbenchScreen(recipe=s["recipe"], recipe_data=s["recipe_data"], timings=self.timings))
+        elif s["chain"] is not None:
+            cache = ImportanceCache()
+            self.open_workbench(s["chain"], view_of_chain(s["chain"], cache), cache)
+        else:
+            self.push_screen(SetupScreen(s["frame"], s["source"], s["data_path"], s["target"]))
+        self.call_after_refresh(self._freeze_heap)
+
+    def _freeze_heap(self) -> None:
+        # What is alive once the first screen is up (modules, data, widgets) lives as long as the
+        # app. A full garbage collection holds the GIL while it walks every object; during a
+        # fit on a busy machine that walk stalled the screen for 100-250 ms. Frozen objects are
+        # not walked again.
+        gc.collect()
+        gc.freeze()
+
+    def open_workbench(self, chain: Any, view: ChainView, cache: ImportanceCache) -> None:
+        """Show the workbench over ``chain`` in place of the current screen."""
+        screen = WorkbenchScreen(chain, view, cache=cache, timings=self.timings)
+        if len(self.screen_stack) > 1:
+            self.switch_screen(screen)
+        else:
+            self.push_screen(screen)
+
+    def show_failure(self, title: str, reason: str, note: str = "") -> None:
+        """Show the one-line ``reason`` in a modal."""
+        self.push_screen(FailureScreen(title, reason, note))
+
+    def help_sections(self) -> list[tuple[str, list[tuple[str, str]]]]:
+        """Return every key of the app, grouped by where it works."""
+        return [
+            ("main screen", describe(WorkbenchScreen.BINDINGS)),
+            ("setup screen", describe(SetupScreen.BINDINGS + ColumnRoles.BINDINGS)),
+            ("add-stage form", [("enter", "fit the stage"), *describe(AddStageScreen.BINDINGS)]),
+            ("read-only chain file", describe(InspectScreen.BINDINGS)),
+            ("questions", [("y / enter", "yes"), ("n / esc", "no")]),
+            ("everywhere", describe(self.BINDINGS)),
+        ]
+
+    def action_help(self) -> None:
+        """Show every key."""
+        if not isinstance(self.screen, HelpScreen):
+            self.push_screen(HelpScreen(self.help_sections()))
+
+    async def action_quit(self) -> None:
+        """Cancel a running fit, then leave."""
+        self.cancel_job()
+        self.exit()
+
+
+def _check_target(frame: Any, target: str | None, name: str) -> None:
+    if target is None or target in frame.columns:
+        return
+    close = difflib.get_close_matches(target, [str(c) for c in frame.columns], n=1)
+    hint = f" (did you mean {close[0]!r}?)" if close else ""
+    raise DataError(f"{name}: target {target!r} is not a column{hint}")
+
+
+def build_app(data_path: str | None = None, target: str | None = None, recipe_path: str | None = None,
+              chain_path: str | None = None, *, timings: bool = True) -> RemnantApp:
+    """Return the app for what ``run`` was given; raise RemnantError for input it cannot use."""
+    from stages.data import read_table, source_name
+
+    if chain_path is not None:
+        from stages.store import load
+
+        return RemnantApp(fitted=load(chain_path), source=source_name(chain_path), timings=timings)
+    if recipe_path is not None:
+        from stages.recipe import read_recipe
+
+        recipe = read_recipe(recipe_path)
+        data = data_path or recipe.data_path
+        if data is not None and not Path(data).exists():
+            raise DataError(f"{source_name(data)}: no such file (named by {recipe.name})")
+        return RemnantApp(recipe=recipe, recipe_data=data_path, timings=timings)
+    if data_path is None:
+        raise DataError("give a data file, a recipe or a chain file")
+    frame = read_table(data_path)
+    _check_target(frame, target, source_name(data_path))
+    return RemnantApp(frame=frame, source=source_name(data_path), data_path=str(data_path), target=target,
+                      timings=timings)
+
+
+def run(data_path: str | None = None, target: str | None = None, recipe_path: str | None = None,
+        chain_path: str | None = None) -> int:
+    """Open the workbench and return the exit status: 0 done, 2 input it cannot use."""
+    try:
+        app = build_app(data_path, target, recipe_path, chain_path)
+    except RemnantError as err:
+        print(f"error: {err}", file=sys.stderr)
+        return 2
+    app.run()
+    return int(app.return_code or 0)

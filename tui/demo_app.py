@@ -1,0 +1,23 @@
+"""The ready-made demo app: the workbench fitting the demo recipe (refrigerated deliveries).
+
+The tests, the README screenshot script and the quick start all use ``demo_app()``.
+"""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import tui
+
+from .app import RemnantApp, build_app
+
+
+def demo_folder() -> Path:
+    """Return the folder holding the demo data and its recipes."""
+    return Path(tui.__file__).resolve().parent.parent / "demo"
+
+
+def demo_app(*, timings: bool = True, binary: bool = False) -> RemnantApp:
+    """Return the app on the demo recipe (``binary`` for the spoilage recipe); it starts fitting when run."""
+    recipe = "deliveries_binary.toml" if binary else "deliveries.toml"
+    return build_app(recipe_path=str(demo_folder() / recipe), timings=timings)

@@ -1,0 +1,96 @@
+"""App-wide messages: what happened to the chain or to a fit, named in the past tense.
+
+Workers post these to the screen that asked for the work (``post_message`` is thread-safe);
+screens react by setting their widgets' attributes.
+"""
+
+from __future__ import annotations
+
+from pathlib import Path
+from typing import TYPE_CHECKING
+
+from textual.message import Message
+
+if TYPE_CHECKING:
+    from stages import Chain, FittedChain
+
+    from .view import ChainView
+
+
+class ChainReady(Message):
+    """A chain was built (from the setup screen or a recipe); it has no stages fitted yet, or some."""
+
+    def __init__(self, chain: Chain, view: ChainView) -> None:
+        self.chain = chain
+        self.view = view
+        super().__init__()
+
+
+class StageFitted(Message):
+    """One stage of a longer job (a recipe) was fitted; more may follow."""
+
+    def __init__(self, view: ChainView, summary: str) -> None:
+        self.view = view
+        self.summary = summary
+        super().__init__()
+
+
+class ChainChanged(Message):
+    """An action on the chain completed: add, step back, drop, trim, undo or reveal."""
+
+    def __init__(self, view: ChainView, action: str, summary: str, select: int | None = None) -> None:
+        self.view = view
+        self.action = action
+        self.summary = summary
+        self.select = select
+        super().__init__()
+
+
+class FitStarted(Message):
+    """A job started in the fit worker; ``label`` says what it does."""
+
+    def __init__(self, label: str, cancellable: bool) -> None:
+        self.label = label
+        self.cancellable = cancellable
+        super().__init__()
+
+
+class FitProgressed(Message):
+    """A running job reported progress; a newer report replaces one still waiting."""
+
+    def __init__(self, fraction: float, detail: str) -> None:
+        self.fraction = fraction
+        self.detail = detail
+        super().__init__()
+
+    def can_replace(self, message: Message) -> bool:
+        """Return True when ``message`` is a later progress report that makes this one stale."""
+        return isinstance(message, FitProgressed)
+
+
+class FitFailed(Message):
+    """A job ended without a result: it failed (``cancelled`` False) or the user cancelled it."""
+
+    def __init__(self, label: str, reason: str, cancelled: bool) -> None:
+        self.label = label
+        self.reason = reason
+        self.cancelled = cancelled
+        super().__init__()
+
+
+class FileWritten(Message):
+    """A chain file or a recipe was written at ``path``."""
+
+    def __init__(self, path: Path, what: str) -> None:
+        self.path = path
+        self.what = what
+        super().__init__()
+
+
+class ChainFileOpened(Message):
+    """A saved chain file was read, for read-only inspection."""
+
+    def __init__(self, fitted: FittedChain, path: Path) -> None:
+        self.fitted = fitted
+        self.path = path
+        super().__init__()

@@ -1,0 +1,1 @@
+"""The workbench's screens: setup, the main workbench, read-only inspection, and the modals."""

@@ -1,0 +1,192 @@
+"""The add-stage form: kind, shrinkage, features, the kind's main params (defaults shown) and repeat.
+
+It returns a recipe-shaped dict (``kind``, ``shrinkage``, ``features``, ``params``, ``repeat``)
+or None when cancelled. Typing mistakes are shown in the form; whether the kind takes a
+parameter is the engine's call, made when the stage is fit.
+"""
+
+from __future__ import annotations
+
+from typing import Any
+
+from textual import on
+from textual.app import ComposeResult
+from textual.binding import Binding
+from textual.containers import Horizontal, Vertical, VerticalScroll
+from textual.screen import ModalScreen
+from textual.widgets import Button, Footer, Input, Label, Select, SelectionList
+
+from stages.kinds import get_kind, kind_names
+
+from ..format import parse_value, value
+
+#: the option that stands for any scikit-learn regressor, named by its import path
+SKLEARN = "sklearn:"
+#: kinds that only fit one task
+ONLY_FOR = {"logistic": "binary"}
+#: our starting shrinkage per kind: full steps for kinds fit once, smaller for trees (common practice)
+SHRINKAGE = {"tree": 0.3, "hist_tree": 0.3, "forest": 0.5, "extra_trees": 0.5, "lightgbm": 0.5, "knn": 0.5,
+             "spline": 0.5}
+
+
+class FormError(ValueError):
+    """A field of the form holds something that cannot be used; the message says which."""
+
+
+def parse_pairs(text: str) -> dict[str, Any]:
+    """Return ``name=value, name=value`` as a dict of typed values."""
+    params: dict[str, Any] = {}
+    for chunk in filter(None, (part.strip() for part in text.split(","))):
+        name, sep, raw = chunk.partition("=")
+        if not sep or not name.strip():
+            raise FormError(f"more params: write name=value, not {chunk!r}")
+        params[name.strip()] = parse_value(raw)
+    return params
+
+
+def kinds_for(task: str) -> list[str]:
+    """Return the kinds offered for a chain of ``task``."""
+    return [k for k in kind_names() if ONLY_FOR.get(k, task) == task]
+
+
+class AddStageScreen(ModalScreen[dict | None]):
+    """The form that describes the next stage."""
+
+    BINDINGS = [Binding("escape", "cancel", "cancel")]
+
+    def __init__(self, task: str, features: tuple[str, ...], kind: str = "linear") -> None:
+        super().__init__()
+        self.chain_task = task
+        self.features = features
+        self.kinds = kinds_for(task)
+        self.kind = kind if kind in self.kinds or kind.startswith(SKLEARN) else self.kinds[0]
+
+    def compose(self) -> ComposeResult:
+        """Return the form's fields and buttons."""
+        options = [(k, k) for k in self.kinds] + [("sklearn:<module.Class>", SKLEARN)]
+        start = SKLEARN if self.kind.startswith(SKLEARN) else self.kind
+        with Vertical(id="add-stage", classes="dialog") as box:
+            box.border_title = "add a stage"
+            with VerticalScroll(id="add-fields"):
+                with Horizontal(classes="field"):
+                    yield Label("kind", classes="name")
+                    yield Select(options, value=start, allow_blank=False, id="kind", compact=True)
+                yield Label("", id="kind-summary", classes="dim", markup=False)
+                with Horizontal(classes="field", id="estimator-row"):
+                    yield Label("estimator", classes="name")
+                    yield Input(self.kind[len(SKLEARN):] if self.kind.startswith(SKLEARN) else "",
+                                placeholder="sklearn.linear_model.HuberRegressor", id="estimator", compact=True)
+                with Horizontal(classes="field"):
+                    yield Label("shrinkage", classes="name")
+                    yield Input(value(SHRINKAGE.get(self.kind, 1.0)), id="shrinkage", type="number", compact=True)
+                    yield Label("repeat", classes="name short")
+                    yield Input("1", id="repeat", type="integer", compact=True)
+                yield Vertical(id="params")
+                with Horizontal(classes="field"):
+                    yield Label("more params", classes="name")
+                    yield Input(placeholder="name=value, name=value", id="more", compact=True)
+                yield Label("features (all ticked: every feature)", classes="dim")
+                yield SelectionList(*[(f, f, True) for f in self.features], id="features", compact=True)
+            yield Label("", id="add-error", markup=False)
+            with Horizontal(classes="buttons"):
+                yield Button("fit (enter)", id="add-fit", variant="primary", compact=True)
+                yield Button("cancel (esc)", id="add-cancel", compact=True)
+        yield Footer(compact=True, show_command_palette=False)
+
+    def on_mount(self) -> None:
+        """Fill in the selected kind's params and focus the kind list."""
+        self._show_kind(self.kind)
+        self.query_one("#kind", Select).focus()
+
+    @on(Select.Changed, "#kind")
+    def _kind_changed(self, event: Select.Changed) -> None:
+        kind = str(event.value)
+        if kind != (SKLEARN if self.kind.startswith(SKLEARN) else self.kind):
+            self.query_one("#shrinkage", Input).value = value(SHRINKAGE.get(kind, 1.0))
+        self._show_kind(kind)
+
+    def _show_kind(self, kind: str) -> None:
+        self.kind = kind
+        sklearn = kind.startswith(SKLEARN)
+        self.query_one("#estimator-row").display = sklearn
+        summary = "any scikit-learn regressor, by import path" if sklearn else get_kind(kind).summary
+        self.query_one("#kind-summary", Label).update(summary)
+        box = self.query_one("#params", Vertical)
+        box.remove_children()
+        if sklearn:
+            return
+        defaults = get_kind(kind).task_defaults(self.chain_task)
+        rows = []
+        for name in get_kind(kind).main_params:
+            rows.append(Horizontal(Label(name, classes="name"),
+                                   Input(value(defaults.get(name)), name=name, compact=True, classes="param"), classes="field"))
+        box.mount_all(rows)
+
+    def _kind_name(self) -> str:
+        if not self.kind.startswith(SKLEARN):
+            return self.kind
+        path = self.query_one("#estimator", Input).value.strip()
+        if not path:
+            raise FormError("estimator: type the import path of a regressor, e.g. sklearn.svm.SVR")
+        return SKLEARN + path
+
+    def _params(self, kind: str) -> dict[str, Any]:
+        params: dict[str, Any] = {}
+        if not kind.startswith(SKLEARN):
+            defaults = get_kind(kind).task_defaults(self.chain_task)
+            for field in self.query(".param").results(Input):
+                name = field.name or ""
+                typed = parse_value(field.value)
+                if typed != defaults.get(name):
+                    params[name] = typed
+        params.update(parse_pairs(self.query_one("#more", Input).value))
+        return params
+
+    def _number(self, field: str, whole: bool) -> float:
+        text = self.query_one(f"#{field}", Input).value.strip()
+        try:
+            return int(text) if whole else float(text)
+        except ValueError:
+            kind = "a whole number" if whole else "a number"
+            raise FormError(f"{field} must be {kind}, not {text!r}") from None
+
+    def request(self) -> dict[str, Any]:
+        """Return the stage the form describes; raise FormError naming a field that cannot be used."""
+        kind = self._kind_name()
+        shrinkage = self._number("shrinkage", whole=False)
+        if not 0 < shrinkage <= 1:
+            raise FormError(f"shrinkage must be above 0 and at most 1, not {shrinkage:g}")
+        repeat = int(self._number("repeat", whole=True))
+        if repeat < 1:
+            raise FormError(f"repeat must be at least 1, not {repeat}")
+        ticked = list(self.query_one("#features", SelectionList).selected)
+        if not ticked:
+            raise FormError("tick at least one feature (all ticked means every feature)")
+        features = [] if len(ticked) == len(self.features) else [f for f in self.features if f in ticked]
+        return {"kind": kind, "shrinkage": shrinkage, "features": features, "params": self._params(kind),
+                "repeat": repeat}
+
+    def _submit(self) -> None:
+        try:
+            request = self.request()
+        except FormError as err:
+            self.query_one("#add-error", Label).update(str(err))
+            return
+        self.dismiss(request)
+
+    def on_input_submitted(self, event: Input.Submitted) -> None:
+        """Enter in any field fits the stage."""
+        event.stop()
+        self._submit()
+
+    def on_button_pressed(self, event: Button.Pressed) -> None:
+        """Fit or cancel."""
+        event.stop()
+        if event.button.id == "add-fit":
+            self._submit()
+        else:
+            self.dismiss(None)
+
+    def action_cancel(self) -> None:
+        """Close the form without adding a stage."""
+        self.dismiss(None)

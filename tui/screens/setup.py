@@ -1,0 +1,228 @@
+"""The setup screen: columns and their roles, the target, exclusions, the loss and the validation scheme.
+
+Start builds the chain in the fit worker; a choice the engine refuses comes back as a
+one-line reason in a modal, and the screen stays as it was.
+"""
+
+from __future__ import annotations
+
+from typing import Any
+
+import pandas as pd
+from textual import on
+from textual.app import ComposeResult
+from textual.binding import Binding
+from textual.containers import Horizontal, Vertical
+from textual.screen import Screen
+from textual.widgets import Button, Footer, Input, Label, Select, Static
+
+from stages.data import describe_columns, infer_task
+from stages.errors import RemnantError
+from stages.losses import LOSSES, default_loss
+from stages.schema import DATETIME
+from stages.validation import GroupHoldout, Holdout, KFold, SplitColumn, TimeOrder
+
+from ..jobs import SetupChoices, build_chain
+from ..messages import ChainReady, FitFailed, FitStarted
+from ..view import ImportanceCache
+from ..widgets.column_roles import ColumnRoles
+
+CAUTION = ("caution: a chain tuned by looking at validation error needs a final check on the locked "
+           "test part or on new data before anyone relies on it")
+#: scheme -> (label, the fields it uses)
+SCHEMES = {
+    "holdout": ("holdout", ("fraction", "seed", "test")),
+    "kfold": ("k-fold", ("folds", "seed", "test")),
+    "time": ("time order", ("column", "fraction", "test")),
+    "group": ("groups", ("column", "fraction", "seed", "test")),
+    "column": ("split column", ("column",)),
+}
+
+
+class SetupError(ValueError):
+    """A setup field holds something that cannot be used; the message says which."""
+
+
+def losses_for(task: str) -> list[str]:
+    """Return the loss names that fit ``task``."""
+    return [name for name, cls in LOSSES.items() if cls.task == task]
+
+
+class SetupScreen(Screen):
+    """Choose what to predict and how to validate, then start the chain."""
+
+    BINDINGS = [Binding("s", "start", "start", tooltip="start: build the chain with these choices")]
+
+    def __init__(self, frame: pd.DataFrame, source: str, data_path: str | None, target: str | None) -> None:
+        super().__init__()
+        self.frame = frame
+        self.source = source
+        self.data_path = data_path
+        self.reports = describe_columns(frame)
+        self.names = [r.name for r in self.reports]
+        self.target = target if target in self.names else None
+        self.excluded: set[str] = set()
+        self.chain_task: str | None = None
+        self.cache = ImportanceCache()
+
+    def compose(self) -> ComposeResult:
+        """Return the column list, the choices form, the caution line and the footer."""
+        rows, cols = self.frame.shape
+        yield Static(f"new chain · {self.source} · {rows:,} rows × {cols:,} columns", id="title", markup=False)
+        with Horizontal(id="setup-panes"):
+            roles = ColumnRoles(self.reports, id="columns")
+            roles.border_title = "columns"
+            roles.border_subtitle = "t target · x exclude"
+            yield roles
+            with Vertical(id="choices") as form:
+                form.border_title = "choices"
+                yield self._field("target", Select([(n, n) for n in self.names], id="target",
+                                                        prompt="pick a column", compact=True))
+                yield self._field("task", Label("-", id="task"))
+                yield self._field("loss", Select([], id="loss", prompt="-", compact=True))
+                yield self._field("validation", Select([(label, key) for key, (label, _) in SCHEMES.items()],
+                                                            value="holdout", allow_blank=False, id="scheme",
+                                                            compact=True))
+                yield self._field("fraction", Input("0.2", id="fraction", type="number", compact=True))
+                yield self._field("folds", Input("5", id="folds", type="integer", compact=True))
+                yield self._field("column", Select([(n, n) for n in self.names], id="column",
+                                                        prompt="pick a column", compact=True))
+                yield self._field("locked test", Input("0", id="test", type="number", compact=True), "test")
+                yield self._field("seed", Input("0", id="seed", type="integer", compact=True))
+                yield Button("start (s)", id="start", variant="primary", compact=True)
+                yield Label("", id="setup-state", markup=False)
+        yield Static(CAUTION, id="setup-caution", markup=False)
+        yield Footer(compact=True, show_command_palette=False)
+
+    def _field(self, label: str, widget: Any, key: str | None = None) -> Horizontal:
+        return Horizontal(Label(label, classes="name"), widget, classes="field", id=f"row-{key or label.split()[0]}")
+
+    def on_mount(self) -> None:
+        """Show the preselected target and the fields of the default scheme."""
+        if self.target is not None:
+            self.query_one("#target", Select).value = self.target
+        self._target_changed()
+        self._scheme_changed()
+        self.query_one("#columns", ColumnRoles).focus()
+
+    # ----- choices ---------------------------------------------------------------------
+    def _target_changed(self) -> None:
+        roles = self.query_one("#columns", ColumnRoles)
+        self.excluded.discard(self.target or "")
+        roles.show(self.target, self.excluded)
+        task_label, loss = self.query_one("#task", Label), self.query_one("#loss", Select)
+        self.chain_task = None
+        if self.target is None:
+            task_label.update("-")
+            loss.set_options([])
+            return
+        try:
+            self.chain_task = infer_task(self.frame[self.target], source=self.source, target=self.target)
+        except RemnantError as err:
+            task_label.update(str(err).split(": ", 1)[-1])
+            loss.set_options([])
+            return
+        task_label.update(self.chain_task)
+        loss.set_options([(name, name) for name in losses_for(self.chain_task)])
+        loss.value = default_loss(self.chain_task)
+
+    @on(Select.Changed, "#target")
+    def _target_picked(self, event: Select.Changed) -> None:
+        picked = None if event.value is Select.NULL else str(event.value)
+        if picked != self.target:
+            self.target = picked
+            self._target_changed()
+
+    @on(Select.Changed, "#scheme")
+    def _scheme_changed(self) -> None:
+        scheme = str(self.query_one("#scheme", Select).value)
+        used = SCHEMES[scheme][1]
+        for key in ("fraction", "folds", "column", "test", "seed"):
+            self.query_one(f"#row-{key}").display = key in used or key == "seed"
+        column = self.query_one("#column", Select)
+        if "column" in used and column.value is Select.NULL:
+            guess = self._column_for(scheme)
+            if guess is not None:
+                column.value = guess
+
+    def _column_for(self, scheme: str) -> str | None:
+        """Return the likely column for a scheme: the first dates column for time order, one called split."""
+        if scheme == "time":
+            return next((r.name for r in self.reports if r.role == DATETIME), None)
+        if scheme == "column":
+            return next((n for n in self.names if n.lower() == "split"), None)
+        return None
+
+    def on_column_roles_target_picked(self, event: ColumnRoles.TargetPicked) -> None:
+        """Make the picked column the target."""
+        self.query_one("#target", Select).value = event.name
+
+    def on_column_roles_exclusion_toggled(self, event: ColumnRoles.ExclusionToggled) -> None:
+        """Exclude the column, or include it again."""
+        self.excluded ^= {event.name}
+        self.query_one("#columns", ColumnRoles).show(self.target, self.excluded)
+
+    # ----- starting --------------------------------------------------------------------
+    def _number(self, field: str, whole: bool) -> Any:
+        text = self.query_one(f"#{field}", Input).value.strip()
+        try:
+            return int(text) if whole else float(text)
+        except ValueError:
+            raise SetupError(f"{field} must be {'a whole number' if whole else 'a number'}, not {text!r}") from None
+
+    def validation(self) -> Any:
+        """Return the validation spec the form describes (the engine checks the values)."""
+        scheme = str(self.query_one("#scheme", Select).value)
+        column = self.query_one("#column", Select).value
+        if SCHEMES[scheme][1][0] == "column" and column is Select.NULL:
+            raise SetupError(f"{SCHEMES[scheme][0]} needs a column: pick one")
+        seed, test = self._number("seed", True), self._number("test", False)
+        if scheme == "holdout":
+            return Holdout(fraction=self._number("fraction", False), seed=seed, test_fraction=test)
+        if scheme == "kfold":
+            return KFold(folds=self._number("folds", True), seed=seed, test_fraction=test)
+        if scheme == "time":
+            return TimeOrder(column=str(column), fraction=self._number("fraction", False), test_fraction=test)
+        if scheme == "group":
+            return GroupHoldout(column=str(column), fraction=self._number("fraction", False), seed=seed,
+                                test_fraction=test)
+        return SplitColumn(column=str(column))
+
+    def choices(self) -> SetupChoices:
+        """Return what the form describes; raise SetupError or the engine's error for a bad choice."""
+        if self.target is None:
+            raise SetupError("pick the target: t on a column, or the target list")
+        loss = self.query_one("#loss", Select).value
+        return SetupChoices(
+            frame=self.frame, source=self.source, data_path=self.data_path, target=self.target,
+            ignore=tuple(sorted(self.excluded)), loss=None if loss is Select.NULL else str(loss),
+            validation=self.validation(), seed=self._number("seed", True),
+        )
+
+    def action_start(self) -> None:
+        """Build the chain in the fit worker."""
+        if self.app.fitting:
+            return
+        try:
+            choices = self.choices()
+        except (SetupError, RemnantError) as err:
+            self.app.show_failure("cannot start", str(err), "change the choice and start again")
+            return
+        self.app.start_job(build_chain(self, choices, self.cache))
+
+    def on_button_pressed(self, event: Button.Pressed) -> None:
+        """Start on the start button."""
+        event.stop()
+        self.action_start()
+
+    def on_fit_started(self, event: FitStarted) -> None:
+        """Say that the chain is being built."""
+        self.query_one("#setup-state", Label).update("building the chain…")
+
+    def on_fit_failed(self, event: FitFailed) -> None:
+        """Clear the state line; the failure modal says why."""
+        self.query_one("#setup-state", Label).update("")
+
+    def on_chain_ready(self, event: ChainReady) -> None:
+        """Open the workbench on the new chain."""
+        self.app.open_workbench(event.chain, event.view, self.cache)

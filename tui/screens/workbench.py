@@ -1,0 +1,310 @@
+"""The main screen: the chain table, the error curve, the residuals and the stage details of one chain.
+
+Widgets show a ``ChainView`` snapshot; every action runs in the app's fit worker and comes
+back as a message, after which ``chain_changed`` refreshes everything.
+"""
+
+from __future__ import annotations
+
+from pathlib import Path
+from typing import Any
+
+from textual.app import ComposeResult
+from textual.binding import Binding
+from textual.containers import Container, Vertical
+from textual.screen import Screen
+from textual.widgets import Footer, Static
+
+from stages.spec import StageSpec
+
+from .. import jobs
+from ..messages import (
+    ChainChanged,
+    ChainFileOpened,
+    ChainReady,
+    FileWritten,
+    FitFailed,
+    FitProgressed,
+    FitStarted,
+    StageFitted,
+)
+from ..view import ChainView, ImportanceCache, view_of_fitted
+from ..widgets.chain_table import ChainTable
+from ..widgets.error_curve import ErrorCurve
+from ..widgets.fit_progress import FitProgress
+from ..widgets.residual_histogram import ResidualHistogram
+from ..widgets.stage_details import StageDetails, loss_name
+from .add_stage import AddStageScreen
+from .confirm import ConfirmScreen
+from .save import PathPrompt, default_path
+
+CAUTION = "validate on data the chain never saw; check for leakage and drift"
+#: actions that change the chain or write files: none of them while a job runs
+CHANGES = {"add_stage", "step_back", "drop_stage", "trim", "undo", "reveal_test", "save_chain",
+           "export_recipe", "open_chain"}
+REVEAL_NOTE = ("Decisions made after seeing it bias it: use it for the final check only. The reveal is "
+               "recorded, and any change to the chain locks it again.")
+
+
+def title_line(view: ChainView) -> str:
+    """Return the one-line summary of a chain's data, loss and validation."""
+    return (f"{view.source} → {view.target} · {view.task} · {loss_name(view.loss)} · {view.validation} · "
+            f"{view.sizes}")
+
+
+class WorkbenchScreen(Screen):
+    """The workbench over one chain."""
+
+    HORIZONTAL_BREAKPOINTS = [(0, "-narrow"), (70, "-normal"), (150, "-wide")]
+    VERTICAL_BREAKPOINTS = [(0, "-short"), (40, "-tall")]
+
+    BINDINGS = [
+        Binding("a", "add_stage", "add", tooltip="add a stage (a form: kind, shrinkage, features, params)"),
+        Binding("b", "step_back", "back", tooltip="step back: remove the last stage (no refit)"),
+        Binding("d", "drop_stage", "drop", tooltip="drop the selected stage; the stages after it are refit"),
+        Binding("t", "trim", "trim", tooltip="trim to the stage with the best validation score"),
+        Binding("u", "undo", "undo", tooltip="undo the last step back, drop or trim"),
+        Binding("v", "switch_view", "view", tooltip="residual histogram / against fitted (probabilities by class)"),
+        Binding("s", "save_chain", "save", tooltip="save the chain file"),
+        Binding("e", "export_recipe", "recipe", tooltip="export the recipe (TOML)"),
+        Binding("r", "reveal_test", "reveal", tooltip="reveal the locked test part"),
+        Binding("o", "open_chain", "open", tooltip="open a saved chain file read-only"),
+        Binding("c,escape", "cancel_fit", "cancel", tooltip="cancel the running fit (the chain stays as it was)"),
+    ]
+
+    def __init__(self, chain: Any = None, view: ChainView | None = None, *, recipe: Any = None,
+                 recipe_data: str | None = None, cache: ImportanceCache | None = None, timings: bool = True) -> None:
+        super().__init__()
+        self.chain = chain
+        self.view = view
+        self.recipe = recipe
+        self.recipe_data = recipe_data
+        self.cache = cache or ImportanceCache()
+        self.timings = timings
+        self.last_kind = ""
+
+    def compose(self) -> ComposeResult:
+        """Return the title, the four panes, the status lines and the footer."""
+        yield Static("", id="title", markup=False)
+        with Container(id="panes"):
+            yield ChainTable(timings=self.timings, id="chain", classes="pane")
+            yield ErrorCurve(id="curve", classes="pane")
+            yield ResidualHistogram(id="residuals", classes="pane")
+            yield StageDetails(timings=self.timings, id="details", classes="pane")
+        with Vertical(id="status"):
+            yield Static("", id="result", markup=False)
+            yield FitProgress(timings=self.timings, id="progress")
+            yield Static(CAUTION, id="caution", markup=False)
+        yield Footer(compact=True, show_command_palette=False)
+
+    def on_mount(self) -> None:
+        """Show the chain, or start fitting the recipe."""
+        self.query_one(FitProgress).display = False
+        self.query_one(ChainTable).focus()
+        if self.view is not None:
+            self.chain_changed(self.view, "", select=self.view.n_stages)
+        if self.recipe is not None:
+            self.query_one("#title", Static).update(f"fitting {self.recipe.name} …")
+            self.app.start_job(jobs.fit_recipe(self, self.recipe, self.recipe_data, self.cache))
+
+    # ----- the one refresh -------------------------------------------------------------
+    @property
+    def selected(self) -> int:
+        """Return the selected row of the chain table."""
+        return self.query_one(ChainTable).selected
+
+    def chain_changed(self, view: ChainView, summary: str, select: int | None = None) -> None:
+        """Show ``view`` in every pane; called after every completed action."""
+        self.view = view
+        self.query_one("#title", Static).update(title_line(view))
+        self.query_one(ChainTable).show(view, select)
+        self._show_selection()
+        if summary:
+            self.query_one("#result", Static).update(summary)
+        elif view.n_stages == 0:
+            self.query_one("#result", Static).update("a adds the first stage · ? lists every key")
+        self.refresh_bindings()
+
+    def _show_selection(self) -> None:
+        if self.view is None:
+            return
+        row = self.selected
+        self.query_one(ErrorCurve).show(self.view, row)
+        self.query_one(ResidualHistogram).show(self.view, row)
+        self.query_one(StageDetails).show(self.view, row)
+
+    def on_chain_table_stage_selected(self, event: ChainTable.StageSelected) -> None:
+        """Show the newly selected stage in the other panes."""
+        self._show_selection()
+        self.refresh_bindings()
+
+    # ----- messages from the fit worker ------------------------------------------------
+    def on_chain_ready(self, event: ChainReady) -> None:
+        """Take the chain a recipe job built."""
+        self.chain = event.chain
+        self.chain_changed(event.view, "")
+
+    def on_stage_fitted(self, event: StageFitted) -> None:
+        """Show a stage a longer job fitted."""
+        self.chain_changed(event.view, event.summary, select=event.view.n_stages)
+
+    def on_chain_changed(self, event: ChainChanged) -> None:
+        """Show the chain after a completed action."""
+        self._job_over()
+        self.chain_changed(event.view, event.summary, select=event.select)
+
+    def on_fit_started(self, event: FitStarted) -> None:
+        """Show the progress line and hide the actions that must wait."""
+        self.query_one("#result").display = False
+        self.query_one(FitProgress).begin(event.label, event.cancellable)
+        self.refresh_bindings()
+
+    def on_fit_progressed(self, event: FitProgressed) -> None:
+        """Move the progress bar."""
+        self.query_one(FitProgress).advance(event.fraction, event.detail)
+
+    def on_fit_failed(self, event: FitFailed) -> None:
+        """Hide the progress line and say what happened."""
+        result = self._job_over()
+        note = "the chain is as it was" if self.recipe is None else "the stages fitted before it are kept"
+        what = "cancelled" if event.cancelled else f"failed: {event.reason}"
+        result.update(f"{event.label} {what}; {note}")
+        self.refresh_bindings()
+
+    def on_file_written(self, event: FileWritten) -> None:
+        """Say where the file went."""
+        self._finish(f"saved the {event.what} {event.path}")
+
+    def on_chain_file_opened(self, event: ChainFileOpened) -> None:
+        """Show a saved chain file read-only."""
+        from .inspect import InspectScreen
+
+        self._finish(f"opened {event.path.name} read-only")
+        self.app.push_screen(InspectScreen(view_of_fitted(event.fitted, event.path.name), timings=self.timings))
+
+    def _finish(self, summary: str) -> None:
+        self._job_over().update(summary)
+        self.refresh_bindings()
+
+    def _job_over(self) -> Static:
+        """Hide the progress line, show the result line again and return it."""
+        self.query_one(FitProgress).end()
+        result = self.query_one("#result", Static)
+        result.display = True
+        return result
+
+    def on_screen_resume(self) -> None:
+        """Put the result line back after a modal."""
+        if not self.app.fitting:
+            self.query_one("#result").display = True
+
+    # ----- what can be done now --------------------------------------------------------
+    def check_action(self, action: str, parameters: tuple[object, ...]) -> bool | None:
+        """Return whether ``action`` makes sense now; False hides it from the footer."""
+        if action == "cancel_fit":
+            return self.app.job_cancellable
+        if action not in CHANGES and action != "switch_view":
+            return True
+        if self.app.fitting and action in CHANGES:
+            return False
+        view = self.view
+        if view is None or self.chain is None:
+            return action == "open_chain"
+        checks = {
+            "step_back": view.n_stages > 0,
+            "drop_stage": 1 <= self.selected <= view.n_stages,
+            "trim": view.best < view.n_stages,
+            "undo": view.can_undo,
+            "reveal_test": view.has_test and not view.test_revealed,
+            "switch_view": view.residuals is not None,
+        }
+        return checks.get(action, True)
+
+    def _start(self, job: Any) -> None:
+        if not self.app.start_job(job):
+            self.notify("a fit is running; wait for it or cancel it (c)", severity="warning")
+
+    # ----- actions ---------------------------------------------------------------------
+    def action_add_stage(self) -> None:
+        """Open the add-stage form (on the kind last added); fit what it returns."""
+        kind = self.last_kind or (self.view.rows[-1].kind if self.view.n_stages else "linear")
+        form = AddStageScreen(self.view.task, self.view.features, kind)
+        self.app.push_screen(form, self._stage_requested)
+
+    def _stage_requested(self, request: dict | None) -> None:
+        if request is None:
+            return
+        self.last_kind = request["kind"]
+        repeat = request.pop("repeat")
+        try:
+            spec = StageSpec.from_dict(request)
+        except Exception as err:  # a spec the engine refuses: say why, change nothing
+            self.app.show_failure("cannot add the stage", str(err), "the chain is as it was")
+            return
+        self._start(jobs.add_stages(self, self.chain, self.cache, self.view, spec, repeat))
+
+    def action_step_back(self) -> None:
+        """Remove the last stage (no refit; undo brings it back)."""
+        self._start(jobs.quick_change(self, self.chain, self.cache, self.view, "step back"))
+
+    def action_drop_stage(self) -> None:
+        """Ask, then drop the selected stage and refit the stages after it."""
+        row = self.selected
+        later = self.view.n_stages - row
+        detail = (f"The {later} stage{'s' if later != 1 else ''} after it will be refit on the new residuals."
+                  if later else "It is the last stage: nothing needs a refit.")
+        question = f"Drop stage {row} ({self.view.rows[row].kind})?"
+
+        def answered(yes: bool | None) -> None:
+            if yes:
+                self._start(jobs.drop_stage(self, self.chain, self.cache, self.view, row))
+
+        self.app.push_screen(ConfirmScreen("drop a stage", question, detail, yes="drop"), answered)
+
+    def action_trim(self) -> None:
+        """Keep the stages up to the best validation score."""
+        self._start(jobs.quick_change(self, self.chain, self.cache, self.view, "trim"))
+
+    def action_undo(self) -> None:
+        """Undo the last step back, drop or trim."""
+        self._start(jobs.quick_change(self, self.chain, self.cache, self.view, "undo"))
+
+    def action_reveal_test(self) -> None:
+        """Ask, then score every row on the locked test part."""
+
+        def answered(yes: bool | None) -> None:
+            if yes:
+                self._start(jobs.quick_change(self, self.chain, self.cache, self.view, "reveal"))
+
+        question = f"Reveal the locked test part ({self.view.n_test:,} rows)?"
+        self.app.push_screen(ConfirmScreen("reveal the test part", question, REVEAL_NOTE, yes="reveal"), answered)
+
+    def action_switch_view(self) -> None:
+        """Switch the residual pane to its next view."""
+        mode = self.query_one(ResidualHistogram).next_mode()
+        self.query_one("#result", Static).update(f"residual pane: {mode}")
+
+    def _ask_path(self, title: str, suffix: str, then: Any, must_exist: bool = False) -> None:
+        view = self.view
+        default = default_path(view.data_path if view else None, view.source if view else "chain", suffix)
+        self.app.push_screen(PathPrompt(title, default, must_exist=must_exist),
+                             lambda path: path is not None and then(Path(path)))
+
+    def action_save_chain(self) -> None:
+        """Ask where, then write the chain file."""
+        self._ask_path("save the chain file", ".chain", lambda p: self._start(jobs.save_chain(self, self.chain, p)))
+
+    def action_export_recipe(self) -> None:
+        """Ask where, then write the chain's recipe."""
+        self._ask_path("export the recipe", ".toml",
+                       lambda p: self._start(jobs.export_recipe(self, self.chain, p)))
+
+    def action_open_chain(self) -> None:
+        """Ask which chain file, then show it read-only."""
+        self._ask_path("open a chain file (read-only)", ".chain",
+                       lambda p: self._start(jobs.open_chain_file(self, p)), must_exist=True)
+
+    def action_cancel_fit(self) -> None:
+        """Ask the running fit to stop; the chain stays as it was."""
+        self.app.cancel_job()
+        self.query_one(FitProgress).advance(self.query_one(FitProgress).bar.progress or 0.0, "cancelling…")

@@ -1,0 +1,271 @@
+"""What the panes show: a read-only snapshot of a chain, taken after each completed action.
+
+The engine holds its chain's lock for the whole of a fit, so the screen never reads the live
+chain: a worker takes a ``ChainView`` when its job is done and posts it. Residuals of any
+stage are computed from the snapshot's cached outputs (immutable arrays), so moving through
+the table during a fit never waits for the fit. A chain file opened read-only gives a view
+without residuals, built from the scores stored in the file.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+from typing import Any
+
+import numpy as np
+
+from stages import scoring
+from stages.kinds import get_kind
+from stages.losses import Loss
+from stages.scoring import Scores
+from stages.table import SECONDARY, fold_spread
+from stages.tracks import Layout
+
+
+@dataclass(frozen=True)
+class StageRow:
+    """One row of the chain table: row 0 is the start value."""
+
+    index: int
+    kind: str
+    shrinkage: float | None
+    train: float
+    valid: float
+    change: float | None
+    second: float | None
+    test: float | None
+    spread: float | None
+    seconds: float
+    overfit: bool
+    best: bool
+
+
+@dataclass(frozen=True)
+class StageInfo:
+    """What the details pane says about one stage."""
+
+    index: int
+    kind: str
+    shrinkage: float
+    given: dict[str, Any]
+    params: dict[str, Any]
+    features: tuple[str, ...]
+    all_features: bool
+    seconds: float
+    importance: dict[str, float] | None
+
+
+@dataclass(frozen=True, eq=False)
+class ResidualSource:
+    """The targets and each row's cached raw outputs: enough to compute any stage's residuals."""
+
+    y: np.ndarray
+    layout: Layout
+    loss: Loss
+    outputs: tuple[tuple[np.ndarray, ...], ...]
+
+    def residuals(self, part: str, row: int) -> np.ndarray:
+        """Return target minus prediction on ``part`` (train or valid) after row ``row``."""
+        return self.loss.display_residual(self.targets(part), self.raw(part, row))
+
+    def fitted(self, part: str, row: int) -> np.ndarray:
+        """Return the predictions (probabilities for binary chains) on ``part`` after row ``row``."""
+        return self.loss.link(self.raw(part, row))
+
+    def raw(self, part: str, row: int) -> np.ndarray:
+        """Return the raw output on ``part`` after row ``row``, in the order of ``targets``."""
+        outputs = self.outputs[row]
+        if part == "train":
+            return outputs[0][self.layout.train]
+        return scoring.validation_raw(self.layout, outputs)
+
+    def targets(self, part: str) -> np.ndarray:
+        """Return the targets of ``part`` (train or valid)."""
+        if part == "train":
+            return self.y[self.layout.train]
+        return scoring.validation_y(self.layout, self.y)
+
+
+@dataclass(frozen=True, eq=False)
+class ChainView:
+    """A snapshot of a chain: its table rows, stage details, settings and residual source."""
+
+    source: str
+    target: str
+    task: str
+    loss: str
+    metric: str
+    second: str
+    validation: str
+    sizes: str
+    start_value: float
+    rows: tuple[StageRow, ...]
+    stages: tuple[StageInfo, ...]
+    features: tuple[str, ...]
+    notes: tuple[str, ...] = ()
+    classes: tuple[str, ...] = ()
+    has_test: bool = False
+    n_test: int = 0
+    test_revealed: bool = False
+    can_undo: bool = False
+    kfold: bool = False
+    residuals: ResidualSource | None = None
+    read_only: bool = False
+    data_path: str | None = None
+    extra: dict[str, Any] = field(default_factory=dict)
+
+    @property
+    def n_stages(self) -> int:
+        """Return the number of stages (rows minus the start value)."""
+        return len(self.rows) - 1
+
+    @property
+    def best(self) -> int:
+        """Return the row with the best validation score."""
+        return next((r.index for r in self.rows if r.best), 0)
+
+    def stage(self, row: int) -> StageInfo | None:
+        """Return the details of row ``row``, or None for the start value."""
+        return self.stages[row - 1] if 1 <= row <= len(self.stages) else None
+
+
+class ImportanceCache:
+    """Feature importance per fitted stage, computed once (stage objects never change)."""
+
+    def __init__(self) -> None:
+        self._values: dict[Any, dict[str, float]] = {}
+
+    def get(self, chain: Any, row: int) -> dict[str, float]:
+        """Return the importance of stage ``row`` of ``chain``, computing it on first use."""
+        stage = chain.stages[row - 1]
+        if stage not in self._values:
+            self._values[stage] = chain.importance(row)
+        return self._values[stage]
+
+
+def _number(value: Any) -> float | None:
+    try:
+        number = float(value)
+    except (TypeError, ValueError):
+        return None
+    return None if math.isnan(number) else number
+
+
+def _rows_from_table(table: Any, metric: str, second: str) -> tuple[StageRow, ...]:
+    rows = []
+    for record in table.to_dict("records"):
+        rows.append(StageRow(
+            index=int(record["stage"]), kind=str(record["kind"]), shrinkage=_number(record["shrinkage"]),
+            train=float(record[f"train_{metric}"]), valid=float(record[f"valid_{metric}"]),
+            change=_number(record["change"]), second=_number(record.get(f"valid_{second}")),
+            test=_number(record.get(f"test_{metric}")), spread=_number(record.get("fold_spread")),
+            seconds=float(record["seconds"]), overfit=bool(record["overfit"]), best=bool(record["best"]),
+        ))
+    return tuple(rows)
+
+
+def _sizes(rows: dict[str, int], kfold: str = "") -> str:
+    text = f"{rows.get('train', 0):,} fit · {rows.get('valid', 0):,} valid"
+    if kfold:
+        text = f"{rows.get('train', 0):,} rows scored out of fold"
+    if rows.get("test"):
+        text += f" · {rows['test']:,} test locked"
+    return text
+
+
+def view_of_chain(chain: Any, cache: ImportanceCache) -> ChainView:
+    """Return a snapshot of a live chain; call it only from the thread doing the chain's work."""
+    metric, second = chain.metric, SECONDARY[chain.task]
+    names = chain.schema.names
+    infos = []
+    for i, stage in enumerate(chain.stages, start=1):
+        features = tuple(names[j] for j in stage.feature_index)
+        infos.append(StageInfo(
+            index=i, kind=stage.kind, shrinkage=stage.spec.shrinkage, given=dict(stage.spec.params),
+            params=dict(stage.params), features=features, all_features=len(features) == len(names),
+            seconds=stage.fit_seconds, importance=cache.get(chain, i),
+        ))
+    described = chain.describe()
+    layout = chain.layout
+    kfold = f"{len(layout.tracks) - 1} folds" if layout.is_kfold else ""
+    source = ResidualSource(chain.y, layout, chain.loss,
+                            tuple(chain.outputs(r) for r in range(len(chain.stages) + 1)))
+    return ChainView(
+        source=chain.source, target=chain.schema.target, task=chain.task, loss=chain.loss.name,
+        metric=metric, second=second, validation=chain.validation.describe(),
+        sizes=_sizes(described["rows"], kfold), start_value=float(chain.starts[0]),
+        rows=_rows_from_table(chain.table(), metric, second), stages=tuple(infos), features=tuple(names),
+        notes=tuple(chain.notes), classes=tuple(chain.schema.classes), has_test=layout.n_test > 0,
+        n_test=layout.n_test,
+        test_revealed=chain.test_revealed, can_undo=chain.can_undo(), kfold=layout.is_kfold,
+        residuals=source, data_path=getattr(chain, "data_path", None),
+    )
+
+
+def _scores(data: dict[str, Any]) -> Scores:
+    return Scores(dict(data.get("train", {})), dict(data.get("valid", {})),
+                  tuple(data.get("fold_valid", ())), dict(data.get("test", {})))
+
+
+def _stored_importance(stage: Any, columns: tuple[Any, ...]) -> dict[str, float] | None:
+    try:
+        values = get_kind(stage.kind).importance(stage.learner, columns)
+    except Exception:  # an importance the learner cannot give is simply not shown
+        return None
+    if values is None:
+        return None
+    values = np.asarray(values, dtype=np.float64)
+    total = float(values.sum())
+    if total > 0:
+        values = values / total
+    return {c.name: float(v) for c, v in zip(columns, values, strict=False)}
+
+
+def _stored_rows(fitted: Any, metric: str, second: str) -> tuple[StageRow, ...]:
+    scores = [_scores(fitted.start_scores)] + [_scores(s.scores) for s in fitted.stages]
+    flags = scoring.overfit_flags(metric, scores)
+    best = scoring.best_row(metric, scores)
+    rows = []
+    for i, s in enumerate(scores):
+        stage = fitted.stages[i - 1] if i else None
+        valid = s.valid.get(metric, math.nan)
+        rows.append(StageRow(
+            index=i, kind=stage.kind if stage else "start", shrinkage=stage.spec.shrinkage if stage else None,
+            train=s.train.get(metric, math.nan), valid=valid,
+            change=valid - scores[i - 1].valid.get(metric, math.nan) if i else None,
+            second=_number(s.valid.get(second)), test=_number(s.test.get(metric)),
+            spread=_number(fold_spread(s.fold_valid)) if s.fold_valid else None,
+            seconds=stage.fit_seconds if stage else 0.0, overfit=flags[i], best=i == best,
+        ))
+    return tuple(rows)
+
+
+def view_of_fitted(fitted: Any, name: str) -> ChainView:
+    """Return a read-only view of a loaded chain file, from the scores stored in it."""
+    from stages.validation import spec_from_dict
+
+    metric, second = fitted.loss.primary, SECONDARY[fitted.task]
+    meta = dict(fitted.meta or {})
+    try:
+        validation = spec_from_dict(meta["validation"]).describe()
+    except Exception:  # an older or foreign manifest: say what is known
+        validation = "validation as stored"
+    kfold = dict(meta.get("validation") or {}).get("scheme") == "kfold"
+    names = fitted.schema.names
+    infos = []
+    for i, stage in enumerate(fitted.stages, start=1):
+        columns = fitted.schema.subset(list(stage.feature_index))
+        features = tuple(c.name for c in columns)
+        infos.append(StageInfo(
+            index=i, kind=stage.kind, shrinkage=stage.spec.shrinkage, given=dict(stage.spec.params),
+            params=dict(stage.params), features=features, all_features=len(features) == len(names),
+            seconds=stage.fit_seconds, importance=_stored_importance(stage, columns),
+        ))
+    return ChainView(
+        source=name, target=fitted.schema.target, task=fitted.task, loss=fitted.loss.name, metric=metric,
+        second=second, validation=validation, sizes=_sizes(dict(meta.get("rows", {})), "folds" if kfold else ""),
+        start_value=float(fitted.start), rows=_stored_rows(fitted, metric, second), stages=tuple(infos),
+        features=tuple(names), classes=tuple(fitted.schema.classes), read_only=True, kfold=kfold,
+        extra={"data": meta.get("source", "")},
+    )

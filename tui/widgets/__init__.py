@@ -1,0 +1,1 @@
+"""The workbench's widgets, one noun-named widget per module."""

@@ -1,0 +1,128 @@
+"""The setup screen's column list: what the chain will do with each column (its inferred role), and a few values."""
+
+from __future__ import annotations
+
+from rich.text import Text
+from textual import events
+from textual.binding import Binding
+from textual.message import Message
+from textual.widgets import DataTable
+
+from stages.data import EXCLUDED, ColumnReport
+from stages.schema import DATETIME
+
+from ..format import number
+
+#: the width of the "use" column: the longest word it shows is "categorical"
+USE_WIDTH = 11
+
+
+def column_use(report: ColumnReport, target: str | None, excluded: set[str]) -> str:
+    """Return what the chain does with a column: target, excluded (by the user), skipped (by the
+    engine), dates (only to order rows), or its role as a feature (numeric, categorical, boolean)."""
+    if report.name == target:
+        return "target"
+    if report.name in excluded:
+        return "excluded"
+    if report.role == EXCLUDED:
+        return "skipped"
+    if report.role == DATETIME:
+        return "dates"
+    return report.role
+
+
+def short(example: str) -> str:
+    """Return an example value shortened for the list: numbers to 4 significant digits."""
+    try:
+        value = float(example)
+    except ValueError:
+        return example[:16]
+    return example if len(example) <= 6 else number(value)
+
+
+class ColumnRoles(DataTable):
+    """One row per data column with what the chain does with it; ``t`` makes the row the target, ``x`` excludes or includes it."""
+
+    BINDINGS = [
+        Binding("t", "pick_target", "target", tooltip="make the highlighted column the target"),
+        Binding("x", "toggle_exclude", "exclude", tooltip="exclude the highlighted column (x again includes it)"),
+    ]
+
+    class TargetPicked(Message):
+        """The user chose ``name`` as the target."""
+
+        def __init__(self, name: str) -> None:
+            self.name = name
+            super().__init__()
+
+    class ExclusionToggled(Message):
+        """The user excluded (or included again) the column ``name``."""
+
+        def __init__(self, name: str) -> None:
+            self.name = name
+            super().__init__()
+
+    def __init__(self, reports: list[ColumnReport], *, id: str | None = None) -> None:
+        super().__init__(cursor_type="row", id=id)
+        self.reports = reports
+        self.target: str | None = None
+        self.excluded: set[str] = set()
+        self._width = 0
+        self._values_width = 20
+
+    def on_mount(self) -> None:
+        """Lay out the columns and one row per data column."""
+        self._layout(self.size.width)
+
+    def on_resize(self, event: events.Resize) -> None:
+        """Give the values column what room there is, so the list never scrolls sideways."""
+        if self.size.width != self._width:
+            self._layout(self.size.width)
+
+    def _layout(self, width: int) -> None:
+        self._width = width
+        name = min(18, max(6, *(len(r.name) for r in self.reports)))
+        self._values_width = max(8, width - name - USE_WIDTH - 8)
+        row = self.cursor_row
+        self.clear(columns=True)
+        self.add_column("column", key="name", width=name)
+        self.add_column("use", key="use", width=USE_WIDTH)
+        self.add_column("values", key="values", width=self._values_width)
+        for report in self.reports:
+            self.add_row(*self._cells(report), key=report.name)
+        self.move_cursor(row=max(0, row), animate=False)
+
+    def _cells(self, report: ColumnReport) -> list[Text]:
+        use = column_use(report, self.target, self.excluded)
+        style = {"target": "bold reverse", "excluded": "dim strike", "skipped": "dim"}.get(use, "")
+        values = report.note if report.role == EXCLUDED and report.note else ", ".join(map(short, report.examples))
+        if report.n_missing:
+            values += f" ({report.n_missing:,} missing)"
+        cells = [Text(report.name, style=style), Text(use, style=style), Text(values)]
+        for cell, width in zip(cells, (18, USE_WIDTH, self._values_width), strict=True):
+            cell.truncate(width, overflow="ellipsis")
+        return cells
+
+    def show(self, target: str | None, excluded: set[str]) -> None:
+        """Show ``target`` and the ``excluded`` columns."""
+        self.target, self.excluded = target, set(excluded)
+        for report in self.reports:
+            for key, cell in zip(("name", "use", "values"), self._cells(report), strict=True):
+                self.update_cell(report.name, key, cell)
+
+    def _current(self) -> str | None:
+        if not self.reports or self.cursor_row < 0:
+            return None
+        return self.reports[self.cursor_row].name
+
+    def action_pick_target(self) -> None:
+        """Make the highlighted column the target."""
+        name = self._current()
+        if name is not None:
+            self.post_message(self.TargetPicked(name))
+
+    def action_toggle_exclude(self) -> None:
+        """Exclude the highlighted column, or include it again."""
+        name = self._current()
+        if name is not None and name != self.target:
+            self.post_message(self.ExclusionToggled(name))

@@ -1,0 +1,113 @@
+"""The one path every fit takes: a thread worker, a cancel event, progress and results as messages.
+
+A job is a plain function of a ``JobContext`` that calls the engine and returns the message
+to post when it succeeds. It touches no widget. The app runs one job at a time; its single
+``Worker.StateChanged`` handler turns an error into a one-line message in a modal.
+"""
+
+from __future__ import annotations
+
+import threading
+from collections.abc import Callable
+from dataclasses import dataclass
+
+from textual import work
+from textual.message import Message
+from textual.message_pump import MessagePump
+from textual.worker import Worker, WorkerState
+
+from stages.errors import FitCancelled, RemnantError
+
+from .messages import FitFailed, FitProgressed, FitStarted
+
+
+@dataclass(frozen=True)
+class JobContext:
+    """What a running job may use: the cancel event, a progress callback and a way to post."""
+
+    cancel: threading.Event
+    progress: Callable[[float, str], None]
+    post: Callable[[Message], object]
+
+
+@dataclass(frozen=True)
+class FitJob:
+    """One piece of engine work: ``run`` returns the message for ``owner`` when it succeeds."""
+
+    label: str
+    run: Callable[[JobContext], Message]
+    owner: MessagePump
+    cancellable: bool = True
+    failure_note: str = "the chain is as it was"
+
+
+def one_line(error: BaseException) -> str:
+    """Return the one-line reason for ``error``: the engine's own message, or the error's first line."""
+    text = str(error).strip()
+    first = text.splitlines()[0] if text else ""
+    if isinstance(error, RemnantError):
+        return first or type(error).__name__
+    return f"{type(error).__name__}: {first}" if first else type(error).__name__
+
+
+class FitRunner:
+    """Mixin for the App: runs one ``FitJob`` at a time in a thread worker."""
+
+    _job: FitJob | None = None
+    _cancel: threading.Event | None = None
+
+    @property
+    def fitting(self) -> bool:
+        """Return True while a job runs."""
+        return self._job is not None
+
+    @property
+    def job_cancellable(self) -> bool:
+        """Return True while a job that can be cancelled runs."""
+        return self._job is not None and self._job.cancellable
+
+    def start_job(self, job: FitJob) -> bool:
+        """Start ``job`` in the fit worker; return False when another job is still running."""
+        if self._job is not None:
+            return False
+        self._job = job
+        self._cancel = threading.Event()
+        job.owner.post_message(FitStarted(job.label, job.cancellable))
+        self._run_job(job, self._cancel)
+        return True
+
+    def cancel_job(self) -> None:
+        """Ask the running job to stop; the engine checks the event between rounds."""
+        if self._cancel is not None:
+            self._cancel.set()
+
+    @work(thread=True, exclusive=True, group="fit", exit_on_error=False)
+    def _run_job(self, job: FitJob, cancel: threading.Event) -> Message:
+        def progress(fraction: float, detail: str = "") -> None:
+            job.owner.post_message(FitProgressed(fraction, detail))
+
+        return job.run(JobContext(cancel, progress, job.owner.post_message))
+
+    def on_worker_state_changed(self, event: Worker.StateChanged) -> None:
+        """Deliver a finished job's result, or show why it failed; the only place fit errors reach the user."""
+        if event.worker.group != "fit" or event.state not in (
+            WorkerState.SUCCESS, WorkerState.ERROR, WorkerState.CANCELLED
+        ):
+            return
+        job, self._job, self._cancel = self._job, None, None
+        if job is None:
+            return
+        if event.state == WorkerState.SUCCESS:
+            job.owner.post_message(event.worker.result)
+            return
+        error = event.worker.error
+        if event.state == WorkerState.CANCELLED or isinstance(error, FitCancelled):
+            job.owner.post_message(FitFailed(job.label, "cancelled", cancelled=True))
+            return
+        reason = one_line(error) if error is not None else "stopped"
+        job.owner.post_message(FitFailed(job.label, reason, cancelled=False))
+        self.show_failure(f"{job.label} failed", reason, job.failure_note)
+
+    def show_failure(self, title: str, reason: str, note: str = "") -> None:
+        """Show ``reason`` in a modal with ``title``; the App implements it."""
+        raise NotImplementedError
