@@ -1,0 +1,1 @@
+"""remnant's user interface: the `remnant` command (tui.cli) and the Textual workbench (tui.app)."""
