@@ -3,6 +3,7 @@
 ``run`` is what the ``remnant`` command calls: on a data file it opens the setup screen, on a
 recipe it fits the recipe and shows the chain growing, on a chain file it shows the file
 read-only. Bad input is one ``error:`` line on stderr and exit status 2, before any screen.
+When the data file has a saved session, the first screen offers to resume it.
 """
 
 from __future__ import annotations
@@ -19,11 +20,16 @@ from textual.binding import Binding
 from stages.errors import DataError, RemnantError
 
 from .screens.add_stage import AddStageScreen
+from .screens.audition_form import AuditionForm
+from .screens.audition_result import AuditionResultScreen
 from .screens.failure import FailureScreen
+from .screens.grow_form import GrowForm
 from .screens.help import HelpScreen, describe
 from .screens.inspect import InspectScreen
+from .screens.resume import ResumeScreen
 from .screens.setup import SetupScreen
 from .screens.workbench import WorkbenchScreen
+from .sessions import ResumeOffer, resume_offer
 from .view import ChainView, ImportanceCache, view_of_chain, view_of_fitted
 from .widgets.column_roles import ColumnRoles
 from .worker import FitRunner
@@ -34,7 +40,9 @@ class RemnantApp(FitRunner, App):
 
     Give one of: ``frame`` (the setup screen), ``recipe`` (fit it, then the workbench),
     ``chain`` (the workbench on a live chain) or ``fitted`` (a chain file, read-only).
-    ``timings=False`` hides elapsed and fit times, for screenshots that must not change.
+    ``offer`` is a saved session to offer first (with ``frame`` or ``recipe``). ``timings=False``
+    hides elapsed and fit times, for screenshots that must not change; ``sessions=False`` saves
+    no session.
     """
 
     CSS_PATH = "app.tcss"
@@ -48,25 +56,38 @@ class RemnantApp(FitRunner, App):
 
     def __init__(self, *, frame: Any = None, source: str = "data", data_path: str | None = None,
                  target: str | None = None, recipe: Any = None, recipe_data: str | None = None,
-                 chain: Any = None, fitted: Any = None, timings: bool = True) -> None:
+                 chain: Any = None, fitted: Any = None, offer: ResumeOffer | None = None, timings: bool = True,
+                 sessions: bool = True) -> None:
         super().__init__()
         self.start = {"frame": frame, "source": source, "data_path": data_path, "target": target,
                       "recipe": recipe, "recipe_data": recipe_data, "chain": chain, "fitted": fitted}
+        self.offer = offer
         self.timings = timings
+        self.sessions = sessions
 
     def on_mount(self) -> None:
         """Open the first screen for what the app was given."""
         s = self.start
         if s["fitted"] is not None:
             self.push_screen(InspectScreen(view_of_fitted(s["fitted"], s["source"]), timings=self.timings, alone=True))
+        elif s["recipe"] is not None and self.offer is not None:
+            self.push_screen(ResumeScreen(self.offer, "fit the recipe afresh"), self._recipe_or_session)
         elif s["recipe"] is not None:
-            self.push_screen(WorkbenchScreen(recipe=s["recipe"], recipe_data=s["recipe_data"], timings=self.timings))
+            self._recipe_or_session("fresh")
         elif s["chain"] is not None:
             cache = ImportanceCache()
             self.open_workbench(s["chain"], view_of_chain(s["chain"], cache), cache)
         else:
-            self.push_screen(SetupScreen(s["frame"], s["source"], s["data_path"], s["target"]))
+            setup = SetupScreen(s["frame"], s["source"], s["data_path"], s["target"])
+            self.push_screen(setup)
+            if self.offer is not None:
+                self.push_screen(ResumeScreen(self.offer), setup.resume_answered)
         self.call_after_refresh(self._freeze_heap)
+
+    def _recipe_or_session(self, choice: str | None) -> None:
+        resume = self.offer if choice == "resume" else None
+        self.push_screen(WorkbenchScreen(recipe=self.start["recipe"], recipe_data=self.start["recipe_data"],
+                                         resume=resume, timings=self.timings))
 
     def _freeze_heap(self) -> None:
         # What is alive once the first screen is up (modules, data, widgets) lives as long as the
@@ -76,9 +97,12 @@ class RemnantApp(FitRunner, App):
         gc.collect()
         gc.freeze()
 
-    def open_workbench(self, chain: Any, view: ChainView, cache: ImportanceCache) -> None:
-        """Show the workbench over ``chain`` in place of the current screen."""
-        screen = WorkbenchScreen(chain, view, cache=cache, timings=self.timings)
+    def open_workbench(self, chain: Any, view: ChainView, cache: ImportanceCache, summary: str = "",
+                       session_error: str = "") -> None:
+        """Show the workbench over ``chain`` in place of the current screen, ``summary`` in its status line
+        (and ``session_error``, why the session was not saved, once it is up)."""
+        screen = WorkbenchScreen(chain, view, cache=cache, summary=summary, session_error=session_error,
+                                 timings=self.timings)
         if len(self.screen_stack) > 1:
             self.switch_screen(screen)
         else:
@@ -94,6 +118,11 @@ class RemnantApp(FitRunner, App):
             ("main screen", describe(WorkbenchScreen.BINDINGS)),
             ("setup screen", describe(SetupScreen.BINDINGS + ColumnRoles.BINDINGS)),
             ("add-stage form", [("enter", "fit the stage"), *describe(AddStageScreen.BINDINGS)]),
+            ("audition form", [("tab", "from the text to the buttons"), *describe(AuditionForm.BINDINGS)]),
+            ("audition result", [("arrows / tab", "move between the candidates"),
+                                 *describe([b for b in AuditionResultScreen.BINDINGS if b.show])]),
+            ("grow form", [("enter", "grow"), *describe(GrowForm.BINDINGS)]),
+            ("saved session offer", describe(ResumeScreen.BINDINGS)),
             ("read-only chain file", describe(InspectScreen.BINDINGS)),
             ("questions", [("y / enter", "yes"), ("n / esc", "no")]),
             ("everywhere", describe(self.BINDINGS)),
@@ -119,8 +148,12 @@ def _check_target(frame: Any, target: str | None, name: str) -> None:
 
 
 def build_app(data_path: str | None = None, target: str | None = None, recipe_path: str | None = None,
-              chain_path: str | None = None, *, timings: bool = True) -> RemnantApp:
-    """Return the app for what ``run`` was given; raise RemnantError for input it cannot use."""
+              chain_path: str | None = None, *, timings: bool = True, sessions: bool = True) -> RemnantApp:
+    """Return the app for what ``run`` was given; raise RemnantError for input it cannot use.
+
+    With ``sessions`` the app saves the session after every action and offers to resume a
+    saved session of the data file.
+    """
     from stages.data import read_table, source_name
 
     if chain_path is not None:
@@ -134,13 +167,15 @@ def build_app(data_path: str | None = None, target: str | None = None, recipe_pa
         data = data_path or recipe.data_path
         if data is not None and not Path(data).exists():
             raise DataError(f"{source_name(data)}: no such file (named by {recipe.name})")
-        return RemnantApp(recipe=recipe, recipe_data=data_path, timings=timings)
+        offer = resume_offer(data) if sessions else None
+        return RemnantApp(recipe=recipe, recipe_data=data_path, offer=offer, timings=timings, sessions=sessions)
     if data_path is None:
         raise DataError("give a data file, a recipe or a chain file")
     frame = read_table(data_path)
     _check_target(frame, target, source_name(data_path))
+    offer = resume_offer(data_path) if sessions else None
     return RemnantApp(frame=frame, source=source_name(data_path), data_path=str(data_path), target=target,
-                      timings=timings)
+                      offer=offer, timings=timings, sessions=sessions)
 
 
 def run(data_path: str | None = None, target: str | None = None, recipe_path: str | None = None,

@@ -50,6 +50,13 @@ def value(item: Any) -> str:
     return str(item)
 
 
+def spec_text(spec: Any) -> str:
+    """Return a stage spec's params as short text: ``max_features 0.5, num_leaves 15``."""
+    params = ", ".join(f"{name} {value(v)}" for name, v in spec.params.items())
+    features = f" · {len(spec.features)} features" if spec.features else ""
+    return (params or "default params") + features
+
+
 def parse_value(text: str) -> Any:
     """Return typed text as a parameter value: true/false, none, a whole number, a number, or text."""
     stripped = text.strip()

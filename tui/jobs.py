@@ -2,13 +2,16 @@
 
 Each builder returns a ``FitJob`` whose ``run`` calls the engine (in the worker thread) and
 returns the message to post; the snapshot of the chain is taken there too, while no other
-thread holds the chain's lock.
+thread holds the chain's lock. Every job that changes the chain then saves its session
+(``ctx.save``); the jobs that decide the next stage (audition, grow, references) are in
+``decision_jobs``.
 """
 
 from __future__ import annotations
 
 import os
 import tempfile
+import time
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
@@ -39,7 +42,32 @@ class SetupChoices:
     seed: int
 
 
-def _score_change(before: ChainView | None, after: ChainView) -> str:
+#: during a long job (a recipe, a grow) the session is saved after a stage at most this often, in seconds
+SAVE_EVERY = 5.0
+
+
+class SessionSaver:
+    """Saves a chain's session during a long job: after a stage once SAVE_EVERY seconds have passed."""
+
+    def __init__(self, ctx: JobContext) -> None:
+        self.ctx = ctx
+        self.last = time.monotonic()
+        self.problem = ""
+
+    def after_stage(self, chain: Any) -> None:
+        """Save when the last save is SAVE_EVERY seconds old."""
+        if time.monotonic() - self.last >= SAVE_EVERY:
+            self.now(chain)
+
+    def now(self, chain: Any) -> str:
+        """Save now and return "" or why the session could not be saved."""
+        self.problem = self.ctx.save(chain)
+        self.last = time.monotonic()
+        return self.problem
+
+
+def score_change(before: ChainView | None, after: ChainView) -> str:
+    """Return the change in the last row's validation metric, as the status line says it."""
     if before is None or not before.rows:
         return f"valid {after.metric} {number(after.rows[-1].valid)}"
     return f"valid {after.metric} {number(before.rows[-1].valid)} → {number(after.rows[-1].valid)}"
@@ -54,7 +82,8 @@ def build_chain(owner: MessagePump, choices: SetupChoices, cache: ImportanceCach
                              ignore=choices.ignore, source=choices.source)
         if choices.data_path:
             chain.data_path = choices.data_path
-        return ChainReady(chain, view_of_chain(chain, cache))
+        view = view_of_chain(chain, cache)
+        return ChainReady(chain, view, session_error=ctx.save(chain))
 
     return FitJob("building the chain", run, owner, cancellable=False,
                   failure_note="nothing was built; change the choices and start again")
@@ -70,15 +99,22 @@ def fit_recipe(owner: MessagePump, recipe: Any, data: str | None, cache: Importa
         chain = build_chain(recipe, data)
         views = [view_of_chain(chain, cache)]
         ctx.post(ChainReady(chain, views[0]))
+        saver = SessionSaver(ctx)
 
         def stage_done(chain: Any) -> None:
             before, after = views[-1], view_of_chain(chain, cache)
             views.append(after)
             kind = chain.stages[-1].kind
-            ctx.post(StageFitted(after, f"fitted {kind} as stage {len(chain)}: {_score_change(before, after)}"))
+            ctx.post(StageFitted(after, f"fitted {kind} as stage {len(chain)}: {score_change(before, after)}"))
+            saver.after_stage(chain)
 
-        replay(chain, recipe, cancel=ctx.cancel, progress=ctx.progress, on_stage=stage_done)
-        return ChainChanged(view_of_chain(chain, cache), "recipe", f"fitted the recipe {recipe.name}: {len(chain)} stages")
+        try:
+            replay(chain, recipe, cancel=ctx.cancel, progress=ctx.progress, on_stage=stage_done)
+        except BaseException:
+            saver.now(chain)  # the stages fitted before the failure are kept: so is their session
+            raise
+        return ChainChanged(view_of_chain(chain, cache), "recipe", f"fitted the recipe {recipe.name}: {len(chain)} stages",
+                            session_error=saver.now(chain))
 
     return FitJob(f"fitting {recipe.name}", run, owner,
                   failure_note="the stages fitted before it are kept")
@@ -94,7 +130,8 @@ def add_stages(owner: MessagePump, chain: Any, cache: ImportanceCache, before: C
         view = view_of_chain(chain, cache)
         first = len(chain) - len(new) + 1
         where = f"stage {first}" if repeat == 1 else f"stages {first}-{len(chain)}"
-        return ChainChanged(view, "add", f"added {what} as {where}: {_score_change(before, view)}", len(chain))
+        return ChainChanged(view, "add", f"added {what} as {where}: {score_change(before, view)}", len(chain),
+                            session_error=ctx.save(chain))
 
     return FitJob(f"adding {what}", run, owner)
 
@@ -107,14 +144,14 @@ def drop_stage(owner: MessagePump, chain: Any, cache: ImportanceCache, before: C
         refits = chain.drop(row, cancel=ctx.cancel, progress=ctx.progress)
         view = view_of_chain(chain, cache)
         refit = f", refit {len(refits)} after it" if refits else ""
-        return ChainChanged(view, "drop", f"dropped stage {row} ({kind}){refit}: {_score_change(before, view)}",
-                            min(row, len(chain)))
+        return ChainChanged(view, "drop", f"dropped stage {row} ({kind}){refit}: {score_change(before, view)}",
+                            min(row, len(chain)), session_error=ctx.save(chain))
 
     return FitJob(f"dropping stage {row}", run, owner)
 
 
 def quick_change(owner: MessagePump, chain: Any, cache: ImportanceCache, before: ChainView, action: str) -> FitJob:
-    """Return the job for an action that needs no fit: step back, trim, undo or reveal."""
+    """Return the job for an action that needs no fit: step back, trim or undo."""
 
     def run(ctx: JobContext) -> ChainChanged:
         if action == "step back":
@@ -123,16 +160,11 @@ def quick_change(owner: MessagePump, chain: Any, cache: ImportanceCache, before:
         elif action == "trim":
             removed = chain.trim()
             summary = f"trimmed to the best stage {len(chain)}: removed {len(removed)}"
-        elif action == "undo":
-            summary = f"undid the {chain.undo()}: {len(chain)} stages"
         else:
-            chain.reveal_test()
-            summary = (f"revealed the locked test part (reveal {chain.reveal_count}); choices made from "
-                       "here on are biased by it")
+            summary = f"undid the {chain.undo()}: {len(chain)} stages"
         view = view_of_chain(chain, cache)
-        if action != "reveal":
-            summary += f"; {_score_change(before, view)}"
-        return ChainChanged(view, action, summary, None if action == "reveal" else len(chain))
+        summary += f"; {score_change(before, view)}"
+        return ChainChanged(view, action, summary, len(chain), session_error=ctx.save(chain))
 
     return FitJob(action, run, owner, cancellable=False)
 

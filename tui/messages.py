@@ -12,17 +12,22 @@ from typing import TYPE_CHECKING
 from textual.message import Message
 
 if TYPE_CHECKING:
+    import pandas as pd
+
     from stages import Chain, FittedChain
+    from stages.audition import Candidate
 
     from .view import ChainView
 
 
 class ChainReady(Message):
-    """A chain was built (from the setup screen or a recipe); it has no stages fitted yet, or some."""
+    """A chain was built (setup screen, recipe) or resumed from its session; ``summary`` says how."""
 
-    def __init__(self, chain: Chain, view: ChainView) -> None:
+    def __init__(self, chain: Chain, view: ChainView, summary: str = "", session_error: str = "") -> None:
         self.chain = chain
         self.view = view
+        self.summary = summary
+        self.session_error = session_error
         super().__init__()
 
 
@@ -36,13 +41,50 @@ class StageFitted(Message):
 
 
 class ChainChanged(Message):
-    """An action on the chain completed: add, step back, drop, trim, undo or reveal."""
+    """An action on the chain completed: add, step back, drop, trim, undo, reveal, keep, grow or a recipe.
 
-    def __init__(self, view: ChainView, action: str, summary: str, select: int | None = None) -> None:
+    ``session_error`` is why the session could not be saved afterwards (empty when it was).
+    """
+
+    def __init__(self, view: ChainView, action: str, summary: str, select: int | None = None,
+                 session_error: str = "") -> None:
         self.view = view
         self.action = action
         self.summary = summary
         self.select = select
+        self.session_error = session_error
+        super().__init__()
+
+
+class StageGrown(Message):
+    """A grow committed another stage; a newer one replaces one still waiting."""
+
+    def __init__(self, view: ChainView, summary: str) -> None:
+        self.view = view
+        self.summary = summary
+        super().__init__()
+
+    def can_replace(self, message: Message) -> bool:
+        """Return True when ``message`` is a later grown stage that makes this one stale."""
+        return isinstance(message, StageGrown)
+
+
+class AuditionDone(Message):
+    """Candidate next stages were fit side by side; ``choice`` is the one-standard-error pick (an index)."""
+
+    def __init__(self, candidates: list[Candidate], choice: int, best: int) -> None:
+        self.candidates = candidates
+        self.choice = choice
+        self.best = best
+        super().__init__()
+
+
+class ReferencesFitted(Message):
+    """The reference models were fit on the chain's split: one row per model (stages.references)."""
+
+    def __init__(self, table: pd.DataFrame, with_test: bool) -> None:
+        self.table = table
+        self.with_test = with_test
         super().__init__()
 
 

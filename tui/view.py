@@ -108,6 +108,7 @@ class ChainView:
     has_test: bool = False
     n_test: int = 0
     test_revealed: bool = False
+    reveals: int = 0
     can_undo: bool = False
     kfold: bool = False
     residuals: ResidualSource | None = None
@@ -198,7 +199,8 @@ def view_of_chain(chain: Any, cache: ImportanceCache) -> ChainView:
         rows=_rows_from_table(chain.table(), metric, second), stages=tuple(infos), features=tuple(names),
         notes=tuple(chain.notes), classes=tuple(chain.schema.classes), has_test=layout.n_test > 0,
         n_test=layout.n_test,
-        test_revealed=chain.test_revealed, can_undo=chain.can_undo(), kfold=layout.is_kfold,
+        test_revealed=chain.test_revealed, reveals=chain.reveal_count, can_undo=chain.can_undo(),
+        kfold=layout.is_kfold,
         residuals=source, data_path=getattr(chain, "data_path", None),
     )
 

@@ -3,6 +3,12 @@
 A job is a plain function of a ``JobContext`` that calls the engine and returns the message
 to post when it succeeds. It touches no widget. The app runs one job at a time; its single
 ``Worker.StateChanged`` handler turns an error into a one-line message in a modal.
+
+A job that changes the chain saves the session with ``ctx.save(chain)`` once the action is
+done (in the worker, where the chain's lock is free). A save that fails never fails the
+action: its one-line reason rides on the result message (``session_error``) and the screen
+that shows the result calls ``session_not_saved`` (after any change of screen it makes);
+the chain in memory is untouched.
 """
 
 from __future__ import annotations
@@ -10,24 +16,35 @@ from __future__ import annotations
 import threading
 from collections.abc import Callable
 from dataclasses import dataclass
+from typing import Any
 
 from textual import work
 from textual.message import Message
 from textual.message_pump import MessagePump
 from textual.worker import Worker, WorkerState
 
+from stages import session as sessions
 from stages.errors import FitCancelled, RemnantError
 
 from .messages import FitFailed, FitProgressed, FitStarted
 
+SESSION_NOTE = ("the chain in memory is as the action left it; s saves it as a chain file. "
+                "The previous session file is intact.")
+
+
+def _no_save(chain: Any) -> str:
+    return ""
+
 
 @dataclass(frozen=True)
 class JobContext:
-    """What a running job may use: the cancel event, a progress callback and a way to post."""
+    """What a running job may use: the cancel event, a progress callback, a way to post, and
+    ``save(chain)``, which saves the chain's session and returns "" or why it could not."""
 
     cancel: threading.Event
     progress: Callable[[float, str], None]
     post: Callable[[Message], object]
+    save: Callable[[Any], str] = _no_save
 
 
 @dataclass(frozen=True)
@@ -55,6 +72,9 @@ class FitRunner:
 
     _job: FitJob | None = None
     _cancel: threading.Event | None = None
+    #: save the session after every completed action (off for screenshots)
+    sessions: bool = True
+    _session_failures = 0
 
     @property
     def fitting(self) -> bool:
@@ -86,7 +106,28 @@ class FitRunner:
         def progress(fraction: float, detail: str = "") -> None:
             job.owner.post_message(FitProgressed(fraction, detail))
 
-        return job.run(JobContext(cancel, progress, job.owner.post_message))
+        return job.run(JobContext(cancel, progress, job.owner.post_message, self.save_session))
+
+    def save_session(self, chain: Any) -> str:
+        """Save ``chain``'s session (keyed by its data file); return "" or the one-line reason it failed.
+
+        Runs in the worker thread. A chain not read from a file has no session.
+        """
+        if not self.sessions or getattr(chain, "data_path", None) is None:
+            return ""
+        try:
+            sessions.save_session(chain)
+        except Exception as err:  # a save must never undo the action it follows
+            return one_line(err)
+        return ""
+
+    def session_not_saved(self, reason: str) -> None:
+        """Say the session was not saved: a modal the first time, a notice after that."""
+        self._session_failures += 1
+        if self._session_failures == 1:
+            self.show_failure("the session was not saved", reason, SESSION_NOTE)
+        else:
+            self.notify(f"the session was not saved: {reason}", severity="warning", timeout=6)
 
     def on_worker_state_changed(self, event: Worker.StateChanged) -> None:
         """Deliver a finished job's result, or show why it failed; the only place fit errors reach the user."""
@@ -102,7 +143,8 @@ class FitRunner:
             return
         error = event.worker.error
         if event.state == WorkerState.CANCELLED or isinstance(error, FitCancelled):
-            job.owner.post_message(FitFailed(job.label, "cancelled", cancelled=True))
+            reason = one_line(error) if isinstance(error, FitCancelled) else "cancelled"
+            job.owner.post_message(FitFailed(job.label, reason, cancelled=True))
             return
         reason = one_line(error) if error is not None else "stopped"
         job.owner.post_message(FitFailed(job.label, reason, cancelled=False))

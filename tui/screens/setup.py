@@ -1,7 +1,8 @@
 """The setup screen: columns and their roles, the target, exclusions, the loss and the validation scheme.
 
 Start builds the chain in the fit worker; a choice the engine refuses comes back as a
-one-line reason in a modal, and the screen stays as it was.
+one-line reason in a modal, and the screen stays as it was. When the data file has a saved
+session, the app offers it over this screen; resuming loads it in the worker too.
 """
 
 from __future__ import annotations
@@ -24,6 +25,7 @@ from stages.validation import GroupHoldout, Holdout, KFold, SplitColumn, TimeOrd
 
 from ..jobs import SetupChoices, build_chain
 from ..messages import ChainReady, FitFailed, FitStarted
+from ..sessions import resume_job
 from ..view import ImportanceCache
 from ..widgets.column_roles import ColumnRoles
 
@@ -216,13 +218,21 @@ class SetupScreen(Screen):
         self.action_start()
 
     def on_fit_started(self, event: FitStarted) -> None:
-        """Say that the chain is being built."""
-        self.query_one("#setup-state", Label).update("building the chain…")
+        """Say that the chain is being built (or the session resumed)."""
+        self.query_one("#setup-state", Label).update(f"{event.label}…")
 
     def on_fit_failed(self, event: FitFailed) -> None:
         """Clear the state line; the failure modal says why."""
         self.query_one("#setup-state", Label).update("")
 
     def on_chain_ready(self, event: ChainReady) -> None:
-        """Open the workbench on the new chain."""
-        self.app.open_workbench(event.chain, event.view, self.cache)
+        """Open the workbench on the new (or resumed) chain."""
+        self.app.open_workbench(event.chain, event.view, self.cache, event.summary, event.session_error)
+
+    def resume_answered(self, choice: str | None) -> None:
+        """Resume the offered session in the fit worker, or stay here to start fresh."""
+        offer = self.app.offer
+        if choice == "resume" and offer is not None:
+            self.app.start_job(resume_job(self, offer, self.cache))
+        else:
+            self.query_one("#setup-state", Label).update("starting fresh: s replaces the saved session")

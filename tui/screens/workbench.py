@@ -1,7 +1,8 @@
 """The main screen: the chain table, the error curve, the residuals and the stage details of one chain.
 
 Widgets show a ``ChainView`` snapshot; every action runs in the app's fit worker and comes
-back as a message, after which ``chain_changed`` refreshes everything.
+back as a message, after which ``chain_changed`` refreshes everything. The actions that
+decide the next stage (audition, grow, references, reveal) are in ``next_stage``.
 """
 
 from __future__ import annotations
@@ -28,22 +29,23 @@ from ..messages import (
     FitStarted,
     StageFitted,
 )
+from ..sessions import ResumeOffer, resume_job
 from ..view import ChainView, ImportanceCache, view_of_fitted
 from ..widgets.chain_table import ChainTable
 from ..widgets.error_curve import ErrorCurve
 from ..widgets.fit_progress import FitProgress
+from ..widgets.reference_pane import ReferencePane
 from ..widgets.residual_histogram import ResidualHistogram
 from ..widgets.stage_details import StageDetails, loss_name
 from .add_stage import AddStageScreen
 from .confirm import ConfirmScreen
+from .next_stage import NextStageActions
 from .save import PathPrompt, default_path
 
 CAUTION = "validate on data the chain never saw; check for leakage and drift"
 #: actions that change the chain or write files: none of them while a job runs
 CHANGES = {"add_stage", "step_back", "drop_stage", "trim", "undo", "reveal_test", "save_chain",
-           "export_recipe", "open_chain"}
-REVEAL_NOTE = ("Decisions made after seeing it bias it: use it for the final check only. The reveal is "
-               "recorded, and any change to the chain locks it again.")
+           "export_recipe", "open_chain", "audition", "grow"}
 
 
 def title_line(view: ChainView) -> str:
@@ -52,34 +54,43 @@ def title_line(view: ChainView) -> str:
             f"{view.sizes}")
 
 
-class WorkbenchScreen(Screen):
-    """The workbench over one chain."""
+class WorkbenchScreen(NextStageActions, Screen):
+    """The workbench over one chain (or over a recipe being fit, or a session being resumed)."""
 
     HORIZONTAL_BREAKPOINTS = [(0, "-narrow"), (70, "-normal"), (150, "-wide")]
     VERTICAL_BREAKPOINTS = [(0, "-short"), (40, "-tall")]
 
     BINDINGS = [
         Binding("a", "add_stage", "add", tooltip="add a stage (a form: kind, shrinkage, features, params)"),
-        Binding("b", "step_back", "back", tooltip="step back: remove the last stage (no refit)"),
+        Binding("b", "step_back", "back", show=False, tooltip="step back: remove the last stage (no refit)"),
         Binding("d", "drop_stage", "drop", tooltip="drop the selected stage; the stages after it are refit"),
         Binding("t", "trim", "trim", tooltip="trim to the stage with the best validation score"),
         Binding("u", "undo", "undo", tooltip="undo the last step back, drop or trim"),
-        Binding("v", "switch_view", "view", tooltip="residual histogram / against fitted (probabilities by class)"),
-        Binding("s", "save_chain", "save", tooltip="save the chain file"),
-        Binding("e", "export_recipe", "recipe", tooltip="export the recipe (TOML)"),
-        Binding("r", "reveal_test", "reveal", tooltip="reveal the locked test part"),
-        Binding("o", "open_chain", "open", tooltip="open a saved chain file read-only"),
+        Binding("n", "audition", "audition", tooltip="audition candidate next stages side by side, keep one"),
+        Binding("g", "grow", "grow", tooltip="grow stages of one kind until validation stops improving"),
+        Binding("m", "references", "refs", tooltip="reference models (linear alone, LightGBM) / stage details"),
+        Binding("r", "reveal_test", "reveal", tooltip="reveal the locked test part (the chain and the references)"),
+        Binding("s", "save_chain", "save", show=False, tooltip="save the chain file"),
+        Binding("v", "switch_view", "view", show=False,
+                tooltip="residual histogram / against fitted (probabilities by class)"),
+        Binding("e", "export_recipe", "recipe", show=False, tooltip="export the recipe (TOML)"),
+        Binding("o", "open_chain", "open", show=False, tooltip="open a saved chain file read-only"),
         Binding("c,escape", "cancel_fit", "cancel", tooltip="cancel the running fit (the chain stays as it was)"),
     ]
 
     def __init__(self, chain: Any = None, view: ChainView | None = None, *, recipe: Any = None,
-                 recipe_data: str | None = None, cache: ImportanceCache | None = None, timings: bool = True) -> None:
+                 recipe_data: str | None = None, resume: ResumeOffer | None = None,
+                 cache: ImportanceCache | None = None, summary: str = "", session_error: str = "",
+                 timings: bool = True) -> None:
         super().__init__()
         self.chain = chain
         self.view = view
         self.recipe = recipe
         self.recipe_data = recipe_data
+        self.resume = resume
         self.cache = cache or ImportanceCache()
+        self.summary = summary
+        self.session_error = session_error
         self.timings = timings
         self.last_kind = ""
 
@@ -91,6 +102,7 @@ class WorkbenchScreen(Screen):
             yield ErrorCurve(id="curve", classes="pane")
             yield ResidualHistogram(id="residuals", classes="pane")
             yield StageDetails(timings=self.timings, id="details", classes="pane")
+            yield ReferencePane(id="references", classes="pane")
         with Vertical(id="status"):
             yield Static("", id="result", markup=False)
             yield FitProgress(timings=self.timings, id="progress")
@@ -98,14 +110,23 @@ class WorkbenchScreen(Screen):
         yield Footer(compact=True, show_command_palette=False)
 
     def on_mount(self) -> None:
-        """Show the chain, or start fitting the recipe."""
+        """Show the chain, or start resuming the session, or fitting the recipe."""
         self.query_one(FitProgress).display = False
+        self.query_one(ReferencePane).display = False
         self.query_one(ChainTable).focus()
         if self.view is not None:
-            self.chain_changed(self.view, "", select=self.view.n_stages)
-        if self.recipe is not None:
-            self.query_one("#title", Static).update(f"fitting {self.recipe.name} …")
-            self.app.start_job(jobs.fit_recipe(self, self.recipe, self.recipe_data, self.cache))
+            self.chain_changed(self.view, self.summary, select=self.view.n_stages)
+        if self.session_error:
+            self.app.session_not_saved(self.session_error)
+        if self.resume is not None:
+            self.query_one("#title", Static).update("resuming the saved session …")
+            self.app.start_job(resume_job(self, self.resume, self.cache))
+        elif self.recipe is not None:
+            self._fit_recipe()
+
+    def _fit_recipe(self) -> None:
+        self.query_one("#title", Static).update(f"fitting {self.recipe.name} …")
+        self.app.start_job(jobs.fit_recipe(self, self.recipe, self.recipe_data, self.cache))
 
     # ----- the one refresh -------------------------------------------------------------
     @property
@@ -122,7 +143,10 @@ class WorkbenchScreen(Screen):
         if summary:
             self.query_one("#result", Static).update(summary)
         elif view.n_stages == 0:
-            self.query_one("#result", Static).update("a adds the first stage · ? lists every key")
+            self.query_one("#result", Static).update("a adds the first stage · n auditions candidates · ? lists every key")
+        references = self.query_one(ReferencePane)
+        if references.display:
+            references.show(view)
         self.refresh_bindings()
 
     def _show_selection(self) -> None:
@@ -140,9 +164,13 @@ class WorkbenchScreen(Screen):
 
     # ----- messages from the fit worker ------------------------------------------------
     def on_chain_ready(self, event: ChainReady) -> None:
-        """Take the chain a recipe job built."""
+        """Take the chain a recipe job built, or the session resumed."""
         self.chain = event.chain
-        self.chain_changed(event.view, "")
+        if not self.app.fitting:  # a resumed session (a recipe's chain comes while its stages fit)
+            self._job_over()
+        self.chain_changed(event.view, event.summary, select=event.view.n_stages)
+        if event.session_error:
+            self.app.session_not_saved(event.session_error)
 
     def on_stage_fitted(self, event: StageFitted) -> None:
         """Show a stage a longer job fitted."""
@@ -152,6 +180,8 @@ class WorkbenchScreen(Screen):
         """Show the chain after a completed action."""
         self._job_over()
         self.chain_changed(event.view, event.summary, select=event.select)
+        if event.session_error:
+            self.app.session_not_saved(event.session_error)
 
     def on_fit_started(self, event: FitStarted) -> None:
         """Show the progress line and hide the actions that must wait."""
@@ -166,8 +196,18 @@ class WorkbenchScreen(Screen):
     def on_fit_failed(self, event: FitFailed) -> None:
         """Hide the progress line and say what happened."""
         result = self._job_over()
-        note = "the chain is as it was" if self.recipe is None else "the stages fitted before it are kept"
-        what = "cancelled" if event.cancelled else f"failed: {event.reason}"
+        if self.chain is None and self.resume is not None and self.recipe is not None:
+            self.resume = None  # the session cannot be resumed: fit the recipe as if fresh
+            self._fit_recipe()
+            return
+        note = "the chain is as it was"
+        if self.recipe is not None or event.label.startswith("growing"):
+            note = "the stages fitted before it are kept"
+        if event.cancelled:
+            where = event.reason.split(":")[0] if event.reason.startswith("stage ") else ""
+            what = f"cancelled during {where}" if where else "cancelled"
+        else:
+            what = f"failed: {event.reason}"
         result.update(f"{event.label} {what}; {note}")
         self.refresh_bindings()
 
@@ -203,6 +243,8 @@ class WorkbenchScreen(Screen):
         """Return whether ``action`` makes sense now; False hides it from the footer."""
         if action == "cancel_fit":
             return self.app.job_cancellable
+        if action == "references":
+            return self._references_apply()
         if action not in CHANGES and action != "switch_view":
             return True
         if self.app.fitting and action in CHANGES:
@@ -219,6 +261,10 @@ class WorkbenchScreen(Screen):
             "switch_view": view.residuals is not None,
         }
         return checks.get(action, True)
+
+    def _references_apply(self) -> bool:
+        """Return whether the reference key works now: to fit them (no job running) or to show them."""
+        return self.chain is not None and (self.query_one(ReferencePane).fitted or not self.app.fitting)
 
     def _start(self, job: Any) -> None:
         if not self.app.start_job(job):
@@ -268,16 +314,6 @@ class WorkbenchScreen(Screen):
     def action_undo(self) -> None:
         """Undo the last step back, drop or trim."""
         self._start(jobs.quick_change(self, self.chain, self.cache, self.view, "undo"))
-
-    def action_reveal_test(self) -> None:
-        """Ask, then score every row on the locked test part."""
-
-        def answered(yes: bool | None) -> None:
-            if yes:
-                self._start(jobs.quick_change(self, self.chain, self.cache, self.view, "reveal"))
-
-        question = f"Reveal the locked test part ({self.view.n_test:,} rows)?"
-        self.app.push_screen(ConfirmScreen("reveal the test part", question, REVEAL_NOTE, yes="reveal"), answered)
 
     def action_switch_view(self) -> None:
         """Switch the residual pane to its next view."""
