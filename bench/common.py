@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import argparse
+import json
 import os
 import platform
 import time
@@ -49,9 +50,26 @@ def machine() -> str:
     return f"{os.cpu_count()} cores, {memory}, {platform.machine()}, Python {platform.python_version()}"
 
 
+def load() -> str:
+    """Return the machine's load average over the last minute, as a short note."""
+    try:
+        return f"load {os.getloadavg()[0]:.1f}"
+    except OSError:
+        return "load unknown"
+
+
+#: when set, print_table also appends its rows, one JSON line each, to the file it names
+RESULTS_ENV = "REMNANT_BENCH_RESULTS"
+
+
 def print_table(title: str, rows: list[tuple[str, str, str, str]]) -> None:
     """Print figure rows (figure, ours, reference, ratio/target) as an aligned table."""
-    print(f"# {title}  ({machine()})")
+    results = os.environ.get(RESULTS_ENV)
+    if results:
+        with open(results, "a", encoding="utf-8") as handle:
+            for row in rows:
+                handle.write(json.dumps({"title": title, "row": [str(cell) for cell in row]}) + "\n")
+    print(f"# {title}  ({machine()}; {load()} at the end)")
     header = ("figure", "ours", "reference", "ratio (target)")
     widths = [max(len(str(r[i])) for r in [header, *rows]) for i in range(4)]
     for row in [header, *rows]:

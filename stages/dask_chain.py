@@ -14,9 +14,12 @@ of the linear stage's sample, broadcast to every partition (``bin_codes``). Each
 bin of its own on every worker, and distributed and single-machine training find the same trees
 (as long as every partition holds every code: each holds about 1/``n_bins`` of the rows).
 
-Dask is imported only inside ``fit_on_dask`` and ``local_cluster_score``: the engine imports
-without it. Features must be numeric columns (category codes and NaN handling stay with the
-in-memory engine for now).
+Each stage's cumulative output on the fitting rows is kept (``ChainFit.cached``): numpy arrays
+in memory, Dask arrays persisted on the workers, chunked like the partitions.
+
+Dask is imported only by ``local_cluster_fit`` (``fit_on_dask`` is handed a Dask frame and a
+client): the engine imports without it. Features must be numeric columns (NaN allowed);
+categorical columns stay with the in-memory engine for now.
 """
 
 from __future__ import annotations
@@ -75,6 +78,7 @@ class ChainFit:
     linear: Any
     boosted: BinnedBooster
     scores: dict[str, float]
+    cached: dict[str, Any] = field(default_factory=dict)  # stage -> output after it, on the fitting rows
 
     def offset(self, X: np.ndarray) -> np.ndarray:
         """Return the chain's output before the LightGBM stage on the feature rows ``X``."""
@@ -159,9 +163,11 @@ def fit_in_memory(frame: pd.DataFrame, settings: ChainSettings) -> ChainFit:
     linear = fit_linear(sample, settings, start + shift)
     X = fit_rows[settings.features].to_numpy(dtype=np.float64)
     edges = bin_edges(sample[settings.features].to_numpy(dtype=np.float64), settings.n_bins)
+    offset = start + shift + linear.predict(X)
     model = lightgbm.LGBMRegressor(**lightgbm_params(settings))
-    model.fit(bin_codes(X, edges), y, init_score=start + shift + linear.predict(X))
+    model.fit(bin_codes(X, edges), y, init_score=offset)
     fit = ChainFit(start, shift, linear, BinnedBooster(edges, model.booster_), {})
+    fit.cached = {"linear": offset, "lightgbm": offset + fit.boosted.predict(X)}
     fit.scores = {part: _rmse(_squared_errors(rows, fit, settings)) for part, rows in
                   (("train", fit_rows), ("valid", valid_rows))}
     return fit
@@ -186,10 +192,13 @@ def fit_on_dask(frame: Any, settings: ChainSettings, client: Any) -> ChainFit:
     X = fit_rows[settings.features].to_dask_array(lengths=True).astype(np.float64)
     y = fit_rows[settings.target].to_dask_array(lengths=True).astype(np.float64)
     codes = X.map_blocks(bin_codes, edges, dtype=np.float64)
-    offset = X.map_blocks(lambda block: start + shift + linear.predict(block), drop_axis=1, dtype=np.float64)
+    offset = X.map_blocks(lambda block: start + shift + linear.predict(block), drop_axis=1,
+                          dtype=np.float64).persist()
     params = {k: v for k, v in lightgbm_params(settings).items() if k != "num_threads"}  # workers set their own
     model = lightgbm.DaskLGBMRegressor(client=client, **params).fit(codes, y, init_score=offset)
     fit = ChainFit(start, shift, linear, BinnedBooster(edges, model.to_local().booster_), {})
+    boosted = X.map_blocks(fit.boosted.predict, drop_axis=1, dtype=np.float64)
+    fit.cached = {"linear": offset, "lightgbm": (offset + boosted).persist()}
     meta = pd.DataFrame({"sse": pd.Series(dtype=np.float64), "n": pd.Series(dtype=np.int64)})
     fit.scores = {part: _rmse(rows.map_partitions(_squared_errors, fit, settings, meta=meta).compute())
                   for part, rows in (("train", fit_rows), ("valid", valid_rows))}

@@ -77,6 +77,8 @@ class ColumnReport:
 
 def infer_role(values: pd.Series) -> tuple[str, str]:
     """Return the column's role (a schema role or ``"excluded"``) and a note saying why."""
+    if _plain_numeric(values.dtype):
+        return _numeric_role(values.to_numpy())
     try:
         non_missing, uniques = _distinct(values)
     except TypeError:
@@ -102,6 +104,22 @@ def describe_columns(frame: pd.DataFrame) -> list[ColumnReport]:
 
 
 _NOT_PLAIN = "holds lists or other values that are not plain"
+
+
+def _plain_numeric(dtype: object) -> bool:
+    """Return True for numpy integer and float dtypes (not bool, not nullable or other extension types)."""
+    return isinstance(dtype, np.dtype) and dtype.kind in "iuf"
+
+
+def _numeric_role(array: np.ndarray) -> tuple[str, str]:
+    """Return the role of a plain numeric column: the rules of ``_role`` without counting distinct
+    values, which only matters for "constant" (a hash of every value costs seconds at 10 million rows)."""
+    non_missing = array[~np.isnan(array)] if array.dtype.kind == "f" else array
+    if len(non_missing) == 0:
+        return EXCLUDED, "every value is missing"
+    if np.all(non_missing == non_missing[0]):
+        return EXCLUDED, f"constant (every value is {pd.unique(non_missing[:1])[0]!s})"
+    return NUMERIC, ""
 
 
 def _distinct(values: pd.Series) -> tuple[np.ndarray, np.ndarray]:
@@ -189,6 +207,10 @@ def infer_task(values: pd.Series, *, source: str = "data", target: str = "") -> 
         return "binary"
     if pdt.is_datetime64_any_dtype(values.dtype) or pdt.is_timedelta64_dtype(values.dtype):
         raise DataError(f"{source}: {label} holds dates or durations; a target must be numbers or two classes")
+    if _plain_numeric(values.dtype):
+        array = non_missing.to_numpy()
+        zero, one = array == 0, array == 1
+        return "binary" if bool(np.all(zero | one)) and zero.any() and one.any() else "regression"
     numbers = pd.to_numeric(non_missing, errors="coerce")
     if numbers.notna().all():
         return "binary" if set(pd.unique(numbers.to_numpy())) == {0, 1} else "regression"

@@ -92,13 +92,18 @@ class Schema:
         """Return the float64 feature matrix of ``frame`` and the count of unseen levels per column.
 
         ``order`` is the matrix's memory layout: "C" (row-major, what the chain gathers rows
-        from) or "F" (column-major, as ``DataFrame.to_numpy`` gives; quicker to build).
+        from) or "F" (column-major, as ``DataFrame.to_numpy`` gives; quicker to build, and for a
+        frame of plain float64 features it may be a read-only view of the frame's own memory).
         Columns not in the schema are ignored. A missing column, or a column whose type
         no longer fits its role, raises SchemaError naming the column.
         """
         missing = [c.name for c in self.columns if c.name not in frame.columns]
         if missing:
             raise SchemaError(f"{source}: column {missing[0]!r} is missing (the chain was fit with it)")
+        if order == "F":
+            ready = self._plain_matrix(frame)
+            if ready is not None:
+                return ready, {}
         matrix = np.empty((len(frame), len(self.columns)), dtype=np.float64, order=order)
         unseen: dict[str, int] = {}
         plain: list[tuple[int, np.ndarray]] = []
@@ -116,6 +121,16 @@ class Schema:
                 unseen[col.name] = count
         _fill_by_row_blocks(matrix, plain)
         return matrix, unseen
+
+    def _plain_matrix(self, frame: pd.DataFrame) -> np.ndarray | None:
+        """Return the column-major float64 matrix of a frame whose features are all plain float64
+        numbers (without copying when pandas holds them as one block), else None."""
+        for col in self.columns:
+            values = frame[col.name]
+            if values.dtype != np.float64 or plain_numbers(values, col) is None:
+                return None
+        matrix = frame[self.names].to_numpy(dtype=np.float64)
+        return matrix if matrix.flags.f_contiguous else np.asfortranarray(matrix)
 
     def to_dict(self) -> dict[str, Any]:
         """Return a JSON-ready dict of the schema."""

@@ -67,19 +67,27 @@ class ColumnStep:
         )
 
 
-def impute_median(values: np.ndarray) -> tuple[np.ndarray, float]:
-    """Return ``values`` with NaN replaced by their median, and that median (0 when all are NaN)."""
-    observed = values[~np.isnan(values)]
+def impute_median(values: np.ndarray, missing: np.ndarray | None = None) -> tuple[np.ndarray, float]:
+    """Return ``values`` with NaN replaced by their median, and that median (0 when all are NaN).
+
+    ``missing`` is ``np.isnan(values)`` when the caller has it already.
+    """
+    missing = np.isnan(values) if missing is None else missing
+    if not missing.any():  # the common case: no copy of the column, no second pass
+        return values, float(np.median(values)) if values.size else 0.0
+    observed = values[~missing]
     median = float(np.median(observed)) if observed.size else 0.0
-    return np.where(np.isnan(values), median, values), median
+    return np.where(missing, median, values), median
 
 
 def fit_numeric_step(values: np.ndarray, role: str) -> ColumnStep:
     """Return the imputation and scaling step learnt from one numeric or boolean column."""
-    imputed, median = impute_median(values)
+    values = np.ascontiguousarray(values, dtype=np.float64)  # a column of the row-major matrix is strided
+    missing = np.isnan(values)
+    imputed, median = impute_median(values, missing)
     mean = float(np.mean(imputed)) if imputed.size else 0.0
     std = float(np.std(imputed)) if imputed.size else 1.0
-    has_missing = bool(np.isnan(values).any()) and role != BOOLEAN
+    has_missing = bool(missing.any()) and role != BOOLEAN
     return ColumnStep(role, median=median, mean=mean, std=std if std > 0 else 1.0, indicator=has_missing)
 
 

@@ -13,6 +13,7 @@ loading shared with the ``hist_tree`` kind.
 
 from __future__ import annotations
 
+import contextlib
 from dataclasses import dataclass, field
 from typing import Any, ClassVar
 
@@ -21,6 +22,7 @@ import numpy as np
 from ..errors import ChainFileError, StageFitError, StageSpecError
 from . import register
 from .base import Artifact, FitRequest, StageKind, check_has_features
+from .binned import BIN_SEED, binned
 
 #: LightGBM's scikit-learn API names and the native parameter each one sets
 SKLEARN_NAMES: dict[str, str] = {
@@ -152,8 +154,12 @@ def booster_params(request: FitRequest, params: dict[str, Any], seed: int) -> di
     return out
 
 
-def train_booster(request: FitRequest, params: dict[str, Any], kind: str) -> BoosterLearner:
-    """Return a booster trained on ``request.y`` from the offset ``request.raw``, with native ``params``."""
+def train_booster(request: FitRequest, params: dict[str, Any], kind: str, *, reuse_bins: bool = False) -> BoosterLearner:
+    """Return a booster trained on ``request.y`` from the offset ``request.raw``, with native ``params``.
+
+    With ``reuse_bins`` (and no early stopping) the binned rows are kept for the next fit on
+    the same rows (see ``binned.py``).
+    """
     import lightgbm
 
     check_has_features(request.X, kind)
@@ -173,18 +179,23 @@ def train_booster(request: FitRequest, params: dict[str, Any], kind: str) -> Boo
             categorical_feature=categorical, free_raw_data=True,
         )
 
-    train_set = dataset(fit_rows)
+    shared = None
+    if reuse_bins and held_out is None:
+        native.setdefault("data_random_seed", BIN_SEED)
+        shared = binned(request.X, categorical, native)
     callbacks = [_round_callback(request, rounds)]
-    valid_sets = []
-    if held_out is not None:
-        valid_sets.append(dataset(held_out, reference=train_set))
-        callbacks.append(lightgbm.early_stopping(stopping, first_metric_only=True, verbose=False))
-    if request.progress is not None:
-        request.progress(0.0, f"round 0/{rounds}")
-    try:
-        booster = lightgbm.train(native, train_set, num_boost_round=rounds, valid_sets=valid_sets, callbacks=callbacks)
-    except lightgbm.basic.LightGBMError as exc:
-        raise StageFitError(f"kind {kind!r}: LightGBM failed: {exc}") from None
+    with shared.lock if shared is not None else contextlib.nullcontext():
+        train_set = shared.with_target(request.y, request.raw) if shared is not None else dataset(fit_rows)
+        valid_sets = []
+        if held_out is not None:
+            valid_sets.append(dataset(held_out, reference=train_set))
+            callbacks.append(lightgbm.early_stopping(stopping, first_metric_only=True, verbose=False))
+        if request.progress is not None:
+            request.progress(0.0, f"round 0/{rounds}")
+        try:
+            booster = lightgbm.train(native, train_set, num_boost_round=rounds, valid_sets=valid_sets, callbacks=callbacks)
+        except lightgbm.basic.LightGBMError as exc:
+            raise StageFitError(f"kind {kind!r}: LightGBM failed: {exc}") from None
     best = booster.best_iteration
     if request.progress is not None and 0 < best < rounds:
         request.progress(1.0, f"stopped early: best round {best}/{rounds}")

@@ -1,0 +1,179 @@
+"""Peak memory of a chain over 1,000,000 x 50 float64 rows (400 MB) with 20 stages cached,
+against the size of the data in float64.
+
+Method: each case runs in its own Python process. The process first imports the libraries
+(numpy, pandas, pyarrow, scikit-learn, LightGBM and every stage kind), reads its peak resident
+size (``resource.getrusage(RUSAGE_SELF).ru_maxrss``) as the baseline, then builds the chain
+and fits linear + 19 hist_tree stages (depth 4, shrinkage 0.3) with a 20 % holdout. The figure
+is the peak resident size minus that baseline. Two cases:
+
+- ``file``: ``Chain.from_file`` on a Parquet file, as a user of the workbench starts;
+- ``frame``: ``Chain(frame, ...)`` on a DataFrame the user made in the same process, so the
+  user's own frame (400 MB) counts in the peak too; the user deletes it once the chain is built;
+- ``kept``: the same, but the user keeps the frame for the whole session.
+
+``--proposals`` measures with the changes proposed for ``stages/reading.py`` and
+``stages/chain.py`` tried on a copy, inside the measured process (see bench/README.md).
+
+Target: peak / data size <= 2.5.
+
+    python bench/memory.py [--rows N] [--features N] [--stages N]
+"""
+
+from __future__ import annotations
+
+import json
+import os
+import resource
+import subprocess
+import sys
+import tempfile
+from pathlib import Path
+
+sys.path.insert(0, str(Path(__file__).resolve().parent))
+import common  # noqa: E402
+
+MiB = 2**20
+
+
+def peak_bytes() -> int:
+    """Return this process's peak resident size in bytes (Linux reports kilobytes)."""
+    return resource.getrusage(resource.RUSAGE_SELF).ru_maxrss * 1024
+
+
+def resident_bytes() -> int:
+    """Return this process's current resident size in bytes."""
+    with open("/proc/self/statm") as handle:
+        return int(handle.read().split()[1]) * os.sysconf("SC_PAGE_SIZE")
+
+
+def lean_frame(rows: int, features: int, seed: int = 0):
+    """Return a frame like ``common.make_regression_frame``, made a column at a time so that making
+    it costs no more memory than the frame itself."""
+    import numpy as np
+    import pandas as pd
+
+    rng = np.random.default_rng(seed)
+    columns = {f"x{i}": rng.standard_normal(rows) for i in range(features)}
+    x = [columns[f"x{i}"] for i in range(4)]
+    columns["y"] = x[0] * 2 + np.sin(x[1] * 2) + (x[2] > 0.5) * x[3] + rng.standard_normal(rows) * 0.5
+    return pd.DataFrame(columns, copy=False)
+
+
+def read_parquet_by_column(file, name):
+    """Proposed ``stages.reading._read_parquet``: one column at a time, so Arrow never holds the whole table."""
+    import pandas as pd
+    import pyarrow.parquet as pq
+
+    handle = pq.ParquetFile(file)
+    columns = {c: handle.read(columns=[c]).to_pandas(self_destruct=True)[c] for c in handle.schema_arrow.names}
+    return pd.DataFrame(columns, copy=False)
+
+
+def apply_proposals() -> None:
+    """Try the proposed engine changes on a copy, inside this process: Parquet read one column at a
+    time, a chain that keeps no reference to the frame's rows once its matrix is built, and
+    Arrow's freed pages given back after ``Chain.from_file``."""
+    import stages
+    from stages import reading
+
+    reading._read_parquet = read_parquet_by_column
+    original = stages.Chain.__init__
+
+    def lean_init(self, *args, **kwargs):
+        original(self, *args, **kwargs)
+        self.prepared.frame = self.prepared.frame.iloc[:0].copy()  # the columns stay known, the rows go
+
+    stages.Chain.__init__ = lean_init
+    from_file = stages.Chain.from_file.__func__
+
+    def from_file_releasing(cls, *args, **kwargs):
+        import pyarrow as pa
+
+        chain = from_file(cls, *args, **kwargs)
+        pa.default_memory_pool().release_unused()  # the file's frame is gone; Arrow's allocator keeps its pages
+        return chain
+
+    stages.Chain.from_file = classmethod(from_file_releasing)
+
+
+def child(case: str, path: str, rows: int, features: int, n_stages: int, proposals: bool) -> dict[str, float]:
+    """Build and fit the chain of ``case`` in this process; return its memory figures in MiB."""
+    import lightgbm  # noqa: F401
+    import pyarrow.parquet  # noqa: F401
+    import sklearn.linear_model  # noqa: F401
+    import sklearn.tree  # noqa: F401
+
+    import stages
+    from stages.kinds import kind_names
+
+    kind_names()  # imports every built-in kind
+    if proposals:
+        apply_proposals()
+    base = peak_bytes()
+    if base > resident_bytes() + 64 * MiB:
+        raise SystemExit("the baseline peak is above the resident size: start this from a small process")
+    if case == "file":
+        chain = stages.Chain.from_file(path, "y", stages.Holdout(fraction=0.2, seed=0), seed=0)
+    else:
+        frame = lean_frame(rows, features)
+        chain = stages.Chain(frame, "y", stages.Holdout(fraction=0.2, seed=0), seed=0)
+    built = peak_bytes()
+    if case == "frame":
+        del frame  # the chain holds what it needs; whether it keeps the user's frame shows in "held"
+    # case "kept": the user keeps the frame for the whole session
+    chain.add("linear")
+    chain.add("hist_tree", 0.3, params={"max_depth": 4}, repeat=n_stages - 1)
+    return {"baseline": base / MiB, "peak_built": (built - base) / MiB, "peak": (peak_bytes() - base) / MiB,
+            "held": (resident_bytes() - base) / MiB}
+
+
+def run_case(case: str, path: str, args) -> dict[str, float]:
+    """Return the figures of ``case`` measured in a fresh Python process."""
+    command = [sys.executable, __file__, "--child", case, "--path", path, "--rows", str(args.rows),
+               "--features", str(args.features), "--stages", str(args.stages)]
+    command += ["--proposals"] if args.proposals else []
+    done = subprocess.run(command, capture_output=True, text=True, check=False)
+    if done.returncode != 0:
+        raise SystemExit(f"memory case {case!r} failed:\n{done.stderr}")
+    return json.loads(done.stdout.strip().splitlines()[-1])
+
+
+def main() -> None:
+    """Print the figures, or (with --child) measure one case and print it as JSON."""
+    parse = common.parser(__doc__.splitlines()[0], 1_000_000)
+    parse.add_argument("--features", type=int, default=50)
+    parse.add_argument("--stages", type=int, default=20)
+    parse.add_argument("--child", choices=("write", "file", "frame", "kept"), help="(internal) run one case")
+    parse.add_argument("--path", default="", help="(internal) the Parquet file")
+    parse.add_argument("--proposals", action="store_true",
+                       help="measure with the proposed changes to reading and to the chain (see bench/README.md)")
+    args = parse.parse_args()
+    if args.child == "write":
+        common.make_regression_frame(args.rows, args.features).to_parquet(args.path, index=False)
+        print("{}")
+        return
+    if args.child:
+        print(json.dumps(child(args.child, args.path, args.rows, args.features, args.stages, args.proposals)))
+        return
+    data_mib = args.rows * args.features * 8 / MiB
+    with tempfile.TemporaryDirectory() as folder:
+        path = os.path.join(folder, "rows.parquet")
+        # written by a child too: Linux carries a parent's peak into the ru_maxrss of what it starts
+        run_case("write", path, args)
+        figures = {case: run_case(case, path, args) for case in ("file", "frame", "kept")}
+    rows = []
+    cases = (("file", "from a Parquet file"), ("frame", "from the user's DataFrame (counted), then deleted"),
+             ("kept", "from the user's DataFrame (counted), kept"))
+    for case, label in cases:
+        got = figures[case]
+        rows.append((f"peak, {args.rows:,} x {args.features}, {args.stages} stages, {label}",
+                     f"{got['peak']:.0f} MiB", f"{data_mib:.0f} MiB (data in float64)",
+                     f"{got['peak'] / data_mib:.2f} (<= 2.5)"))
+        rows.append(("  of which: building the chain / held after the fits", f"{got['peak_built']:.0f} MiB",
+                     f"{got['held']:.0f} MiB", f"baseline {got['baseline']:.0f} MiB"))
+    common.print_table("memory, with the proposed changes" if args.proposals else "memory", rows)
+
+
+if __name__ == "__main__":
+    main()
