@@ -11,14 +11,13 @@ from typing import Any
 
 from textual import on
 from textual.app import ComposeResult
-from textual.binding import Binding
 from textual.containers import Horizontal, Vertical, VerticalScroll
-from textual.screen import ModalScreen
 from textual.widgets import Button, Footer, Input, Label, Select, SelectionList
 
 from stages.kinds import get_kind, kind_names
 
 from ..format import parse_value, value
+from .form import FormError, FormScreen
 
 #: the option that stands for any scikit-learn regressor, named by its import path
 SKLEARN = "sklearn:"
@@ -27,10 +26,6 @@ ONLY_FOR = {"logistic": "binary"}
 #: our starting shrinkage per kind: full steps for kinds fit once, smaller for trees (common practice)
 SHRINKAGE = {"tree": 0.3, "hist_tree": 0.3, "forest": 0.5, "extra_trees": 0.5, "lightgbm": 0.5, "knn": 0.5,
              "spline": 0.5}
-
-
-class FormError(ValueError):
-    """A field of the form holds something that cannot be used; the message says which."""
 
 
 def parse_pairs(text: str) -> dict[str, Any]:
@@ -49,10 +44,12 @@ def kinds_for(task: str) -> list[str]:
     return [k for k in kind_names() if ONLY_FOR.get(k, task) == task]
 
 
-class AddStageScreen(ModalScreen[dict | None]):
+class AddStageScreen(FormScreen):
     """The form that describes the next stage."""
 
-    BINDINGS = [Binding("escape", "cancel", "cancel")]
+    ERROR_ID = "add-error"
+    SUBMIT_ID = "add-fit"
+
 
     def __init__(self, task: str, features: tuple[str, ...], kind: str = "linear") -> None:
         super().__init__()
@@ -165,28 +162,3 @@ class AddStageScreen(ModalScreen[dict | None]):
         features = [] if len(ticked) == len(self.features) else [f for f in self.features if f in ticked]
         return {"kind": kind, "shrinkage": shrinkage, "features": features, "params": self._params(kind),
                 "repeat": repeat}
-
-    def _submit(self) -> None:
-        try:
-            request = self.request()
-        except FormError as err:
-            self.query_one("#add-error", Label).update(str(err))
-            return
-        self.dismiss(request)
-
-    def on_input_submitted(self, event: Input.Submitted) -> None:
-        """Enter in any field fits the stage."""
-        event.stop()
-        self._submit()
-
-    def on_button_pressed(self, event: Button.Pressed) -> None:
-        """Fit or cancel."""
-        event.stop()
-        if event.button.id == "add-fit":
-            self._submit()
-        else:
-            self.dismiss(None)
-
-    def action_cancel(self) -> None:
-        """Close the form without adding a stage."""
-        self.dismiss(None)

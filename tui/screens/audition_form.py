@@ -22,7 +22,7 @@ from stages.audition import MAX_CANDIDATES, expand_grid
 from stages.errors import RemnantError
 from stages.kinds import get_kind
 
-from .add_stage import FormError
+from .form import FormError
 
 KEYS = ("kind", "shrinkage", "features", "params")
 #: ready-made candidate sets: name -> TOML text (simplest first, for the one-standard-error pick)

@@ -9,16 +9,15 @@ from __future__ import annotations
 from typing import Any
 
 from textual.app import ComposeResult
-from textual.binding import Binding
 from textual.containers import Horizontal, Vertical
-from textual.screen import ModalScreen
 from textual.widgets import Button, Footer, Input, Label, Select
 
 from stages.errors import RemnantError
 from stages.kinds import get_kind
 
 from ..format import value
-from .add_stage import FormError, kinds_for, parse_pairs
+from .add_stage import kinds_for, parse_pairs
+from .form import FormError, FormScreen
 
 #: the grow defaults: a small shrinkage (common practice for boosting) and the engine's stopping rule
 DEFAULTS = {"kind": "tree", "shrinkage": 0.1, "max_stages": 100, "patience": 10}
@@ -26,10 +25,12 @@ EXPLAIN = ("stops once patience stages in a row bring no better validation score
            "the best (u undoes the trim); cancel keeps what was grown")
 
 
-class GrowForm(ModalScreen[dict | None]):
+class GrowForm(FormScreen):
     """Describe the stages to grow."""
 
-    BINDINGS = [Binding("escape", "cancel", "cancel")]
+    ERROR_ID = "grow-error"
+    SUBMIT_ID = "grow-run"
+
 
     def __init__(self, task: str, last: dict[str, Any] | None = None) -> None:
         super().__init__()
@@ -114,28 +115,3 @@ class GrowForm(ModalScreen[dict | None]):
         return {"kind": kind, "shrinkage": shrinkage, "params": params, "params_text": params_text,
                 "max_stages": self._whole("grow-max", "max stages"),
                 "patience": self._whole("grow-patience", "patience", allow_none=True)}
-
-    def _submit(self) -> None:
-        try:
-            request = self.request()
-        except FormError as err:
-            self.query_one("#grow-error", Label).update(str(err))
-            return
-        self.dismiss(request)
-
-    def on_input_submitted(self, event: Input.Submitted) -> None:
-        """Enter in any field starts the grow."""
-        event.stop()
-        self._submit()
-
-    def on_button_pressed(self, event: Button.Pressed) -> None:
-        """Grow or cancel."""
-        event.stop()
-        if event.button.id == "grow-run":
-            self._submit()
-        else:
-            self.dismiss(None)
-
-    def action_cancel(self) -> None:
-        """Close the form without growing."""
-        self.dismiss(None)
