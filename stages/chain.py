@@ -346,10 +346,12 @@ class Chain:
             self._commit(refits)
             return refits
 
-    def trim(self) -> list[Stage]:
-        """Remove the stages after the best validation score and return them."""
+    def trim(self, row: int | None = None) -> list[Stage]:
+        """Remove the stages after row ``row`` (default: the best validation score) and return them."""
         with self._lock:
-            best = self.best_row()
+            best = self.best_row() if row is None else row
+            if not 0 <= best <= len(self.stages):
+                raise StageSpecError(f"there is no stage {best}; the chain has {len(self.stages)}")
             if best == len(self.stages):
                 return []
             self._remember("trim")

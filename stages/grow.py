@@ -95,7 +95,7 @@ def grow_spec(chain: Chain, spec: StageSpec, *, max_stages: int = 100, patience:
             break
     grown = len(chain) - start
     if trim and stopped != "cancelled":
-        trim_to(chain, best_row)
+        chain.trim(best_row)
     return GrowResult(grown, len(chain) - start, best_row, stopped, tuple(curve))
 
 
@@ -109,22 +109,6 @@ def _check(chain: Chain, spec: StageSpec, max_stages: int, patience: int | None,
     if (patience is not None or trim) and not has_validation:
         raise StageSpecError("growing with patience or trim needs validation rows to judge the stages; "
                              "this chain has none (choose a validation scheme)")
-
-
-def trim_to(chain: Chain, row: int) -> list:
-    """Remove the stages after row ``row`` (undoable, like ``Chain.trim``) and return them."""
-    with chain._lock:
-        if not 0 <= row <= len(chain.stages):
-            raise StageSpecError(f"there is no stage {row}; the chain has {len(chain.stages)}")
-        if row == len(chain.stages):
-            return []
-        chain._remember("trim")
-        removed = chain.stages[row:]
-        chain._restore_streams(removed[0].rng_before)
-        del chain.stages[row:]
-        del chain._scores[row:]
-        chain._relock()
-        return removed
 
 
 def _stage_progress(progress: ProgressFn | None, i: int, n: int) -> ProgressFn | None:
