@@ -75,14 +75,16 @@ class Chain:
         if self.validation.scheme == "time":
             ignore = tuple(c for c in ignore if c != self.validation.column)
         self.prepared: Prepared = prepare(frame, target, ignore=ignore, features=features, task=task,
-                                          positive=positive, source=source)
+                                          positive=positive, source=source, encode=False)
         self.schema = self.prepared.schema
         self.loss: Loss = get_loss(loss or default_loss(self.schema.task), self.schema.task)
         self.split = self.validation.split(self.prepared.frame, self.prepared.y, self.schema.task)
         self.layout = build_layout(self.split)
-        self.matrix = _permute_rows(self.prepared.matrix, self.layout.order)
+        # the one copy of the features, its rows gathered into chain order as it is filled
+        self.matrix = self.prepared.encode(self.layout.order)
         self.y = self.prepared.y[self.layout.order]
-        self.prepared.matrix = None  # keep one copy of the features: the chain-ordered one
+        # the matrix holds what the stages need; keeping the frame's rows too would double the data
+        self.prepared.frame = self.prepared.frame.iloc[:0].copy()
         self.seed = int(seed)
         self.threshold = float(threshold)
         self.source = source
@@ -112,6 +114,7 @@ class Chain:
         frame, name = load_frame(path)
         chain = cls(frame, target, validation, loss, source=name, **kwargs)
         chain.data_path = os.fspath(path)
+        del frame  # the chain holds its own matrix; with the frame gone Arrow's pages can go back
         _release_arrow_pages()
         return chain
 
@@ -454,20 +457,6 @@ class Chain:
             if revealed and self.layout.n_test:
                 self.reveal_test()
             self.reveal_count = int(reveals)
-
-
-def _permute_rows(matrix: np.ndarray, order: np.ndarray) -> np.ndarray:
-    """Return ``matrix`` with its rows in ``order``, permuted in place one column at a time.
-
-    The matrix is the chain's own (built by ``prepare``); permuting a column at a time needs
-    one column of extra memory instead of a second copy of the whole matrix.
-    """
-    if np.array_equal(order, np.arange(len(order))):
-        return matrix
-    step = 16  # columns per step: a temporary of rows x 128 bytes, three times faster than one by one
-    for j in range(0, matrix.shape[1], step):
-        matrix[:, j:j + step] = matrix[:, j:j + step][order]
-    return matrix
 
 
 def _release_arrow_pages() -> None:

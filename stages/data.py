@@ -234,14 +234,32 @@ def _multiclass_error(source: str, label: str, n_classes: int) -> DataError:
 
 @dataclass
 class Prepared:
-    """A frame ready for a chain: its schema, feature matrix, target and the rows kept."""
+    """A frame ready for a chain: its schema, feature matrix, target and the rows kept.
+
+    ``frame`` is the rows kept, renumbered from 0; when no row was dropped it shares the given
+    frame's memory instead of copying it. ``features_inferred`` is True when the features are
+    the ones inference picks (so a recipe need not list them).
+    """
 
     schema: Schema
-    matrix: np.ndarray
+    matrix: np.ndarray | None
     y: np.ndarray
     rows: np.ndarray
     frame: pd.DataFrame
     notes: tuple[str, ...]
+    features_inferred: bool = True
+    source: str = "frame"
+
+    def encode(self, order: np.ndarray | None = None) -> np.ndarray:
+        """Return the feature matrix of the kept rows (in ``order``, positions among them, when
+        given), noting values treated as missing; DataError for a column that cannot be encoded."""
+        try:
+            matrix, unusable = self.schema.encode(self.frame, source=self.source, rows=order)
+        except SchemaError as err:
+            raise DataError(str(err)) from None
+        self.notes = self.notes + tuple(_unusable_note(self.frame[name], name, count)
+                                        for name, count in unusable.items())
+        return matrix
 
 
 def prepare(
@@ -253,17 +271,20 @@ def prepare(
     task: str | None = None,
     positive: str | None = None,
     source: str = "frame",
+    encode: bool = True,
 ) -> Prepared:
     """Return the Prepared data for fitting a chain on ``frame`` to predict ``target``.
 
     Rows with a missing target are dropped; features default to every usable column
-    other than the target and ``ignore``. Raises DataError for anything unusable.
+    other than the target and ``ignore``. Raises DataError for anything unusable. With
+    ``encode=False`` the matrix is left for ``Prepared.encode`` (which can gather the rows in
+    another order as it fills the matrix).
     """
     frame = _string_columns(frame, source)
     _require_columns([target], frame, source, what="target")
     notes = [f"ignored column {name!r} is not in the data" for name in ignore if name not in frame.columns]
     rows = _rows_with_target(frame[target], target, source, notes)
-    kept = frame.iloc[rows].reset_index(drop=True)
+    kept = _kept_rows(frame, rows)
     values = kept[target]
     if task is None:
         task = infer_task(values, source=source, target=target)
@@ -275,12 +296,28 @@ def prepare(
         y, classes = _binary_target(values, target, positive, source, notes)
     columns = _feature_columns(kept, target, set(ignore), features, source, notes)
     schema = Schema(tuple(columns), target, task, classes, tuple(notes))
-    try:
-        matrix, unusable = schema.encode(kept, source=source)
-    except SchemaError as err:
-        raise DataError(str(err)) from None
-    notes += [_unusable_note(kept[name], name, count) for name, count in unusable.items()]
-    return Prepared(schema, matrix, y, rows, kept, tuple(notes))
+    inferred = features is None or _inferred_names(kept, target, set(ignore)) == schema.names
+    prepared = Prepared(schema, None, y, rows, kept, tuple(notes), inferred, source)
+    if encode:
+        prepared.matrix = prepared.encode()
+    return prepared
+
+
+def _kept_rows(frame: pd.DataFrame, rows: np.ndarray) -> pd.DataFrame:
+    """Return the rows of ``frame`` at ``rows``, numbered from 0; without copying when every row is kept."""
+    if len(rows) < len(frame):
+        return frame.iloc[rows].reset_index(drop=True)
+    if isinstance(frame.index, pd.RangeIndex) and frame.index.start == 0 and frame.index.step == 1:
+        return frame
+    renumbered = frame.copy(deep=False)  # shares the columns' memory; only the index is new
+    renumbered.index = pd.RangeIndex(len(frame))
+    return renumbered
+
+
+def _inferred_names(kept: pd.DataFrame, target: str, ignore: set[str]) -> list[str]:
+    """Return the names of the columns inference would pick as features."""
+    return [name for name in kept.columns if name != target and name not in ignore
+            and infer_role(kept[name])[0] not in (EXCLUDED, DATETIME)]
 
 
 def _unusable_note(values: pd.Series, name: str, count: int) -> str:

@@ -366,19 +366,9 @@ def recipe_of_chain(chain: Chain) -> Recipe:
     return Recipe(
         data_path=None if path is None else Path(path), target=schema.target, validation=chain.validation,
         stages=tuple((spec, n) for spec, n in folded), ignore=tuple(c for c in chain.ignore if c not in used),
-        features=None if _features_inferred(chain) else tuple(schema.names), task=schema.task,
+        features=None if chain.prepared.features_inferred else tuple(schema.names), task=schema.task,
         positive=schema.positive_class, loss=chain.loss.name, seed=chain.seed, threshold=chain.threshold,
     )
-
-
-def _features_inferred(chain: Chain) -> bool:
-    """Return True when the chain's features are what inference picks (so the recipe need not list them)."""
-    from .data import EXCLUDED, infer_role
-    from .schema import DATETIME
-
-    frame, skip = chain.prepared.frame, {chain.schema.target, *chain.ignore}
-    inferred = [c for c in frame.columns if c not in skip and infer_role(frame[c])[0] not in (EXCLUDED, DATETIME)]
-    return inferred == chain.schema.names
 
 
 def chain_to_recipe(chain: Chain, base_dir: str | os.PathLike | None = None) -> str:

@@ -87,9 +87,12 @@ class Schema:
         """Return the column infos at ``indices``."""
         return tuple(self.columns[i] for i in indices)
 
-    def encode(self, frame: pd.DataFrame, *, source: str = "data",
-               order: str = "C") -> tuple[np.ndarray, dict[str, int]]:
+    def encode(self, frame: pd.DataFrame, *, source: str = "data", order: str = "C",
+               rows: np.ndarray | None = None) -> tuple[np.ndarray, dict[str, int]]:
         """Return the float64 feature matrix of ``frame`` and the count of unseen levels per column.
+
+        With ``rows`` (C order only), row i of the matrix is the frame's row at position
+        ``rows[i]``: the rows are gathered while the matrix is filled, with no second copy.
 
         ``order`` is the matrix's memory layout: "C" (row-major, what the chain gathers rows
         from) or "F" (column-major, as ``DataFrame.to_numpy`` gives; quicker to build, and for a
@@ -100,11 +103,14 @@ class Schema:
         missing = [c.name for c in self.columns if c.name not in frame.columns]
         if missing:
             raise SchemaError(f"{source}: column {missing[0]!r} is missing (the chain was fit with it)")
+        if rows is not None and order != "C":
+            raise ValueError("rows can only be gathered into a row-major (C) matrix")
         if order == "F":
             ready = self._plain_matrix(frame)
             if ready is not None:
                 return ready, {}
-        matrix = np.empty((len(frame), len(self.columns)), dtype=np.float64, order=order)
+        n_rows = len(frame) if rows is None else len(rows)
+        matrix = np.empty((n_rows, len(self.columns)), dtype=np.float64, order=order)
         unseen: dict[str, int] = {}
         plain: list[tuple[int, np.ndarray]] = []
         for j, col in enumerate(self.columns):
@@ -116,10 +122,11 @@ class Schema:
             if ready is not None:  # a column-major matrix takes whole columns quickly
                 matrix[:, j] = ready
                 continue
-            matrix[:, j], count = encode_column(values, col, source=source)
+            encoded, count = encode_column(values, col, source=source)
+            matrix[:, j] = encoded if rows is None else encoded[rows]
             if count:
                 unseen[col.name] = count
-        _fill_by_row_blocks(matrix, plain)
+        _fill_by_row_blocks(matrix, plain, rows)
         return matrix, unseen
 
     def _plain_matrix(self, frame: pd.DataFrame) -> np.ndarray | None:
@@ -168,15 +175,18 @@ def plain_numbers(values: pd.Series, col: ColumnInfo) -> np.ndarray | None:
 _BLOCK_BYTES = 4 * 1024 * 1024
 
 
-def _fill_by_row_blocks(matrix: np.ndarray, columns: list[tuple[int, np.ndarray]]) -> None:
-    """Copy each (position, values) column into ``matrix``, one block of rows at a time."""
+def _fill_by_row_blocks(matrix: np.ndarray, columns: list[tuple[int, np.ndarray]],
+                        rows: np.ndarray | None = None) -> None:
+    """Copy each (position, values) column into ``matrix``, one block of rows at a time
+    (the values at ``rows``, in that order, when given)."""
     if not columns:
         return
     step = max(256, _BLOCK_BYTES // (8 * matrix.shape[1]))
     for start in range(0, matrix.shape[0], step):
         block = matrix[start:start + step]
+        picked = slice(start, start + step) if rows is None else rows[start:start + step]
         for j, values in columns:
-            block[:, j] = values[start:start + step]
+            block[:, j] = values[picked]
 
 
 def encode_column(values: pd.Series, col: ColumnInfo, *, source: str = "data") -> tuple[np.ndarray, int]:

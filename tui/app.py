@@ -101,6 +101,7 @@ class RemnantApp(FitRunner, App):
                        session_error: str = "") -> None:
         """Show the workbench over ``chain`` in place of the current screen, ``summary`` in its status line
         (and ``session_error``, why the session was not saved, once it is up)."""
+        self.start["frame"] = None  # the chain holds the data now; the frame read for setup would be a second copy
         screen = WorkbenchScreen(chain, view, cache=cache, summary=summary, session_error=session_error,
                                  timings=self.timings)
         if len(self.screen_stack) > 1:

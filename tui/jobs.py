@@ -76,8 +76,13 @@ def score_change(before: ChainView | None, after: ChainView) -> str:
 def build_chain(owner: MessagePump, choices: SetupChoices, cache: ImportanceCache) -> FitJob:
     """Return the job that builds a chain from the setup screen's choices."""
 
+    # a finished worker outlives its job (Textual keeps it in the worker thread's context), so
+    # the job hands the choices, and the frame in them, over instead of holding them
+    held = [choices]
+
     def run(ctx: JobContext) -> ChainReady:
         ctx.progress(0.0, "preparing the data")
+        choices = held.pop()
         chain = stages.Chain(choices.frame, choices.target, choices.validation, choices.loss, seed=choices.seed,
                              ignore=choices.ignore, source=choices.source)
         if choices.data_path:

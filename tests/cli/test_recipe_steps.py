@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import numpy as np
+import pandas as pd
 import pytest
 from cli_support import REGRESSION_RECIPE
 
@@ -55,7 +56,7 @@ def test_an_audition_keeps_the_best_candidate_at_its_place_in_the_chain(work):
     chain = fit_recipe(recipe)
     # by hand: the first stage entry, the audition, then the remaining entries
     plain = parse_recipe(REGRESSION_RECIPE, work)
-    hand = stages.Chain(chain.prepared.frame, plain.target, plain.validation, plain.loss, seed=plain.seed,
+    hand = stages.Chain(pd.read_csv(work / "diabetes.csv"), plain.target, plain.validation, plain.loss, seed=plain.seed,
                         ignore=plain.ignore)
     hand.add_specs([plain.stages[0][0]] * plain.stages[0][1])
     candidates = hand.audition(expand_grid({"kind": "tree", "shrinkage": 0.5, "params": {"max_depth": [2, 4]}})

@@ -293,3 +293,21 @@ def test_locked_test_part_is_scored_only_when_revealed(mixed_frame):
     assert chain.describe()["test_reveals"] == 1
     chain.add("tree", 0.3)
     assert "test_rmse" not in chain.table()  # a new chain state locks the test part again
+
+
+@pytest.mark.parametrize("validation", [stages.Holdout(fraction=0.25, seed=1), stages.KFold(folds=3, seed=1)])
+def test_the_chain_keeps_no_reference_to_the_rows_of_the_frame_it_was_built_from(diabetes_frame, validation):
+    # Diabetes data shipped with scikit-learn (Efron et al. 2004). The chain works from its own
+    # matrix; holding the frame's rows as well would keep a second copy of the data alive.
+    import gc
+    import weakref
+
+    frame = diabetes_frame.copy()
+    column = weakref.ref(frame["bmi"].to_numpy().base if frame["bmi"].to_numpy().base is not None
+                         else frame["bmi"].to_numpy())
+    chain = stages.Chain(frame, "target", validation)
+    chain.add("linear")
+    del frame
+    gc.collect()
+    assert column() is None
+    assert list(chain.prepared.frame.columns) == list(diabetes_frame.columns) and len(chain.prepared.frame) == 0

@@ -10,6 +10,8 @@ import pandas as pd
 import pyarrow as pa
 import pyarrow.parquet as pq
 import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
 
 from stages.data import (
     ColumnReport,
@@ -119,6 +121,28 @@ def test_parquet_round_trip_keeps_dtypes(tmp_path):
         assert pd.api.types.is_datetime64_any_dtype(back["t"])
         assert isinstance(back["c"].dtype, pd.CategoricalDtype)
         assert back["s"].tolist()[:2] == ["a", "b"]
+
+
+@pytest.mark.parametrize("index", [None, pd.RangeIndex(5, 9), pd.Index([7, 3, 9, 1], name="order_id"),
+                                   pd.Index(["a", "b", "c", "d"])], ids=["none", "range", "named", "unnamed"])
+def test_parquet_read_a_column_at_a_time_equals_pyarrow_reading_the_whole_table(tmp_path, index):
+    # Reference: pyarrow.parquet.read_table(...).to_pandas(), which rebuilds every dtype and the
+    # index from the pandas metadata; the frame is then numbered from 0, a named index kept as a column.
+    frame = pd.DataFrame({
+        "count": pd.array([1, None, 3, 4], dtype="Int64"),
+        "label": pd.array(["x", None, "z", "w"], dtype="string"),
+        "kind": pd.Categorical(["u", "v", "u", None]),
+        "when": pd.date_range("2024-03-30", periods=4, tz="Europe/Paris"),
+        "flag": pd.array([True, None, False, True], dtype="boolean"),
+        "value": [1.0, 2.5, np.nan, 4.0],
+    })
+    if index is not None:
+        frame.index = index
+    frame.to_parquet(tmp_path / "d.parquet", index=None if index is None else True)
+    expected = pq.read_table(tmp_path / "d.parquet").to_pandas()
+    if not isinstance(expected.index, pd.RangeIndex):
+        expected = expected.reset_index(drop=expected.index.name is None)
+    pd.testing.assert_frame_equal(read_table(tmp_path / "d.parquet"), expected.reset_index(drop=True))
 
 
 def test_parquet_with_an_unknown_extension_is_recognised(tmp_path):
@@ -367,6 +391,21 @@ def test_prepare_drops_rows_whose_target_is_missing_and_says_how_many():
     assert list(prepared.frame.index) == [0, 1, 2]
 
 
+def test_prepare_shares_the_frame_when_every_row_is_kept_and_leaves_the_frame_as_it_was():
+    frame = deliveries().dropna()
+    before = frame.copy()
+    prepared = prepare(frame, "minutes_late")
+    assert np.shares_memory(prepared.frame["distance"].to_numpy(), frame["distance"].to_numpy())
+    assert list(prepared.frame.index) == [0, 1, 2, 3]  # renumbered from 0 ...
+    pd.testing.assert_frame_equal(frame, before)  # ... without touching the user's frame (index 0, 2, 4, 5)
+
+
+def test_prepare_records_whether_the_features_are_the_inferred_ones():
+    assert prepare(deliveries(), "minutes_late").features_inferred
+    assert prepare(deliveries(), "minutes_late", features=["distance", "zone", "express"]).features_inferred
+    assert not prepare(deliveries(), "minutes_late", features=["distance"]).features_inferred
+
+
 def test_prepare_builds_the_schema_and_float_matrix():
     prepared = prepare(deliveries(), "minutes_late")
     schema = prepared.schema
@@ -376,6 +415,28 @@ def test_prepare_builds_the_schema_and_float_matrix():
     assert prepared.matrix.dtype == np.float64 and prepared.matrix.shape == (4, 3)
     assert prepared.matrix[:, 1].tolist() == [0.0, 0.0, 1.0, 0.0]
     assert prepared.matrix[:, 2].tolist() == [1.0, 0.0, 0.0, 1.0]
+
+
+@settings(max_examples=40, deadline=None)
+@given(st.integers(min_value=2, max_value=300), st.integers(min_value=0, max_value=2**31 - 1))
+def test_encoding_rows_in_an_order_equals_encoding_then_reordering(n_rows, seed):
+    # Gathering rows while the matrix is filled must give exactly numpy's row indexing of the
+    # matrix encoded in frame order (numeric, text and boolean columns, some values missing or infinite).
+    rng = np.random.default_rng(seed)
+    numbers = rng.normal(size=n_rows)
+    numbers[rng.random(n_rows) < 0.1] = np.nan
+    numbers[rng.random(n_rows) < 0.05] = np.inf
+    frame = pd.DataFrame({
+        "distance": numbers,
+        "count": rng.integers(0, 9, n_rows),
+        "zone": rng.choice(["north", "south", "east", None], n_rows),
+        "express": rng.choice(["yes", "no"], n_rows),
+        "minutes_late": rng.normal(size=n_rows),
+    })
+    prepared = prepare(frame, "minutes_late", encode=False)
+    order = rng.permutation(n_rows)
+    whole, _ = prepared.schema.encode(prepared.frame)
+    np.testing.assert_array_equal(prepared.encode(order), whole[order])
 
 
 def test_prepare_needs_at_least_two_rows_with_a_target():

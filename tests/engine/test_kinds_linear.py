@@ -175,6 +175,21 @@ def test_linear_on_diabetes_equals_least_squares(diabetes):
     assert round(r2_score(y, output), 4) == 0.5177
 
 
+def test_linear_folded_over_many_blocks_of_rows_equals_least_squares(diabetes, monkeypatch):
+    # Blocks of 37 rows fold the 442 diabetes rows into R twelve times over; the solution must
+    # not depend on the block size. References: scikit-learn's LinearRegression, numpy.linalg.lstsq.
+    from stages.kinds import linear
+
+    X, y = diabetes
+    whole = fit(LINEAR, make_request(X, numeric_columns(10), y=y)).predict(X)
+    monkeypatch.setattr(linear, "BLOCK_ROWS", 37)
+    output = fit(LINEAR, make_request(X, numeric_columns(10), y=y)).predict(X)
+    np.testing.assert_allclose(output, LinearRegression().fit(X, y).predict(X), rtol=0, atol=1e-8)
+    A = np.c_[X, np.ones(len(y))]
+    np.testing.assert_allclose(output, A @ np.linalg.lstsq(A, y, rcond=None)[0], rtol=0, atol=1e-8)
+    np.testing.assert_allclose(output, whole, rtol=0, atol=1e-9)
+
+
 @pytest.mark.parametrize(("kind", "reference"), [
     (RIDGE, Ridge(alpha=1.0)),
     (LASSO, Lasso(alpha=1.0)),

@@ -6,10 +6,12 @@ from pathlib import Path
 
 import lightgbm as lgb
 import numpy as np
+import pandas as pd
 import pytest
 from sklearn.metrics import mean_squared_error
 
 import stages
+from stages.data import load_frame
 from stages.references import linear_reference
 
 DEMO = Path(__file__).resolve().parents[2] / "demo" / "deliveries.csv"
@@ -20,10 +22,13 @@ def _demo_chain(**validation) -> stages.Chain:
                                   validation=stages.Holdout(**{"fraction": 0.2, "seed": 0, **validation}), seed=0)
 
 
-def _rows_by_hand(chain: stages.Chain) -> tuple[np.ndarray, np.ndarray, list[int]]:
-    """Return the features and target in the chain's row order, encoded afresh from the prepared frame."""
-    matrix, _ = chain.schema.encode(chain.prepared.frame)
-    y = chain.prepared.frame[chain.schema.target].to_numpy(dtype=np.float64)
+def _rows_by_hand(chain: stages.Chain, frame: pd.DataFrame | None = None) -> tuple[np.ndarray, np.ndarray, list[int]]:
+    """Return the features and target in the chain's row order, encoded afresh from ``frame``
+    (the chain's data; the demo file by default)."""
+    frame = load_frame(DEMO)[0] if frame is None else frame
+    frame = frame.iloc[chain.prepared.rows].reset_index(drop=True)
+    matrix, _ = chain.schema.encode(frame)
+    y = frame[chain.schema.target].to_numpy(dtype=np.float64)
     categorical = [i for i, col in enumerate(chain.schema.columns) if col.role == "categorical"]
     return matrix[chain.layout.order], y[chain.layout.order], categorical
 
@@ -83,7 +88,7 @@ def test_kfold_lightgbm_reference_is_out_of_fold_with_early_stopping_per_fold(di
     # fold, early-stopped on that fold, predictions assembled out of fold.
     chain = stages.Chain(diabetes_frame, "target", stages.KFold(folds=4, seed=0), seed=0)
     table = chain.references(lightgbm_params={"num_leaves": 7}).set_index("model")
-    X, y, _ = _rows_by_hand(chain)
+    X, y, _ = _rows_by_hand(chain, diabetes_frame)
     params = {**HAND_PARAMS, "num_leaves": 7}
     out_of_fold = np.empty(chain.layout.n_train)
     best = []
@@ -112,7 +117,7 @@ def test_binary_references_use_logistic_and_lightgbm_binary_objective(cancer_fra
     logistic = stages.Chain(cancer_frame, "target", stages.Holdout(fraction=0.25, seed=0), seed=0)
     logistic.add("logistic")
     assert table.loc["linear alone", "valid_logloss"] == logistic.scores()[-1].valid["logloss"]
-    X, y, _ = _rows_by_hand(chain)
+    X, y, _ = _rows_by_hand(chain, cancer_frame)
     n = chain.layout.n_train
     train = lgb.Dataset(X[:n], label=y[:n])
     booster = lgb.train({**HAND_PARAMS, "objective": "binary"}, train, num_boost_round=200,

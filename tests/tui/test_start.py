@@ -94,3 +94,21 @@ async def test_a_chain_file_opens_read_only_on_its_own(tmp_path):
         assert app.screen is screen  # nothing to go back to
         await pilot.press("q")
     assert app.return_code == 0
+
+
+async def test_once_the_chain_is_built_the_app_no_longer_holds_the_data_it_read(tmp_path):
+    # The chain keeps its own matrix; the frame read for the setup screen would be a second copy
+    # of the data for the whole session if the app, the setup screen or the finished job kept it.
+    import gc
+    import weakref
+
+    from tui_support import setup_app, start_chain
+
+    app = setup_app(diabetes_csv(tmp_path))
+    frame = weakref.ref(app.start["frame"])
+    async with app.run_test(size=(140, 45)) as pilot:
+        await pilot.pause()
+        await start_chain(pilot)
+        assert isinstance(app.screen, WorkbenchScreen)
+        gc.collect()
+        assert frame() is None

@@ -226,7 +226,9 @@ class SetupScreen(Screen):
         self.query_one("#setup-state", Label).update("")
 
     def on_chain_ready(self, event: ChainReady) -> None:
-        """Open the workbench on the new (or resumed) chain."""
+        """Open the workbench on the new (or resumed) chain, letting go of the data read for this form
+        (the chain holds its own copy; this screen is not shown again)."""
+        self.frame = None
         self.app.open_workbench(event.chain, event.view, self.cache, event.summary, event.session_error)
 
     def resume_answered(self, choice: str | None) -> None:
