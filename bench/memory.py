@@ -12,9 +12,6 @@ is the peak resident size minus that baseline. Two cases:
   user's own frame (400 MB) counts in the peak too; the user deletes it once the chain is built;
 - ``kept``: the same, but the user keeps the frame for the whole session.
 
-``--proposals`` measures with the changes proposed for ``stages/reading.py`` and
-``stages/chain.py`` tried on a copy, inside the measured process (see bench/README.md).
-
 Target: peak / data size <= 2.5.
 
     python bench/memory.py [--rows N] [--features N] [--stages N]
@@ -60,44 +57,7 @@ def lean_frame(rows: int, features: int, seed: int = 0):
     return pd.DataFrame(columns, copy=False)
 
 
-def read_parquet_by_column(file, name):
-    """Proposed ``stages.reading._read_parquet``: one column at a time, so Arrow never holds the whole table."""
-    import pandas as pd
-    import pyarrow.parquet as pq
-
-    handle = pq.ParquetFile(file)
-    columns = {c: handle.read(columns=[c]).to_pandas(self_destruct=True)[c] for c in handle.schema_arrow.names}
-    return pd.DataFrame(columns, copy=False)
-
-
-def apply_proposals() -> None:
-    """Try the proposed engine changes on a copy, inside this process: Parquet read one column at a
-    time, a chain that keeps no reference to the frame's rows once its matrix is built, and
-    Arrow's freed pages given back after ``Chain.from_file``."""
-    import stages
-    from stages import reading
-
-    reading._read_parquet = read_parquet_by_column
-    original = stages.Chain.__init__
-
-    def lean_init(self, *args, **kwargs):
-        original(self, *args, **kwargs)
-        self.prepared.frame = self.prepared.frame.iloc[:0].copy()  # the columns stay known, the rows go
-
-    stages.Chain.__init__ = lean_init
-    from_file = stages.Chain.from_file.__func__
-
-    def from_file_releasing(cls, *args, **kwargs):
-        import pyarrow as pa
-
-        chain = from_file(cls, *args, **kwargs)
-        pa.default_memory_pool().release_unused()  # the file's frame is gone; Arrow's allocator keeps its pages
-        return chain
-
-    stages.Chain.from_file = classmethod(from_file_releasing)
-
-
-def child(case: str, path: str, rows: int, features: int, n_stages: int, proposals: bool) -> dict[str, float]:
+def child(case: str, path: str, rows: int, features: int, n_stages: int) -> dict[str, float]:
     """Build and fit the chain of ``case`` in this process; return its memory figures in MiB."""
     import lightgbm  # noqa: F401
     import pyarrow.parquet  # noqa: F401
@@ -108,8 +68,6 @@ def child(case: str, path: str, rows: int, features: int, n_stages: int, proposa
     from stages.kinds import kind_names
 
     kind_names()  # imports every built-in kind
-    if proposals:
-        apply_proposals()
     base = peak_bytes()
     if base > resident_bytes() + 64 * MiB:
         raise SystemExit("the baseline peak is above the resident size: start this from a small process")
@@ -132,7 +90,6 @@ def run_case(case: str, path: str, args) -> dict[str, float]:
     """Return the figures of ``case`` measured in a fresh Python process."""
     command = [sys.executable, __file__, "--child", case, "--path", path, "--rows", str(args.rows),
                "--features", str(args.features), "--stages", str(args.stages)]
-    command += ["--proposals"] if args.proposals else []
     done = subprocess.run(command, capture_output=True, text=True, check=False)
     if done.returncode != 0:
         raise SystemExit(f"memory case {case!r} failed:\n{done.stderr}")
@@ -146,15 +103,13 @@ def main() -> None:
     parse.add_argument("--stages", type=int, default=20)
     parse.add_argument("--child", choices=("write", "file", "frame", "kept"), help="(internal) run one case")
     parse.add_argument("--path", default="", help="(internal) the Parquet file")
-    parse.add_argument("--proposals", action="store_true",
-                       help="measure with the proposed changes to reading and to the chain (see bench/README.md)")
     args = parse.parse_args()
     if args.child == "write":
         common.make_regression_frame(args.rows, args.features).to_parquet(args.path, index=False)
         print("{}")
         return
     if args.child:
-        print(json.dumps(child(args.child, args.path, args.rows, args.features, args.stages, args.proposals)))
+        print(json.dumps(child(args.child, args.path, args.rows, args.features, args.stages)))
         return
     data_mib = args.rows * args.features * 8 / MiB
     with tempfile.TemporaryDirectory() as folder:
@@ -172,7 +127,7 @@ def main() -> None:
                      f"{got['peak'] / data_mib:.2f} (<= 2.5)"))
         rows.append(("  of which: building the chain / held after the fits", f"{got['peak_built']:.0f} MiB",
                      f"{got['held']:.0f} MiB", f"baseline {got['baseline']:.0f} MiB"))
-    common.print_table("memory, with the proposed changes" if args.proposals else "memory", rows)
+    common.print_table("memory", rows)
 
 
 if __name__ == "__main__":

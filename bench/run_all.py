@@ -33,6 +33,8 @@ SUITE: dict[str, tuple[list[str], list[str]]] = {
     "first_screen": ([], ["--repeats", "1"]),
     "hist_tree": ([], ["--rows", "200000"]),
     "big": ([], ["--rows", "500000"]),
+    "audition": ([], ["--rows", "20000", "--repeats", "1"]),
+    "ui_latency": ([], ["--rows", "100000", "--rounds", "50"]),
 }
 
 
