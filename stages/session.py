@@ -24,6 +24,7 @@ import hashlib
 import json
 import os
 import re
+import threading
 import weakref
 import zipfile
 from datetime import UTC, datetime
@@ -36,6 +37,7 @@ from . import store
 from .chain import Chain
 from .errors import ChainFileError, RemnantError
 from .fitting import Stage
+from .kinds.base import ProgressFn
 from .reading import load_frame
 from .session_parts import (
     data_reference,
@@ -240,14 +242,16 @@ def _write_archive(handle: IO[bytes], manifest: dict[str, Any], members: dict[st
 
 # ----------------------------------------------------------------------------- loading
 def load_session(path: str | os.PathLike, data: str | os.PathLike | pd.DataFrame | None = None, *,
-                 allow_changed: bool = False) -> Chain:
+                 allow_changed: bool = False, cancel: threading.Event | None = None,
+                 progress: ProgressFn | None = None) -> Chain:
     """Return the chain a session file holds, its stages restored without refitting.
 
     ``data`` (a file or a DataFrame) replaces the session's data file. Raise SessionDataChanged
     when the data differs from what the session was fit on, unless ``allow_changed``: then the
     chain is rebuilt on the data as it is now and its stages are refit from their specs (the
-    removal stack is not kept). Raise SessionError for a damaged file, DataError when the data
-    file cannot be read.
+    removal stack is not kept), reporting to ``progress`` and stopping with FitCancelled when
+    ``cancel`` is set. Raise SessionError for a damaged file, DataError when the data file
+    cannot be read.
     """
     name = os.fspath(path)
     with _open(name) as archive:
@@ -257,7 +261,7 @@ def load_session(path: str | os.PathLike, data: str | os.PathLike | pd.DataFrame
         if not _same_data(chain, manifest):
             if not allow_changed:
                 raise SessionDataChanged(name, ["its rows, columns or split differ from the session's"])
-            return _refit(chain, manifest, name)
+            return _refit(chain, manifest, name, cancel, progress)
         with _damaged(name):
             restore_stages(chain, manifest, lambda member, sha: _member(archive, member, sha, name), name)
     return chain
@@ -308,13 +312,14 @@ def _same_data(chain: Chain, manifest: dict[str, Any]) -> bool:
     return False
 
 
-def _refit(chain: Chain, manifest: dict[str, Any], name: str) -> Chain:
+def _refit(chain: Chain, manifest: dict[str, Any], name: str, cancel: threading.Event | None,
+           progress: ProgressFn | None) -> Chain:
     from .spec import StageSpec
 
     with _damaged(name):
         specs = {entry["id"]: StageSpec.from_dict(entry["spec"]) for entry in manifest["stages"]}
         current = [specs[i] for i in manifest["current"]]
-    chain.add_specs(current)
+    chain.add_specs(current, cancel=cancel, progress=progress)
     chain.prepared.notes = (*chain.prepared.notes,
                             f"the data changed since the session was saved: its {len(current)} stages were refit")
     return chain

@@ -93,7 +93,7 @@ def resume_job(owner: MessagePump, offer: ResumeOffer, cache: ImportanceCache) -
 
     def run(ctx: JobContext) -> ChainReady:
         ctx.progress(0.0, "refitting on the changed data" if refit else "reading the session")
-        chain = sessions.load_session(offer.path, allow_changed=refit)
+        chain = sessions.load_session(offer.path, allow_changed=refit, cancel=ctx.cancel, progress=ctx.progress)
         view = view_of_chain(chain, cache)
         n = len(chain)
         if refit:
@@ -104,5 +104,6 @@ def resume_job(owner: MessagePump, offer: ResumeOffer, cache: ImportanceCache) -
                                        f"{n} stage{'s' if n != 1 else ''}{undo}")
 
     label = "resuming on the changed data" if refit else "resuming the session"
-    return FitJob(label, run, owner, cancellable=False,
+    # refitting every stage can take as long as fitting them did: it can be cancelled like a fit
+    return FitJob(label, run, owner, cancellable=refit,
                   failure_note="nothing was resumed; the session file is untouched")

@@ -248,3 +248,26 @@ def test_allow_changed_refits_the_stages_on_the_new_data(data_file):
     assert len(restored.prepared.y) == 190
     assert_identical(refit_state(fresh)["stages"], refit_state(restored)["stages"])
     assert any("refit" in note for note in restored.notes) and not restored.can_undo()
+
+
+def test_refitting_on_changed_data_reports_progress_and_can_be_cancelled(data_file):
+    import threading
+
+    from stages.errors import FitCancelled
+
+    specs = CHEAP_KINDS[:3]
+    path = save_session(build(data_file, kinds=specs))
+    before = path.read_bytes()
+    pd.read_csv(data_file).iloc[:190].to_csv(data_file, index=False)
+    seen: list[float] = []
+    load_session(path, allow_changed=True, progress=lambda fraction, detail="": seen.append(fraction))
+    assert seen and max(seen) == pytest.approx(1.0) and seen == sorted(seen)
+    cancel = threading.Event()
+
+    def stop_after_the_first_stage(fraction: float, detail: str = "") -> None:
+        if fraction >= 1 / len(specs):
+            cancel.set()
+
+    with pytest.raises(FitCancelled):
+        load_session(path, allow_changed=True, cancel=cancel, progress=stop_after_the_first_stage)
+    assert path.read_bytes() == before  # the session file is untouched
