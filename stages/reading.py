@@ -20,6 +20,7 @@ import warnings
 from collections import Counter
 from collections.abc import Sequence
 from pathlib import Path
+from typing import Any
 
 import pandas as pd
 
@@ -118,7 +119,7 @@ def _read_parquet(file: Path, name: str) -> pd.DataFrame:
     return frame
 
 
-def _parquet_frame(handle, schema) -> pd.DataFrame:
+def _parquet_frame(handle: Any, schema: Any) -> pd.DataFrame:
     """Return the file's table as a DataFrame, read one column at a time when no index is stored.
 
     Reading the whole table holds Arrow's decoded copy beside the frame (about 2.8 x the data at
