@@ -1,6 +1,6 @@
 """Run every benchmark of the suite, each in its own process, and print a Markdown table of all figures.
 
-    python bench/run_all.py            # the full sizes of the issue (about half an hour on 2 cores)
+    python bench/run_all.py            # the full sizes (about 17 minutes on 2 cores)
     python bench/run_all.py --quick    # small sizes: under 5 minutes on 2 cores
     python bench/run_all.py --only predict memory
 """
