@@ -431,7 +431,8 @@ class Chain:
         return grow(self, kind, shrinkage, **options)
 
     def references(self, **options: Any) -> pd.DataFrame:
-        """Return the reference models' scores on this chain's split (see stages.references)."""
+        """Return the reference models' scores on this chain's split (see stages.references; the
+        options include ``cancel`` and ``progress``)."""
         from .references import reference_scores
 
         return reference_scores(self, **options)

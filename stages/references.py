@@ -19,6 +19,7 @@ import pandas as pd
 from . import scoring
 from .errors import FitCancelled, StageFitError
 from .fitting import FitContext, fit_stage
+from .kinds.base import ProgressFn
 from .spec import StageSpec
 from .table import fold_spread
 
@@ -30,14 +31,19 @@ DEFAULT_ROUNDS = 100
 
 
 def reference_scores(chain: Chain, *, lightgbm_params: dict[str, Any] | None = None, rounds: int = 1000,
-                     early_stopping_rounds: int = 50, cancel: threading.Event | None = None) -> pd.DataFrame:
+                     early_stopping_rounds: int = 50, cancel: threading.Event | None = None,
+                     progress: ProgressFn | None = None) -> pd.DataFrame:
     """Return one row per reference model: model, train / valid (and, once revealed, test) metric,
     fold spread (k-fold), best iteration and seconds.
 
     ``lightgbm_params`` overlays LightGBM's defaults (native names); ``rounds`` caps the
     boosting rounds and ``early_stopping_rounds`` is the patience on the validation part.
+    ``progress(fraction, detail)`` hears of every LightGBM round; ``cancel`` stops between rounds.
     """
-    rows = [linear_reference(chain), lightgbm_reference(chain, lightgbm_params, rounds, early_stopping_rounds, cancel)]
+    if progress is not None:
+        progress(0.0, "linear alone")
+    linear = linear_reference(chain)
+    rows = [linear, lightgbm_reference(chain, lightgbm_params, rounds, early_stopping_rounds, cancel, progress)]
     frame = pd.DataFrame(rows)
     if not chain.layout.is_kfold:
         frame = frame.drop(columns="fold_spread")
@@ -81,12 +87,14 @@ def lightgbm_defaults(chain: Chain, user: dict[str, Any] | None = None) -> dict[
 
 
 def lightgbm_reference(chain: Chain, user: dict[str, Any] | None = None, rounds: int = 1000,
-                       early_stopping_rounds: int = 50, cancel: threading.Event | None = None) -> dict[str, Any]:
+                       early_stopping_rounds: int = 50, cancel: threading.Event | None = None,
+                       progress: ProgressFn | None = None) -> dict[str, Any]:
     """Return the row of LightGBM with default parameters, early-stopped on the validation part."""
     params = lightgbm_defaults(chain, user)
     layout = chain.layout
     started = time.perf_counter()
-    fit = _Fitter(chain, params, cancel)
+    fits = len(layout.tracks) if layout.is_kfold else 1
+    fit = _Fitter(chain, params, cancel, progress, fits)
     if layout.is_kfold:
         outputs: list[np.ndarray] = [np.empty(0)]
         best = []
@@ -109,9 +117,11 @@ def lightgbm_reference(chain: Chain, user: dict[str, Any] | None = None, rounds:
 class _Fitter:
     """Trains LightGBM boosters on chosen rows of the chain's matrix and predicts raw scores."""
 
-    def __init__(self, chain: Chain, params: dict[str, Any], cancel: threading.Event | None) -> None:
+    def __init__(self, chain: Chain, params: dict[str, Any], cancel: threading.Event | None,
+                 progress: ProgressFn | None = None, fits: int = 1) -> None:
         self.chain, self.params, self.cancel = chain, params, cancel
         self.categorical = [i for i, col in enumerate(chain.schema.columns) if col.is_categorical]
+        self.progress, self.fits, self.done = progress, fits, 0
 
     def __call__(self, rows: Any, rounds: int, stop_rows: Any = None, patience: int = 0) -> Any:
         """Return a booster trained on ``rows``, early-stopped on ``stop_rows`` when given."""
@@ -120,6 +130,8 @@ class _Fitter:
         matrix, y = self.chain.matrix, self.chain.y
         train = lightgbm.Dataset(matrix[rows], label=y[rows], categorical_feature=self.categorical)
         valid_sets, callbacks = [], [self._check_cancel]
+        if self.progress is not None:
+            callbacks.append(self._report)
         if stop_rows is not None:
             valid_sets.append(lightgbm.Dataset(matrix[stop_rows], label=y[stop_rows], reference=train))
             callbacks.append(lightgbm.early_stopping(patience, first_metric_only=True, verbose=False))
@@ -128,10 +140,18 @@ class _Fitter:
                                   callbacks=callbacks)
         except lightgbm.basic.LightGBMError as exc:
             raise StageFitError(f"LightGBM reference: {exc}") from None
+        finally:
+            self.done += 1
 
     def _check_cancel(self, env: Any) -> None:
         if self.cancel is not None and self.cancel.is_set():
             raise FitCancelled("reference fit cancelled")
+
+    def _report(self, env: Any) -> None:
+        # early stopping may end a fit before its last round: the bar moves by rounds of the cap
+        within = (env.iteration + 1) / env.end_iteration
+        fit = f"fit {self.done + 1} of {self.fits}, " if self.fits > 1 else ""
+        self.progress((self.done + within) / self.fits, f"LightGBM reference: {fit}round {env.iteration + 1}")
 
     def predict(self, booster: Any, rows: Any) -> np.ndarray:
         """Return the booster's raw score at its best iteration on ``rows`` of the chain's matrix."""

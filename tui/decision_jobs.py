@@ -102,7 +102,7 @@ def references(owner: MessagePump, chain: Any) -> FitJob:
 
     def run(ctx: JobContext) -> ReferencesFitted:
         ctx.progress(0.0, "linear alone, then LightGBM with early stopping")
-        return ReferencesFitted(chain.references(cancel=ctx.cancel), chain.test_revealed)
+        return ReferencesFitted(chain.references(cancel=ctx.cancel, progress=ctx.progress), chain.test_revealed)
 
     return FitJob("fitting the reference models", run, owner, failure_note="the chain is as it was")
 

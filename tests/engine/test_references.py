@@ -127,3 +127,21 @@ def test_binary_references_use_logistic_and_lightgbm_binary_objective(cancer_fra
     # log loss by hand (reference: its definition, as sklearn.metrics.log_loss computes it)
     expected = -np.mean(y[n:] * np.log(p) + (1 - y[n:]) * np.log(1 - p))
     assert table.loc["LightGBM, default parameters", "valid_logloss"] == pytest.approx(expected, rel=1e-9)
+
+
+def test_the_references_report_each_lightgbm_round_and_stop_when_cancelled(diabetes_frame):
+    # Diabetes data shipped with scikit-learn (Efron et al. 2004); k-fold: one LightGBM fit per
+    # fold track and one on every fitting row, each reported round by round.
+    import threading
+
+    from stages.errors import FitCancelled
+
+    chain = stages.Chain(diabetes_frame, "target", stages.KFold(folds=3, seed=0), seed=0)
+    heard: list[tuple[float, str]] = []
+    chain.references(rounds=40, progress=lambda fraction, detail="": heard.append((fraction, detail)))
+    fractions = [f for f, _ in heard]
+    assert fractions == sorted(fractions) and fractions[0] >= 0.0 and fractions[-1] <= 1.0
+    assert any("fit 4 of 4" in detail for _, detail in heard)
+    cancel = threading.Event()
+    with pytest.raises(FitCancelled):
+        chain.references(rounds=40, cancel=cancel, progress=lambda fraction, detail="": cancel.set())
