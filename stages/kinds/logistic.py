@@ -65,7 +65,50 @@ def offset_logistic_fit(
     # the default relative-decrease test stops a few 1e-6 short on correlated features
     options = {"maxiter": max_iter, "gtol": tol, "ftol": 0.0, "maxls": 50}
     found = minimize(objective, np.zeros(width + 1), jac=True, method="L-BFGS-B", options=options)
-    return found.x[:width], float(found.x[width])
+    if width > NEWTON_WIDTH:
+        return found.x[:width], float(found.x[width])
+    return newton_polish(matrix, y, offset, C, found.x)
+
+
+#: designs up to this many columns get Newton steps after the quasi-Newton search
+NEWTON_WIDTH = 2_000
+#: rows of the design weighted at once when the Hessian is built
+_BLOCK_ROWS = 65_536
+
+
+def newton_polish(matrix: np.ndarray, y: np.ndarray, offset: np.ndarray, C: float, theta: np.ndarray,
+                  steps: int = 4) -> tuple[np.ndarray, float]:
+    """Return (w, b) after up to ``steps`` Newton steps from ``theta`` (w then b), each kept only when
+    it lowers the gradient's norm.
+
+    The quasi-Newton search stops where float64 can no longer see the sum of losses fall, about
+    1e-7 from the optimum on a few thousand rows; Newton steps work on the gradient and reach the
+    optimum to rounding. A direction the loss does not see (one-hot columns that sum to the
+    intercept, when there is no penalty) gets no step: it is cut by the least-squares solve.
+    """
+    width = matrix.shape[1]
+    weight, ridge = (1.0, 0.0) if np.isinf(C) else (C, 1.0)
+
+    def gradient(theta: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        p = expit(offset + matrix @ theta[:width] + theta[width])
+        slope = weight * (p - y)
+        return np.r_[matrix.T @ slope + ridge * theta[:width], slope.sum()], p
+
+    g, p = gradient(theta)
+    for _ in range(steps):
+        curvature = weight * p * (1.0 - p)
+        hessian = np.zeros((width + 1, width + 1))
+        for start in range(0, len(y), _BLOCK_ROWS):
+            block = np.c_[matrix[start:start + _BLOCK_ROWS], np.ones(len(y[start:start + _BLOCK_ROWS]))]
+            hessian += (block * curvature[start:start + _BLOCK_ROWS, None]).T @ block
+        hessian[np.arange(width), np.arange(width)] += ridge
+        step = np.linalg.lstsq(hessian, g, rcond=1e-10)[0]
+        trial = theta - step
+        g_trial, p_trial = gradient(trial)
+        if not np.linalg.norm(g_trial) < np.linalg.norm(g):
+            break
+        theta, g, p = trial, g_trial, p_trial
+    return theta[:width], float(theta[width])
 
 
 class LogisticKind(StageKind):
