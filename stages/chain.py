@@ -437,6 +437,56 @@ class Chain:
 
         return reference_scores(self, **options)
 
+    # ----- understanding the chain: stages.understand ---------------------------------------
+    def residual_scan(self, upto: int | None = None, part: str = "valid", **options: Any) -> pd.DataFrame:
+        """Return one row per feature, best first: the residual signal left in it (``score``, scored on
+        rows the scan did not fit on), its noise band and its binned residuals (see stages.understand.scan)."""
+        from .understand import residual_scan
+
+        return residual_scan(self, upto, part, **options)
+
+    def binned_residuals(self, feature: str, upto: int | None = None, part: str = "valid",
+                         **options: Any) -> pd.DataFrame:
+        """Return the residuals of ``part`` in the scan's bins of ``feature``: one row per bin."""
+        from .understand import binned_residuals
+
+        return binned_residuals(self, feature, upto, part, **options)
+
+    def partial_dependence(self, feature: str | list[str], upto: int | None = None, stage: int | None = None,
+                           grid: Any = None, part: str = "train", sample: int | None = None,
+                           **options: Any) -> pd.DataFrame:
+        """Return the average prediction (``average``) with ``feature`` set to each grid value, and the
+        spread of the individual curves (see stages.understand.dependence)."""
+        from .understand import partial_dependence
+
+        return partial_dependence(self, feature, upto, stage, grid, part, sample, **options)
+
+    def coefficients(self, stage: int, **options: Any) -> pd.DataFrame:
+        """Return one row per term of a linear, ridge, lasso or logistic stage on the features' own
+        scale, with standard errors and 95 % intervals for unpenalised ones (see stages.understand.coefficients)."""
+        from .understand import coefficients
+
+        return coefficients(self, stage, **options)
+
+    def curves(self, stage: int, **options: Any) -> pd.DataFrame:
+        """Return a spline stage's fitted curve of each feature on a grid (see stages.understand.curves)."""
+        from .understand import spline_curves
+
+        return spline_curves(self, stage, **options)
+
+    def largest_residuals(self, n: int = 20, part: str = "valid", upto: int | None = None,
+                          **options: Any) -> pd.DataFrame:
+        """Return the ``n`` rows of ``part`` with the largest absolute residual, with the residual after each stage."""
+        from .understand import largest_residuals
+
+        return largest_residuals(self, n, part, upto, **options)
+
+    def calibration(self, part: str = "valid", bins: int = 10, **options: Any) -> pd.DataFrame:
+        """Return predicted probability in bins against the observed rate, with counts (binary chains)."""
+        from .understand import calibration
+
+        return calibration(self, part, bins, **options)
+
     def _restore(self, stages: list[Stage], removals: list[tuple[str, list[Stage]]], streams: tuple[Any, ...],
                  *, revealed: bool = False, reveals: int = 0) -> None:
         """Put back stages fitted earlier (a restored session): rescore them, set the removal stack,

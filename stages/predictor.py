@@ -62,6 +62,20 @@ class FittedChain:
             raw += stage.scale * np.asarray(stage.learner.predict(X), dtype=np.float64)
         return raw
 
+    def raw_after_each_stage(self, matrix: np.ndarray) -> np.ndarray:
+        """Return the raw output after the start value and after each stage on a schema matrix, as
+        columns of an (n, 1 + number of stages) array (the last column is ``raw_from_matrix``'s)."""
+        out = np.empty((matrix.shape[0], len(self.stages) + 1), dtype=np.float64)
+        raw = np.full(matrix.shape[0], self.start, dtype=np.float64)
+        out[:, 0] = raw
+        n_all = len(self.schema.columns)
+        for k, stage in enumerate(self.stages, start=1):
+            cols = stage.feature_index
+            X = matrix if cols == tuple(range(n_all)) else matrix[:, list(cols)]
+            raw += stage.scale * np.asarray(stage.learner.predict(X), dtype=np.float64)
+            out[:, k] = raw
+        return out
+
     def encode(self, frame: pd.DataFrame, *, source: str = "data") -> np.ndarray:
         """Return the schema matrix of ``frame`` (column-major, as ``DataFrame.to_numpy`` lays it out),
         warning once with the count of unseen levels."""
@@ -104,6 +118,41 @@ class FittedChain:
         from .estimator import wrap_fitted
 
         return wrap_fitted(self)
+
+    # ----- understanding a loaded chain: stages.understand (rows come from ``frame``) ---------
+    def coefficients(self, stage: int, **options: Any) -> pd.DataFrame:
+        """Return the terms of a linear, ridge, lasso or logistic stage on the features' own scale
+        (without standard errors: a chain file holds no fitting rows)."""
+        from .understand import fitted_coefficients
+
+        return fitted_coefficients(self, stage, **options)
+
+    def curves(self, stage: int, **options: Any) -> pd.DataFrame:
+        """Return a spline stage's fitted curve of each feature on a grid."""
+        from .understand import fitted_curves
+
+        return fitted_curves(self, stage, **options)
+
+    def partial_dependence(self, frame: pd.DataFrame, feature: str | list[str], upto: int | None = None,
+                           stage: int | None = None, grid: Any = None, sample: int | None = None,
+                           **options: Any) -> pd.DataFrame:
+        """Return the partial dependence of ``feature`` over the rows of ``frame``."""
+        from .understand import fitted_partial_dependence
+
+        return fitted_partial_dependence(self, frame, feature, upto, stage, grid, sample, **options)
+
+    def largest_residuals(self, frame: pd.DataFrame, n: int = 20, upto: int | None = None,
+                          **options: Any) -> pd.DataFrame:
+        """Return the ``n`` rows of ``frame`` (which holds the target) with the largest absolute residual."""
+        from .understand import fitted_largest_residuals
+
+        return fitted_largest_residuals(self, frame, n, upto, **options)
+
+    def calibration(self, frame: pd.DataFrame, bins: int = 10, **options: Any) -> pd.DataFrame:
+        """Return predicted probability in bins against the observed rate on ``frame`` (binary chains)."""
+        from .understand import fitted_calibration
+
+        return fitted_calibration(self, frame, bins, **options)
 
 
 def class_label(text: str) -> Any:
