@@ -14,6 +14,14 @@ if TYPE_CHECKING:
 
 #: the second metric shown beside the one the chain is judged by
 SECONDARY = {"regression": "r2", "binary": "auc"}
+#: every validation metric the table shows, in order (the chain's own metric is left out of the extras)
+SHOWN = {"regression": ("rmse", "r2", "mae"), "binary": ("logloss", "auc", "brier", "accuracy_at")}
+
+
+def extra_metrics(task: str, metric: str) -> list[str]:
+    """Return the validation metrics shown after the second one: MAE (or RMSE when the chain is
+    judged by MAE) for regression; Brier score and accuracy at the threshold for binary chains."""
+    return [name for name in SHOWN[task] if name not in (metric, SECONDARY[task])]
 
 
 def fold_spread(values: tuple[float, ...]) -> float:
@@ -43,6 +51,7 @@ def stage_table(chain: Chain) -> pd.DataFrame:
             f"valid_{metric}": s.valid[metric],
             "change": s.valid[metric] - scores[i - 1].valid[metric] if i else np.nan,
             f"valid_{second}": s.valid.get(second, np.nan),
+            **{f"valid_{name}": s.valid.get(name, np.nan) for name in extra_metrics(chain.task, metric)},
             "seconds": stage.fit_seconds if stage else 0.0,
             "overfit": flags[i],
             "best": i == best,

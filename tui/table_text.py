@@ -18,6 +18,8 @@ if TYPE_CHECKING:
     from stages.predictor import FittedChain
 
 SIGNIFICANT = 4
+#: headers shorter than the column names
+HEADERS = {"valid_accuracy_at": "valid acc"}
 FEATURES_WIDTH = 24
 
 
@@ -82,7 +84,7 @@ def _columns(table: pd.DataFrame) -> list[tuple[str, str, str]]:
              ("change", "change", "change")]
     for column in table.columns:
         if column.startswith("valid_") and column != f"valid_{metric}":
-            shown.append((column, column.replace("_", " ", 1), "number"))
+            shown.append((column, HEADERS.get(column, column.replace("_", " ", 1)), "number"))
     if "fold_spread" in table.columns:
         shown.append(("fold_spread", "fold se", "number"))
     if f"test_{metric}" in table.columns:
@@ -150,7 +152,7 @@ def format_csv(table: pd.DataFrame) -> str:
 def fitted_table(fitted: FittedChain) -> pd.DataFrame:
     """Return the stage table of a loaded chain file, from the scores its manifest stored."""
     from stages.scoring import Scores, best_row, overfit_flags
-    from stages.table import SECONDARY, fold_spread
+    from stages.table import SECONDARY, extra_metrics, fold_spread
 
     metric, second = fitted.loss.primary, SECONDARY[fitted.task]
     raw = [fitted.start_scores, *(stage.scores for stage in fitted.stages)]
@@ -168,7 +170,9 @@ def fitted_table(fitted: FittedChain) -> pd.DataFrame:
             "features": _features(stage, n_features),
             f"train_{metric}": _get(s.train, metric), f"valid_{metric}": _get(s.valid, metric),
             "change": _get(s.valid, metric) - _get(scores[i - 1].valid, metric) if i else math.nan,
-            f"valid_{second}": _get(s.valid, second), "seconds": stage.fit_seconds if stage else 0.0,
+            f"valid_{second}": _get(s.valid, second),
+            **{f"valid_{name}": _get(s.valid, name) for name in extra_metrics(fitted.task, metric)},
+            "seconds": stage.fit_seconds if stage else 0.0,
             "overfit": flags[i], "best": i == best,
         }
         if kfold:
@@ -226,3 +230,25 @@ def describe_schema(fitted: Any) -> str:
     lines = ["  ".join((*(c.ljust(w) for c, w in zip(row[:3], widths, strict=False)), row[3].rjust(widths[3])))
              .rstrip() for row in cells]
     return "\n".join(lines) + "\n"
+
+
+def describe_coefficients(fitted: Any) -> str:
+    """Return the coefficients of each linear, ridge, lasso or logistic stage of a loaded chain as
+    aligned text ("" when it has none): one block per stage, one line per term."""
+    from stages.understand.coefficient_table import LINEAR_KINDS
+
+    blocks = []
+    for k, stage in enumerate(fitted.stages, start=1):
+        if stage.kind not in LINEAR_KINDS:
+            continue
+        table = fitted.coefficients(k)
+        scale = "log-odds" if fitted.task == "binary" else f"{fitted.schema.target!r}"
+        lines = [f"stage {k} ({stage.kind}): coefficients, per unit of each feature, in {scale}"]
+        cells = [("term", "coefficient", "against")]
+        for _, row in table.iterrows():
+            cells.append((str(row["term"]), format_number(row["coefficient"]), str(row["reference"])))
+        widths = [max(len(cell[j]) for cell in cells) for j in range(3)]
+        for cell in cells:
+            lines.append(f"{cell[0].ljust(widths[0])}  {cell[1].rjust(widths[1])}  {cell[2]}".rstrip())
+        blocks.append("\n".join(lines) + "\n")
+    return "\n".join(blocks)
