@@ -81,11 +81,17 @@ example:
 _PREDICT = """Predict every row of DATA with a chain file and write CSV: column 'prediction',
 and 'probability' for a binary chain; one row per input row, in input order.
 The data is read in chunks, so files larger than memory can be scored.
+With --each-stage, also 'after_1' .. 'after_N' (the prediction after each stage;
+the probability for a binary chain) and, when DATA has the target column,
+'residual' (target minus prediction; for a binary chain 1 or 0 minus the
+probability).
 
 example:
   remnant predict houses.chain new.parquet --id listing_id --out scores.csv"""
 _SHOW = """Print a chain file's settings, its stage table (the scores stored when it was
-saved) and its schema. With --format csv, only the stage table, as CSV."""
+saved), its schema and the coefficients of its linear stages (linear, ridge,
+lasso, logistic) per unit of each feature. With --format csv, only the stage
+table, as CSV."""
 
 
 def build_parser() -> argparse.ArgumentParser:
@@ -130,6 +136,8 @@ def _add_headless_commands(commands: Any) -> None:
     predict.add_argument("--id", metavar="COL", help="copy this column first into the output")
     predict.add_argument("--chunk-rows", metavar="N", type=_positive, default=DEFAULT_CHUNK_ROWS,
                          help=f"rows read at a time (default {DEFAULT_CHUNK_ROWS:,})")
+    predict.add_argument("--each-stage", action="store_true",
+                         help="also write the prediction after each stage, and the residual when DATA has the target")
     predict.set_defaults(run=run_predict)
     show = commands.add_parser("show", help="print a chain file's stages, scores and schema", description=_SHOW,
                                formatter_class=_RAW)
@@ -344,7 +352,7 @@ def _open_app(**kwargs: Any) -> int:
 def run_show(args: argparse.Namespace) -> int:
     """Print a chain file's settings, stage table and schema; return 0."""
     from stages import store
-    from tui.table_text import describe_chain, describe_schema, fitted_table
+    from tui.table_text import describe_chain, describe_coefficients, describe_schema, fitted_table
 
     fitted = store.load(args.chain)
     table = fitted_table(fitted)
@@ -354,6 +362,9 @@ def run_show(args: argparse.Namespace) -> int:
     sys.stdout.write(describe_chain(args.chain, fitted) + "\n")
     print_table(table, "table")
     sys.stdout.write("\n" + describe_schema(fitted))
+    coefficients = describe_coefficients(fitted)
+    if coefficients:
+        sys.stdout.write("\n" + coefficients)
     return 0
 
 
@@ -365,7 +376,8 @@ def run_predict(args: argparse.Namespace) -> int:
     if args.out is not None:
         check_out(args.out, {"input data file": args.data, "chain file": args.chain})
     fitted = store.load(args.chain)
-    write_predictions(fitted, args.data, args.out, id_column=args.id, chunk_rows=args.chunk_rows)
+    write_predictions(fitted, args.data, args.out, id_column=args.id, chunk_rows=args.chunk_rows,
+                      each_stage=args.each_stage)
     return 0
 
 

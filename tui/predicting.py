@@ -23,6 +23,7 @@ import pandas as pd
 from stages.errors import DataError, SchemaError
 from stages.predictor import FittedChain, UnseenLevelsWarning
 from stages.reading import read_options, source_name
+from stages.understand.rows import encode_target
 
 OUTPUT_COLUMNS = ("prediction", "probability")
 
@@ -79,9 +80,12 @@ def _first_line(err: object) -> str:
 
 
 def predict_chunk(fitted: FittedChain, chunk: pd.DataFrame, *, threshold: float, id_column: str | None,
-                  source: str, offset: int = 0) -> tuple[pd.DataFrame, dict[str, int]]:
+                  source: str, offset: int = 0, each_stage: bool = False) -> tuple[pd.DataFrame, dict[str, int]]:
     """Return the output rows of one chunk (id, prediction, probability) and its unseen levels per column.
 
+    With ``each_stage``, also ``after_1`` .. ``after_N`` (the prediction after each stage, the
+    probability for a binary chain) and, when the chunk holds the target, ``residual`` (target
+    minus the prediction; y - p for binary chains, y being 1 for the positive class).
     ``offset`` is the number of rows before the chunk, so that messages name rows of the whole file.
     """
     if id_column is not None and id_column not in chunk.columns:
@@ -89,11 +93,11 @@ def predict_chunk(fitted: FittedChain, chunk: pd.DataFrame, *, threshold: float,
     try:
         matrix, unseen = fitted.schema.encode(chunk, source=source)
     except SchemaError as err:
-        text = re.sub(r"\brow (\d+)", lambda m: f"row {int(m.group(1)) + offset}", str(err))
-        raise SchemaError(text) from None
+        raise SchemaError(_whole_file_rows(str(err), offset)) from None
     if len(chunk) == 0:  # a header-only file: the columns were checked, there is nothing to predict
         return pd.DataFrame(), unseen
-    raw = fitted.raw_from_matrix(matrix)
+    after = fitted.raw_after_each_stage(matrix) if each_stage else None
+    raw = fitted.raw_from_matrix(matrix) if after is None else after[:, -1]
     out: dict[str, Any] = {}
     if id_column is not None:
         out[id_column] = chunk[id_column].to_numpy()
@@ -104,27 +108,58 @@ def predict_chunk(fitted: FittedChain, chunk: pd.DataFrame, *, threshold: float,
         out["probability"] = probability
     else:
         out["prediction"] = raw
+    if after is not None:
+        out.update(_each_stage(fitted, chunk, after, source, offset))
     return pd.DataFrame(out), unseen
 
 
+def _each_stage(fitted: FittedChain, chunk: pd.DataFrame, after: np.ndarray, source: str,
+                offset: int) -> dict[str, np.ndarray]:
+    """Return the columns ``after_1`` .. ``after_N`` and, when the chunk has the target, ``residual``."""
+    shown = fitted.loss.link(after)
+    out = {f"after_{k}": shown[:, k] for k in range(1, after.shape[1])}
+    target = fitted.schema.target
+    if target in chunk.columns:
+        try:
+            y = encode_target(fitted.schema, chunk[target], source)
+        except DataError as err:
+            raise DataError(_whole_file_rows(str(err), offset)) from None
+        out["residual"] = y - shown[:, -1]
+    return out
+
+
+def _whole_file_rows(text: str, offset: int) -> str:
+    """Return a message about a chunk with its row numbers counted from the file's first row."""
+    return re.sub(r"\brow (\d+)", lambda m: f"row {int(m.group(1)) + offset}", text)
+
+
 def write_predictions(fitted: FittedChain, data: str, out: str | None, *, id_column: str | None = None,
-                      chunk_rows: int = 100_000) -> int:
+                      chunk_rows: int = 100_000, each_stage: bool = False) -> int:
     """Write the predictions of every row of ``data`` as CSV to ``out`` (stdout when None); return the row count.
 
-    ``out`` is written to a temporary file beside it and renamed only when every row is done.
+    With ``each_stage``, the prediction after each stage and the residual are written too (see
+    ``predict_chunk``). ``out`` is written to a temporary file beside it and renamed only when
+    every row is done.
     """
-    if id_column in OUTPUT_COLUMNS:
+    clashing = OUTPUT_COLUMNS + ((*(f"after_{k}" for k in range(1, len(fitted.stages) + 1)), "residual")
+                                 if each_stage else ())
+    if id_column in clashing:
         raise DataError(f"--id {id_column!r} would clash with an output column; the id must have another name")
     name = source_name(data)
     schema = fitted.schema
-    columns = schema.names + ([id_column] if id_column and id_column not in schema.names else [])
+    wanted = [id_column] if id_column else []
+    if each_stage and schema.target not in wanted:
+        wanted.append(schema.target)  # read when the file has it, for the residual
+    columns = schema.names + [c for c in wanted if c not in schema.names]
     text = [c.name for c in schema.columns if c.is_categorical] + ([id_column] if id_column else [])
+    if each_stage and schema.task == "binary":
+        text.append(schema.target)  # class labels compared as the chain wrote them
     threshold = float(fitted.meta.get("threshold", 0.5) or 0.5)
     with _output(out) as handle:
         rows, unseen = 0, {}
         for chunk in iter_chunks(data, columns, text, chunk_rows):
             frame, found = predict_chunk(fitted, chunk, threshold=threshold, id_column=id_column,
-                                         source=name, offset=rows)
+                                         source=name, offset=rows, each_stage=each_stage)
             for column, count in found.items():
                 unseen[column] = unseen.get(column, 0) + count
             if len(frame):
