@@ -35,6 +35,7 @@ SUITE: dict[str, tuple[list[str], list[str]]] = {
     "big": ([], ["--rows", "500000"]),
     "audition": ([], ["--rows", "20000", "--repeats", "1"]),
     "ui_latency": ([], ["--rows", "100000", "--rounds", "50"]),
+    "understand": ([], ["--rows", "200000", "--sample", "50000"]),
 }
 
 
