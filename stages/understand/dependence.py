@@ -16,7 +16,9 @@ else its quantiles from 5 % to 95 % (``points`` of them, repeats removed); for a
 feature the levels that occur in the rows; for a boolean one false and true.
 
 Only stages that use the feature change with the grid value; the others are predicted once per
-row. Rows are predicted a block at a time, so memory stays at one block whatever the part's size.
+row. A linear or spline stage is a sum of per-column parts, so only the feature's own part
+changes: it is computed once per grid value. Rows are predicted a block at a time, so memory
+stays at one block whatever the part's size.
 """
 
 from __future__ import annotations
@@ -158,6 +160,8 @@ def dependence_table(fitted: FittedChain, rows: Rows, names: tuple[str, ...], wh
     link: Callable[[np.ndarray], np.ndarray] = (lambda raw: raw) if mode == "stage" else fitted.loss.link
     varying = [s for s in parts if any(j in s.feature_index for j in js)]
     fixed = [s for s in parts if s not in varying]
+    additive = [s for s in varying if _is_additive(s.learner)]
+    varying = [s for s in varying if s not in additive]
     n_all = len(fitted.schema.columns)
     ice_at = sample_rows(len(rows), _positive(ice_rows, "ice_rows"), seed + 1)
     ice_at = np.arange(len(rows)) if ice_at is None else ice_at
@@ -166,16 +170,56 @@ def dependence_table(fitted: FittedChain, rows: Rows, names: tuple[str, ...], wh
     for start in range(0, len(rows), BLOCK_ROWS):
         X = rows.block(start, start + BLOCK_ROWS)
         base = offset + _contribution(fixed, X, n_all)
+        shares = [AdditiveShare.of(stage, X, js, n_all) for stage in additive]
+        base += sum((share.others for share in shares), np.zeros(len(X)))
         mine = ice_at[(ice_at >= start) & (ice_at < start + len(X))]
         where = np.searchsorted(ice_at, mine)
         for p, point in enumerate(points):
             X[:, js] = point
-            prediction = link(base + _contribution(varying, X, n_all))
+            held = sum(share.at(X[:1]) for share in shares)
+            prediction = link(base + held + _contribution(varying, X, n_all))
             totals[p] += float(np.sum(prediction))
             ice[where, p] = prediction[mine - start]
     table = _table(names, columns, points, totals / len(rows), ice, len(rows))
     table.attrs.update(features=names, what=("stage" if mode == "stage" else "upto"), stage=k, rows=len(rows))
     return table, ice, rows.labels[ice_at], points
+
+
+def _is_additive(learner: Any) -> bool:
+    """Return True for a learner whose output is a sum of per-column parts: a design whose
+    columns each come from one input column, times coefficients (linear kinds, splines)."""
+    design = getattr(learner, "design", None)
+    return design is not None and hasattr(design, "feature_groups") and hasattr(learner, "coef")
+
+
+@dataclass(frozen=True)
+class AdditiveShare:
+    """An additive stage on one block of rows, split into what the grid features do and what the
+    others do: with the grid features held at a value, the stage's output is ``others`` plus
+    ``at(that value)``, the same for every row."""
+
+    stage: Any
+    columns: list[int]
+    mine: np.ndarray
+    others: np.ndarray
+
+    @classmethod
+    def of(cls, stage: Any, X: np.ndarray, js: list[int], n_all: int) -> AdditiveShare:
+        """Return the stage's share of the block ``X`` (rows of the schema matrix) apart from ``js``."""
+        cols = list(stage.feature_index)
+        local = [cols.index(j) for j in js if j in cols]
+        learner = stage.learner
+        mine = np.isin(np.asarray(learner.design.feature_groups(), dtype=np.int64), local)
+        design = learner.design.transform(X if cols == list(range(n_all)) else X[:, cols])
+        coef = np.asarray(learner.coef, dtype=np.float64)
+        others = stage.scale * (design[:, ~mine] @ coef[~mine] + learner.intercept)
+        return cls(stage, cols, mine, others)
+
+    def at(self, row: np.ndarray) -> float:
+        """Return the stage's output from the grid features, given one row holding their values."""
+        learner = self.stage.learner
+        design = learner.design.transform(row[:, self.columns])
+        return float(self.stage.scale * (design[0, self.mine] @ np.asarray(learner.coef)[self.mine]))
 
 
 def _contribution(stages: list[Any], X: np.ndarray, n_all: int) -> np.ndarray:

@@ -114,3 +114,17 @@ def test_bad_questions_are_refused_with_a_message(investment_chain):
         investment_chain.partial_dependence("value", stage=9)
     with pytest.raises(StageSpecError, match="must differ"):
         investment_chain.partial_dependence(["value", "value"])
+
+
+@pytest.mark.parametrize("feature", ["value", "firm"])
+def test_a_spline_stage_on_some_features_equals_sklearn_too(feature):
+    # linear and spline stages are summed per column, and only the grid feature's part is
+    # recomputed per grid value: the brute method must still agree
+    chain = stages.Chain(grunfeld(), "invest", stages.Holdout(fraction=0.2, seed=1))
+    chain.add("spline", features=["value", "firm", "year"])
+    chain.add("ridge", 0.5, features=["capital", "firm"], params={"alpha": 2.0})
+    ours = chain.partial_dependence(feature)
+    reference = sklearn_partial_dependence(
+        chain.fitted().as_estimator(), part_frame(chain, grunfeld(), "train"), [feature], method="brute",
+        custom_values={feature: list(ours["feature"])})
+    np.testing.assert_allclose(ours["average"], reference["average"][0], rtol=0, atol=1e-9)
