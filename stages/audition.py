@@ -32,9 +32,8 @@ from .kinds import get_kind
 from .kinds.base import ProgressFn
 from .kinds.lightgbm_stage import BoosterKind
 from .metrics import HIGHER_IS_BETTER
-from .scoring import Scores
+from .scoring import Scores, fold_spread
 from .spec import StageSpec
-from .table import fold_spread
 
 if TYPE_CHECKING:
     from .chain import Chain

@@ -20,8 +20,8 @@ from . import scoring
 from .errors import FitCancelled, StageFitError
 from .fitting import FitContext, fit_stage
 from .kinds.base import ProgressFn
+from .scoring import fold_spread
 from .spec import StageSpec
-from .table import fold_spread
 
 if TYPE_CHECKING:
     from .chain import Chain

@@ -67,6 +67,13 @@ def test_scores(loss: Loss, layout: Layout, y: np.ndarray, output: np.ndarray, t
     return loss.scores(y[layout.test], output[layout.test], threshold)
 
 
+def fold_spread(values: tuple[float, ...]) -> float:
+    """Return the standard error of per-fold scores (std with ddof=1 over sqrt(k)); NaN for fewer than 2."""
+    if len(values) < 2:
+        return float("nan")
+    return float(np.std(values, ddof=1) / np.sqrt(len(values)))
+
+
 def better(metric: str, new: float, old: float) -> bool:
     """Return True when ``new`` is strictly better than ``old`` for ``metric``."""
     if not (np.isfinite(new) and np.isfinite(old)):

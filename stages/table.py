@@ -8,6 +8,7 @@ import numpy as np
 import pandas as pd
 
 from . import scoring
+from .scoring import fold_spread
 
 if TYPE_CHECKING:
     from .chain import Chain
@@ -22,13 +23,6 @@ def extra_metrics(task: str, metric: str) -> list[str]:
     """Return the validation metrics shown after the second one: MAE (or RMSE when the chain is
     judged by MAE) for regression; Brier score and accuracy at the threshold for binary chains."""
     return [name for name in SHOWN[task] if name not in (metric, SECONDARY[task])]
-
-
-def fold_spread(values: tuple[float, ...]) -> float:
-    """Return the standard error of per-fold scores (std with ddof=1 over sqrt(k)); NaN for fewer than 2."""
-    if len(values) < 2:
-        return float("nan")
-    return float(np.std(values, ddof=1) / np.sqrt(len(values)))
 
 
 def stage_table(chain: Chain) -> pd.DataFrame:
