@@ -1,7 +1,7 @@
 """Predicting with a saved chain, and loading a chain file.
 
 (a) A 20-stage chain (linear, 10 tree stages of depth 3, 9 hist_tree stages of depth 4), fit on
-``--fit-rows`` rows, saved with ``stages.store.save`` and read back with ``stages.load``, predicts
+``--fit-rows`` rows, saved with ``stages.files.store.save`` and read back with ``stages.load``, predicts
 ``--rows`` rows from a DataFrame; the reference is the sum of the bare learners' own predict
 times on the same rows as a float64 matrix (the chain adds reading the frame against the
 schema and summing the stages). Target: ratio <= 1.10.
@@ -23,7 +23,7 @@ sys.path.insert(0, str(Path(__file__).resolve().parent))
 import common  # noqa: E402
 
 import stages  # noqa: E402
-from stages.store import save  # noqa: E402
+from stages.files.store import save  # noqa: E402
 
 FEATURES = 50
 

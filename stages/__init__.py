@@ -35,11 +35,11 @@ from .validation import AllRows, GroupHoldout, Holdout, KFold, SplitColumn, Time
 __version__ = "0.1.0"
 
 _LAZY = {
-    "load": ("store", "load"),
-    "ChainRegressor": ("estimator", "ChainRegressor"),
-    "ChainClassifier": ("estimator", "ChainClassifier"),
-    "read_recipe": ("recipe", "read_recipe"),
-    "fit_recipe": ("recipe", "fit_recipe"),
+    "load": ("files.store", "load"),
+    "ChainRegressor": ("bridges.estimator", "ChainRegressor"),
+    "ChainClassifier": ("bridges.estimator", "ChainClassifier"),
+    "read_recipe": ("files.recipe", "read_recipe"),
+    "fit_recipe": ("files.recipe", "fit_recipe"),
 }
 
 

@@ -159,7 +159,7 @@ class Chain:
 
     def table(self) -> pd.DataFrame:
         """Return one row per stage (row 0 is the start value) with its scores and flags."""
-        from .table import stage_table
+        from .report.table import stage_table
 
         return stage_table(self)
 
@@ -209,7 +209,7 @@ class Chain:
 
     def importance(self, row: int) -> dict[str, float]:
         """Return the importance of each feature a stage uses (native, or permutation on validation rows)."""
-        from .importance import stage_importance
+        from .understand.importance import stage_importance
 
         return stage_importance(self, row)
 
@@ -400,40 +400,40 @@ class Chain:
 
     def save(self, path: str | os.PathLike) -> None:
         """Write the chain file at ``path`` (atomically)."""
-        from .store import save
+        from .files.store import save
 
         save(self, path)
 
     def to_recipe(self) -> str:
         """Return the TOML recipe that refits this chain from its data."""
-        from .recipe import chain_to_recipe
+        from .files.recipe import chain_to_recipe
 
         return chain_to_recipe(self)
 
-    # ----- deciding the next stage: stages.audition, stages.grow, stages.references ---------
+    # ----- deciding the next stage: stages.decide.audition, stages.decide.grow, stages.decide.references ---------
     def audition(self, specs: list[StageSpec | dict[str, Any]], *, cancel: threading.Event | None = None,
                  progress: ProgressFn | None = None, workers: int = 2) -> list[Any]:
-        """Return a stages.audition.Candidate per spec (grids expanded), fit side by side; the chain is unchanged."""
-        from .audition import audition
+        """Return a stages.decide.audition.Candidate per spec (grids expanded), fit side by side; the chain is unchanged."""
+        from .decide.audition import audition
 
         return audition(self, specs, cancel=cancel, progress=progress, workers=workers)
 
     def keep(self, candidate: Any) -> Stage:
         """Commit an auditioned candidate as the next stage with no refit, and return its stage."""
-        from .audition import keep
+        from .decide.audition import keep
 
         return keep(self, candidate)
 
     def grow(self, kind: str, shrinkage: float = 0.1, **options: Any) -> Any:
         """Append stages of ``kind`` until validation stops improving, trim to the best; return a GrowResult."""
-        from .grow import grow
+        from .decide.grow import grow
 
         return grow(self, kind, shrinkage, **options)
 
     def references(self, **options: Any) -> pd.DataFrame:
-        """Return the reference models' scores on this chain's split (see stages.references; the
+        """Return the reference models' scores on this chain's split (see stages.decide.references; the
         options include ``cancel`` and ``progress``)."""
-        from .references import reference_scores
+        from .decide.references import reference_scores
 
         return reference_scores(self, **options)
 

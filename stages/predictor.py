@@ -115,7 +115,7 @@ class FittedChain:
 
     def as_estimator(self):
         """Return this chain as a fitted scikit-learn estimator (regressor or classifier)."""
-        from .estimator import wrap_fitted
+        from .bridges.estimator import wrap_fitted
 
         return wrap_fitted(self)
 

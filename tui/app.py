@@ -158,11 +158,11 @@ def build_app(data_path: str | None = None, target: str | None = None, recipe_pa
     from stages.data import read_table, source_name
 
     if chain_path is not None:
-        from stages.store import load
+        from stages.files.store import load
 
         return RemnantApp(fitted=load(chain_path), source=source_name(chain_path), timings=timings)
     if recipe_path is not None:
-        from stages.recipe import read_recipe
+        from stages.files.recipe import read_recipe
 
         recipe = read_recipe(recipe_path)
         data = data_path or recipe.data_path

@@ -275,7 +275,7 @@ def print_table(table: Any, fmt: str) -> None:
 
 
 def _fit_and_print(recipe: Any, data: str | None, fmt: str) -> Any:
-    from stages.recipe import fit_recipe
+    from stages.files.recipe import fit_recipe
 
     progress = Progress(sys.stderr)
     try:
@@ -292,8 +292,8 @@ def _fit_and_print(recipe: Any, data: str | None, fmt: str) -> Any:
 
 def run_fit(args: argparse.Namespace) -> int:
     """Fit a recipe, write the chain file, print the stage table; return 0."""
-    from stages import store
-    from stages.recipe import read_recipe
+    from stages.files import store
+    from stages.files.recipe import read_recipe
 
     recipe = read_recipe(args.recipe)
     check_out(args.out, {"recipe": args.recipe, "input data file": args.data or recipe.data_path})
@@ -311,7 +311,7 @@ def run_demo(args: argparse.Namespace) -> int:
     recipe_path = folder / "deliveries.toml"
     if not args.headless:
         return _open_app(data_path=str(folder / "deliveries.csv"), recipe_path=str(recipe_path))
-    from stages.recipe import read_recipe
+    from stages.files.recipe import read_recipe
 
     chain = _fit_and_print(read_recipe(recipe_path), None, args.format)
     print_table(chain.table(), args.format)
@@ -351,7 +351,7 @@ def _open_app(**kwargs: Any) -> int:
 
 def run_show(args: argparse.Namespace) -> int:
     """Print a chain file's settings, stage table and schema; return 0."""
-    from stages import store
+    from stages.files import store
     from tui.table_text import describe_chain, describe_coefficients, describe_schema, fitted_table
 
     fitted = store.load(args.chain)
@@ -370,7 +370,7 @@ def run_show(args: argparse.Namespace) -> int:
 
 def run_predict(args: argparse.Namespace) -> int:
     """Write predictions of a chain file for every row of a data file; return 0."""
-    from stages import store
+    from stages.files import store
     from tui.predicting import write_predictions
 
     if args.out is not None:

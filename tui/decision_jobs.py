@@ -11,9 +11,9 @@ from typing import Any
 
 from textual.message_pump import MessagePump
 
-from stages.audition import best_candidate, one_standard_error_choice
+from stages.decide.audition import best_candidate, one_standard_error_choice
+from stages.decide.grow import GrowResult, grow_spec
 from stages.errors import FitCancelled, RemnantError
-from stages.grow import GrowResult, grow_spec
 from stages.spec import StageSpec
 
 from .format import spec_text

@@ -96,8 +96,8 @@ def build_chain(owner: MessagePump, choices: SetupChoices, cache: ImportanceCach
 
 def fit_recipe(owner: MessagePump, recipe: Any, data: str | None, cache: ImportanceCache) -> FitJob:
     """Return the job that builds a recipe's chain and fits its stages one at a time."""
-    from stages.recipe import build_chain
-    from stages.recipe_steps import replay
+    from stages.files.recipe import build_chain
+    from stages.files.recipe_steps import replay
 
     def run(ctx: JobContext) -> ChainChanged:
         ctx.progress(0.0, "reading the data")
@@ -201,7 +201,7 @@ def save_chain(owner: MessagePump, chain: Any, path: Path) -> FitJob:
 
 def export_recipe(owner: MessagePump, chain: Any, path: Path) -> FitJob:
     """Return the job that writes the chain's recipe at ``path`` (data path relative to it)."""
-    from stages.recipe import chain_to_recipe
+    from stages.files.recipe import chain_to_recipe
 
     def run(ctx: JobContext) -> FileWritten:
         text = chain_to_recipe(chain, base_dir=path.resolve().parent)

@@ -15,7 +15,7 @@ if TYPE_CHECKING:
     import pandas as pd
 
     from stages import Chain, FittedChain
-    from stages.audition import Candidate
+    from stages.decide.audition import Candidate
 
     from .view import ChainView
 
@@ -80,7 +80,7 @@ class AuditionDone(Message):
 
 
 class ReferencesFitted(Message):
-    """The reference models were fit on the chain's split: one row per model (stages.references)."""
+    """The reference models were fit on the chain's split: one row per model (stages.decide.references)."""
 
     def __init__(self, table: pd.DataFrame, with_test: bool) -> None:
         self.table = table

@@ -14,8 +14,8 @@ from typing import Any
 
 from textual.message_pump import MessagePump
 
-from stages import session as sessions
 from stages.errors import RemnantError
+from stages.files import session as sessions
 
 from .messages import ChainReady
 from .view import ImportanceCache, view_of_chain

@@ -151,8 +151,8 @@ def format_csv(table: pd.DataFrame) -> str:
 
 def fitted_table(fitted: FittedChain) -> pd.DataFrame:
     """Return the stage table of a loaded chain file, from the scores its manifest stored."""
+    from stages.report.table import SECONDARY, extra_metrics
     from stages.scoring import Scores, best_row, fold_spread, overfit_flags
-    from stages.table import SECONDARY, extra_metrics
 
     metric, second = fitted.loss.primary, SECONDARY[fitted.task]
     raw = [fitted.start_scores, *(stage.scores for stage in fitted.stages)]

@@ -18,8 +18,8 @@ import numpy as np
 from stages import scoring
 from stages.kinds import get_kind
 from stages.losses import Loss
+from stages.report.table import SECONDARY
 from stages.scoring import Scores, fold_spread
-from stages.table import SECONDARY
 from stages.tracks import Layout
 
 

@@ -23,8 +23,8 @@ from textual.message import Message
 from textual.message_pump import MessagePump
 from textual.worker import Worker, WorkerState
 
-from stages import session as sessions
 from stages.errors import FitCancelled, RemnantError
+from stages.files import session as sessions
 
 from .messages import FitFailed, FitProgressed, FitStarted
 

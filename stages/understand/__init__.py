@@ -1,8 +1,8 @@
 """Understanding a chain: where the error still lives and what each stage learned.
 
-This floor sits above the chain. Every function here reads only a chain's public state (its
-stages, their learners and specs, the layout of its parts, its outputs per row, the schema
-and the feature matrix) and returns pandas DataFrames; nothing here changes a chain.
+This is the second floor, above the core, and imports only the core. Every function here
+reads only a chain's public state (its stages, their learners and specs, the layout of its
+parts, its outputs per row, the schema and the feature matrix) and returns pandas DataFrames; nothing here changes a chain.
 
 - ``scan``: the residual scan (features ranked by the residual signal left in them, scored on
   rows the scan did not fit on) and the binned residuals against one feature;
@@ -11,7 +11,8 @@ and the feature matrix) and returns pandas DataFrames; nothing here changes a ch
   own scale, with standard errors for the unpenalised ones;
 - ``curves``: the fitted curves of spline stages;
 - ``largest``: the rows with the largest residuals;
-- ``calibration_bins``: predicted probability in bins against the observed rate.
+- ``calibration_bins``: predicted probability in bins against the observed rate;
+- ``importance``: the feature importance of one stage.
 
 Results are cached per chain state (``cache``), so a view that asks again after the chain
 changed gets a fresh answer and one that asks twice does not recompute.

@@ -36,7 +36,7 @@ def run(capsys: pytest.CaptureFixture[str]):
 @pytest.fixture(scope="session")
 def chain_files(tmp_path_factory: pytest.TempPathFactory) -> dict[str, bytes]:
     """Return the bytes of a regression and a binary chain file, fit once from the two recipes."""
-    from stages.recipe import fit_recipe
+    from stages.files.recipe import fit_recipe
 
     folder = tmp_path_factory.mktemp("chains")
     diabetes_frame().to_csv(folder / "diabetes.csv", index=False)

@@ -15,7 +15,7 @@ from hypothesis import strategies as st
 
 import stages
 from stages.errors import RecipeError
-from stages.recipe import (
+from stages.files.recipe import (
     Recipe,
     chain_to_recipe,
     fit_recipe,
@@ -23,8 +23,8 @@ from stages.recipe import (
     read_recipe,
     recipe_to_toml,
 )
+from stages.files.toml_text import toml_value
 from stages.spec import StageSpec
-from stages.toml_text import toml_value
 from stages.validation import AllRows, GroupHoldout, Holdout, KFold, SplitColumn, TimeOrder
 
 # ----------------------------------------------------------------------------- reading

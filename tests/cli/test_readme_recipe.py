@@ -5,7 +5,7 @@ from __future__ import annotations
 import re
 from pathlib import Path
 
-from stages.recipe import parse_recipe, read_recipe
+from stages.files.recipe import parse_recipe, read_recipe
 
 ROOT = Path(__file__).resolve().parents[2]
 

@@ -8,10 +8,10 @@ import pytest
 from cli_support import REGRESSION_RECIPE
 
 import stages
-from stages.audition import expand_grid
+from stages.decide.audition import expand_grid
+from stages.decide.grow import grow_spec
 from stages.errors import RecipeError
-from stages.grow import grow_spec
-from stages.recipe import chain_to_recipe, fit_recipe, parse_recipe, recipe_to_toml
+from stages.files.recipe import chain_to_recipe, fit_recipe, parse_recipe, recipe_to_toml
 
 GROW = REGRESSION_RECIPE + '''
 [[stage]]

@@ -10,7 +10,7 @@ from scipy.stats import sem
 from sklearn.metrics import mean_squared_error
 
 import stages
-from stages.audition import (
+from stages.decide.audition import (
     Candidate,
     audition_table,
     best_candidate,

@@ -8,7 +8,7 @@ import sys
 
 def test_importing_the_engine_loads_no_ui_module():
     code = (
-        "import sys, stages, stages.store, stages.recipe, stages.estimator\n"
+        "import sys, stages, stages.files.store, stages.files.recipe, stages.bridges.estimator\n"
         "import stages.kinds as k; [k.get_kind(n) for n in k.kind_names()]\n"
         # rich is left out: scikit-learn >= 1.9 imports it itself for its progress callbacks
         "bad = sorted(m for m in sys.modules if m.split('.')[0] in ('textual', 'textual_plotext', 'tui'))\n"

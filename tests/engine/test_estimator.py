@@ -22,7 +22,13 @@ from sklearn.utils.estimator_checks import parametrize_with_checks
 from sklearn.utils.validation import check_is_fitted
 
 import stages
-from stages.estimator import ChainClassifier, ChainRegressor, resolve_seed, stage_specs, wrap_fitted
+from stages.bridges.estimator import (
+    ChainClassifier,
+    ChainRegressor,
+    resolve_seed,
+    stage_specs,
+    wrap_fitted,
+)
 from stages.spec import StageSpec
 
 BOOSTER = {"n_estimators": 50, "num_leaves": 15, "min_child_samples": 5, "n_jobs": 1}

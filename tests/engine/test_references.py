@@ -12,7 +12,7 @@ from sklearn.metrics import mean_squared_error
 
 import stages
 from stages.data import load_frame
-from stages.references import linear_reference
+from stages.decide.references import linear_reference
 
 DEMO = Path(__file__).resolve().parents[2] / "demo" / "deliveries.csv"
 

@@ -7,7 +7,7 @@ from pathlib import Path
 
 import pytest
 
-from stages.recipe import build_chain, read_recipe
+from stages.files.recipe import build_chain, read_recipe
 
 DEMO = Path(__file__).resolve().parents[2] / "demo"
 

@@ -14,7 +14,7 @@ from sklearn.datasets import make_friedman1  # noqa: E402
 from sklearn.metrics import mean_squared_error  # noqa: E402
 
 import stages  # noqa: E402
-from stages.dask_chain import (  # noqa: E402
+from stages.bridges.dask_chain import (  # noqa: E402
     ChainSettings,
     bin_codes,
     fit_in_memory,

@@ -13,15 +13,15 @@ class Blocker:
             raise ImportError('blocked: ' + name)
 sys.meta_path.insert(0, Blocker())
 import numpy as np, pandas as pd
-import stages, stages.dask_chain
-from stages.dask_chain import ChainSettings, fit_in_memory
+import stages, stages.bridges.dask_chain
+from stages.bridges.dask_chain import ChainSettings, fit_in_memory
 rng = np.random.RandomState(0)
 frame = pd.DataFrame(rng.rand(400, 3), columns=['a', 'b', 'c'])
 frame['y'] = frame['a'] * 2 + rng.rand(400)
 fit = fit_in_memory(frame, ChainSettings('y', ['a', 'b', 'c'], params={'n_estimators': 5}))
 assert fit.scores['valid'] > 0
 try:
-    stages.dask_chain.local_cluster_score(frame, ChainSettings('y', ['a', 'b', 'c']))
+    stages.bridges.dask_chain.local_cluster_score(frame, ChainSettings('y', ['a', 'b', 'c']))
 except ImportError:
     print('ok')
 """

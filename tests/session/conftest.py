@@ -9,7 +9,7 @@ import pytest
 from session_support import build
 from sklearn.datasets import load_breast_cancer, load_diabetes
 
-from stages.session import save_session
+from stages.files.session import save_session
 
 
 @pytest.fixture(autouse=True)

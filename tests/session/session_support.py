@@ -8,7 +8,7 @@ import numpy as np
 import pandas as pd
 
 import stages
-from stages.session import load_session, save_session
+from stages.files.session import load_session, save_session
 
 #: every kind cheap enough to fit in milliseconds on 200 rows, with small parameters
 CHEAP_KINDS = [

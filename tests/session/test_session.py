@@ -23,8 +23,8 @@ from session_support import (
 from sklearn.datasets import load_diabetes
 
 import stages
-from stages import session_parts
-from stages.session import (
+from stages.files import session_parts
+from stages.files.session import (
     SessionDataChanged,
     SessionError,
     SessionSaveError,

@@ -1,6 +1,6 @@
 """Killing the process at any moment loses at most the fit in progress, and never the session file.
 
-A headless worker (``python -m stages.session_worker``) fits 20 stages one by one, saving the
+A headless worker (``python -m stages.files.session_worker``) fits 20 stages one by one, saving the
 session after each and printing ``saved K``. The test kills it with SIGKILL a seeded random
 moment after a seeded random ``saved K`` line, checks the file, restarts the worker (which
 resumes the session), and repeats until a worker finishes. At the end the chain must equal,
@@ -24,8 +24,8 @@ import pytest
 from sklearn.datasets import load_diabetes
 
 import stages
-from stages.session import load_session
-from stages.session_worker import CYCLE
+from stages.files.session import load_session
+from stages.files.session_worker import CYCLE
 
 FITS = 20
 KILLS = 4
@@ -35,7 +35,7 @@ pytestmark = pytest.mark.skipif(not hasattr(signal, "SIGKILL"), reason="needs SI
 
 def start_worker(data: Path, session: Path) -> subprocess.Popen:
     env = {**os.environ, "PYTHONUNBUFFERED": "1"}
-    return subprocess.Popen([sys.executable, "-m", "stages.session_worker", str(data), "target", str(session),
+    return subprocess.Popen([sys.executable, "-m", "stages.files.session_worker", str(data), "target", str(session),
                              str(FITS)], stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True, env=env)
 
 

@@ -17,9 +17,15 @@ from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 from session_support import CHEAP_KINDS, assert_identical, build, chain_state
 
-from stages import session
-from stages.session import SessionError, SessionSaveError, data_changes, load_session, save_session
-from stages.store import VersionDriftWarning
+from stages.files import session
+from stages.files.session import (
+    SessionError,
+    SessionSaveError,
+    data_changes,
+    load_session,
+    save_session,
+)
+from stages.files.store import VersionDriftWarning
 
 FUZZ = settings(max_examples=40, deadline=None, suppress_health_check=[HealthCheck.function_scoped_fixture])
 

@@ -18,11 +18,11 @@ import sklearn
 from sklearn.datasets import load_breast_cancer, load_diabetes
 
 import stages
-from stages import store
 from stages.errors import ChainFileError
+from stages.files import store
+from stages.files.store import FORMAT_NAME, FORMAT_VERSION, VersionDriftWarning
 from stages.kinds.base import Artifact
 from stages.predictor import FittedChain, UnseenLevelsWarning
-from stages.store import FORMAT_NAME, FORMAT_VERSION, VersionDriftWarning
 
 SMALL = {"n_estimators": 10}
 # one thread: LightGBM's thread pool only slows tiny fits down
@@ -126,7 +126,7 @@ def test_loaded_chain_keeps_start_scale_scores_and_settings(tmp_path, diabetes):
 def test_a_loaded_chain_saved_again_keeps_its_probe_and_fingerprint(tmp_path, diabetes):
     chain = make_chain(diabetes, ("linear", 1.0, None))
     chain.save(tmp_path / "a.chain")
-    stages.store.save(stages.load(tmp_path / "a.chain"), tmp_path / "b.chain")
+    stages.files.store.save(stages.load(tmp_path / "a.chain"), tmp_path / "b.chain")
     first, second = read_manifest(tmp_path / "a.chain"), read_manifest(tmp_path / "b.chain")
     assert second["data"] == first["data"]
     assert second["probe"]["sha256"] == first["probe"]["sha256"]

@@ -22,8 +22,8 @@ from sklearn.linear_model import LinearRegression
 from sklearn.preprocessing import FunctionTransformer
 
 import stages
-from stages import store
 from stages.errors import ChainFileError
+from stages.files import store
 
 FUZZ = settings(max_examples=60, deadline=None, suppress_health_check=[HealthCheck.function_scoped_fixture])
 

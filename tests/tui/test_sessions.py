@@ -12,8 +12,8 @@ from textual.widgets import Button, Label
 from tui_support import add_stage, diabetes_csv, settle, setup_app, start_chain
 
 import stages
-from stages import session
-from stages.session import SessionSaveError, session_path, session_summary
+from stages.files import session
+from stages.files.session import SessionSaveError, session_path, session_summary
 from tui.screens.failure import FailureScreen
 from tui.screens.resume import ResumeScreen
 from tui.screens.setup import SetupScreen

@@ -18,7 +18,7 @@ from textual.containers import Horizontal, Vertical
 from textual.screen import ModalScreen
 from textual.widgets import Button, Footer, Label, Select, TextArea
 
-from stages.audition import MAX_CANDIDATES, expand_grid
+from stages.decide.audition import MAX_CANDIDATES, expand_grid
 from stages.errors import RemnantError
 from stages.kinds import get_kind
 

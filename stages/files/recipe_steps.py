@@ -24,12 +24,12 @@ from collections.abc import Callable
 from dataclasses import dataclass
 from typing import TYPE_CHECKING, Any
 
-from .errors import RecipeError, StageSpecError
-from .kinds.base import ProgressFn
-from .spec import StageSpec
+from ..errors import RecipeError, StageSpecError
+from ..kinds.base import ProgressFn
+from ..spec import StageSpec
 
 if TYPE_CHECKING:
-    from .chain import Chain
+    from ..chain import Chain
     from .recipe import Recipe
 
 AUDITION_KEYS = ("after", "choose", "candidate")
@@ -55,7 +55,7 @@ class Audition:
 
 def parse_auditions(entries: Any, where, n_stage_entries: int, task: str | None) -> tuple[Audition, ...]:
     """Return the checked ``[[audition]]`` tables; ``where(i, key)`` names the recipe line for messages."""
-    from .audition import CHOICE_RULES, expand_grid
+    from ..decide.audition import CHOICE_RULES, expand_grid
 
     if entries is None:
         return ()
@@ -93,7 +93,7 @@ def parse_auditions(entries: Any, where, n_stage_entries: int, task: str | None)
 
 
 def _check_spec(spec: StageSpec, task: str | None) -> None:
-    from .kinds import get_kind
+    from ..kinds import get_kind
 
     get_kind(spec.kind).resolve_params(spec.params, task or "regression")
 
@@ -105,8 +105,8 @@ def replay(chain: Chain, recipe: Recipe, *, cancel: threading.Event | None = Non
     ``on_stage(chain)`` is called after every committed stage; a plain ``repeat`` is then fit one
     stage at a time (the same stages: each is fit on the residuals of the one before).
     """
-    from .audition import CHOICE_RULES
-    from .grow import grow_spec
+    from ..decide.audition import CHOICE_RULES
+    from ..decide.grow import grow_spec
 
     entries = list(recipe.stages)
     steps = len(entries) + len(recipe.auditions)

@@ -15,13 +15,13 @@ from collections.abc import Callable
 from dataclasses import dataclass
 from typing import TYPE_CHECKING, Any
 
-from . import scoring
-from .errors import FitCancelled, StageSpecError
-from .kinds.base import ProgressFn
-from .spec import StageSpec
+from .. import scoring
+from ..errors import FitCancelled, StageSpecError
+from ..kinds.base import ProgressFn
+from ..spec import StageSpec
 
 if TYPE_CHECKING:
-    from .chain import Chain
+    from ..chain import Chain
 
 STOPPED = ("patience", "max_stages", "cancelled")
 

@@ -16,15 +16,15 @@ from typing import TYPE_CHECKING, Any
 import numpy as np
 import pandas as pd
 
-from . import scoring
-from .errors import FitCancelled, StageFitError
-from .fitting import FitContext, fit_stage
-from .kinds.base import ProgressFn
-from .scoring import fold_spread
-from .spec import StageSpec
+from .. import scoring
+from ..errors import FitCancelled, StageFitError
+from ..fitting import FitContext, fit_stage
+from ..kinds.base import ProgressFn
+from ..scoring import fold_spread
+from ..spec import StageSpec
 
 if TYPE_CHECKING:
-    from .chain import Chain
+    from ..chain import Chain
 
 #: LightGBM's default number of rounds, used when there is no validation part to stop on
 DEFAULT_ROUNDS = 100

@@ -7,11 +7,11 @@ from typing import TYPE_CHECKING
 import numpy as np
 import pandas as pd
 
-from . import scoring
-from .scoring import fold_spread
+from .. import scoring
+from ..scoring import fold_spread
 
 if TYPE_CHECKING:
-    from .chain import Chain
+    from ..chain import Chain
 
 #: the second metric shown beside the one the chain is judged by
 SECONDARY = {"regression": "r2", "binary": "auc"}

@@ -25,18 +25,18 @@ from typing import TYPE_CHECKING, Any
 import numpy as np
 import pandas as pd
 
-from . import scoring
-from .errors import FitCancelled, RemnantError, StageFitError, StageSpecError
-from .fitting import FitContext, Stage, fit_stage
-from .kinds import get_kind
-from .kinds.base import ProgressFn
-from .kinds.lightgbm_stage import BoosterKind
-from .metrics import HIGHER_IS_BETTER
-from .scoring import Scores, fold_spread
-from .spec import StageSpec
+from .. import scoring
+from ..errors import FitCancelled, RemnantError, StageFitError, StageSpecError
+from ..fitting import FitContext, Stage, fit_stage
+from ..kinds import get_kind
+from ..kinds.base import ProgressFn
+from ..kinds.lightgbm_stage import BoosterKind
+from ..metrics import HIGHER_IS_BETTER
+from ..scoring import Scores, fold_spread
+from ..spec import StageSpec
 
 if TYPE_CHECKING:
-    from .chain import Chain
+    from ..chain import Chain
 
 #: more candidates than this in one audition is almost surely a typing slip in a grid
 MAX_CANDIDATES = 64

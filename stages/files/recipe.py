@@ -21,17 +21,17 @@ from dataclasses import dataclass, field, fields
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
-from .errors import RecipeError, RemnantError, StageSpecError, ValidationSpecError
-from .kinds.base import ProgressFn
+from ..errors import RecipeError, RemnantError, StageSpecError, ValidationSpecError
+from ..kinds.base import ProgressFn
+from ..spec import StageSpec
+from ..validation import SCHEMES, ValidationSpec, spec_from_dict
 from .recipe_steps import Audition, parse_auditions, replay
-from .spec import StageSpec
 from .toml_text import KeyLines, toml_key, toml_value
-from .validation import SCHEMES, ValidationSpec, spec_from_dict
 
 if TYPE_CHECKING:
     import pandas as pd
 
-    from .chain import Chain
+    from ..chain import Chain
 
 TABLES = ("data", "chain", "validation", "stage", "audition")
 DATA_KEYS = ("path", "target", "ignore", "features", "task", "positive")
@@ -257,7 +257,7 @@ class _Reader:
         kind = self.text(entry, "stage", i, "kind")
         if kind is None:
             raise self.fail(f"[[stage]] number {i + 1} has no 'kind'", "stage", i)
-        from .kinds import get_kind
+        from ..kinds import get_kind
 
         try:
             found = get_kind(kind)
@@ -395,8 +395,8 @@ def fit_recipe(recipe_or_path: Recipe | str | os.PathLike, data: str | os.PathLi
 
 def build_chain(recipe: Recipe, data: str | os.PathLike | pd.DataFrame | None = None) -> Chain:
     """Return the recipe's chain with no stages yet: its data, columns, validation and loss checked."""
-    from .chain import Chain
-    from .data import load_frame
+    from ..chain import Chain
+    from ..data import load_frame
 
     source = data if data is not None else recipe.data_path
     if source is None:

@@ -11,7 +11,7 @@ from typing import Any
 
 import numpy as np
 
-from .errors import RecipeError
+from ..errors import RecipeError
 
 _BARE_KEY = re.compile(r"[A-Za-z0-9_-]+")
 _ESCAPES = {"\\": "\\\\", '"': '\\"', "\b": "\\b", "\t": "\\t", "\n": "\\n", "\f": "\\f", "\r": "\\r"}

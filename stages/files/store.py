@@ -33,16 +33,16 @@ from typing import IO, TYPE_CHECKING, Any
 
 import numpy as np
 
-from .errors import ChainFileError, RemnantError
-from .kinds import get_kind
-from .kinds.base import Artifact
-from .losses import get_loss
-from .predictor import FittedChain, FittedStage
-from .schema import Schema
-from .spec import StageSpec
+from ..errors import ChainFileError, RemnantError
+from ..kinds import get_kind
+from ..kinds.base import Artifact
+from ..losses import get_loss
+from ..predictor import FittedChain, FittedStage
+from ..schema import Schema
+from ..spec import StageSpec
 
 if TYPE_CHECKING:
-    from .chain import Chain
+    from ..chain import Chain
 
 FORMAT_NAME = "remnant-chain"
 FORMAT_VERSION = 1
@@ -72,7 +72,7 @@ def save(chain: Chain | FittedChain, path: str | os.PathLike) -> None:
 
     Raise ChainFileError when the file cannot be written; an existing file is then untouched.
     """
-    from .chain import Chain as LiveChain  # at call time: the chain module imports this one lazily
+    from ..chain import Chain as LiveChain  # at call time: the chain module imports this one lazily
 
     if isinstance(chain, LiveChain):
         fitted = chain.fitted()
@@ -156,7 +156,7 @@ def library_versions() -> dict[str, str | None]:
     """Return the installed versions of remnant, the libraries in LIBRARIES, and Python."""
     from importlib import metadata
 
-    from . import __version__
+    from .. import __version__
 
     def installed(name: str) -> str | None:
         try:

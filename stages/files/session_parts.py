@@ -23,16 +23,16 @@ from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
-from .fitting import Stage, _rows, resolve_features
-from .kinds import get_kind
-from .kinds.base import Artifact
-from .reading import source_name
-from .spec import StageSpec
+from ..fitting import Stage, _rows, resolve_features
+from ..kinds import get_kind
+from ..kinds.base import Artifact
+from ..reading import source_name
+from ..spec import StageSpec
+from ..tracks import Layout
 from .store import VersionDriftWarning, json_ready, library_versions
-from .tracks import Layout
 
 if TYPE_CHECKING:
-    from .chain import Chain
+    from ..chain import Chain
 
 #: the generator numpy's RandomState uses: the only state a session stores
 GENERATOR = "MT19937"

@@ -6,12 +6,12 @@ from typing import TYPE_CHECKING
 
 import numpy as np
 
-from . import scoring
-from .errors import StageSpecError
-from .kinds import get_kind
+from .. import scoring
+from ..errors import StageSpecError
+from ..kinds import get_kind
 
 if TYPE_CHECKING:
-    from .chain import Chain
+    from ..chain import Chain
 
 
 def stage_importance(chain: Chain, row: int, *, sample: int = 2000) -> dict[str, float]:

@@ -26,11 +26,11 @@ from sklearn.utils import check_random_state
 from sklearn.utils.multiclass import check_classification_targets, type_of_target
 from sklearn.utils.validation import check_is_fitted, validate_data
 
-from .chain import Chain
-from .errors import RemnantError
-from .predictor import FittedChain, class_label
-from .spec import StageSpec
-from .validation import AllRows, spec_from_dict
+from ..chain import Chain
+from ..errors import RemnantError
+from ..predictor import FittedChain, class_label
+from ..spec import StageSpec
+from ..validation import AllRows, spec_from_dict
 
 #: LightGBM settings of the default second stage: small, and one thread, since scikit-learn's
 #: model selection tools parallelise over fits rather than inside them

@@ -33,12 +33,13 @@ from typing import IO, Any
 
 import pandas as pd
 
+from ..chain import Chain
+from ..errors import ChainFileError, RemnantError
+from ..fitting import Stage
+from ..kinds.base import ProgressFn
+from ..reading import load_frame
+from ..validation import spec_from_dict
 from . import store
-from .chain import Chain
-from .errors import ChainFileError, RemnantError
-from .fitting import Stage
-from .kinds.base import ProgressFn
-from .reading import load_frame
 from .session_parts import (
     data_reference,
     describe_changes,
@@ -48,7 +49,6 @@ from .session_parts import (
     split_digest,
     stage_parts,
 )
-from .validation import spec_from_dict
 
 FORMAT_NAME = "remnant-session"
 FORMAT_VERSION = 1
@@ -314,7 +314,7 @@ def _same_data(chain: Chain, manifest: dict[str, Any]) -> bool:
 
 def _refit(chain: Chain, manifest: dict[str, Any], name: str, cancel: threading.Event | None,
            progress: ProgressFn | None) -> Chain:
-    from .spec import StageSpec
+    from ..spec import StageSpec
 
     with _damaged(name):
         specs = {entry["id"]: StageSpec.from_dict(entry["spec"]) for entry in manifest["stages"]}

@@ -2,7 +2,7 @@
 
 Usage::
 
-    python -m stages.session_worker DATA TARGET SESSION N
+    python -m stages.files.session_worker DATA TARGET SESSION N
 
 When SESSION already exists the worker resumes it; then it fits stages until the chain has
 N, cycling through a few cheap kinds, saves the session after each fit and prints
@@ -15,8 +15,8 @@ from __future__ import annotations
 import os
 import sys
 
-from .chain import Chain
-from .errors import RemnantError
+from ..chain import Chain
+from ..errors import RemnantError
 from .session import load_session, save_session
 
 #: the kinds fit in turn, with small parameters so that each fit takes milliseconds
@@ -48,7 +48,7 @@ def main(argv: list[str] | None = None) -> int:
     """Run the worker on ``argv`` (DATA TARGET SESSION N) and return the exit status."""
     args = sys.argv[1:] if argv is None else argv
     if len(args) != 4 or not args[3].isdigit():
-        print("usage: python -m stages.session_worker DATA TARGET SESSION N", file=sys.stderr)
+        print("usage: python -m stages.files.session_worker DATA TARGET SESSION N", file=sys.stderr)
         return 2
     try:
         return run(args[0], args[1], args[2], int(args[3]))

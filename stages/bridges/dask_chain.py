@@ -30,9 +30,9 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from .kinds import FitRequest, get_kind
-from .losses import get_loss
-from .schema import NUMERIC, ColumnInfo
+from ..kinds import FitRequest, get_kind
+from ..losses import get_loss
+from ..schema import NUMERIC, ColumnInfo
 
 SPLIT_SALT = 0x5EED_0001
 SAMPLE_SALT = 0x5EED_0002

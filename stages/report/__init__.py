@@ -1,0 +1,1 @@
+"""Second floor: reports over a chain, such as the stage table. Imports only the core."""
