@@ -19,6 +19,7 @@ from typing import Any
 from .chain import Chain
 from .errors import (
     ChainFileError,
+    ChainStateError,
     DataError,
     FitCancelled,
     RecipeError,
@@ -56,7 +57,7 @@ def __getattr__(name: str) -> Any:
 __all__ = [
     "Chain", "FittedChain", "StageSpec", "Holdout", "KFold", "TimeOrder", "GroupHoldout", "SplitColumn",
     "AllRows",
-    "RemnantError", "DataError", "ValidationSpecError", "StageSpecError", "StageFitError", "FitCancelled",
+    "RemnantError", "DataError", "ValidationSpecError", "StageSpecError", "ChainStateError", "StageFitError", "FitCancelled",
     "RecipeError", "ChainFileError", "SchemaError", "load", "ChainRegressor", "ChainClassifier",
     "read_recipe", "fit_recipe", "__version__",
 ]

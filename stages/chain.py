@@ -9,15 +9,15 @@ from __future__ import annotations
 
 import os
 import threading
-from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
 import pandas as pd
 
 from . import scoring
+from .chain_state import ChainState, Removal, StreamState, same_stream, seeded_streams
 from .data import Prepared, load_frame, prepare
-from .errors import RemnantError, StageSpecError
+from .errors import ChainStateError, RemnantError, StageSpecError
 from .fitting import FitContext, Stage, fit_stage
 from .kinds import get_kind
 from .kinds.base import ProgressFn
@@ -27,15 +27,6 @@ from .scoring import Scores
 from .spec import StageSpec
 from .tracks import build_layout
 from .validation import Holdout, ValidationSpec
-
-
-@dataclass(frozen=True)
-class Removal:
-    """An undoable removal: the stages before it and the random streams then."""
-
-    action: str
-    stages: tuple[Stage, ...]
-    scores: tuple[Scores, ...]
 
 
 class Chain:
@@ -53,6 +44,15 @@ class Chain:
         squared, absolute, huber or logloss; defaults to squared, or logloss for binary targets.
     seed : int
         Seeds the chain's one random stream.
+    data_path : str or path, optional
+        The data file the frame was read from (``from_file`` sets it); sessions and recipes refer to it.
+
+    State
+    -----
+    ``stages`` (a tuple: the chain changes only through its methods), one score per row, the undo
+    stack of removals, one random stream per track, and the test part's reveal. ``state()`` reads
+    them together; ``commit`` and ``restore`` put back stages fitted elsewhere. A lock guards them,
+    so a fit in one thread and a read in another never see half a change.
     """
 
     def __init__(
@@ -69,6 +69,7 @@ class Chain:
         positive: str | None = None,
         threshold: float = 0.5,
         source: str = "frame",
+        data_path: str | os.PathLike | None = None,
     ) -> None:
         self.validation = validation if validation is not None else Holdout()
         ignore = tuple(ignore) + tuple(c for c in self.validation.columns_used if c not in ignore)
@@ -89,12 +90,11 @@ class Chain:
         self.threshold = float(threshold)
         self.source = source
         self.ignore = tuple(ignore)
-        self.stages: list[Stage] = []
+        self.data_path = None if data_path is None else os.fspath(data_path)
+        self._stages: tuple[Stage, ...] = ()
         self._scores: list[Scores] = []
         self._removals: list[Removal] = []
-        self._rngs = [np.random.RandomState(self.seed)] + [
-            np.random.RandomState([self.seed, t]) for t in range(1, len(self.layout.tracks))
-        ]
+        self._rngs = seeded_streams(self.seed, len(self.layout.tracks))
         self._lock = threading.RLock()
         self.starts = tuple(
             self.loss.start(self.y[: track.n_rows][track.fit]) for track in self.layout.tracks
@@ -112,8 +112,7 @@ class Chain:
                   loss: str | None = None, **kwargs: Any) -> Chain:
         """Return a chain over the CSV or Parquet file at ``path``."""
         frame, name = load_frame(path)
-        chain = cls(frame, target, validation, loss, source=name, **kwargs)
-        chain.data_path = os.fspath(path)
+        chain = cls(frame, target, validation, loss, source=name, data_path=path, **kwargs)
         del frame  # the chain holds its own matrix; with the frame gone Arrow's pages can go back
         _release_arrow_pages()
         return chain
@@ -134,8 +133,23 @@ class Chain:
         """Return what the data preparation decided on the user's behalf, one line each."""
         return self.prepared.notes
 
+    @property
+    def stages(self) -> tuple[Stage, ...]:
+        """Return the fitted stages in order (a tuple: change the chain through its methods)."""
+        return self._stages
+
     def __len__(self) -> int:
-        return len(self.stages)
+        return len(self._stages)
+
+    def state(self) -> ChainState:
+        """Return the chain's stages, last outputs and scores, random streams, undo stack and test
+        reveal, read together under the chain's lock (so a fit in progress is waited for)."""
+        with self._lock:
+            return ChainState(
+                stages=self._stages, outputs=self.outputs(), scores=self.scores()[-1],
+                streams=tuple(rng.get_state() for rng in self._rngs), removals=tuple(self._removals),
+                test_revealed=self.test_revealed, reveal_count=self.reveal_count,
+            )
 
     def scores(self) -> list[Scores]:
         """Return the scores of every row: the start value, then each stage."""
@@ -148,10 +162,10 @@ class Chain:
     def outputs(self, row: int | None = None) -> tuple[np.ndarray, ...]:
         """Return each track's raw output after row ``row`` (0 is the start value; default the last)."""
         with self._lock:
-            row = len(self.stages) if row is None else row
-            if not 0 <= row <= len(self.stages):
-                raise StageSpecError(f"there is no stage {row}; the chain has {len(self.stages)}")
-            return self._start_outputs if row == 0 else self.stages[row - 1].outputs
+            row = len(self._stages) if row is None else row
+            if not 0 <= row <= len(self._stages):
+                raise StageSpecError(f"there is no stage {row}; the chain has {len(self._stages)}")
+            return self._start_outputs if row == 0 else self._stages[row - 1].outputs
 
     def best_row(self) -> int:
         """Return the row with the best validation score (0 is the start value)."""
@@ -173,7 +187,7 @@ class Chain:
             y, raw = scoring.validation_y(layout, self.y), scoring.validation_raw(layout, outputs)
         elif part == "test":
             if not self.test_revealed:
-                raise StageSpecError("the test part is locked; reveal it first")
+                raise ChainStateError("the test part is locked; reveal it first")
             y, raw = self.y[layout.test], outputs[0][layout.test]
         else:
             raise StageSpecError(f"unknown part {part!r} (train, valid or test)")
@@ -219,7 +233,7 @@ class Chain:
             scores = self.scores()
             stages = [
                 FittedStage(s.spec, s.params, s.learners[0], s.scale, s.feature_index, scores[i + 1].to_dict(), s.fit_seconds)
-                for i, s in enumerate(self.stages)
+                for i, s in enumerate(self._stages)
             ]
             return FittedChain(self.schema, self.loss, self.starts[0], stages, meta=self.describe(),
                                start_scores=scores[0].to_dict())
@@ -239,7 +253,7 @@ class Chain:
 
     def specs(self) -> list[StageSpec]:
         """Return the spec of every stage, in order."""
-        return [s.spec for s in self.stages]
+        return [s.spec for s in self._stages]
 
     # ----- changing -------------------------------------------------------------------------
     def _context(self) -> FitContext:
@@ -263,10 +277,15 @@ class Chain:
         return fitted
 
     def _commit(self, stages: list[Stage]) -> None:
+        self._stages = (*self._stages, *stages)
         for stage in stages:
-            self.stages.append(stage)
             self._scores.append(scoring.score_state(self.loss, self.layout, self.y, stage.outputs, self.threshold))
         self._relock()
+
+    def _truncate(self, keep: int) -> None:
+        """Keep the first ``keep`` stages and their scores."""
+        self._stages = self._stages[:keep]
+        del self._scores[keep:]
 
     def _relock(self) -> None:
         """Lock the test part again: a reveal holds for one chain state only."""
@@ -291,7 +310,7 @@ class Chain:
         for spec in specs:
             self.check_spec(spec)
         with self._lock:
-            new = self._fit_sequence(list(specs), self.outputs(), len(self.stages) + 1, cancel, progress)
+            new = self._fit_sequence(list(specs), self.outputs(), len(self._stages) + 1, cancel, progress)
             self._commit(new)
             self._removals.clear()
             return new
@@ -306,8 +325,25 @@ class Chain:
             except RemnantError as exc:
                 raise StageSpecError(f"stage {spec.kind!r}: {exc}") from None
 
+    def commit(self, stage: Stage, *, after: tuple[Stage, ...]) -> None:
+        """Append ``stage``, fitted elsewhere from the chain as it was with the stages ``after`` (an
+        audition's candidate), as the next stage with no refit; return None.
+
+        The random streams move on as that fit moved them and the undo stack is cleared, exactly as
+        ``add`` of the stage's spec would have left the chain. Raise ChainStateError when the chain
+        has changed since: other stages, or random streams other than the ones the stage drew from.
+        """
+        with self._lock:
+            same = (len(self._stages) == len(after) and all(a is b for a, b in zip(self._stages, after, strict=True))
+                    and all(same_stream(r.get_state(), s) for r, s in zip(self._rngs, stage.rng_before, strict=True)))
+            if not same:
+                raise ChainStateError("the chain changed since this stage was fit")
+            self._commit([stage])
+            self._removals.clear()
+            self._restore_streams(stage.rng_after)
+
     def _remember(self, action: str) -> None:
-        self._removals.append(Removal(action, tuple(self.stages), tuple(self._scores)))
+        self._removals.append(Removal(action, self._stages, tuple(self._scores)))
 
     def _restore_streams(self, states: tuple[Any, ...]) -> None:
         for rng, state in zip(self._rngs, states, strict=True):
@@ -316,11 +352,11 @@ class Chain:
     def step_back(self) -> Stage:
         """Remove the last stage without any refit and return it; the random stream rewinds with it."""
         with self._lock:
-            if not self.stages:
-                raise StageSpecError("the chain has no stage to step back from")
+            if not self._stages:
+                raise ChainStateError("the chain has no stage to step back from")
             self._remember("step back")
-            stage = self.stages.pop()
-            self._scores.pop()
+            stage = self._stages[-1]
+            self._truncate(len(self._stages) - 1)
             self._restore_streams(stage.rng_before)
             self._relock()
             return stage
@@ -328,24 +364,23 @@ class Chain:
     def drop(self, index: int, *, cancel: threading.Event | None = None, progress: ProgressFn | None = None) -> list[Stage]:
         """Remove stage ``index`` (1-based) and refit the stages after it on the new residuals; return the refits."""
         with self._lock:
-            if not 1 <= index <= len(self.stages):
-                raise StageSpecError(f"there is no stage {index}; the chain has {len(self.stages)}")
-            if index == len(self.stages):
+            if not 1 <= index <= len(self._stages):
+                raise StageSpecError(f"there is no stage {index}; the chain has {len(self._stages)}")
+            if index == len(self._stages):
                 self.step_back()
                 last = self._removals[-1]
                 self._removals[-1] = Removal("drop", last.stages, last.scores)
                 return []
             saved = [rng.get_state() for rng in self._rngs]
-            self._restore_streams(self.stages[index - 1].rng_before)
-            later = [s.spec for s in self.stages[index:]]
+            self._restore_streams(self._stages[index - 1].rng_before)
+            later = [s.spec for s in self._stages[index:]]
             try:
                 refits = self._fit_sequence(later, self.outputs(index - 1), index, cancel, progress)
             except BaseException:
                 self._restore_streams(tuple(saved))
                 raise
             self._remember("drop")
-            del self.stages[index - 1:]
-            del self._scores[index - 1:]
+            self._truncate(index - 1)
             self._commit(refits)
             return refits
 
@@ -353,15 +388,14 @@ class Chain:
         """Remove the stages after row ``row`` (default: the best validation score) and return them."""
         with self._lock:
             best = self.best_row() if row is None else row
-            if not 0 <= best <= len(self.stages):
-                raise StageSpecError(f"there is no stage {best}; the chain has {len(self.stages)}")
-            if best == len(self.stages):
+            if not 0 <= best <= len(self._stages):
+                raise StageSpecError(f"there is no stage {best}; the chain has {len(self._stages)}")
+            if best == len(self._stages):
                 return []
             self._remember("trim")
-            removed = self.stages[best:]
+            removed = list(self._stages[best:])
             self._restore_streams(removed[0].rng_before)
-            del self.stages[best:]
-            del self._scores[best:]
+            self._truncate(best)
             self._relock()
             return removed
 
@@ -373,16 +407,14 @@ class Chain:
         """Undo the last step back, drop or trim, restoring the exact earlier state; return what was undone."""
         with self._lock:
             if not self._removals:
-                raise StageSpecError("there is no removal to undo")
+                raise ChainStateError("there is no removal to undo")
             removal = self._removals.pop()
-            self.stages = list(removal.stages)
+            self._stages = removal.stages
             self._scores = list(removal.scores)
-            if self.stages:
-                self._restore_streams(self.stages[-1].rng_after)
+            if self._stages:
+                self._restore_streams(self._stages[-1].rng_after)
             else:
-                self._rngs = [np.random.RandomState(self.seed)] + [
-                    np.random.RandomState([self.seed, t]) for t in range(1, len(self.layout.tracks))
-                ]
+                self._rngs = seeded_streams(self.seed, len(self.layout.tracks))
             self._relock()
             return removal.action
 
@@ -390,8 +422,8 @@ class Chain:
         """Score every row on the locked test part and return the scores; the reveal is recorded."""
         with self._lock:
             if self.layout.n_test == 0:
-                raise StageSpecError("this chain has no locked test part (set test_fraction when choosing validation)")
-            rows = [self._start_outputs[0], *(s.outputs[0] for s in self.stages)]
+                raise ChainStateError("this chain has no locked test part (set test_fraction when choosing validation)")
+            rows = [self._start_outputs[0], *(s.outputs[0] for s in self._stages)]
             self._test = {i: scoring.test_scores(self.loss, self.layout, self.y, out, self.threshold)
                           for i, out in enumerate(rows)}
             self.test_revealed = True
@@ -487,10 +519,11 @@ class Chain:
 
         return calibration(self, part, bins, **options)
 
-    def _restore(self, stages: list[Stage], removals: list[tuple[str, list[Stage]]], streams: tuple[Any, ...],
-                 *, revealed: bool = False, reveals: int = 0) -> None:
-        """Put back stages fitted earlier (a restored session): rescore them, set the removal stack,
-        the random streams and the test reveals; return None."""
+    def restore(self, stages: list[Stage], removals: list[tuple[str, list[Stage]]], streams: tuple[StreamState, ...],
+                *, revealed: bool = False, reveals: int = 0) -> None:
+        """Put back stages fitted earlier on this chain's data (a restored session), with no refit:
+        rescore them, set the undo stack (``(action, stages)`` pairs, oldest first), the random
+        streams and the test reveals; return None."""
         with self._lock:
             scored: dict[int, Scores] = {}
 
@@ -500,8 +533,8 @@ class Chain:
                                                             self.threshold)
                 return scored[id(stage)]
 
-            self.stages = list(stages)
-            self._scores = [score(s) for s in self.stages]
+            self._stages = tuple(stages)
+            self._scores = [score(s) for s in self._stages]
             self._removals = [Removal(action, tuple(kept), tuple(score(s) for s in kept)) for action, kept in removals]
             self._restore_streams(streams)
             self._relock()

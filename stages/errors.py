@@ -19,6 +19,15 @@ class StageSpecError(RemnantError):
     """A stage spec is wrong: unknown kind, unknown parameter, bad shrinkage or feature."""
 
 
+class ChainStateError(StageSpecError):
+    """The chain's state does not allow the action now: no stage to step back from, nothing to
+    undo, the test part locked (or absent), or the chain changed since an audition.
+
+    A subclass of StageSpecError, which these were before the class existed, so that code
+    catching StageSpecError still catches them.
+    """
+
+
 class StageFitError(RemnantError):
     """A stage failed while fitting; the chain was left exactly as it was."""
 

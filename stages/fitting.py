@@ -69,7 +69,7 @@ def resolve_features(spec: StageSpec, schema: Schema) -> tuple[int, ...]:
         raise StageFitError(f"stage {spec.kind!r}: {exc}") from None
 
 
-def _rows(matrix: np.ndarray, rows: np.ndarray | slice, features: tuple[int, ...], n_all: int) -> np.ndarray:
+def feature_rows(matrix: np.ndarray, rows: np.ndarray | slice, features: tuple[int, ...], n_all: int) -> np.ndarray:
     """Return matrix[rows][:, features], as a view when that is possible."""
     block = matrix[rows]
     if features == tuple(range(n_all)):
@@ -147,7 +147,7 @@ def _fit_track(ctx, t, kind, spec, params, features, previous, cancel, progress)
     fit_raw = previous[track.fit]
     fit_y = ctx.y[: track.n_rows][track.fit]
     request = FitRequest(
-        X=_rows(ctx.matrix, track.fit, features, n_all), columns=ctx.schema.subset(list(features)),
+        X=feature_rows(ctx.matrix, track.fit, features, n_all), columns=ctx.schema.subset(list(features)),
         residual=ctx.loss.residual(fit_y, fit_raw), y=fit_y, raw=fit_raw, loss=ctx.loss,
         task=ctx.schema.task, random_state=ctx.rngs[t], cancel=cancel, progress=progress,
     )
@@ -157,7 +157,7 @@ def _fit_track(ctx, t, kind, spec, params, features, previous, cancel, progress)
     if kind.refines_leaves:
         kind.refine(learner, request)
     request.check_cancel()
-    output = np.asarray(learner.predict(_rows(ctx.matrix, slice(0, track.n_rows), features, n_all)), dtype=np.float64)
+    output = np.asarray(learner.predict(feature_rows(ctx.matrix, slice(0, track.n_rows), features, n_all)), dtype=np.float64)
     bad = int(np.count_nonzero(~np.isfinite(output)))
     if bad:
         raise StageFitError(f"{bad:,} of {len(output):,} predictions are not finite (NaN or infinite)")

@@ -84,9 +84,7 @@ def build_chain(owner: MessagePump, choices: SetupChoices, cache: ImportanceCach
         ctx.progress(0.0, "preparing the data")
         choices = held.pop()
         chain = stages.Chain(choices.frame, choices.target, choices.validation, choices.loss, seed=choices.seed,
-                             ignore=choices.ignore, source=choices.source)
-        if choices.data_path:
-            chain.data_path = choices.data_path
+                             ignore=choices.ignore, source=choices.source, data_path=choices.data_path or None)
         view = view_of_chain(chain, cache)
         return ChainReady(chain, view, session_error=ctx.save(chain))
 

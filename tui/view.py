@@ -201,7 +201,7 @@ def view_of_chain(chain: Any, cache: ImportanceCache) -> ChainView:
         n_test=layout.n_test,
         test_revealed=chain.test_revealed, reveals=chain.reveal_count, can_undo=chain.can_undo(),
         kfold=layout.is_kfold,
-        residuals=source, data_path=getattr(chain, "data_path", None),
+        residuals=source, data_path=chain.data_path,
     )
 
 

@@ -113,7 +113,7 @@ class FitRunner:
 
         Runs in the worker thread. A chain not read from a file has no session.
         """
-        if not self.sessions or getattr(chain, "data_path", None) is None:
+        if not self.sessions or chain.data_path is None:
             return ""
         try:
             sessions.save_session(chain)

@@ -26,7 +26,7 @@ import numpy as np
 import pandas as pd
 
 from .. import scoring
-from ..errors import FitCancelled, RemnantError, StageFitError, StageSpecError
+from ..errors import ChainStateError, FitCancelled, RemnantError, StageFitError, StageSpecError
 from ..fitting import FitContext, Stage, fit_stage
 from ..kinds import get_kind
 from ..kinds.base import ProgressFn
@@ -37,6 +37,7 @@ from ..spec import StageSpec
 
 if TYPE_CHECKING:
     from ..chain import Chain
+    from ..chain_state import ChainState
 
 #: more candidates than this in one audition is almost surely a typing slip in a grid
 MAX_CANDIDATES = 64
@@ -134,17 +135,12 @@ def audition(chain: Chain, specs: list[StageSpec | dict[str, Any]], *, cancel: t
         chain.check_spec(spec)
     if isinstance(workers, bool) or not isinstance(workers, int) or workers < 1:
         raise StageSpecError(f"workers must be a whole number of at least 1, not {workers!r}")
-    with chain._lock:
-        origin = tuple(chain.stages)
-        previous = chain.outputs()
-        streams = tuple(rng.get_state() for rng in chain._rngs)
-        base = chain.scores()[-1]
+    state = chain.state()
     report = _Progress(progress, len(expanded))
     workers = min(workers, len(expanded))
 
     def fit_one(i: int) -> Stage | str:
-        return _fit_candidate(chain, expanded[i], previous, streams, len(origin) + 1, workers, cancel,
-                              report.part(i, expanded[i].kind))
+        return _fit_candidate(chain, expanded[i], state, workers, cancel, report.part(i, expanded[i].kind))
 
     with ThreadPoolExecutor(max_workers=workers, thread_name_prefix="audition") as pool:
         futures = [pool.submit(fit_one, i) for i in range(len(expanded))]
@@ -153,18 +149,17 @@ def audition(chain: Chain, specs: list[StageSpec | dict[str, Any]], *, cancel: t
         raise FitCancelled("audition cancelled; the chain is as it was")
     if not any(isinstance(o, Stage) for o in outcomes):
         raise StageFitError(f"every candidate failed; the first: {outcomes[0]}")
-    return _candidates(chain, expanded, outcomes, base, origin)
+    return _candidates(chain, expanded, outcomes, state.scores, state.stages)
 
 
-def _fit_candidate(chain: Chain, spec: StageSpec, previous: tuple[np.ndarray, ...], streams: tuple[Any, ...],
-                   number: int, workers: int, cancel: threading.Event | None,
+def _fit_candidate(chain: Chain, spec: StageSpec, state: ChainState, workers: int, cancel: threading.Event | None,
                    progress: ProgressFn | None) -> Stage | str:
-    """Return ``spec`` fit from copies of ``streams``, or its one-line error; FitCancelled propagates."""
-    rngs = [_stream(state) for state in streams]
-    ctx = FitContext(chain.matrix, chain.y, chain.schema, chain.layout, chain.loss, rngs)
+    """Return ``spec`` fit from copies of the random streams of ``state``, or its one-line error;
+    FitCancelled propagates."""
+    ctx = FitContext(chain.matrix, chain.y, chain.schema, chain.layout, chain.loss, state.new_streams())
     try:
-        stage = fit_stage(ctx, _with_thread_share(spec, chain.task, workers), previous, number=number,
-                          cancel=cancel, progress=progress)
+        stage = fit_stage(ctx, _with_thread_share(spec, chain.task, workers), state.outputs,
+                          number=len(state.stages) + 1, cancel=cancel, progress=progress)
     except FitCancelled:
         raise
     except RemnantError as exc:
@@ -207,12 +202,6 @@ def _outcome(future: Any) -> Stage | str | FitCancelled:
         return exc
 
 
-def _stream(state: Any) -> np.random.RandomState:
-    rng = np.random.RandomState()
-    rng.set_state(state)
-    return rng
-
-
 def _candidates(chain: Chain, specs: list[StageSpec], outcomes: list[Any], base: Scores,
                 origin: tuple[Stage, ...]) -> list[Candidate]:
     """Return the candidates with their scores and residual histograms over shared edges."""
@@ -250,28 +239,19 @@ def _residuals(chain: Chain, outputs: tuple[np.ndarray, ...]) -> dict[str, np.nd
 def keep(chain: Chain, candidate: Candidate) -> Stage:
     """Commit ``candidate``'s fitted stage as the chain's next stage, with no refit, and return it.
 
-    Raises StageSpecError when the candidate failed, or when the chain has changed since the
-    audition (another stage added, removed or undone).
+    Raises StageSpecError when the candidate failed, and ChainStateError when the chain has
+    changed since the audition (another stage added, removed or undone).
     """
-    if not candidate.ok:
+    if not candidate.ok or candidate.stage is None:
         raise StageSpecError(f"candidate {candidate.spec.kind!r} failed ({candidate.error}); there is nothing to keep")
-    stage = candidate.stage
-    with chain._lock:
-        same = (
-            candidate.chain_id == id(chain) and len(chain.stages) == len(candidate.origin)
-            and all(a is b for a, b in zip(chain.stages, candidate.origin, strict=True))
-            and all(_same_state(r.get_state(), s) for r, s in zip(chain._rngs, stage.rng_before, strict=True))
-        )
-        if not same:
-            raise StageSpecError("the chain changed since this audition; audition again")
-        chain._commit([stage])
-        chain._removals.clear()
-        chain._restore_streams(stage.rng_after)
-    return stage
-
-
-def _same_state(a: tuple, b: tuple) -> bool:
-    return a[0] == b[0] and np.array_equal(a[1], b[1]) and tuple(a[2:]) == tuple(b[2:])
+    changed = ChainStateError("the chain changed since this audition; audition again")
+    if candidate.chain_id != id(chain):
+        raise changed
+    try:
+        chain.commit(candidate.stage, after=candidate.origin)
+    except ChainStateError:
+        raise changed from None
+    return candidate.stage
 
 
 def best_candidate(candidates: list[Candidate]) -> Candidate:

@@ -17,6 +17,7 @@ import numpy as np
 import pandas as pd
 
 from .. import scoring
+from ..chain_state import seeded_streams
 from ..errors import FitCancelled, StageFitError
 from ..fitting import FitContext, fit_stage
 from ..kinds.base import ProgressFn
@@ -66,9 +67,7 @@ def _row(chain: Chain, model: str, outputs: tuple[np.ndarray, ...], best: float,
 def linear_reference(chain: Chain) -> dict[str, Any]:
     """Return the row of the linear model alone: the chain's start plus one linear (logistic) stage."""
     kind = "logistic" if chain.task == "binary" else "linear"
-    rngs = [np.random.RandomState(chain.seed)] + [
-        np.random.RandomState([chain.seed, t]) for t in range(1, len(chain.layout.tracks))
-    ]
+    rngs = seeded_streams(chain.seed, len(chain.layout.tracks))
     ctx = FitContext(chain.matrix, chain.y, chain.schema, chain.layout, chain.loss, rngs)
     stage = fit_stage(ctx, StageSpec(kind), chain.outputs(0), number=1)
     return _row(chain, "linear alone", stage.outputs, float("nan"), stage.fit_seconds)

@@ -362,7 +362,7 @@ def recipe_of_chain(chain: Chain) -> Recipe:
             folded[-1][1] += 1
         else:
             folded.append([spec, 1])
-    path = getattr(chain, "data_path", None) or (None if chain.source == "frame" else chain.source)
+    path = chain.data_path or (None if chain.source == "frame" else chain.source)
     return Recipe(
         data_path=None if path is None else Path(path), target=schema.target, validation=chain.validation,
         stages=tuple((spec, n) for spec, n in folded), ignore=tuple(c for c in chain.ignore if c not in used),
@@ -403,16 +403,16 @@ def build_chain(recipe: Recipe, data: str | os.PathLike | pd.DataFrame | None = 
         raise RecipeError(f"{recipe.where('data')}: [data] has no 'path' (name the data file there or pass --data)")
     frame, name = load_frame(source)
     _check_columns(recipe, [str(c) for c in frame.columns], name)
+    data_path = os.fspath(source) if isinstance(source, str | os.PathLike) else None
     try:
         chain = Chain(frame, recipe.target, recipe.validation, recipe.loss, seed=recipe.seed,
                       ignore=recipe.ignore, features=None if recipe.features is None else list(recipe.features),
-                      task=recipe.task, positive=recipe.positive, threshold=recipe.threshold, source=name)
+                      task=recipe.task, positive=recipe.positive, threshold=recipe.threshold, source=name,
+                      data_path=data_path)
     except ValidationSpecError as err:
         raise RecipeError(f"{recipe.where('validation')}: {err}") from None
     except StageSpecError as err:
         raise RecipeError(f"{recipe.where('chain', 0, 'loss')}: {err}") from None
-    if isinstance(source, str | os.PathLike):
-        chain.data_path = os.fspath(source)
     _check_stage_features(recipe, chain)
     return chain
 

@@ -34,6 +34,7 @@ from typing import IO, Any
 import pandas as pd
 
 from ..chain import Chain
+from ..chain_state import ChainState
 from ..errors import ChainFileError, RemnantError
 from ..fitting import Stage
 from ..kinds.base import ProgressFn
@@ -133,15 +134,13 @@ def save_session(chain: Chain, path: str | os.PathLike | None = None) -> Path:
     SessionSaveError naming the file when it cannot be written; the previous file and the
     chain in memory are then untouched.
     """
-    data_path = getattr(chain, "data_path", None)
     if path is None:
-        if data_path is None:
+        if chain.data_path is None:
             raise SessionSaveError("the chain was not read from a file; name the session file to save it")
-        path = session_path(data_path)
+        path = session_path(chain.data_path)
     target = Path(os.fspath(path))
     try:
-        with chain._lock:
-            manifest, members = _snapshot(chain)
+        manifest, members = _snapshot(chain, chain.state())
     except RemnantError as exc:
         raise SessionSaveError(f"cannot write session file '{target}': {exc}") from None
     _prepare_folder(target)
@@ -166,7 +165,7 @@ def _prepare_folder(target: Path) -> None:
 
 def _chain_data(chain: Chain) -> dict[str, Any]:
     if chain not in _CHAIN_DATA:
-        data_path = getattr(chain, "data_path", None)
+        data_path = chain.data_path
         fingerprint = store.data_fingerprint(chain.matrix, chain.y, chain.layout.order)
         _CHAIN_DATA[chain] = {
             "data": None if data_path is None else data_reference(data_path),
@@ -175,12 +174,12 @@ def _chain_data(chain: Chain) -> dict[str, Any]:
     return _CHAIN_DATA[chain]
 
 
-def _snapshot(chain: Chain) -> tuple[dict[str, Any], dict[str, bytes]]:
-    """Return the session manifest and its artifact members for the chain as it is now."""
+def _snapshot(chain: Chain, state: ChainState) -> tuple[dict[str, Any], dict[str, bytes]]:
+    """Return the session manifest and its artifact members for the chain in ``state``."""
     ids: dict[int, int] = {}
     previous: dict[int, int | None] = {}
     order: list[Stage] = []
-    lists = [list(chain.stages)] + [list(r.stages) for r in chain._removals]
+    lists = [list(state.stages)] + [list(r.stages) for r in state.removals]
     for stages in lists:
         for i, stage in enumerate(stages):
             if id(stage) not in ids:
@@ -190,8 +189,8 @@ def _snapshot(chain: Chain) -> tuple[dict[str, Any], dict[str, bytes]]:
     states: dict[bytes, int] = {}
     table: list[list[Any]] = []
 
-    def state_id(state: Any) -> int:
-        encoded = encode_state(state)
+    def state_id(stream: Any) -> int:
+        encoded = encode_state(stream)
         key = json.dumps(encoded).encode()
         if key not in states:
             states[key] = len(table)
@@ -218,9 +217,9 @@ def _snapshot(chain: Chain) -> tuple[dict[str, Any], dict[str, bytes]]:
         "saved": datetime.now(UTC).isoformat(timespec="seconds"), "versions": store.library_versions(),
         **_chain_data(chain), "columns": _columns(chain), "loss": chain.loss.name,
         "validation": chain.validation.to_dict(), "seed": chain.seed,
-        "test": {"revealed": chain.test_revealed, "reveals": chain.reveal_count},
-        "streams": [state_id(rng.get_state()) for rng in chain._rngs], "current": [ids[id(s)] for s in chain.stages],
-        "removals": [{"action": r.action, "stages": [ids[id(s)] for s in r.stages]} for r in chain._removals],
+        "test": {"revealed": state.test_revealed, "reveals": state.reveal_count},
+        "streams": [state_id(s) for s in state.streams], "current": [ids[id(s)] for s in state.stages],
+        "removals": [{"action": r.action, "stages": [ids[id(s)] for s in r.stages]} for r in state.removals],
         "stages": entries, "states": table,
     }
     return store.json_ready(manifest), members
@@ -291,15 +290,14 @@ def _rebuild(manifest: dict[str, Any], source: Any, name: str) -> Chain:
                     "task": str(columns["task"]), "positive": columns["positive"],
                     "threshold": float(columns["threshold"]), "source": data_name}
         target, features = str(columns["target"]), [str(c) for c in columns["features"]]
+    data_path = os.fspath(source) if isinstance(source, str | os.PathLike) else None
     try:
-        chain = Chain(frame, target, **settings)
+        chain = Chain(frame, target, data_path=data_path, **settings)
         if chain.schema.to_dict() != columns["schema"]:
-            chain = Chain(frame, target, features=features, **settings)
+            chain = Chain(frame, target, features=features, data_path=data_path, **settings)
     except Exception as exc:  # settings that do not fit this data: a damaged session or changed data
         reason = " ".join(str(exc).split()) or type(exc).__name__
         raise SessionError(f"{name}: the session's settings do not apply to {data_name} ({reason})") from None
-    if isinstance(source, str | os.PathLike):
-        chain.data_path = os.fspath(source)
     return chain
 
 

@@ -23,7 +23,7 @@ from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
-from ..fitting import Stage, _rows, resolve_features
+from ..fitting import Stage, feature_rows, resolve_features
 from ..kinds import get_kind
 from ..kinds.base import Artifact
 from ..reading import source_name
@@ -165,7 +165,7 @@ def restore_stages(chain: Chain, manifest: dict[str, Any], read: ReadMember, nam
         if entry["id"] != position:
             raise ValueError(f"stage ids are not in order (entry {position} has id {entry['id']!r})")
         previous = entry["previous"]
-        before = chain._start_outputs if previous is None else _pick(built, previous, position).outputs
+        before = chain.outputs(0) if previous is None else _pick(built, previous, position).outputs
         built.append(_restore_stage(chain, entry, before, states, read, name, drifted))
     current = _stage_list(built, manifest["current"], manifest["stages"])
     removals = [(str(r["action"]), _stage_list(built, r["stages"], manifest["stages"])) for r in manifest["removals"]]
@@ -173,7 +173,7 @@ def restore_stages(chain: Chain, manifest: dict[str, Any], read: ReadMember, nam
     if len(streams) != len(chain.layout.tracks):
         raise ValueError("the session has the wrong number of random streams")
     test = manifest["test"]
-    chain._restore(current, removals, streams, revealed=bool(test["revealed"]), reveals=int(test["reveals"]))
+    chain.restore(current, removals, streams, revealed=bool(test["revealed"]), reveals=int(test["reveals"]))
 
 
 def _restore_stage(chain: Chain, entry: dict[str, Any], before: tuple[np.ndarray, ...], states: list[Any],
@@ -195,7 +195,7 @@ def _restore_stage(chain: Chain, entry: dict[str, Any], before: tuple[np.ndarray
             raise ValueError(f"artifact format {item['fmt']!r} is not one remnant writes")
         artifact = Artifact(item["fmt"], read(item["member"], item["sha256"]), dict(item.get("meta") or {}))
         learner = kind.load(artifact)
-        rows = _rows(chain.matrix, slice(0, tracks[t].n_rows), features, len(chain.schema.columns))
+        rows = feature_rows(chain.matrix, slice(0, tracks[t].n_rows), features, len(chain.schema.columns))
         output = np.asarray(learner.predict(rows), dtype=np.float64)
         if output.shape != (tracks[t].n_rows,) or not np.isfinite(output).all():
             raise ValueError(f"stage {spec.kind!r} does not predict one finite value per row")

@@ -24,7 +24,7 @@ from stages.scoring import Scores
 def _state(chain: stages.Chain) -> tuple:
     """Return what makes up a chain's observable state: length, stage objects, outputs, streams."""
     outputs = tuple(o.copy() for o in chain.outputs())
-    streams = tuple(r.get_state()[1].copy() for r in chain._rngs)
+    streams = tuple(s[1].copy() for s in chain.state().streams)
     return len(chain), tuple(chain.stages), outputs, streams
 
 
@@ -40,8 +40,8 @@ def _assert_same_state(a: tuple, b: tuple) -> None:
 def _assert_same_outputs(a: stages.Chain, b: stages.Chain) -> None:
     for x, y in zip(a.outputs(), b.outputs(), strict=True):
         assert np.array_equal(x, y)
-    for x, y in zip(a._rngs, b._rngs, strict=True):
-        assert np.array_equal(x.get_state()[1], y.get_state()[1])
+    for x, y in zip(a.state().streams, b.state().streams, strict=True):
+        assert np.array_equal(x[1], y[1])
 
 
 def _diabetes_chain(frame, validation=None) -> stages.Chain:

@@ -15,7 +15,7 @@ def _state(chain: stages.Chain) -> tuple:
     """Return everything that makes up a chain's observable state."""
     table = chain.table()
     outputs = tuple(o.copy() for o in chain.outputs())
-    rng = tuple(r.get_state()[1].copy() for r in chain._rngs)
+    rng = tuple(s[1].copy() for s in chain.state().streams)
     return len(chain), table.to_dict(), outputs, rng
 
 

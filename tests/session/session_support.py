@@ -40,9 +40,9 @@ def chain_state(chain: stages.Chain) -> dict:
     return {
         "stages": [stage_state(s) for s in chain.stages],
         "scores": [s.to_dict() for s in chain.scores()],
-        "streams": [r.get_state() for r in chain._rngs],
+        "streams": list(chain.state().streams),
         "removals": [(r.action, [stage_state(s) for s in r.stages], [s.to_dict() for s in r.scores])
-                     for r in chain._removals],
+                     for r in chain.state().removals],
         "table": chain.table(),
         "test": (chain.test_revealed, chain.reveal_count),
         "settings": chain.describe(), "schema": chain.schema, "notes": chain.notes, "starts": chain.starts,
