@@ -46,3 +46,7 @@ class ChainFileError(RemnantError):
 
 class SchemaError(RemnantError):
     """Data given for prediction does not match the schema the chain was fit on."""
+
+
+class OutputError(RemnantError):
+    """An output file cannot be written: not a regular file, another writer holds it, or a full disk."""
