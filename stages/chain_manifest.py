@@ -1,0 +1,102 @@
+"""The schema of a chain file's ``manifest.json``: every key, its type, its range and its size.
+
+``check_manifest`` is called on every manifest before any of it is used, so a manifest edited by
+a stranger (types swapped, numbers out of range, lists made huge, values nested deep) is refused
+with a line naming the key. A new manifest key needs its line here, or loading refuses it.
+"""
+
+from __future__ import annotations
+
+import math
+from typing import Any
+
+from . import limits
+from .errors import ChainFileError
+from .kinds.base import Artifact
+from .manifest_schema import (
+    ManifestMismatch,
+    flag,
+    items,
+    json_value,
+    mapping,
+    nullable,
+    number,
+    table,
+    text,
+    whole,
+)
+from .schema import FEATURE_ROLES
+
+TASKS = ("regression", "binary", "multiclass")
+_NAME = text(4096)
+_SHA256 = text(64, pattern="[0-9a-f]{64}")
+_SCORE_TABLE = mapping(nullable(number()), max_items=64, max_key_length=64)
+SCORES = table({}, {"train": _SCORE_TABLE, "valid": _SCORE_TABLE, "test": _SCORE_TABLE,
+                    "fold_valid": items(nullable(number()), limits.MAX_FOLDS)})
+COLUMN = table({"name": _NAME, "role": text(32, choices=FEATURE_ROLES), "dtype": text(64)},
+               {"levels": items(text(4096), limits.MAX_LEVELS)})
+SCHEMA = table({"target": _NAME, "columns": items(COLUMN, limits.MAX_COLUMNS, min_items=1)},
+               {"task": text(32, choices=TASKS), "classes": items(text(4096), limits.MAX_CLASSES)})
+PARAMS = mapping(json_value(limits.MAX_NESTING, 1_000_000), max_items=1_000)
+SPEC = table({"kind": text(512)}, {"shrinkage": number(0, 1), "features": items(_NAME, limits.MAX_COLUMNS),
+                                   "params": PARAMS})
+MEMBER = text(512)
+STAGE = table(
+    {"index": whole(1, limits.MAX_STAGES), "kind": text(512), "spec": SPEC, "params": PARAMS,
+     "scale": number(), "features": items(_NAME, limits.MAX_COLUMNS, min_items=1),
+     "feature_index": items(whole(0, limits.MAX_COLUMNS - 1), limits.MAX_COLUMNS, min_items=1),
+     "member": MEMBER, "sha256": _SHA256, "fmt": text(16, choices=tuple(Artifact.SUFFIX))},
+    {"scores": SCORES, "fit_seconds": number(0), "meta": mapping(json_value(limits.MAX_NESTING, 10_000_000), 64),
+     "size": whole(0, limits.MAX_MEMBER_BYTES)},
+)
+PROBE = table({"member": MEMBER, "rows": whole(1, 100_000), "sha256": _SHA256},
+              {"size": whole(0, limits.MAX_MEMBER_BYTES)})
+_COUNT = whole(0, 2**53)
+MANIFEST = table(
+    {"format": text(64), "format_version": whole(1, 2**31), "task": text(32, choices=TASKS), "loss": text(64),
+     "start": number(), "schema": SCHEMA, "stages": items(STAGE, limits.MAX_STAGES)},
+    {"created": nullable(text(64)), "versions": nullable(mapping(nullable(text(128)), 64)),
+     "threshold": nullable(number(0, 1)), "validation": nullable(mapping(json_value(2, 64), 16)),
+     "seed": nullable(whole(0, limits.MAX_SEED)), "rows": nullable(table({}, {"train": _COUNT, "valid": _COUNT,
+                                                                              "test": _COUNT})),
+     "test_revealed": nullable(flag()), "test_reveals": nullable(whole(0, 2**31)), "source": nullable(text(4096)),
+     "ignore": nullable(items(_NAME, limits.MAX_COLUMNS)),
+     "data": nullable(table({"rows": _COUNT, "columns": _COUNT, "sha256": _SHA256})),
+     "start_scores": nullable(SCORES), "probe": nullable(PROBE)},
+)
+
+
+def check_manifest(manifest: Any, path: str) -> None:
+    """Raise ChainFileError naming ``path`` and the key unless ``manifest`` fits the schema and agrees with itself."""
+    try:
+        MANIFEST(manifest, "")
+    except ManifestMismatch as exc:
+        raise ChainFileError(f"{path}: chain file is damaged: its manifest does not fit the format ({exc})") from None
+    schema = manifest["schema"]
+    task = schema.get("task", "regression")
+    if manifest["task"] != task:
+        raise ChainFileError(f"{path}: manifest task {manifest['task']!r} does not match its schema")
+    classes = len(schema.get("classes", ()))
+    expected = {"regression": (0,), "binary": (2,)}.get(task)
+    if (expected is not None and classes not in expected) or (task == "multiclass" and classes < 3):
+        raise ChainFileError(f"{path}: manifest schema of a {task} chain lists {classes} classes")
+    names = [column["name"] for column in schema["columns"]]
+    if len(set(names)) != len(names):
+        raise ChainFileError(f"{path}: manifest schema names a feature twice")
+    if manifest.get("validation") is not None:
+        _check_validation(manifest["validation"], path)
+    for number_, entry in enumerate(manifest["stages"], start=1):
+        if entry["index"] != number_:
+            raise ChainFileError(f"{path}: stage {number_} in the manifest says it is stage {entry['index']}")
+        if not math.isfinite(entry["scale"]):
+            raise ChainFileError(f"{path}: stage {number_} has no finite scale")
+
+
+def _check_validation(spec: dict[str, Any], path: str) -> None:
+    from .validation import spec_from_dict
+
+    try:
+        spec_from_dict(dict(spec))
+    except Exception as exc:  # any spec the validation module cannot read is damage
+        raise ChainFileError(f"{path}: manifest validation is not a scheme remnant knows "
+                             f"({' '.join(str(exc).split())[:200]})") from None
