@@ -51,11 +51,16 @@ class FitRequest:
 
 @dataclass(frozen=True)
 class Artifact:
-    """A fitted learner in a safe, data-only form: ``fmt`` is one of json, npz, lgb, skops."""
+    """A fitted learner in a safe, data-only form: ``fmt`` is one of json, npz, lgb, skops.
+
+    ``n_features`` is set when an artifact is read back from a file: the number of feature
+    columns the stage reads, so that ``load`` can refuse a learner built for another width.
+    """
 
     fmt: str
     payload: bytes
     meta: dict[str, Any] = field(default_factory=dict)
+    n_features: int | None = field(default=None, compare=False)
 
     SUFFIX: ClassVar[dict[str, str]] = {"json": ".json", "npz": ".npz", "lgb": ".txt", "skops": ".skops"}
 

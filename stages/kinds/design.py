@@ -15,13 +15,15 @@ schema's float64 matrix into a dense design matrix:
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
 
 from ..errors import ChainFileError
-from ..schema import BOOLEAN, CATEGORICAL, ColumnInfo
+from ..limits import MAX_COLUMNS, MAX_LEVELS
+from ..schema import BOOLEAN, CATEGORICAL, NUMERIC, ColumnInfo
 
 
 @dataclass(frozen=True)
@@ -58,13 +60,23 @@ class ColumnStep:
 
     @classmethod
     def from_dict(cls, data: dict[str, Any]) -> ColumnStep:
-        """Return the step described by ``data`` (the output of ``to_dict``)."""
-        if data["role"] == CATEGORICAL:
-            return cls(CATEGORICAL, codes=tuple(int(c) for c in data["codes"]))
-        return cls(
-            str(data["role"]), median=float(data["median"]), mean=float(data["mean"]),
-            std=float(data["std"]), indicator=bool(data["indicator"]),
-        )
+        """Return the step described by ``data`` (the output of ``to_dict``); raise ValueError when a
+        value is of the wrong type or out of range (a file may come from a stranger)."""
+        role = data["role"]
+        if role == CATEGORICAL:
+            codes = data["codes"]
+            if not isinstance(codes, list) or len(codes) > MAX_LEVELS or not all(
+                    isinstance(c, int) and not isinstance(c, bool) and 0 <= c < MAX_LEVELS for c in codes):
+                raise ValueError("category codes must be a list of level numbers")
+            return cls(CATEGORICAL, codes=tuple(codes))
+        if role not in (NUMERIC, BOOLEAN):
+            raise ValueError(f"unknown column role {str(role)[:40]!r}")
+        numbers = [data["median"], data["mean"], data["std"]]
+        if not all(isinstance(v, int | float) and not isinstance(v, bool) and math.isfinite(v) for v in numbers) \
+                or not data["std"] > 0 or not isinstance(data["indicator"], bool):
+            raise ValueError("a numeric step needs a finite median and mean, a positive std and a true/false indicator")
+        return cls(role, median=float(data["median"]), mean=float(data["mean"]), std=float(data["std"]),
+                   indicator=data["indicator"])
 
 
 def impute_median(values: np.ndarray, missing: np.ndarray | None = None) -> tuple[np.ndarray, float]:
@@ -164,7 +176,10 @@ class LinearDesign:
     def from_dict(cls, data: dict[str, Any]) -> LinearDesign:
         """Return the design described by ``data``; raise ChainFileError when it is malformed."""
         try:
-            return cls([ColumnStep.from_dict(step) for step in data["steps"]])
+            steps = data["steps"]
+            if not isinstance(steps, list) or not 0 < len(steps) <= MAX_COLUMNS:
+                raise ValueError("steps must be a list with one step per input column")
+            return cls([ColumnStep.from_dict(step) for step in steps])
         except (KeyError, TypeError, ValueError) as exc:
             raise ChainFileError(f"stage design is not valid ({exc!r})") from None
 

@@ -18,6 +18,7 @@ from typing import Any, ClassVar
 import numpy as np
 
 from ..errors import ChainFileError, StageSpecError
+from ..tree_structure import check_fitted_estimator
 from . import register, skops_io
 from .base import Artifact, FitRequest, StageKind, check_has_features
 
@@ -87,15 +88,17 @@ class ForestKind(StageKind):
         return forest
 
     def save(self, learner: Any) -> Artifact:
-        """Return the forest as a skops artifact."""
+        """Return the forest as a skops artifact, the exact types it holds in ``meta``."""
         learner.random_state = None  # the chain's stream is not part of the fitted model
-        return Artifact("skops", skops_io.dump(learner))
+        payload, types = skops_io.dump(learner)
+        return Artifact("skops", payload, {"types": types})
 
     def load(self, artifact: Artifact) -> Any:
-        """Return the forest stored in ``artifact``; raise ChainFileError for an untrusted payload."""
-        learner = skops_io.load(artifact.payload)
+        """Return the forest stored in ``artifact``; raise ChainFileError for an untrusted payload or an unsound tree."""
+        learner = skops_io.load(artifact.payload, recorded=artifact.meta.get("types"), n_features=artifact.n_features)
         if type(learner) is not self.estimator_class():
             raise ChainFileError(f"{self.name} stage artifact holds a {type(learner).__name__}, not a forest")
+        check_fitted_estimator(learner, artifact.n_features, f"{self.name} stage artifact")
         return learner
 
     def importance(self, learner: Any, columns) -> np.ndarray:

@@ -88,8 +88,10 @@ class KnnKind(StageKind):
             params = {**self.defaults, **dict(artifact.meta["params"])}
         except (OSError, ValueError, KeyError, TypeError) as exc:
             raise ChainFileError(f"knn stage artifact is not valid ({exc!r})") from None
-        if matrix.ndim != 2 or matrix.shape != (len(target), design.width):
+        if matrix.ndim != 2 or matrix.shape != (len(target), design.width) or target.ndim != 1:
             raise ChainFileError("knn stage artifact: stored rows do not match its design")
+        if artifact.n_features is not None and len(design.steps) != artifact.n_features:
+            raise ChainFileError(f"knn stage artifact's design does not read the stage's {artifact.n_features} features")
         unknown = sorted(set(params) - set(self.defaults))
         if unknown:
             raise ChainFileError(f"knn stage artifact has an unknown parameter {unknown[0]!r}")

@@ -20,6 +20,7 @@ from typing import Any, ClassVar
 import numpy as np
 
 from ..errors import ChainFileError, StageFitError, StageSpecError
+from ..lightgbm_text import check_model_text, quiet_native_log
 from . import register
 from .base import Artifact, FitRequest, StageKind, check_has_features
 from .binned import BIN_SEED, binned
@@ -235,11 +236,20 @@ class BoosterKind(StageKind):
 
         importance = artifact.meta.get("importance_type", "gain")
         if importance not in IMPORTANCE_TYPES:
-            raise ChainFileError(f"{self.name} stage artifact has an unknown importance type {importance!r}")
+            raise ChainFileError(f"{self.name} stage artifact has an unknown importance type {str(importance)[:40]!r}")
+        if artifact.fmt != "lgb":
+            raise ChainFileError(f"{self.name} stage artifact must be LightGBM model text, not {artifact.fmt}")
         try:
-            booster = lightgbm.Booster(model_str=artifact.payload.decode("utf-8"))
-        except (UnicodeDecodeError, lightgbm.basic.LightGBMError) as exc:
-            raise ChainFileError(f"{self.name} stage artifact is not a LightGBM model ({exc})") from None
+            text = artifact.payload.decode("utf-8")
+        except UnicodeDecodeError:
+            raise ChainFileError(f"{self.name} stage artifact is not a LightGBM model (not UTF-8 text)") from None
+        # LightGBM walks the text without bounds checks: every structure is checked first
+        check_model_text(text, artifact.n_features, f"{self.name} stage artifact")
+        try:
+            with quiet_native_log():
+                booster = lightgbm.Booster(model_str=text)
+        except lightgbm.basic.LightGBMError as exc:
+            raise ChainFileError(f"{self.name} stage artifact is not a LightGBM model ({' '.join(str(exc).split())[:200]})") from None
         return BoosterLearner(booster, importance_type=importance)
 
     def importance(self, learner: BoosterLearner, columns) -> np.ndarray:

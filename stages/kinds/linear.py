@@ -14,6 +14,7 @@ from typing import Any, ClassVar, Protocol
 import numpy as np
 
 from ..errors import ChainFileError, StageFitError, StageSpecError
+from ..manifest_schema import strict_json
 from . import register
 from .base import Artifact, FitRequest, StageKind, check_has_features
 from .design import LinearDesign, group_sum
@@ -148,14 +149,26 @@ def read_linear(artifact: Artifact, estimator: str) -> tuple[dict[str, Any], np.
     if artifact.fmt != "json":
         raise ChainFileError(f"{estimator} stage artifact must be json, not {artifact.fmt}")
     try:
-        body = json.loads(artifact.payload)
+        body = strict_json(artifact.payload)
         found = body["estimator"]
-        coef = np.asarray([float(c) for c in body["coef"]], dtype=np.float64)
-        design, intercept = body["design"], float(body["intercept"])
-    except (ValueError, KeyError, TypeError) as exc:
-        raise ChainFileError(f"{estimator} stage artifact is not valid ({exc!r})") from None
+        values = body["coef"]
+        if not isinstance(values, list) or not all(isinstance(c, int | float) and not isinstance(c, bool) for c in values):
+            raise TypeError("coef must be a list of numbers")
+        coef = np.asarray(values, dtype=np.float64)
+        design, intercept = body["design"], body["intercept"]
+        if isinstance(intercept, bool) or not isinstance(intercept, int | float):
+            raise TypeError("intercept must be a number")
+        intercept = float(intercept)
+    except (ValueError, KeyError, TypeError, RecursionError) as exc:
+        raise ChainFileError(f"{estimator} stage artifact is not valid ({type(exc).__name__}: "
+                             f"{' '.join(str(exc).split())[:200]})") from None
     if found != estimator:
-        raise ChainFileError(f"{estimator} stage artifact was written by kind {found!r}")
+        raise ChainFileError(f"{estimator} stage artifact was written by kind {str(found)[:60]!r}")
+    if not np.isfinite(coef).all() or not np.isfinite(intercept):
+        raise ChainFileError(f"{estimator} stage artifact has a coefficient that is not a finite number")
+    if artifact.n_features is not None and (not isinstance(design, dict) or not isinstance(design.get("steps"), list)
+                                            or len(design["steps"]) != artifact.n_features):
+        raise ChainFileError(f"{estimator} stage artifact's design does not read the stage's {artifact.n_features} features")
     return design, coef, intercept
 
 

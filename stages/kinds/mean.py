@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import json
+import math
 from dataclasses import dataclass
 from typing import Any, ClassVar
 
@@ -49,9 +50,12 @@ class MeanKind(StageKind):
     def load(self, artifact: Artifact) -> Constant:
         """Return the constant stored in ``artifact``."""
         try:
-            return Constant(float(json.loads(artifact.payload)["value"]))
-        except (ValueError, KeyError, TypeError) as exc:
-            raise ChainFileError(f"mean stage artifact is not valid ({exc})") from None
+            value = json.loads(artifact.payload)["value"]
+            if isinstance(value, bool) or not isinstance(value, int | float) or not math.isfinite(value):
+                raise ValueError("the value is not a finite number")
+            return Constant(float(value))
+        except (ValueError, KeyError, TypeError, RecursionError) as exc:
+            raise ChainFileError(f"mean stage artifact is not valid ({' '.join(str(exc).split())[:200]})") from None
 
 
 register(MeanKind())

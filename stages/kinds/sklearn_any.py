@@ -1,27 +1,27 @@
 """The ``sklearn:<module>.<Class>`` kinds: any scikit-learn regressor, named by its import path.
 
 The regressor is fit to the residuals on the shared linear design (imputed, standardised,
-one-hot). Its artifact is skops; on load only the regressor's own class and the scikit-learn,
-NumPy and SciPy types skops reports are trusted, anything else is refused.
+one-hot). Its artifact is skops holding exactly the regressor's class and the types listed in
+``sklearn_types``; the types are recorded when it is saved and checked on load before anything
+is built, and the trees and support vectors inside are checked before anything predicts.
 """
 
 from __future__ import annotations
 
-import importlib
 import inspect
+import sys
 from dataclasses import dataclass
 from typing import Any, ClassVar
 
 import numpy as np
 
 from ..errors import ChainFileError, StageSpecError
+from ..tree_structure import check_fitted_estimator
 from . import SKLEARN_PREFIX, skops_io
 from .base import Artifact, FitRequest, StageKind, check_has_features
 from .design import LinearDesign, group_sum
 from .linear import fit_estimator
-
-#: modules whose types a skops artifact of this kind may hold besides the regressor itself
-TRUSTED_MODULE_PREFIXES = ("sklearn.", "numpy.", "scipy.")
+from .sklearn_types import allowed_types, listed_regressor, listed_regressors
 
 _SCALARS = (bool, int, float, str, type(None))
 
@@ -41,29 +41,27 @@ class SklearnModel:
 
 
 def import_regressor(path: str) -> type:
-    """Return the regressor class at ``path`` (``sklearn.<module>.<Class>``); raise StageSpecError otherwise."""
-    from sklearn.base import is_regressor
+    """Return the regressor class at ``path`` (``sklearn.<module>.<Class>``); raise StageSpecError otherwise.
 
+    The class is looked up among the regressors scikit-learn lists, never imported from ``path``.
+    """
     module_name, _, class_name = path.rpartition(".")
     if not module_name.startswith("sklearn.") or not class_name:
         raise StageSpecError(
             f"only scikit-learn regressors can be named by path; {path!r} is not in scikit-learn "
             f"(write {SKLEARN_PREFIX}sklearn.<module>.<Class>, e.g. {SKLEARN_PREFIX}sklearn.svm.SVR)"
         )
-    try:
-        module = importlib.import_module(module_name)
-    except ImportError:
-        raise StageSpecError(f"scikit-learn has no module {module_name!r} (in kind {SKLEARN_PREFIX}{path})") from None
-    cls = getattr(module, class_name, None)
-    if not inspect.isclass(cls):
+    cls = listed_regressor(path)
+    if cls is not None:
+        return cls
+    listed_regressors()  # imports scikit-learn's modules, so that the checks below see them
+    module = sys.modules.get(module_name)
+    if module is None:
+        raise StageSpecError(f"scikit-learn has no module {module_name!r} (in kind {SKLEARN_PREFIX}{path})")
+    if not inspect.isclass(getattr(module, class_name, None)):
         raise StageSpecError(f"scikit-learn module {module_name!r} has no class {class_name!r}")
-    try:
-        instance = cls()
-    except Exception:
-        raise StageSpecError(f"{path!r} cannot be built without arguments, so it cannot be a stage") from None
-    if not is_regressor(instance):
-        raise StageSpecError(f"{path!r} is not a regressor (a stage fits residuals, so it needs one)")
-    return cls
+    raise StageSpecError(f"{path!r} is not a regressor (a stage fits residuals, so it needs one of "
+                         "the regressors scikit-learn lists)")
 
 
 def class_path(cls: type) -> str:
@@ -122,33 +120,29 @@ class SklearnKind(StageKind):
         return SklearnModel(design, estimator)
 
     def save(self, learner: SklearnModel) -> Artifact:
-        """Return the estimator as skops, with the design and the class path in ``meta``."""
-        meta = {"design": learner.design.to_dict(), "estimator": self.path}
-        return Artifact("skops", skops_io.dump(learner.estimator), meta)
+        """Return the estimator as skops, with the design, the class path and the exact types it holds in ``meta``."""
+        payload, types = skops_io.dump(learner.estimator, allowed_types(self.cls))
+        meta = {"design": learner.design.to_dict(), "estimator": self.path, "types": types}
+        return Artifact("skops", payload, meta)
 
     def load(self, artifact: Artifact) -> SklearnModel:
-        """Return the model in ``artifact``; raise ChainFileError for an untrusted type or another class."""
+        """Return the model in ``artifact``; raise ChainFileError for an untrusted type, another class or
+        a structure that does not fit its design (checked before anything is built or run)."""
         if artifact.fmt != "skops":
             raise ChainFileError(f"{self.name} stage artifact must be skops, not {artifact.fmt}")
-        estimator = skops_io.load(artifact.payload, self.trusted_types(artifact.payload))
-        if type(estimator) is not self.cls:
-            raise ChainFileError(f"{self.name} stage artifact holds a {type(estimator).__name__}, not a {self.cls.__name__}")
         try:
             design = LinearDesign.from_dict(artifact.meta["design"])
-        except (KeyError, TypeError) as exc:
+        except (KeyError, TypeError, ValueError) as exc:
             raise ChainFileError(f"{self.name} stage artifact has no valid design ({exc!r})") from None
+        if artifact.n_features is not None and len(design.steps) != artifact.n_features:
+            raise ChainFileError(f"{self.name} stage artifact's design reads {len(design.steps)} features, "
+                                 f"not the stage's {artifact.n_features}")
+        estimator = skops_io.load(artifact.payload, allowed_types(self.cls), recorded=artifact.meta.get("types"),
+                                  n_features=design.width)
+        if type(estimator) is not self.cls:
+            raise ChainFileError(f"{self.name} stage artifact holds a {type(estimator).__name__}, not a {self.cls.__name__}")
+        check_fitted_estimator(estimator, design.width, f"{self.name} stage artifact")
         return SklearnModel(design, estimator)
-
-    def trusted_types(self, payload: bytes) -> tuple[str, ...]:
-        """Return the types to trust in ``payload``: this kind's class and scikit-learn, NumPy, SciPy types."""
-        import skops.io as sio
-
-        try:
-            found = sio.get_untrusted_types(data=payload)
-        except Exception as exc:  # skops raises several kinds on damaged data
-            raise ChainFileError(f"{self.name} stage artifact is not a readable skops file ({exc})") from None
-        internal = [t for t in found if t.startswith(TRUSTED_MODULE_PREFIXES)]
-        return (class_path(self.cls), *internal)
 
     def importance(self, learner: SklearnModel, columns) -> np.ndarray | None:
         """Return the estimator's feature_importances_ or |coef_| summed per input column, else None."""

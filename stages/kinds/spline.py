@@ -12,16 +12,18 @@ artifact is JSON.
 
 from __future__ import annotations
 
+import math
 from typing import Any, ClassVar
 
 import numpy as np
 from scipy.interpolate import BSpline
 
 from ..errors import ChainFileError, StageSpecError
-from ..schema import BOOLEAN, CATEGORICAL, ColumnInfo
+from ..limits import MAX_COLUMNS
+from ..schema import BOOLEAN, CATEGORICAL, NUMERIC, ColumnInfo
 from . import register
 from .base import Artifact, FitRequest, StageKind, check_has_features
-from .design import impute_median, one_hot
+from .design import ColumnStep, impute_median, one_hot
 from .linear import (
     LinearModel,
     checked_coefficients,
@@ -30,6 +32,11 @@ from .linear import (
     linear_importance,
     read_linear,
 )
+
+#: the largest degree and number of base knots a spline stage takes (and a chain file may hold)
+MAX_DEGREE = 10
+MAX_BASE_KNOTS = 10_000
+MAX_KNOTS = MAX_BASE_KNOTS + 2 * MAX_DEGREE
 
 
 def base_knots(values: np.ndarray, n_knots: int, placement: str) -> np.ndarray:
@@ -120,27 +127,51 @@ class SplineDesign:
 
     @classmethod
     def from_dict(cls, data: dict[str, Any]) -> SplineDesign:
-        """Return the design described by ``data``; raise ChainFileError when it is malformed."""
+        """Return the design described by ``data``; raise ChainFileError when it is malformed or out of
+        range (a degree SciPy cannot use, knots that are not finite and sorted, unknown roles)."""
         try:
-            steps = [dict(step) for step in data["steps"]]
-            design = cls(steps, int(data["degree"]))
-            design.widths()
-            for step in steps:
-                step["role"] = str(step["role"])
-                if "knots" in step:
-                    step["knots"] = [float(k) for k in step["knots"]]
+            degree = data["degree"]
+            if isinstance(degree, bool) or not isinstance(degree, int) or not 0 <= degree <= MAX_DEGREE:
+                raise ValueError(f"degree must be a whole number from 0 to {MAX_DEGREE}")
+            steps = [_checked_step(dict(step), degree) for step in data["steps"]]
+            if not 0 < len(steps) <= MAX_COLUMNS:
+                raise ValueError("a spline design needs one step per input column")
+            design = cls(steps, degree)
         except (KeyError, TypeError, ValueError) as exc:
             raise ChainFileError(f"spline stage design is not valid ({exc!r})") from None
         return design
 
 
+def _checked_step(step: dict[str, Any], degree: int) -> dict[str, Any]:
+    """Return one stored spline step, checked; raise ValueError for a value out of place."""
+    role = step.get("role")
+    if role == CATEGORICAL:
+        ColumnStep.from_dict(step)  # the same codes check as the linear design's
+        return {"role": role, "codes": list(step["codes"])}
+    if role not in (NUMERIC, BOOLEAN) or not _finite(step.get("median")):
+        raise ValueError("a spline step needs a known role and a finite median")
+    checked = {"role": role, "median": float(step["median"])}
+    if "knots" in step:
+        knots = step["knots"]
+        if not isinstance(knots, list) or not 2 * degree + 2 <= len(knots) <= MAX_KNOTS or not all(map(_finite, knots)):
+            raise ValueError(f"knots must be {2 * degree + 2} to {MAX_KNOTS} finite numbers")
+        if any(b < a for a, b in zip(knots, knots[1:], strict=False)):
+            raise ValueError("knots must be in non-decreasing order")
+        checked["knots"] = [float(k) for k in knots]
+    return checked
+
+
+def _finite(value: Any) -> bool:
+    return isinstance(value, int | float) and not isinstance(value, bool) and math.isfinite(value)
+
+
 def check_spline_params(params: dict[str, Any], kind: str) -> None:
     """Raise StageSpecError when n_knots, degree or knots cannot build a spline basis."""
     n_knots, degree = params["n_knots"], params["degree"]
-    if isinstance(n_knots, bool) or not isinstance(n_knots, int) or n_knots < 2:
-        raise StageSpecError(f"kind {kind!r}: n_knots must be a whole number of at least 2, not {n_knots!r}")
-    if isinstance(degree, bool) or not isinstance(degree, int) or degree < 0:
-        raise StageSpecError(f"kind {kind!r}: degree must be a whole number of at least 0, not {degree!r}")
+    if isinstance(n_knots, bool) or not isinstance(n_knots, int) or not 2 <= n_knots <= MAX_BASE_KNOTS:
+        raise StageSpecError(f"kind {kind!r}: n_knots must be a whole number from 2 to {MAX_BASE_KNOTS:,}, not {n_knots!r}")
+    if isinstance(degree, bool) or not isinstance(degree, int) or not 0 <= degree <= MAX_DEGREE:
+        raise StageSpecError(f"kind {kind!r}: degree must be a whole number from 0 to {MAX_DEGREE}, not {degree!r}")
     if params["knots"] not in ("quantile", "uniform"):
         raise StageSpecError(f"kind {kind!r}: knots must be 'quantile' or 'uniform', not {params['knots']!r}")
 

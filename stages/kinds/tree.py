@@ -11,6 +11,7 @@ from typing import Any, ClassVar
 
 import numpy as np
 
+from ..tree_structure import check_fitted_estimator
 from . import register, skops_io
 from .base import Artifact, FitRequest, StageKind, check_has_features
 
@@ -58,16 +59,20 @@ class TreeKind(StageKind):
         refine_tree_leaves(learner, request.X, request)
 
     def save(self, learner: Any) -> Artifact:
-        """Return the tree as a skops artifact."""
+        """Return the tree as a skops artifact, the exact types it holds in ``meta``."""
         stored = copy.copy(learner)
         stored.random_state = None  # the chain's stream is not part of the fitted model
-        return Artifact("skops", skops_io.dump(stored))
+        payload, types = skops_io.dump(stored)
+        return Artifact("skops", payload, {"types": types})
 
     def load(self, artifact: Artifact) -> Any:
-        """Return the tree stored in ``artifact``."""
+        """Return the tree stored in ``artifact``; raise ChainFileError for an untrusted type or an unsound tree."""
         from sklearn.tree import DecisionTreeRegressor
 
-        return skops_io.load(artifact.payload, expected=(DecisionTreeRegressor,))
+        tree = skops_io.load(artifact.payload, expected=(DecisionTreeRegressor,), recorded=artifact.meta.get("types"),
+                             n_features=artifact.n_features)
+        check_fitted_estimator(tree, artifact.n_features, "tree stage artifact")
+        return tree
 
     def importance(self, learner: Any, columns) -> np.ndarray:
         """Return the tree's impurity-based importances."""
