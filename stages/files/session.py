@@ -11,10 +11,14 @@ file. It is a zip archive, written atomically like a chain file::
                                the current stages and the removal stack as lists of stage ids
     stages/0003/track-0.json   one safe artifact per stage and track (the kind's own format)
 
-Loading reads JSON and the kinds' safe formats only, checks every member's SHA-256, and
-turns any damage into a SessionError naming the file. Restoring refits nothing: each track's
-output is recomputed from the loaded learners in the order they were fit, which gives the
-saved outputs bit for bit.
+Loading treats the file as a stranger's: it is read within bounds by the archive container
+(``stages.container``), its manifest is checked against its schema (``session_manifest``), and
+only JSON and the kinds' safe formats are read, each member checked against its SHA-256. Any
+damage is a SessionError naming the file. The data is the file the user opened (or passes),
+compared with the fingerprint the session stored; the path stored in the session is read on
+its own only when the session file is the one remnant keeps for that very path. Restoring
+refits nothing: each track's output is recomputed from the loaded learners in the order they
+were fit, which gives the saved outputs bit for bit.
 """
 
 from __future__ import annotations
@@ -26,19 +30,23 @@ import os
 import re
 import threading
 import weakref
-import zipfile
 from datetime import UTC, datetime
 from pathlib import Path
 from typing import IO, Any
 
 import pandas as pd
 
+from .. import limits
+from ..atomic import write_atomic
 from ..chain import Chain
 from ..chain_state import ChainState
-from ..errors import ChainFileError, RemnantError
+from ..container import ArchiveReader, ArchiveWriter
+from ..errors import RemnantError
 from ..fitting import Stage
 from ..kinds.base import ProgressFn
+from ..manifest_schema import ManifestMismatch, strict_json
 from ..reading import load_frame
+from ..session_manifest import check_session_manifest
 from ..validation import spec_from_dict
 from . import store
 from .session_parts import (
@@ -95,10 +103,12 @@ def session_path(data_path: str | os.PathLike) -> Path:
     return sessions_folder() / f"{stem}-{key}{SUFFIX}"
 
 
-def data_changes(path: str | os.PathLike) -> list[str]:
-    """Return what changed in the session's data file since the session was saved (empty when unchanged).
+def data_changes(path: str | os.PathLike, data: str | os.PathLike | None = None) -> list[str]:
+    """Return what changed in the data since the session was saved (empty when unchanged).
 
-    Raise SessionError when the session file cannot be read, or holds no data file (a frame).
+    ``data`` is the file the user opened; without it, the session's own stored path, when the
+    session file is the one remnant keeps for that path. Raise SessionError when the session
+    file cannot be read, holds no data file (a frame), or names a file it may not read.
     """
     name = os.fspath(path)
     with _open(name) as archive:
@@ -107,7 +117,7 @@ def data_changes(path: str | os.PathLike) -> list[str]:
     if reference is None:
         raise SessionError(f"{name}: the session was saved from a DataFrame, not a data file")
     with _damaged(name):
-        return describe_changes(reference)
+        return describe_changes(reference, _data_path(reference, data, name))
 
 
 def session_summary(path: str | os.PathLike) -> dict[str, Any]:
@@ -144,23 +154,18 @@ def save_session(chain: Chain, path: str | os.PathLike | None = None) -> Path:
     except RemnantError as exc:
         raise SessionSaveError(f"cannot write session file '{target}': {exc}") from None
     _prepare_folder(target)
-    try:
-        store.write_atomic(os.fspath(target), lambda handle: _write_archive(handle, manifest, members))
-    except ChainFileError as exc:
-        raise SessionSaveError(str(exc).replace("chain file", "session file", 1)) from None
+    write_atomic(os.fspath(target), lambda handle: _write_archive(handle, manifest, members), what="session file",
+                 error=SessionSaveError)
     return target
 
 
 def _prepare_folder(target: Path) -> None:
-    """Create the session folder and remove temporary files left by a killed save."""
+    """Create the session folder (the writer removes temporary files left by a killed save)."""
     try:
         target.parent.mkdir(parents=True, exist_ok=True)
     except OSError as exc:
         reason = exc.strerror or type(exc).__name__
         raise SessionSaveError(f"cannot write session file '{target}': its folder cannot be created ({reason})") from None
-    for leftover in target.parent.glob(f".{target.name}.*.tmp"):
-        with contextlib.suppress(OSError):
-            leftover.unlink()
 
 
 def _chain_data(chain: Chain) -> dict[str, Any]:
@@ -205,7 +210,7 @@ def _snapshot(chain: Chain, state: ChainState) -> tuple[dict[str, Any], dict[str
             member = f"stages/{number:04d}/track-{t}{artifact.suffix}"
             members[member] = artifact.payload
             learners.append({"member": member, "sha256": hashlib.sha256(artifact.payload).hexdigest(),
-                             "fmt": artifact.fmt, "meta": artifact.meta})
+                             "size": len(artifact.payload), "fmt": artifact.fmt, "meta": artifact.meta})
         entries.append({
             "id": number, "previous": previous[id(stage)], "spec": stage.spec.to_dict(), "params": stage.params,
             "feature_index": list(stage.feature_index), "scales": list(stage.scales),
@@ -233,10 +238,10 @@ def _columns(chain: Chain) -> dict[str, Any]:
 
 
 def _write_archive(handle: IO[bytes], manifest: dict[str, Any], members: dict[str, bytes]) -> None:
-    with zipfile.ZipFile(handle, "w", zipfile.ZIP_DEFLATED, compresslevel=1) as archive:
+    with ArchiveWriter(handle, compresslevel=1) as archive:
         for name, payload in members.items():
-            archive.writestr(name, payload)
-        archive.writestr(MANIFEST, json.dumps(manifest, separators=(",", ":"), allow_nan=False))
+            archive.add(name, payload)
+        archive.add(MANIFEST, json.dumps(manifest, separators=(",", ":"), allow_nan=False).encode("utf-8"))
 
 
 # ----------------------------------------------------------------------------- loading
@@ -245,12 +250,14 @@ def load_session(path: str | os.PathLike, data: str | os.PathLike | pd.DataFrame
                  progress: ProgressFn | None = None) -> Chain:
     """Return the chain a session file holds, its stages restored without refitting.
 
-    ``data`` (a file or a DataFrame) replaces the session's data file. Raise SessionDataChanged
-    when the data differs from what the session was fit on, unless ``allow_changed``: then the
-    chain is rebuilt on the data as it is now and its stages are refit from their specs (the
-    removal stack is not kept), reporting to ``progress`` and stopping with FitCancelled when
-    ``cancel`` is set. Raise SessionError for a damaged file, DataError when the data file
-    cannot be read.
+    ``data`` (the file the user opened, or a DataFrame) is what the chain is rebuilt on; it is
+    compared with the fingerprint the session stored. Without it, the session's stored path is
+    used only when the session file is the one remnant keeps for that path (``session_path``).
+    Raise SessionDataChanged when the data differs from what the session was fit on, unless
+    ``allow_changed``: then the chain is rebuilt on the data as it is now and its stages are
+    refit from their specs (the removal stack is not kept), reporting to ``progress`` and
+    stopping with FitCancelled when ``cancel`` is set. Raise SessionError for a damaged file,
+    DataError when the data file cannot be read.
     """
     name = os.fspath(path)
     with _open(name) as archive:
@@ -262,19 +269,33 @@ def load_session(path: str | os.PathLike, data: str | os.PathLike | pd.DataFrame
                 raise SessionDataChanged(name, ["its rows, columns or split differ from the session's"])
             return _refit(chain, manifest, name, cancel, progress)
         with _damaged(name):
-            restore_stages(chain, manifest, lambda member, sha: _member(archive, member, sha, name), name)
+            restore_stages(chain, manifest, lambda member, sha, size=None: _member(archive, member, sha, name, size),
+                           name)
     return chain
 
 
-def _data_source(manifest: dict[str, Any], data: Any, name: str, allow_changed: bool) -> Any:
+def _data_path(reference: dict[str, Any], data: str | os.PathLike | None, name: str) -> str:
+    """Return the data file to compare and read: ``data``, or the stored path when this session is its own."""
     if data is not None:
+        return os.fspath(data)
+    stored = str(reference["path"])
+    if os.path.realpath(name) != os.path.realpath(session_path(stored)):
+        raise SessionError(f"{name}: name the data file to resume this session with (a session file read from "
+                           "elsewhere never chooses the file it reads)")
+    return stored
+
+
+def _data_source(manifest: dict[str, Any], data: Any, name: str, allow_changed: bool) -> Any:
+    if isinstance(data, pd.DataFrame):
         return data
     reference = manifest.get("data")
     if reference is None:
+        if data is not None:
+            return data
         raise SessionError(f"{name}: the session was saved from a DataFrame; pass that frame as data")
+    path = _data_path(reference, data, name)
     with _damaged(name):
-        changes = describe_changes(reference)
-        path = str(reference["path"])
+        changes = describe_changes(reference, path)
     if changes and not allow_changed:
         raise SessionDataChanged(name, changes)
     return path
@@ -335,45 +356,37 @@ def _damaged(name: str):
         raise SessionError(f"{name}: session file is damaged ({type(exc).__name__}: {reason})") from None
 
 
-def _open(name: str) -> zipfile.ZipFile:
-    if os.path.isdir(name):
-        raise SessionError(f"{name}: is a folder, not a session file")
-    if not os.path.exists(name):
+def _open(name: str) -> ArchiveReader:
+    if not os.path.lexists(name):
         raise SessionError(f"{name}: no such session file")
-    try:
-        return zipfile.ZipFile(name)
-    except (zipfile.BadZipFile, EOFError, ValueError):
-        raise SessionError(f"{name}: not a session file (not a zip archive)") from None
-    except OSError as exc:
-        raise SessionError(f"{name}: cannot be read ({exc.strerror or exc})") from None
+    return ArchiveReader.open(name, name, SessionError, what="session file")
 
 
-def _member(archive: zipfile.ZipFile, member: Any, sha256: Any, name: str, limit: int | None = None) -> bytes:
-    try:
-        return store.read_member(archive, member, sha256, name, limit=limit)
-    except ChainFileError as exc:
-        raise SessionError(str(exc)) from None
-    except Exception as exc:  # a damaged deflate stream (zlib.error) and the like
-        raise SessionError(f"{name}: member {member!r} cannot be read ({type(exc).__name__})") from None
+def _member(archive: ArchiveReader, member: Any, sha256: Any, name: str, size: Any = None,
+            limit: int = limits.MAX_MEMBER_BYTES) -> bytes:
+    archive.claim(member, "a stage")
+    return archive.read(member, sha256, size, limit=limit)
 
 
-def _read_manifest(archive: zipfile.ZipFile, name: str) -> dict[str, Any]:
+def _read_manifest(archive: ArchiveReader, name: str) -> dict[str, Any]:
+    if not archive.has(MANIFEST):
+        raise SessionError(f"{name}: not a remnant session file (no {MANIFEST} inside)")
     raw = _member(archive, MANIFEST, None, name, limit=MAX_MANIFEST_BYTES)
     with _damaged(name):
-        manifest = json.loads(raw.decode("utf-8"), parse_constant=_refuse_constant)
+        manifest = strict_json(raw.decode("utf-8"))
     if not isinstance(manifest, dict) or manifest.get("format") != FORMAT_NAME:
         raise SessionError(f"{name}: not a remnant session file")
     version = manifest.get("format_version")
     if not isinstance(version, int) or isinstance(version, bool) or version < 1:
-        raise SessionError(f"{name}: session file has no valid format_version (found {version!r})")
+        raise SessionError(f"{name}: session file has no valid format_version (found {str(version)[:40]!r})")
     if version > FORMAT_VERSION:
         raise SessionError(f"{name}: written by a newer remnant (session format {version}; "
                            f"this one reads {FORMAT_VERSION})")
+    try:
+        check_session_manifest(manifest)
+    except ManifestMismatch as exc:
+        raise SessionError(f"{name}: session file is damaged: its manifest does not fit the format ({exc})") from None
     return manifest
-
-
-def _refuse_constant(token: str) -> Any:
-    raise ValueError(f"{token} is not strict JSON")
 
 
 __all__ = ["SessionError", "SessionSaveError", "SessionDataChanged", "session_path", "sessions_folder",

@@ -11,9 +11,11 @@ changed since the save, which is warned about (VersionDriftWarning).
 
 from __future__ import annotations
 
+import errno
 import hashlib
 import math
 import os
+import stat
 import threading
 import warnings
 import weakref
@@ -23,6 +25,7 @@ from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
+from ..atomic import node_kind
 from ..fitting import Stage, feature_rows, resolve_features
 from ..kinds import get_kind
 from ..kinds.base import Artifact
@@ -38,7 +41,7 @@ if TYPE_CHECKING:
 GENERATOR = "MT19937"
 _KEYS = 624
 
-ReadMember = Callable[[Any, Any], bytes]
+ReadMember = Callable[..., bytes]
 
 # per stage: its artifacts and output digest (a stage never changes once fit)
 _PARTS: weakref.WeakKeyDictionary[Stage, tuple[tuple[Artifact, ...], str]] = weakref.WeakKeyDictionary()
@@ -49,9 +52,14 @@ _HASH_LOCK = threading.Lock()
 
 
 def file_sha256(path: str | os.PathLike) -> str:
-    """Return the SHA-256 of a file, computed once per (path, size, modification time) in a process."""
+    """Return the SHA-256 of a regular file, computed once per (path, size, modification time) in a process.
+
+    Raise OSError for anything but a regular file (a device or a named pipe would be read for ever).
+    """
     absolute = os.path.realpath(os.fspath(path))
     info = os.stat(absolute)
+    if not stat.S_ISREG(info.st_mode):
+        raise OSError(errno.EINVAL, f"is {node_kind(info.st_mode)}, not a regular file")
     key = (absolute, info.st_size, info.st_mtime_ns)
     with _HASH_LOCK:
         if key in _HASHES:
@@ -73,18 +81,24 @@ def data_reference(path: str | os.PathLike) -> dict[str, Any]:
             "mtime_ns": int(info.st_mtime_ns), "sha256": file_sha256(absolute)}
 
 
-def describe_changes(saved: dict[str, Any]) -> list[str]:
-    """Return what differs between a stored data reference and the file now, one line each (empty if same)."""
-    name, path = str(saved["name"]), str(saved["path"])
+def describe_changes(saved: dict[str, Any], path: str | os.PathLike | None = None) -> list[str]:
+    """Return what differs between a stored data reference and the file at ``path`` now (default: the
+    stored path), one line each; empty when they hold the same data."""
+    name = str(saved["name"])
+    path = str(saved["path"]) if path is None else os.fspath(path)
     try:
         info = os.stat(path)
     except OSError:
         return [f"{name}: the file no longer exists"]
+    if not stat.S_ISREG(info.st_mode):
+        return [f"{name}: is {node_kind(info.st_mode)}, not a regular file"]
     try:
         if file_sha256(path) == saved["sha256"]:
             return []  # a file only touched, or copied back, holds the same data
     except OSError as exc:
         return [f"{name}: the file cannot be read ({exc.strerror or type(exc).__name__})"]
+    if os.path.realpath(path) != os.path.realpath(str(saved["path"])):
+        return [f"{name}: {source_name(path)} is not the file the session was fit on (content differs, sha256)"]
     changes = []
     grown = info.st_size - int(saved["size"])
     if grown:
@@ -153,7 +167,7 @@ def stage_parts(stage: Stage) -> tuple[tuple[Artifact, ...], str]:
 def restore_stages(chain: Chain, manifest: dict[str, Any], read: ReadMember, name: str) -> None:
     """Put the session's stages, removal stack, streams and test reveals back into ``chain``.
 
-    ``read(member, sha256)`` returns a member's checked bytes. Raise ValueError, KeyError or
+    ``read(member, sha256, size)`` returns a member's checked bytes. Raise ValueError, KeyError or
     TypeError (or the kind's ChainFileError) for anything inconsistent, and ValueError when a
     stage does not reproduce its saved outputs with the library versions it was saved with;
     with other versions, warn (VersionDriftWarning) and keep the recomputed outputs.
@@ -193,7 +207,8 @@ def _restore_stage(chain: Chain, entry: dict[str, Any], before: tuple[np.ndarray
     for t, (item, scale) in enumerate(zip(items, scales, strict=True)):
         if item["fmt"] not in Artifact.SUFFIX:
             raise ValueError(f"artifact format {item['fmt']!r} is not one remnant writes")
-        artifact = Artifact(item["fmt"], read(item["member"], item["sha256"]), dict(item.get("meta") or {}))
+        artifact = Artifact(item["fmt"], read(item["member"], item["sha256"], item.get("size")),
+                            dict(item.get("meta") or {}), n_features=len(features))
         learner = kind.load(artifact)
         rows = feature_rows(chain.matrix, slice(0, tracks[t].n_rows), features, len(chain.schema.columns))
         output = np.asarray(learner.predict(rows), dtype=np.float64)

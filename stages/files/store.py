@@ -7,15 +7,25 @@ Layout of a chain file::
     stages/002-tree.skops    (json, npz, LightGBM model text, or skops with trusted types)
     probe.npz                a few training rows and the chain's raw output on them
 
-Loading never runs code from the file: JSON, ``numpy.load(allow_pickle=False)``, LightGBM's
-model text and skops with an explicit list of trusted types are the only readers. Every
-failure while loading becomes a ChainFileError naming the file.
+A chain file may come from a stranger who recomputes its checksums. Loading never runs code
+from it and never lets a damaged structure reach a native library:
+
+* the archive is read within bounds (``container``): regular files only, each member at most
+  the size the manifest declares for it, all members together at most a multiple of the file's
+  size, no member read twice;
+* the manifest is checked against its schema (``chain_manifest``) before any of it is used;
+* JSON, ``numpy.load(allow_pickle=False)``, LightGBM's model text (checked line by line first)
+  and skops holding exact, recorded classes (trees checked before anything predicts) are the
+  only readers;
+* every stage then predicts the stored probe rows once, so a learner that cannot is refused here
+  rather than at prediction time.
+
+With a key (``load(path, key=...)``), a file without a valid signature (``signing``) is refused
+before its manifest is parsed. Every failure while loading is a ChainFileError naming the file.
 """
 
 from __future__ import annotations
 
-import contextlib
-import errno
 import hashlib
 import io
 import json
@@ -23,8 +33,6 @@ import math
 import os
 import platform
 import re
-import stat
-import tempfile
 import warnings
 import weakref
 import zipfile
@@ -33,10 +41,15 @@ from typing import IO, TYPE_CHECKING, Any
 
 import numpy as np
 
+from .. import limits
+from ..atomic import write_atomic as _write_atomic
+from ..chain_manifest import check_manifest
+from ..container import ArchiveReader, ArchiveWriter, sha256_hex, size_text
 from ..errors import ChainFileError, RemnantError
 from ..kinds import get_kind
 from ..kinds.base import Artifact
 from ..losses import get_loss
+from ..manifest_schema import strict_json
 from ..predictor import FittedChain, FittedStage
 from ..schema import Schema
 from ..spec import StageSpec
@@ -49,7 +62,7 @@ FORMAT_VERSION = 1
 MANIFEST = "manifest.json"
 PROBE = "probe.npz"
 PROBE_ROWS = 64
-MAX_MEMBER_BYTES = 2 * 1024**3
+MAX_MEMBER_BYTES = limits.MAX_MEMBER_BYTES
 MAX_MANIFEST_BYTES = 64 * 1024**2
 #: relative difference of the probe rows' output above which a drifted file is reported
 PROBE_RTOL = 1e-9
@@ -80,6 +93,9 @@ def save(chain: Chain | FittedChain, path: str | os.PathLike) -> None:
         fingerprint = data_fingerprint(chain.matrix, chain.y, chain.layout.order)
     else:
         fitted, probe, fingerprint = chain, _PROBES.get(chain), chain.meta.get("data")
+    if len(fitted.stages) > limits.MAX_STAGES:
+        raise ChainFileError(f"cannot write chain file '{os.fspath(path)}': it has {len(fitted.stages):,} stages; "
+                             f"a chain file holds at most {limits.MAX_STAGES:,}")
     target = os.fspath(path)
     write_atomic(target, lambda handle: _write_archive(handle, fitted, probe, fingerprint, target))
 
@@ -105,7 +121,7 @@ def member_name(number: int, kind: str, suffix: str) -> str:
 
 def _write_archive(handle: IO[bytes], fitted: FittedChain, probe: np.ndarray | None,
                    fingerprint: dict[str, Any] | None, path: str) -> None:
-    with zipfile.ZipFile(handle, "w", zipfile.ZIP_DEFLATED) as archive:
+    with ArchiveWriter(handle) as archive:
         entries, names = [], fitted.schema.names
         for number, stage in enumerate(fitted.stages, start=1):
             try:
@@ -113,26 +129,24 @@ def _write_archive(handle: IO[bytes], fitted: FittedChain, probe: np.ndarray | N
             except RemnantError as exc:
                 raise ChainFileError(f"cannot write chain file '{path}': stage {number} ({stage.kind}) "
                                      f"cannot be saved ({_one_line(exc)})") from None
-            name = member_name(number, stage.kind, artifact.suffix)
-            archive.writestr(name, artifact.payload)
-            entries.append(_stage_entry(number, stage, names, artifact, name))
+            written = archive.add(member_name(number, stage.kind, artifact.suffix), artifact.payload)
+            entries.append(_stage_entry(number, stage, names, artifact, written))
         probe_entry = None
         if probe is not None and len(probe):
             buffer = io.BytesIO()
             np.savez(buffer, matrix=probe, raw=fitted.raw_from_matrix(probe))
-            archive.writestr(PROBE, buffer.getvalue())
-            probe_entry = {"member": PROBE, "rows": int(len(probe)), "sha256": _sha256(buffer.getvalue())}
+            probe_entry = {**archive.add(PROBE, buffer.getvalue()), "rows": int(len(probe))}
         manifest = build_manifest(fitted, entries, probe_entry, fingerprint)
-        archive.writestr(MANIFEST, json.dumps(manifest, indent=1, allow_nan=False))
+        archive.add(MANIFEST, json.dumps(manifest, indent=1, allow_nan=False).encode("utf-8"))
 
 
-def _stage_entry(number: int, stage: FittedStage, names: list[str], artifact: Artifact, member: str) -> dict[str, Any]:
+def _stage_entry(number: int, stage: FittedStage, names: list[str], artifact: Artifact,
+                 written: dict[str, Any]) -> dict[str, Any]:
     return {
         "index": number, "kind": stage.kind, "spec": stage.spec.to_dict(), "params": stage.params,
         "scale": float(stage.scale), "features": [names[i] for i in stage.feature_index],
         "feature_index": [int(i) for i in stage.feature_index], "scores": stage.scores,
-        "fit_seconds": float(stage.fit_seconds), "member": member, "sha256": _sha256(artifact.payload),
-        "fmt": artifact.fmt, "meta": artifact.meta,
+        "fit_seconds": float(stage.fit_seconds), **written, "fmt": artifact.fmt, "meta": artifact.meta,
     }
 
 
@@ -169,68 +183,29 @@ def library_versions() -> dict[str, str | None]:
 
 
 def write_atomic(path: str, write) -> None:
-    """Write through ``write(handle)`` into a temporary file beside ``path``, fsync it, rename it onto ``path``.
+    """Write through ``write(handle)`` to ``path`` with the one atomic writer (``stages.atomic``); return None.
 
-    Return None. Raise ChainFileError naming ``path`` and the reason when it cannot be written; an
-    existing file at ``path`` is then untouched and the temporary file removed.
+    Raise ChainFileError naming ``path`` and the reason when it cannot be written (a folder, a
+    device, a named pipe, another writer, a full disk); an existing file is then untouched.
     """
-    folder = os.path.dirname(os.path.abspath(path))
-    if not os.path.isdir(folder):
-        raise ChainFileError(f"cannot write chain file '{path}': folder '{folder}' does not exist")
-    if os.path.isdir(path):
-        raise ChainFileError(f"cannot write chain file '{path}': it is a folder")
-    mode = stat.S_IMODE(os.stat(path).st_mode) if os.path.isfile(path) else 0o644
-    try:
-        fd, temp = tempfile.mkstemp(dir=folder, prefix=f".{os.path.basename(path)}.", suffix=".tmp")
-    except OSError as exc:
-        raise _write_error(path, exc) from None
-    try:
-        with os.fdopen(fd, "w+b") as handle:
-            write(handle)
-            handle.flush()
-            os.fsync(handle.fileno())
-        os.chmod(temp, mode)
-        os.replace(temp, path)
-    except BaseException as exc:
-        with contextlib.suppress(OSError):
-            os.unlink(temp)
-        if isinstance(exc, OSError):
-            raise _write_error(path, exc) from None
-        raise
-    with contextlib.suppress(OSError):  # flush the rename itself, where a folder can be opened
-        folder_fd = os.open(folder, os.O_RDONLY)
-        try:
-            os.fsync(folder_fd)
-        finally:
-            os.close(folder_fd)
-
-
-_WRITE_REASONS = {
-    errno.ENOSPC: "the disk is full", errno.EACCES: "permission denied", errno.EPERM: "permission denied",
-    errno.EROFS: "the file system is read-only", errno.ENOENT: "its folder does not exist",
-    errno.EDQUOT: "the disk quota is exceeded", errno.EISDIR: "it is a folder",
-}
-
-
-def _write_error(path: str, exc: OSError) -> ChainFileError:
-    reason = _WRITE_REASONS.get(exc.errno) or exc.strerror or _one_line(exc)
-    return ChainFileError(f"cannot write chain file '{path}': {reason}")
+    _write_atomic(path, write, what="chain file", error=ChainFileError)
 
 
 # ----------------------------------------------------------------------------- loading
-def load(path: str | os.PathLike) -> FittedChain:
+def load(path: str | os.PathLike, *, key: bytes | str | None = None) -> FittedChain:
     """Return the FittedChain stored at ``path``, its ``meta`` filled from the manifest.
 
     Raise ChainFileError, naming the file and what is wrong, for anything that is not an
-    intact chain file this version can read. Warn with VersionDriftWarning when the file was
-    saved with other library versions, and again when its stored predictions now differ.
+    intact chain file this version can read, and, when ``key`` is given, for a file that is not
+    signed with it. Warn with VersionDriftWarning when the file was saved with other library
+    versions, and again when its stored predictions now differ.
     """
     name = os.fspath(path)
     try:
-        fitted, manifest, probe = _load(name)
+        fitted, manifest, probe = _load(name, key)
     except ChainFileError:
         raise
-    except Exception as exc:  # a malformed manifest or member: always the one error class
+    except Exception as exc:  # a malformed member the checks did not foresee: always the one error class
         raise ChainFileError(f"{name}: chain file is damaged ({type(exc).__name__}: {_one_line(exc)})") from None
     _check_drift(fitted, manifest, probe, name)
     return fitted
@@ -239,136 +214,119 @@ def load(path: str | os.PathLike) -> FittedChain:
 Probe = tuple[np.ndarray, np.ndarray]
 
 
-def _load(path: str) -> tuple[FittedChain, dict[str, Any], Probe | None]:
-    with _open_archive(path) as archive:
-        manifest = _read_manifest(archive, path)
+def _load(path: str, key: bytes | str | None) -> tuple[FittedChain, dict[str, Any], Probe | None]:
+    with ArchiveReader.open(path, path, ChainFileError, what="chain file") as archive:
+        manifest = read_manifest(archive, path, key)
         schema = Schema.from_dict(manifest["schema"])
-        if manifest.get("task", schema.task) != schema.task:
-            raise ChainFileError(f"{path}: manifest task {manifest['task']!r} does not match its schema")
         try:
             loss = get_loss(manifest["loss"], schema.task)
         except RemnantError as exc:
             raise ChainFileError(f"{path}: {_one_line(exc)}") from None
-        stages = manifest["stages"]
-        if not isinstance(stages, list):
-            raise ChainFileError(f"{path}: manifest 'stages' is not a list")
-        loaded = [_load_stage(archive, entry, number, schema, path) for number, entry in enumerate(stages, 1)]
+        loaded = [_load_stage(archive, entry, number, schema, path)
+                  for number, entry in enumerate(manifest["stages"], 1)]
         probe = _read_probe(archive, manifest.get("probe"), schema, path)
     fitted = FittedChain(schema, loss, _number(manifest["start"]), loaded, meta=_meta(manifest),
                          start_scores=_scores(manifest.get("start_scores") or {}))
+    _check_stages_predict(fitted, probe, path)
     if probe is not None:
         _PROBES[fitted] = probe[0]
     return fitted, manifest, probe
 
 
-def _open_archive(path: str) -> zipfile.ZipFile:
-    if os.path.isdir(path):
-        raise ChainFileError(f"{path}: is a folder, not a chain file")
-    if not os.path.exists(path):
-        raise ChainFileError(f"{path}: no such file")
-    try:
-        if os.path.getsize(path) == 0:
-            raise ChainFileError(f"{path}: is empty, not a chain file")
-        return zipfile.ZipFile(path)
-    except (zipfile.BadZipFile, EOFError, ValueError):
-        raise ChainFileError(f"{path}: not a chain file (not a zip archive)") from None
-    except OSError as exc:
-        raise ChainFileError(f"{path}: cannot be read ({exc.strerror or _one_line(exc)})") from None
-
-
-def _read_manifest(archive: zipfile.ZipFile, path: str) -> dict[str, Any]:
-    if MANIFEST not in archive.namelist():
+def read_manifest(archive: ArchiveReader, path: str, key: bytes | str | None = None) -> dict[str, Any]:
+    """Return the checked manifest of an open chain file (its signature checked first when ``key`` is given)."""
+    if not archive.has(MANIFEST):
         raise ChainFileError(f"{path}: not a chain file (no {MANIFEST} inside)")
-    raw = read_member(archive, MANIFEST, None, path, limit=MAX_MANIFEST_BYTES)
+    archive.claim(MANIFEST, "the manifest")
+    raw = archive.read(MANIFEST, limit=MAX_MANIFEST_BYTES)
+    if key is not None:
+        from .signing import check_signature
+
+        check_signature(archive, raw, key, path)
     try:
-        manifest = json.loads(raw.decode("utf-8"), parse_constant=_refuse_constant)
-    except ValueError as exc:
+        manifest = strict_json(raw.decode("utf-8"))
+    except (ValueError, RecursionError) as exc:
         raise ChainFileError(f"{path}: {MANIFEST} is not valid JSON ({_one_line(exc)})") from None
     if not isinstance(manifest, dict):
         raise ChainFileError(f"{path}: {MANIFEST} is not a JSON object")
     _check_format(manifest, path)
+    check_manifest(manifest, path)
     return manifest
-
-
-def _refuse_constant(token: str) -> Any:
-    raise ValueError(f"{token} is not strict JSON")
 
 
 def _check_format(manifest: dict[str, Any], path: str) -> None:
     found = manifest.get("format")
     if found != FORMAT_NAME:
-        raise ChainFileError(f"{path}: not a remnant chain file (format {found!r}, expected {FORMAT_NAME!r})")
+        shown = found if isinstance(found, str | int | float | bool | type(None)) else type(found).__name__
+        raise ChainFileError(f"{path}: not a remnant chain file (format {str(shown)[:60]!r}, expected {FORMAT_NAME!r})")
     version = manifest.get("format_version")
     if not isinstance(version, int) or isinstance(version, bool) or version < 1:
-        raise ChainFileError(f"{path}: manifest has no valid format_version (found {version!r})")
+        raise ChainFileError(f"{path}: manifest has no valid format_version (found {str(version)[:40]!r})")
     if version > FORMAT_VERSION:
         raise ChainFileError(f"{path}: written by a newer remnant (format {version}; this one reads {FORMAT_VERSION})")
 
 
-def read_member(archive: zipfile.ZipFile, name: Any, sha256: str | None, path: str, limit: int | None = None) -> bytes:
-    """Return the bytes of member ``name`` after checking its size (before reading) and its SHA-256."""
-    limit = MAX_MEMBER_BYTES if limit is None else limit
-    try:
-        info = archive.getinfo(name)
-    except (KeyError, TypeError, AttributeError):
-        raise ChainFileError(f"{path}: member {name!r} is missing") from None
-    if info.file_size > limit:
-        raise ChainFileError(f"{path}: member {name!r} is too large ({_size(info.file_size)}; the limit is {_size(limit)})")
-    try:
-        payload = archive.read(info)
-    except (zipfile.BadZipFile, EOFError, OSError, ValueError, RuntimeError, NotImplementedError) as exc:
-        raise ChainFileError(f"{path}: member {name!r} cannot be read ({_one_line(exc)})") from None
-    if sha256 is not None and _sha256(payload) != sha256:
-        raise ChainFileError(f"{path}: member {name!r} fails its checksum (the file was changed or damaged)")
-    return payload
-
-
-def _load_stage(archive: zipfile.ZipFile, entry: Any, number: int, schema: Schema, path: str) -> FittedStage:
-    if not isinstance(entry, dict):
-        raise ChainFileError(f"{path}: stage {number} in the manifest is not an object")
+def _load_stage(archive: ArchiveReader, entry: dict[str, Any], number: int, schema: Schema, path: str) -> FittedStage:
     kind_name = entry["kind"]
     try:
         kind = get_kind(kind_name)
     except RemnantError:
-        raise ChainFileError(f"{path}: stage {number} has an unknown kind {kind_name!r}") from None
+        raise ChainFileError(f"{path}: stage {number} has an unknown kind {kind_name[:200]!r}") from None
     try:
         spec = StageSpec.from_dict(entry["spec"])
     except RemnantError as exc:
         raise ChainFileError(f"{path}: stage {number} has an invalid spec ({_one_line(exc)})") from None
-    if spec.kind != kind_name or entry["fmt"] not in Artifact.SUFFIX:
+    if spec.kind != kind_name:
         raise ChainFileError(f"{path}: stage {number} has an inconsistent kind or artifact format")
-    payload = read_member(archive, entry["member"], entry["sha256"], path)
+    index = tuple(entry["feature_index"])
+    if (any(i >= len(schema.columns) for i in index) or len(set(index)) != len(index)
+            or entry["features"] != [schema.names[i] for i in index]):
+        raise ChainFileError(f"{path}: stage {number} names features that do not match the schema")
+    archive.claim(entry["member"], f"stage {number}")
+    payload = archive.read(entry["member"], entry["sha256"], entry.get("size"), limit=MAX_MEMBER_BYTES)
+    artifact = Artifact(entry["fmt"], payload, dict(entry.get("meta") or {}), n_features=len(index))
     try:
-        learner = kind.load(Artifact(entry["fmt"], payload, dict(entry.get("meta") or {})))
+        learner = kind.load(artifact)
     except ChainFileError as exc:
         raise ChainFileError(f"{path}: stage {number} ({kind_name}) was refused: {_one_line(exc)}") from None
     if not callable(getattr(learner, "predict", None)):
         raise ChainFileError(f"{path}: stage {number} ({kind_name}) holds a {type(learner).__name__}, not a learner")
-    index = tuple(int(i) for i in entry["feature_index"])
-    if not index or any(not 0 <= i < len(schema.columns) for i in index) or list(entry["features"]) != [
-            schema.names[i] for i in index]:
-        raise ChainFileError(f"{path}: stage {number} names features that do not match the schema")
-    scale = _number(entry["scale"])
-    if not math.isfinite(scale):
-        raise ChainFileError(f"{path}: stage {number} has no finite scale")
-    return FittedStage(spec, dict(entry.get("params") or {}), learner, scale, index,
-                       _scores(entry.get("scores") or {}), _number(entry.get("fit_seconds", 0.0)))
+    return FittedStage(spec, dict(entry.get("params") or {}), learner, float(entry["scale"]), index,
+                       _scores(entry.get("scores") or {}), float(entry.get("fit_seconds", 0.0)))
 
 
-def _read_probe(archive: zipfile.ZipFile, entry: Any, schema: Schema, path: str) -> Probe | None:
+def _read_probe(archive: ArchiveReader, entry: Any, schema: Schema, path: str) -> Probe | None:
     """Return the stored probe rows and raw outputs, or None when the file has none."""
     if entry is None:
         return None
-    payload = read_member(archive, entry["member"], entry["sha256"], path)
+    archive.claim(entry["member"], "the probe")
+    payload = archive.read(entry["member"], entry["sha256"], entry.get("size"), limit=MAX_MEMBER_BYTES)
     try:
         with np.load(io.BytesIO(payload), allow_pickle=False) as stored:
             matrix = np.asarray(stored["matrix"], dtype=np.float64)
             raw = np.asarray(stored["raw"], dtype=np.float64)
     except (OSError, ValueError, KeyError, TypeError, zipfile.BadZipFile, EOFError) as exc:
         raise ChainFileError(f"{path}: member {entry['member']!r} is not a valid probe ({_one_line(exc)})") from None
-    if matrix.ndim != 2 or matrix.shape[1] != len(schema.columns) or raw.shape != (len(matrix),):
+    if matrix.ndim != 2 or matrix.shape != (entry["rows"], len(schema.columns)) or raw.shape != (len(matrix),):
         raise ChainFileError(f"{path}: member {entry['member']!r} does not match the schema")
     return matrix, raw
+
+
+def _check_stages_predict(fitted: FittedChain, probe: Probe | None, path: str) -> None:
+    """Raise ChainFileError naming the first stage that cannot predict the probe rows (or, without a
+    probe, a row of zeros and a row of missing values) as one finite value per row."""
+    n_columns = len(fitted.schema.columns)
+    rows = probe[0] if probe is not None else np.vstack([np.zeros(n_columns), np.full(n_columns, np.nan)])
+    for number, stage in enumerate(fitted.stages, 1):
+        try:
+            with np.errstate(all="ignore"), warnings.catch_warnings():
+                warnings.simplefilter("ignore")
+                output = np.asarray(stage.learner.predict(rows[:, list(stage.feature_index)]), dtype=np.float64)
+        except Exception as exc:
+            raise ChainFileError(f"{path}: stage {number} ({stage.kind}) cannot predict "
+                                 f"({type(exc).__name__}: {_one_line(exc)})") from None
+        if output.shape != (len(rows),) or not np.isfinite(output).all():
+            raise ChainFileError(f"{path}: stage {number} ({stage.kind}) does not predict one finite value per row")
 
 
 def _meta(manifest: dict[str, Any]) -> dict[str, Any]:
@@ -457,14 +415,12 @@ def _number(value: Any) -> float:
 
 
 def _sha256(payload: bytes) -> str:
-    return hashlib.sha256(payload).hexdigest()
+    return sha256_hex(payload)
 
 
 def _size(n: int) -> str:
-    if n >= 1024**3:
-        return f"{n / 1024**3:.3g} GiB"
-    return f"{n / 1024**2:.3g} MiB" if n >= 1024**2 else f"{n:,} bytes"
+    return size_text(n)
 
 
 def _one_line(exc: BaseException) -> str:
-    return " ".join(str(exc).split()) or type(exc).__name__
+    return " ".join(str(exc).split())[:500] or type(exc).__name__

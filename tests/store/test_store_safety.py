@@ -92,12 +92,12 @@ def rewrite(path, manifest: dict | None = None, members: dict[str, bytes | None]
 
 
 def replace_member(path, member: str, payload: bytes) -> None:
-    """Put ``payload`` in place of ``member`` and update its checksum, so only the format checks remain."""
+    """Put ``payload`` in place of ``member`` and update its checksum and size, so only the format checks remain."""
     manifest = manifest_of(path)
     digest = hashlib.sha256(payload).hexdigest()
     for entry in [*manifest["stages"], manifest["probe"]]:
         if entry["member"] == member:
-            entry["sha256"] = digest
+            entry["sha256"], entry["size"] = digest, len(payload)
     rewrite(path, manifest, {member: payload})
 
 
