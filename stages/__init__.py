@@ -37,6 +37,8 @@ __version__ = "0.1.0"
 
 _LAZY = {
     "load": ("files.store", "load"),
+    "sign": ("files.signing", "sign"),
+    "verify": ("files.signing", "verify"),
     "ChainRegressor": ("bridges.estimator", "ChainRegressor"),
     "ChainClassifier": ("bridges.estimator", "ChainClassifier"),
     "read_recipe": ("files.recipe", "read_recipe"),
@@ -58,6 +60,6 @@ __all__ = [
     "Chain", "FittedChain", "StageSpec", "Holdout", "KFold", "TimeOrder", "GroupHoldout", "SplitColumn",
     "AllRows",
     "RemnantError", "DataError", "ValidationSpecError", "StageSpecError", "ChainStateError", "StageFitError", "FitCancelled",
-    "RecipeError", "ChainFileError", "SchemaError", "load", "ChainRegressor", "ChainClassifier",
+    "RecipeError", "ChainFileError", "SchemaError", "load", "sign", "verify", "ChainRegressor", "ChainClassifier",
     "read_recipe", "fit_recipe", "__version__",
 ]
