@@ -24,6 +24,7 @@ class UsageError(Exception):
     """Bad input the command line found itself (exit status 2); ``str(err)`` is the message."""
 
 
+
 # ----------------------------------------------------------------------------- parser
 
 
@@ -92,6 +93,15 @@ _SHOW = """Print a chain file's settings, its stage table (the scores stored whe
 saved), its schema and the coefficients of its linear stages (linear, ridge,
 lasso, logistic) per unit of each feature. With --format csv, only the stage
 table, as CSV."""
+_SIGN = """Sign a chain file: add an HMAC-SHA256 over its manifest (which holds every
+member's SHA-256), made with a key from --key-file or the REMNANT_SIGNING_KEY
+environment variable. 'remnant verify', and 'show' or 'predict' with --key-file,
+then refuse the file unless it carries a signature made with the same key. A
+signature says a holder of the key signed these exact bytes; it does not make a
+file safe, say who signed it, or when (see docs/untrusted-files.md)."""
+_VERIFY = """Check a chain file's signature with a key from --key-file or the
+REMNANT_SIGNING_KEY environment variable, then load it in full. Exit status 0
+when it is signed with that key and loads; 2 otherwise."""
 
 
 def build_parser() -> argparse.ArgumentParser:
@@ -125,14 +135,16 @@ def _add_headless_commands(commands: Any) -> None:
     fit.add_argument("recipe", metavar="RECIPE", help="the TOML recipe")
     fit.add_argument("--data", metavar="DATA", help="fit on this CSV or Parquet file instead of the recipe's")
     fit.add_argument("--out", metavar="CHAIN", required=True,
-                     help="the chain file to write (replaced only when the new one is complete)")
+                     help="the chain file to write (replaced only when the new one is complete; "
+                          "'-' writes it to standard output and the stage table to standard error)")
     _add_format(fit)
     fit.set_defaults(run=run_fit)
     predict = commands.add_parser("predict", help="write predictions of a chain file as CSV",
                                   description=_PREDICT, formatter_class=_RAW)
     predict.add_argument("chain", metavar="CHAIN", help="a chain file written by 'remnant fit' or the workbench")
     predict.add_argument("data", metavar="DATA", help="a CSV or Parquet file with the chain's feature columns")
-    predict.add_argument("--out", metavar="FILE", help="write here instead of to standard output")
+    predict.add_argument("--out", metavar="FILE", help="write here instead of to standard output ('-': standard output)")
+    _add_key_file(predict, "refuse the chain file unless it is signed with the key in FILE")
     predict.add_argument("--id", metavar="COL", help="copy this column first into the output")
     predict.add_argument("--chunk-rows", metavar="N", type=_positive, default=DEFAULT_CHUNK_ROWS,
                          help=f"rows read at a time (default {DEFAULT_CHUNK_ROWS:,})")
@@ -143,7 +155,18 @@ def _add_headless_commands(commands: Any) -> None:
                                formatter_class=_RAW)
     show.add_argument("chain", metavar="CHAIN", help="a chain file")
     _add_format(show)
+    _add_key_file(show, "refuse the chain file unless it is signed with the key in FILE")
     show.set_defaults(run=run_show)
+    for name, text, run, summary in (("sign", _SIGN, run_sign, "sign a chain file with a key (HMAC-SHA256)"),
+                                     ("verify", _VERIFY, run_verify, "check a chain file's signature")):
+        command = commands.add_parser(name, help=summary, description=text, formatter_class=_RAW)
+        command.add_argument("chain", metavar="CHAIN", help="a chain file")
+        _add_key_file(command, "read the key from FILE (default: the REMNANT_SIGNING_KEY environment variable)")
+        command.set_defaults(run=run)
+
+
+def _add_key_file(command: argparse.ArgumentParser, text: str) -> None:
+    command.add_argument("--key-file", metavar="FILE", help=text)
 
 
 # ----------------------------------------------------------------------------- main
@@ -221,7 +244,12 @@ def _same_file(a: str | os.PathLike, b: str | os.PathLike) -> bool:
 
 
 def check_out(out: str, inputs: dict[str, str | os.PathLike | None]) -> None:
-    """Raise UsageError when ``out`` is one of the inputs, a folder, or in a folder that does not exist."""
+    """Raise UsageError when ``out`` is one of the inputs, exists and is not a regular file, or is in a
+    folder that does not exist. ``-`` (standard output) always passes."""
+    from stages.atomic import STDOUT, output_target
+
+    if out == STDOUT:
+        return
     for what, path in inputs.items():
         if path is not None and _same_file(out, path):
             raise UsageError(f"--out {out} is the {what}; choose another file (nothing was written)")
@@ -230,6 +258,24 @@ def check_out(out: str, inputs: dict[str, str | os.PathLike | None]) -> None:
     folder = os.path.dirname(os.path.abspath(out))
     if not os.path.isdir(folder):
         raise UsageError(f"--out {out}: the folder {os.path.dirname(out) or folder} does not exist")
+    output_target(out, "--out", UsageError)
+
+
+def _holding(out: str) -> Any:
+    """Return the lock of ``out`` for the whole command (nothing to hold for standard output)."""
+    from stages.atomic import STDOUT, OutputLock
+
+    if out == STDOUT:
+        return contextlib.nullcontext()
+    return OutputLock(out, what="--out", error=UsageError)
+
+
+def _key(args: argparse.Namespace, from_environment: bool) -> bytes | None:
+    from stages.files.signing import read_key
+
+    if getattr(args, "key_file", None) is None and not from_environment:
+        return None
+    return read_key(args.key_file, from_environment=from_environment)
 
 
 class Progress:
@@ -266,12 +312,13 @@ def _terminal_width() -> int:
     return shutil.get_terminal_size((80, 24)).columns
 
 
-def print_table(table: Any, fmt: str) -> None:
-    """Print a stage table to stdout as aligned text or CSV."""
+def print_table(table: Any, fmt: str, stream: IO[str] | None = None) -> None:
+    """Print a stage table as aligned text or CSV, to ``stream`` (default stdout)."""
     from tui.table_text import format_csv, format_table
 
-    sys.stdout.write(format_csv(table) if fmt == "csv" else format_table(table))
-    sys.stdout.flush()
+    out = sys.stdout if stream is None else stream
+    out.write(format_csv(table) if fmt == "csv" else format_table(table))
+    out.flush()
 
 
 def _fit_and_print(recipe: Any, data: str | None, fmt: str) -> Any:
@@ -297,11 +344,14 @@ def run_fit(args: argparse.Namespace) -> int:
 
     recipe = read_recipe(args.recipe)
     check_out(args.out, {"recipe": args.recipe, "input data file": args.data or recipe.data_path})
-    chain = _fit_and_print(recipe, args.data, args.format)
-    store.save(chain, args.out)
-    print_table(chain.table(), args.format)
+    with _holding(args.out):  # a second `remnant fit` to the same --out is refused before it fits
+        chain = _fit_and_print(recipe, args.data, args.format)
+        store.save(chain, args.out)
+    to_stdout = args.out == "-"
+    print_table(chain.table(), args.format, stream=sys.stderr if to_stdout else sys.stdout)
     print(CAUTION, file=sys.stderr)
-    print(f"saved {args.out} ({len(chain)} stages)", file=sys.stderr)
+    print(f"saved {'the chain file to standard output' if to_stdout else args.out} ({len(chain)} stages)",
+          file=sys.stderr)
     return 0
 
 
@@ -321,11 +371,18 @@ def run_demo(args: argparse.Namespace) -> int:
 
 def run_explore(args: argparse.Namespace) -> int:
     """Open the workbench on a data file, or read-only on a chain file."""
+    import stat
+
+    from stages.atomic import node_kind
+
     path = args.data
     if not os.path.exists(path):
         raise UsageError(f"{path}: no such file")
     if os.path.isdir(path):
         raise UsageError(f"{path}: is a folder, not a data file")
+    mode = os.stat(path).st_mode
+    if not stat.S_ISREG(mode):
+        raise UsageError(f"{path}: is {node_kind(mode)}, not a regular file (remnant reads data only from regular files)")
     if _is_chain_file(path):
         if args.target:
             raise UsageError("--target is for data files; a chain file knows its target")
@@ -354,7 +411,7 @@ def run_show(args: argparse.Namespace) -> int:
     from stages.files import store
     from tui.table_text import describe_chain, describe_coefficients, describe_schema, fitted_table
 
-    fitted = store.load(args.chain)
+    fitted = store.load(args.chain, key=_key(args, from_environment=False))
     table = fitted_table(fitted)
     if args.format == "csv":
         print_table(table, "csv")
@@ -373,11 +430,32 @@ def run_predict(args: argparse.Namespace) -> int:
     from stages.files import store
     from tui.predicting import write_predictions
 
-    if args.out is not None:
-        check_out(args.out, {"input data file": args.data, "chain file": args.chain})
-    fitted = store.load(args.chain)
-    write_predictions(fitted, args.data, args.out, id_column=args.id, chunk_rows=args.chunk_rows,
-                      each_stage=args.each_stage)
+    out = None if args.out in (None, "-") else args.out
+    if out is not None:
+        check_out(out, {"input data file": args.data, "chain file": args.chain})
+    with _holding(out or "-"):
+        fitted = store.load(args.chain, key=_key(args, from_environment=False))
+        write_predictions(fitted, args.data, out, id_column=args.id, chunk_rows=args.chunk_rows,
+                          each_stage=args.each_stage)
+    return 0
+
+
+def run_sign(args: argparse.Namespace) -> int:
+    """Sign a chain file in place with the key; return 0."""
+    from stages.files.signing import ALGORITHM, sign
+
+    key = _key(args, from_environment=True)
+    sign(args.chain, key)
+    print(f"signed {args.chain} ({ALGORITHM} over its manifest)", file=sys.stderr)
+    return 0
+
+
+def run_verify(args: argparse.Namespace) -> int:
+    """Check a chain file's signature with the key and load it; return 0 when both succeed."""
+    from stages.files.signing import verify
+
+    fitted = verify(args.chain, _key(args, from_environment=True))
+    print(f"{args.chain}: the signature matches the key; {len(fitted.stages)} stages load")
     return 0
 
 

@@ -9,8 +9,6 @@ thread holds the chain's lock. Every job that changes the chain then saves its s
 
 from __future__ import annotations
 
-import os
-import tempfile
 import time
 from dataclasses import dataclass
 from pathlib import Path
@@ -172,19 +170,13 @@ def quick_change(owner: MessagePump, chain: Any, cache: ImportanceCache, before:
     return FitJob(action, run, owner, cancellable=False)
 
 
-def write_text(path: Path, text: str) -> None:
-    """Write ``text`` at ``path`` through a temporary file and a rename, so no half file is ever left."""
-    folder = path.resolve().parent
-    handle, temp = tempfile.mkstemp(dir=folder, prefix=f".{path.name}.", suffix=".tmp")
-    try:
-        with os.fdopen(handle, "w", encoding="utf-8") as out:
-            out.write(text)
-            out.flush()
-            os.fsync(out.fileno())
-        os.replace(temp, path)
-    except BaseException:
-        Path(temp).unlink(missing_ok=True)
-        raise
+def write_text(path: Path, text: str, what: str = "recipe") -> None:
+    """Write ``text`` at ``path`` with the one atomic writer, so no half file is ever left; raise
+    RecipeError naming the file when it cannot be written (not a regular file, a full disk ...)."""
+    from stages.atomic import atomic_output
+
+    with atomic_output(path, text=True, what=what, error=stages.RecipeError) as out:
+        out.write(text)
 
 
 def save_chain(owner: MessagePump, chain: Any, path: Path) -> FitJob:
@@ -203,10 +195,7 @@ def export_recipe(owner: MessagePump, chain: Any, path: Path) -> FitJob:
 
     def run(ctx: JobContext) -> FileWritten:
         text = chain_to_recipe(chain, base_dir=path.resolve().parent)
-        try:
-            write_text(path, text)
-        except OSError as err:
-            raise stages.RecipeError(f"cannot write recipe '{path}': {err.strerror or err}") from None
+        write_text(path, text)
         return FileWritten(path, "recipe")
 
     return FitJob(f"exporting {path.name}", run, owner, cancellable=False, failure_note="nothing was written")

@@ -9,10 +9,7 @@ sniff, categorical columns (and the id column) as text so that "007" stays "007"
 from __future__ import annotations
 
 import contextlib
-import os
 import re
-import sys
-import tempfile
 import warnings
 from collections.abc import Iterator
 from typing import IO, Any
@@ -20,9 +17,17 @@ from typing import IO, Any
 import numpy as np
 import pandas as pd
 
+from stages.atomic import STDOUT, atomic_output
 from stages.errors import DataError, SchemaError
 from stages.predictor import FittedChain, UnseenLevelsWarning
-from stages.reading import read_options, source_name
+from stages.reading import (
+    check_statistics,
+    column_ranges,
+    index_as_columns,
+    open_parquet,
+    read_options,
+    source_name,
+)
 from stages.understand.rows import encode_target
 
 OUTPUT_COLUMNS = ("prediction", "probability")
@@ -53,15 +58,19 @@ def iter_chunks(path: str, columns: list[str], text_columns: list[str], chunk_ro
 
 
 def _parquet_chunks(path: str, name: str, columns: list[str], chunk_rows: int) -> Iterator[pd.DataFrame]:
+    """Yield the Parquet file's rows as fit reads them: a stored named index is a column, and values
+    outside the ranges the file's statistics record are refused as damage."""
     import pyarrow as pa
-    import pyarrow.parquet as pq
 
     try:
-        file = pq.ParquetFile(path)
+        file = open_parquet(path)
         present = set(file.schema_arrow.names)
+        ranges = column_ranges(file)
         batches = file.iter_batches(batch_size=chunk_rows, columns=[c for c in columns if c in present])
         for batch in batches:
-            yield batch.to_pandas()
+            chunk = index_as_columns(batch.to_pandas())
+            check_statistics(file, chunk, name, ranges)
+            yield chunk
     except (pa.ArrowException, OSError) as err:
         raise DataError(f"{name}: cannot read the Parquet file ({_first_line(err)})") from None
 
@@ -169,38 +178,13 @@ def write_predictions(fitted: FittedChain, data: str, out: str | None, *, id_col
             raise DataError(f"{name}: the file has a header but no rows")
     if unseen:
         detail = ", ".join(f"{column!r}: {count:,}" for column, count in unseen.items())
-        warnings.warn(f"{name}: category levels never seen in training were treated as missing ({detail})",
+        warnings.warn(f"{name}: values the chain cannot use (category levels never seen in training, text, "
+                      f"infinity or a value beyond ±3.4e38 in a numeric column) were treated as missing ({detail})",
                       UnseenLevelsWarning, stacklevel=2)
     return rows
 
 
-@contextlib.contextmanager
-def _output(out: str | None) -> Iterator[IO[str]]:
-    """Yield stdout, or a temporary file beside ``out`` that replaces ``out`` only on success."""
-    if out is None:
-        yield sys.stdout
-        sys.stdout.flush()
-        return
-    folder = os.path.dirname(os.path.abspath(out))
-    descriptor, temporary = tempfile.mkstemp(prefix=f".{os.path.basename(out)}.", suffix=".tmp", dir=folder)
-    try:
-        with os.fdopen(descriptor, "w", encoding="utf-8", newline="") as handle:
-            yield handle
-            handle.flush()
-            os.fsync(handle.fileno())
-        os.chmod(temporary, _file_mode(out))
-        os.replace(temporary, out)
-    except BaseException:
-        with contextlib.suppress(OSError):
-            os.unlink(temporary)
-        raise
-
-
-def _file_mode(path: str) -> int:
-    """Return the mode a new file at ``path`` gets: the existing file's, else 0o666 less the umask."""
-    try:
-        return os.stat(path).st_mode & 0o7777
-    except OSError:
-        mask = os.umask(0)
-        os.umask(mask)
-        return 0o666 & ~mask
+def _output(out: str | None) -> contextlib.AbstractContextManager[IO[str]]:
+    """Return the handle predictions go to: stdout (``None`` or ``-``), or the one atomic writer's
+    temporary file beside ``out``, which replaces ``out`` only when every row is written."""
+    return atomic_output(out or STDOUT, text=True, what="predictions file")

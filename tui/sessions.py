@@ -30,6 +30,7 @@ class ResumeOffer:
     summary: dict[str, Any] = field(default_factory=dict)
     changes: tuple[str, ...] = ()
     problem: str = ""
+    data_path: str | None = None  # the file the user opened: the session is resumed on it, never on its stored path
 
     @property
     def changed(self) -> bool:
@@ -51,10 +52,10 @@ def resume_offer(data_path: str | Path | None) -> ResumeOffer | None:
         return None
     try:
         summary = sessions.session_summary(path)
-        changes = tuple(sessions.data_changes(path))
+        changes = tuple(sessions.data_changes(path, data_path))
     except RemnantError as err:
-        return ResumeOffer(path, problem=one_line(err))
-    return ResumeOffer(path, summary, changes)
+        return ResumeOffer(path, problem=one_line(err), data_path=str(data_path))
+    return ResumeOffer(path, summary, changes, data_path=str(data_path))
 
 
 def saved_when(summary: dict[str, Any]) -> str:
@@ -93,7 +94,8 @@ def resume_job(owner: MessagePump, offer: ResumeOffer, cache: ImportanceCache) -
 
     def run(ctx: JobContext) -> ChainReady:
         ctx.progress(0.0, "refitting on the changed data" if refit else "reading the session")
-        chain = sessions.load_session(offer.path, allow_changed=refit, cancel=ctx.cancel, progress=ctx.progress)
+        chain = sessions.load_session(offer.path, offer.data_path, allow_changed=refit, cancel=ctx.cancel,
+                                      progress=ctx.progress)
         view = view_of_chain(chain, cache)
         n = len(chain)
         if refit:

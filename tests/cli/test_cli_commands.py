@@ -143,8 +143,9 @@ def test_predict_ignores_extra_columns_and_warns_once_about_unseen_levels(fitted
     frame.to_csv(work / "new.csv", index=False)
     status, out, err = run("predict", fitted_files["regression"], "new.csv", "--chunk-rows", "4")
     assert status == 0 and len(pd.read_csv(io.StringIO(out))) == len(frame)
-    assert err.splitlines() == ["warning: new.csv: category levels never seen in training were treated as "
-                                "missing ('band': 10)"]
+    assert err.splitlines() == ["warning: new.csv: values the chain cannot use (category levels never seen in "
+                                "training, text, infinity or a value beyond ±3.4e38 in a numeric column) were "
+                                "treated as missing ('band': 10)"]
 
 
 def test_fit_with_data_fits_the_recipe_on_another_file(work, run):
