@@ -21,6 +21,7 @@ from .errors import ChainStateError, RemnantError, StageSpecError
 from .fitting import FitContext, Stage, fit_stage
 from .kinds import get_kind
 from .kinds.base import ProgressFn
+from .limits import MAX_REPEAT, MAX_STAGES
 from .losses import Loss, default_loss, get_loss
 from .predictor import FittedChain, FittedStage
 from .scoring import Scores
@@ -299,14 +300,17 @@ class Chain:
 
         All or nothing: when any fit fails or is cancelled, the chain is left as it was.
         """
-        if not isinstance(repeat, int) or repeat < 1:
-            raise StageSpecError(f"repeat must be a whole number of at least 1, not {repeat!r}")
+        if not isinstance(repeat, int) or isinstance(repeat, bool) or not 1 <= repeat <= MAX_REPEAT:
+            raise StageSpecError(f"repeat must be a whole number from 1 to {MAX_REPEAT:,}, not {repeat!r}")
         spec = StageSpec(kind, shrinkage, tuple(features or ()), dict(params or {}))
         return self.add_specs([spec] * repeat, cancel=cancel, progress=progress)
 
     def add_specs(self, specs: list[StageSpec], *, cancel: threading.Event | None = None,
                   progress: ProgressFn | None = None) -> list[Stage]:
         """Fit ``specs`` in order after the last stage and return the new stages (all or nothing)."""
+        if len(self.stages) + len(specs) > MAX_STAGES:
+            raise StageSpecError(f"a chain holds at most {MAX_STAGES:,} stages; it has {len(self.stages):,} "
+                                 f"and {len(specs):,} more were asked for")
         for spec in specs:
             self.check_spec(spec)
         with self._lock:

@@ -41,7 +41,7 @@ from pandas.api import types as pdt
 
 from .errors import DataError, SchemaError
 from .reading import check_duplicates, load_frame, read_table, source_name
-from .schema import BOOLEAN, CATEGORICAL, DATETIME, NUMERIC, ColumnInfo, Schema
+from .schema import BOOLEAN, CATEGORICAL, DATETIME, NUMERIC, ColumnInfo, Schema, beyond_float32
 
 EXCLUDED = "excluded"
 TASKS = ("regression", "binary")
@@ -321,13 +321,14 @@ def _inferred_names(kept: pd.DataFrame, target: str, ignore: set[str]) -> list[s
 
 
 def _unusable_note(values: pd.Series, name: str, count: int) -> str:
-    """Return the note for a numeric column whose text or infinite values were treated as missing."""
+    """Return the note for a numeric column whose text, infinite or too large values were treated as missing."""
     numbers = pd.to_numeric(values, errors="coerce")
-    odd = (numbers.isna() & values.notna()) | np.isinf(numbers.to_numpy(dtype=np.float64, na_value=np.nan))
-    first = int(np.flatnonzero(odd.to_numpy())[0]) if odd.any() else 0
+    odd = (numbers.isna() & values.notna()).to_numpy() | beyond_float32(numbers.to_numpy(dtype=np.float64,
+                                                                                           na_value=np.nan))
+    first = int(np.flatnonzero(odd)[0]) if odd.any() else 0
     what = "value" if count == 1 else "values"
-    return (f"column {name!r}: {count:,} {what} that are not numbers (such as {values.iloc[first]!r} "
-            f"in row {first + 1}) treated as missing")
+    return (f"column {name!r}: {count:,} {what} that are not numbers the chain can use (such as "
+            f"{values.iloc[first]!r} in row {first + 1}; text, infinity or beyond ±3.4e38) treated as missing")
 
 
 def _string_columns(frame: pd.DataFrame, source: str) -> pd.DataFrame:

@@ -23,6 +23,8 @@ MAX_COLUMNS = 100_000
 #: category levels of one column, and classes of a target
 MAX_LEVELS = 1_000_000
 MAX_CLASSES = 1_000
+#: characters in a column name
+MAX_NAME_LENGTH = 4_096
 #: nesting of a parameter value (a list inside a table inside a list ...)
 MAX_NESTING = 32
 

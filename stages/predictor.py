@@ -83,7 +83,8 @@ class FittedChain:
         if unseen:
             detail = ", ".join(f"{name!r}: {count:,}" for name, count in unseen.items())
             warnings.warn(f"{source}: values the chain cannot use (category levels never seen in training, "
-                          f"text or infinity in a numeric column) were treated as missing ({detail})",
+                          f"text, infinity or a value beyond ±3.4e38 in a numeric column) were treated as "
+                          f"missing ({detail})",
                           UnseenLevelsWarning, stacklevel=3)
         return matrix
 

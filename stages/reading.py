@@ -16,6 +16,7 @@ import io
 import lzma
 import os
 import re
+import stat
 import warnings
 from collections import Counter
 from collections.abc import Sequence
@@ -25,6 +26,7 @@ from typing import Any
 import pandas as pd
 
 from .errors import DataError
+from .limits import MAX_NAME_LENGTH
 
 EXCLUDED = "excluded"
 TASKS = ("regression", "binary")
@@ -80,12 +82,22 @@ def read_table(path: str | os.PathLike) -> pd.DataFrame:
 
 
 def _check_readable(file: Path, name: str) -> bytes:
-    """Return the first four bytes of ``file``, raising DataError if it cannot be read."""
+    """Return the first four bytes of ``file``, raising DataError if it cannot be read.
+
+    Only regular files are read: a named pipe would block until someone writes to it, and a
+    device such as ``/dev/zero`` never ends.
+    """
     try:
         if not file.exists():
             raise DataError(f"{name}: no such file")
         if file.is_dir():
             raise DataError(f"{name}: is a folder, not a data file")
+        mode = file.stat().st_mode
+        if not stat.S_ISREG(mode):
+            from .atomic import node_kind
+
+            raise DataError(f"{name}: is {node_kind(mode)}, not a regular file (remnant reads data only from "
+                            "regular files: a pipe or device could be read for ever)")
         with open(file, "rb") as handle:
             head = handle.read(4)
     except PermissionError:
@@ -109,14 +121,75 @@ def _read_parquet(file: Path, name: str) -> pd.DataFrame:
         if pa.types.is_nested(field.type):
             raise DataError(f"{name}: column {field.name!r} holds nested values ({field.type}); "
                             "each cell must be one plain value")
+    check_names(schema.names, name)
     check_duplicates(schema.names, name)
     try:
-        frame = _parquet_frame(pq.ParquetFile(file), schema)
+        handle = open_parquet(file)
+        frame = index_as_columns(_parquet_frame(handle, schema))
     except (pa.ArrowException, OSError, ValueError) as err:
         raise DataError(f"{name}: cannot read the Parquet file ({_first_line(err)})") from None
-    if not isinstance(frame.index, pd.RangeIndex):
-        frame = frame.reset_index(drop=all(n is None for n in frame.index.names))
+    check_statistics(handle, frame, name)
     return frame
+
+
+def open_parquet(path: str | os.PathLike) -> Any:
+    """Return a ``pyarrow.parquet.ParquetFile`` that checks each page's checksum where the file has one."""
+    import pyarrow.parquet as pq
+
+    return pq.ParquetFile(path, page_checksum_verification=True)
+
+
+def index_as_columns(frame: pd.DataFrame) -> pd.DataFrame:
+    """Return ``frame`` with a stored named index as ordinary columns (an unnamed one dropped), as fit and
+    predict both read a Parquet file."""
+    if isinstance(frame.index, pd.RangeIndex):
+        return frame
+    return frame.reset_index(drop=all(n is None for n in frame.index.names))
+
+
+def column_ranges(handle: Any) -> dict[str, tuple[float, float]]:
+    """Return, per numeric column, the smallest and largest value the file's row-group statistics record
+    (columns without statistics in every row group are left out)."""
+    import pyarrow as pa
+
+    metadata, schema = handle.metadata, handle.schema_arrow
+    ranges: dict[str, tuple[float, float]] = {}
+    for j in range(metadata.num_columns):
+        path = metadata.row_group(0).column(j).path_in_schema if metadata.num_row_groups else None
+        if path is None or path not in schema.names:
+            continue
+        kind = schema.field(path).type
+        if not (pa.types.is_integer(kind) or pa.types.is_floating(kind)):
+            continue
+        lows, highs = [], []
+        for g in range(metadata.num_row_groups):
+            stats = metadata.row_group(g).column(j).statistics
+            if stats is None or not stats.has_min_max:
+                break
+            lows.append(float(stats.min))
+            highs.append(float(stats.max))
+        else:
+            if lows:
+                ranges[path] = (min(lows), max(highs))
+    return ranges
+
+
+def check_statistics(handle: Any, frame: pd.DataFrame, name: str, ranges: dict | None = None) -> None:
+    """Raise DataError when a numeric column holds a value outside the range the file's statistics record
+    for it: the pages were damaged (a page read as garbage can hold values near 1e182)."""
+    import numpy as np
+
+    ranges = column_ranges(handle) if ranges is None else ranges
+    for column, (low, high) in ranges.items():
+        if column not in frame.columns or frame[column].dtype.kind not in "fiu":
+            continue
+        values = pd.to_numeric(frame[column], errors="coerce").to_numpy(dtype=np.float64, na_value=np.nan)
+        with np.errstate(invalid="ignore"):
+            outside = (values < low) | (values > high)
+        if outside.any():
+            row = int(np.flatnonzero(outside)[0])
+            raise DataError(f"{name}: column {column!r} holds {values[row]:g} in row {row + 1}, outside the range "
+                            f"{low:g} to {high:g} the file records for it: the file is damaged")
 
 
 def _parquet_frame(handle: Any, schema: Any) -> pd.DataFrame:
@@ -141,8 +214,7 @@ def _read_csv(file: Path, name: str) -> pd.DataFrame:
     if not sample.strip():
         raise DataError(f"{name}: the file is empty")
     delimiter = _sniff_delimiter(sample, default="\t" if ".tsv" in file.suffixes else ",")
-    header = next(csv.reader(io.StringIO(sample, newline=""), delimiter=delimiter), [])
-    check_duplicates(header, name)
+    check_duplicates(read_header(sample, delimiter, name), name)
     try:
         with warnings.catch_warnings(record=True) as caught:
             warnings.simplefilter("always", pd.errors.ParserWarning)
@@ -216,6 +288,28 @@ def _sniff_delimiter(sample: str, default: str) -> str:
     return found
 
 
+def read_header(sample: str, delimiter: str, name: str) -> list[str]:
+    """Return the column names on the first line of ``sample``; raise DataError for a name longer than
+    MAX_NAME_LENGTH characters (or one the csv module cannot read)."""
+    try:
+        header = next(csv.reader(io.StringIO(sample, newline=""), delimiter=delimiter), [])
+    except csv.Error as err:
+        if "field larger than field limit" in str(err):
+            raise DataError(f"{name}: a column name in the header is longer than {csv.field_size_limit():,} "
+                            f"characters (at most {MAX_NAME_LENGTH:,} are read)") from None
+        raise DataError(f"{name}: the header cannot be read as CSV ({_first_line(err)})") from None
+    check_names(header, name)
+    return header
+
+
+def check_names(names: Sequence[object], source: str) -> None:
+    """Raise DataError when a column name is longer than MAX_NAME_LENGTH characters."""
+    for number, column in enumerate(names, 1):
+        if len(str(column)) > MAX_NAME_LENGTH:
+            raise DataError(f"{source}: the name of column {number} is {len(str(column)):,} characters long "
+                            f"(at most {MAX_NAME_LENGTH:,} are read)")
+
+
 def check_duplicates(names: Sequence[object], source: str) -> None:
     counts = Counter(str(n) for n in names)
     for column in counts:
@@ -258,5 +352,5 @@ def read_options(path: str | os.PathLike) -> tuple[str, dict[str, object]]:
     if not sample.strip():
         raise DataError(f"{name}: the file is empty")
     delimiter = _sniff_delimiter(sample, default="\t" if ".tsv" in file.suffixes else ",")
-    check_duplicates(next(csv.reader(io.StringIO(sample, newline=""), delimiter=delimiter), []), name)
+    check_duplicates(read_header(sample, delimiter, name), name)
     return "csv", {"sep": delimiter, "encoding": "utf-8-sig", "compression": compression, "index_col": False}

@@ -23,6 +23,15 @@ BOOLEAN = "boolean"
 DATETIME = "datetime"
 ROLES = (NUMERIC, CATEGORICAL, BOOLEAN, DATETIME)
 FEATURE_ROLES = (NUMERIC, CATEGORICAL, BOOLEAN)
+#: the largest magnitude a feature value may have: tree learners compare in float32, where a larger
+#: value becomes infinite, so beyond it a value is treated as missing, like an infinity
+FLOAT32_MAX = float(np.finfo(np.float32).max)
+
+
+def beyond_float32(values: np.ndarray) -> np.ndarray:
+    """Return where float ``values`` are infinite or larger in magnitude than float32 can hold (NaN is not)."""
+    with np.errstate(invalid="ignore"):
+        return np.abs(values) > FLOAT32_MAX
 
 
 @dataclass(frozen=True)
@@ -165,8 +174,8 @@ def plain_numbers(values: pd.Series, col: ColumnInfo) -> np.ndarray | None:
     if col.role != NUMERIC or not isinstance(values.dtype, np.dtype) or values.dtype.kind not in "fiu":
         return None
     ready = values.to_numpy()
-    if ready.dtype.kind == "f" and np.isinf(ready).any():
-        return None  # infinities are treated as missing and counted, by encode_column
+    if ready.dtype.kind == "f" and beyond_float32(ready).any():
+        return None  # infinities and values beyond float32 are treated as missing and counted, by encode_column
     return ready
 
 
@@ -210,7 +219,7 @@ def encode_column(values: pd.Series, col: ColumnInfo, *, source: str = "data") -
             f"but row {first + 1} holds {values.iloc[first]!r}"
         )
     out = numeric.to_numpy(dtype=np.float64, na_value=np.nan, copy=True)
-    infinite = np.isinf(out)
+    infinite = beyond_float32(out)
     out[infinite] = np.nan
     # a few stray texts or infinities are treated as missing, and counted for a warning
     return out, int(bad.sum() + infinite.sum())

@@ -21,6 +21,7 @@ from sklearn.model_selection import KFold as SklearnKFold
 from sklearn.model_selection import StratifiedKFold
 
 from .errors import ValidationSpecError
+from .limits import MAX_FOLDS, MAX_SEED
 
 SPLIT_LABELS = {"train": "train", "valid": "valid", "validation": "valid", "test": "test"}
 
@@ -54,11 +55,13 @@ def _fraction(name: str, value: Any, *, zero_ok: bool = False) -> float:
     return value
 
 
-def _integer(name: str, value: Any, minimum: int | None = None) -> int:
+def _integer(name: str, value: Any, minimum: int | None = None, maximum: int | None = None) -> int:
     if isinstance(value, bool) or not isinstance(value, Integral):
         raise ValidationSpecError(f"validation {name} must be a whole number, got {value!r}")
     if minimum is not None and value < minimum:
         raise ValidationSpecError(f"validation {name} must be at least {minimum}, got {value}")
+    if maximum is not None and value > maximum:
+        raise ValidationSpecError(f"validation {name} must be at most {maximum:,}, got {value:,}")
     return int(value)
 
 
@@ -77,8 +80,8 @@ def _flag(value: Any) -> bool:
 FIELD_CHECKS: dict[str, Any] = {
     "fraction": lambda v: _fraction("fraction", v),
     "test_fraction": lambda v: _fraction("test_fraction", v, zero_ok=True),
-    "folds": lambda v: _integer("folds", v, minimum=2),
-    "seed": lambda v: _integer("seed", v),
+    "folds": lambda v: _integer("folds", v, minimum=2, maximum=MAX_FOLDS),
+    "seed": lambda v: _integer("seed", v, minimum=0, maximum=MAX_SEED),
     "column": _column_name,
     "stratify": _flag,
 }

@@ -16,6 +16,7 @@ from __future__ import annotations
 
 import dataclasses
 import itertools
+import math
 import os
 import threading
 from concurrent.futures import ThreadPoolExecutor
@@ -25,7 +26,7 @@ from typing import TYPE_CHECKING, Any
 import numpy as np
 import pandas as pd
 
-from .. import scoring
+from .. import limits, scoring
 from ..errors import ChainStateError, FitCancelled, RemnantError, StageFitError, StageSpecError
 from ..fitting import FitContext, Stage, fit_stage
 from ..kinds import get_kind
@@ -40,7 +41,7 @@ if TYPE_CHECKING:
     from ..chain_state import ChainState
 
 #: more candidates than this in one audition is almost surely a typing slip in a grid
-MAX_CANDIDATES = 64
+MAX_CANDIDATES = limits.MAX_CANDIDATES
 
 
 @dataclass(frozen=True, eq=False)
@@ -107,7 +108,7 @@ def expand_grid(spec: StageSpec | dict[str, Any]) -> list[StageSpec]:
     for name, values in [("shrinkage", shrinkages), *axes]:
         if not values:
             raise StageSpecError(f"stage {data.get('kind', '?')!r}: {name} is an empty list; give at least one value")
-    size = len(shrinkages) * int(np.prod([len(v) for _, v in axes], dtype=np.int64))
+    size = len(shrinkages) * math.prod(len(v) for _, v in axes)  # exact: a numpy product can overflow
     if size > MAX_CANDIDATES:
         raise StageSpecError(f"the grid of {data.get('kind', '?')!r} has {size} candidates; at most {MAX_CANDIDATES}")
     specs = []

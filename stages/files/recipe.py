@@ -14,6 +14,7 @@ from __future__ import annotations
 import difflib
 import os
 import re
+import stat
 import threading
 import tomllib
 from collections.abc import Callable
@@ -23,6 +24,7 @@ from typing import TYPE_CHECKING, Any
 
 from ..errors import RecipeError, RemnantError, StageSpecError, ValidationSpecError
 from ..kinds.base import ProgressFn
+from ..limits import MAX_NESTING, MAX_REPEAT, MAX_SEED, MAX_STAGES
 from ..spec import StageSpec
 from ..validation import SCHEMES, ValidationSpec, spec_from_dict
 from .recipe_steps import Audition, parse_auditions, replay
@@ -39,6 +41,7 @@ CHAIN_KEYS = ("loss", "seed", "threshold")
 STAGE_KEYS = ("kind", "shrinkage", "features", "params", "repeat", "patience")
 TASKS = ("regression", "binary")
 NONE_TEXT = "none"
+MAX_RECIPE_BYTES = 16 * 1024**2
 _SHOWN_TABLES = "[data], [chain], [validation], [[stage]], [[audition]]"
 
 
@@ -86,6 +89,14 @@ def read_recipe(path: str | os.PathLike) -> Recipe:
     file = Path(os.fspath(path))
     name = file.name or os.fspath(path)
     try:
+        mode = file.stat().st_mode
+        if not stat.S_ISREG(mode) and not stat.S_ISDIR(mode):
+            from ..atomic import node_kind
+
+            raise RecipeError(f"{name}: is {node_kind(mode)}, not a regular file (remnant reads recipes only "
+                              "from regular files)")
+        if file.stat().st_size > MAX_RECIPE_BYTES:
+            raise RecipeError(f"{name}: is larger than {MAX_RECIPE_BYTES // 1024**2} MiB; a recipe is a short text")
         raw = file.read_bytes()
     except FileNotFoundError:
         raise RecipeError(f"{name}: no such file") from None
@@ -107,6 +118,9 @@ def parse_recipe(text: str, base_dir: str | os.PathLike = ".", source: str = "re
         doc = tomllib.loads(text)
     except tomllib.TOMLDecodeError as err:
         raise RecipeError(_syntax_message(probe.name, err)) from None
+    except RecursionError:
+        raise RecipeError(f"{probe.name}: values are nested too deeply to read "
+                          f"(at most {MAX_NESTING} levels are used)") from None
     reader = _Reader(probe)
     reader.check_top(doc)
     data = reader.table(doc, "data")
@@ -115,12 +129,17 @@ def parse_recipe(text: str, base_dir: str | os.PathLike = ".", source: str = "re
     reader.check_keys(chain, "chain", 0, CHAIN_KEYS)
     settings = reader.data_settings(data, Path(base_dir))
     seed = reader.integer(chain, "chain", 0, "seed", 0)
+    if not 0 <= seed <= MAX_SEED:
+        raise reader.fail(f"seed must be a whole number from 0 to {MAX_SEED:,}, not {seed:,}", "chain", 0, "seed")
     loss = reader.text(chain, "chain", 0, "loss")
     threshold = reader.number(chain, "chain", 0, "threshold", 0.5)
     if not 0 < threshold < 1:
         raise reader.fail(f"threshold must be between 0 and 1, not {threshold:g}", "chain", 0, "threshold")
     validation = reader.validation(reader.table(doc, "validation"), seed)
     stages = reader.stages(doc, settings["task"])
+    total = sum(repeat for _, repeat in stages)
+    if total > MAX_STAGES:
+        raise reader.fail(f"the recipe asks for {total:,} stages; a chain holds at most {MAX_STAGES:,}", "stage")
     patience = reader.patience(doc)
     auditions = parse_auditions(doc.get("audition"), lambda i, key: probe.where("audition", i, key), len(stages),
                                 settings["task"])
@@ -266,6 +285,8 @@ class _Reader:
         params = entry.get("params", {})
         if not isinstance(params, dict):
             raise self.fail(f"params must be a table such as {{ max_depth = 3 }}, not {_shown(params)}", "stage", i, "params")
+        if _depth(params) > MAX_NESTING:
+            raise self.fail(f"params are nested more than {MAX_NESTING} levels deep", "stage", i, "params")
         try:
             spec = StageSpec(kind, self.number(entry, "stage", i, "shrinkage", 1.0),
                              self.names(entry, "stage", i, "features") or (), _from_toml(params))
@@ -278,6 +299,9 @@ class _Reader:
         repeat = self.integer(entry, "stage", i, "repeat", 1)
         if repeat < 1:
             raise self.fail(f"repeat must be at least 1, not {repeat}", "stage", i, "repeat")
+        if repeat > MAX_REPEAT:
+            raise self.fail(f"repeat must be at most {MAX_REPEAT:,} (a documented limit), not {repeat:,}", "stage", i,
+                            "repeat")
         return spec, repeat
 
     def patience(self, doc: dict[str, Any]) -> dict[int, int]:
@@ -290,6 +314,17 @@ class _Reader:
                     raise self.fail(f"patience must be at least 1, not {value}", "stage", i, "patience")
                 found[i] = value
         return found
+
+
+def _depth(value: Any) -> int:
+    """Return how deeply lists and tables nest in ``value`` (a plain value is 0 deep)."""
+    deepest, stack = 0, [(value, 0)]
+    while stack:
+        item, depth = stack.pop()
+        if isinstance(item, dict | list):
+            deepest = max(deepest, depth + 1)
+            stack.extend((inner, depth + 1) for inner in (item.values() if isinstance(item, dict) else item))
+    return deepest
 
 
 def _from_toml(value: Any, none: Any = NONE_TEXT, to: Any = None) -> Any:
