@@ -33,7 +33,7 @@ import time
 from collections.abc import Callable, Iterator
 from typing import IO, Any
 
-from .errors import OutputError, RemnantError
+from .errors import OutputError
 
 #: the output name that means standard output
 STDOUT = "-"
@@ -56,7 +56,7 @@ def node_kind(mode: int) -> str:
     return next((words for test, words in _KINDS if test(mode)), "not a regular file")
 
 
-def output_target(path: str | os.PathLike, what: str = "file", error: type[RemnantError] = OutputError) -> str:
+def output_target(path: str | os.PathLike, what: str = "file", error: type[Exception] = OutputError) -> str:
     """Return the path a write of ``path`` replaces: ``path`` itself, or the regular file a link names.
 
     Raise ``error`` naming ``path`` when it exists and is not a regular file (or a link to one),
@@ -88,7 +88,7 @@ def output_target(path: str | os.PathLike, what: str = "file", error: type[Remna
 
 
 def write_atomic(path: str | os.PathLike, write: Callable[[IO[bytes]], None], *, what: str = "file",
-                 error: type[RemnantError] = OutputError) -> None:
+                 error: type[Exception] = OutputError) -> None:
     """Write the bytes ``write(handle)`` produces to ``path`` (``-``: standard output), atomically; return None.
 
     Raise ``error`` naming ``path`` and the reason when it cannot be written; an existing file
@@ -100,7 +100,7 @@ def write_atomic(path: str | os.PathLike, write: Callable[[IO[bytes]], None], *,
 
 @contextlib.contextmanager
 def atomic_output(path: str | os.PathLike, *, text: bool = False, what: str = "file",
-                  error: type[RemnantError] = OutputError) -> Iterator[Any]:
+                  error: type[Exception] = OutputError) -> Iterator[Any]:
     """Yield a handle whose content replaces ``path`` when the block ends without an exception.
 
     ``text`` gives a UTF-8 text handle (newlines as written), else a binary one. ``-`` yields
@@ -118,7 +118,7 @@ def atomic_output(path: str | os.PathLike, *, text: bool = False, what: str = "f
         yield from _write_replacing(name, target, text, what, error)
 
 
-def _write_replacing(name: str, target: str, text: bool, what: str, error: type[RemnantError]) -> Iterator[Any]:
+def _write_replacing(name: str, target: str, text: bool, what: str, error: type[Exception]) -> Iterator[Any]:
     folder, base = os.path.split(os.path.abspath(target))
     temp = os.path.join(folder, f".{base}.{secrets.token_hex(6)}.tmp")
     try:
@@ -176,7 +176,7 @@ def _sync_folder(folder: str) -> None:
             os.close(fd)
 
 
-def _error(error: type[RemnantError], what: str, name: str, exc: OSError) -> RemnantError:
+def _error(error: type[Exception], what: str, name: str, exc: OSError) -> Exception:
     reason = _REASONS.get(exc.errno or 0) or exc.strerror or " ".join(str(exc).split()) or type(exc).__name__
     return error(f"cannot write {what} '{name}': {reason}")
 
@@ -203,7 +203,7 @@ class OutputLock:
     ``-`` (standard output) is never locked.
     """
 
-    def __init__(self, path: str | os.PathLike, *, what: str = "file", error: type[RemnantError] = OutputError,
+    def __init__(self, path: str | os.PathLike, *, what: str = "file", error: type[Exception] = OutputError,
                  wait: float = 0.0) -> None:
         self.name = os.fspath(path)
         self.key = os.path.realpath(self.name)

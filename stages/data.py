@@ -326,9 +326,11 @@ def _unusable_note(values: pd.Series, name: str, count: int) -> str:
     odd = (numbers.isna() & values.notna()).to_numpy() | beyond_float32(numbers.to_numpy(dtype=np.float64,
                                                                                            na_value=np.nan))
     first = int(np.flatnonzero(odd)[0]) if odd.any() else 0
-    what = "value" if count == 1 else "values"
-    return (f"column {name!r}: {count:,} {what} that are not numbers the chain can use (such as "
-            f"{values.iloc[first]!r} in row {first + 1}; text, infinity or beyond ±3.4e38) treated as missing")
+    what = "value that is not a number" if count == 1 else "values that are not numbers"
+    example = values.iloc[first]
+    shown = repr(float(example)) if isinstance(example, float | np.floating) else repr(example)
+    return (f"column {name!r}: {count:,} {what} the chain can use (such as {shown} in row {first + 1}; "
+            f"text, infinity or beyond ±3.4e38) treated as missing")
 
 
 def _string_columns(frame: pd.DataFrame, source: str) -> pd.DataFrame:

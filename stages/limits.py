@@ -3,7 +3,7 @@
 Each limit is far above what a real chain needs and far below what would exhaust a laptop.
 Whatever crosses one is refused with a message naming the limit, before any work starts, so
 a recipe, chain file or session file from a stranger can never make remnant run for ever or
-take unbounded memory. ``docs/limits.md`` lists them for users.
+take unbounded memory. ``docs/untrusted-files.md`` lists them for users.
 """
 
 from __future__ import annotations

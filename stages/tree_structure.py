@@ -29,12 +29,13 @@ SKLEARN_LEAF = -1
 SVM_KERNELS = ("linear", "poly", "rbf", "sigmoid")
 
 
-def check_links(left: np.ndarray, right: np.ndarray, n_nodes: int, what: str) -> None:
+def check_links(left: np.ndarray, right: np.ndarray, n_nodes: int, what: str,
+                owners: np.ndarray | None = None) -> None:
     """Raise ChainFileError unless ``left``/``right`` make a tree over nodes ``0 .. n_nodes - 1``.
 
-    ``left[i]``, ``right[i]`` are the children of internal node ``i`` (each internal node has
-    two): node indices below ``n_nodes``. Every node but node 0 (the root) must be a child of
-    exactly one node and be reachable from the root.
+    ``left[i]``, ``right[i]`` are the two children of internal node ``owners[i]`` (default ``i``):
+    node indices below ``n_nodes``. Every node but node 0 (the root) must be a child of exactly
+    one node and be reachable from the root.
     """
     children = np.concatenate([np.asarray(left, dtype=np.int64), np.asarray(right, dtype=np.int64)])
     if children.size and (children.min() < 0 or children.max() >= n_nodes):
@@ -48,19 +49,20 @@ def check_links(left: np.ndarray, right: np.ndarray, n_nodes: int, what: str) ->
         count = int(parents[node])
         raise ChainFileError(f"{what} has node {node:,} as the child of {count} nodes (each needs exactly one)")
     left, right = np.asarray(left, dtype=np.int64), np.asarray(right, dtype=np.int64)
-    reached = _reachable(left, right, n_nodes)
+    owners = np.arange(len(left)) if owners is None else np.asarray(owners, dtype=np.int64)
+    reached = _reachable(left, right, owners, n_nodes)
     if reached != n_nodes:
         raise ChainFileError(f"{what} has {n_nodes - reached:,} nodes the root does not reach (a cycle or a detached part)")
 
 
-def _reachable(left: np.ndarray, right: np.ndarray, n_nodes: int) -> int:
-    """Return how many nodes lead up to the root through their parents (internal nodes are ``0 ..
-    len(left) - 1``; every node but the root has exactly one parent)."""
+def _reachable(left: np.ndarray, right: np.ndarray, owners: np.ndarray, n_nodes: int) -> int:
+    """Return how many nodes lead up to the root through their parents (``owners[i]`` is the parent of
+    ``left[i]`` and ``right[i]``; every node but the root has exactly one parent)."""
     if n_nodes <= 1:
         return n_nodes
     parent = np.zeros(n_nodes, dtype=np.int64)
-    parent[left] = np.arange(len(left))
-    parent[right] = np.arange(len(right))
+    parent[left] = owners
+    parent[right] = owners
     parent[0] = 0
     ancestor = parent
     for _ in range(n_nodes.bit_length()):  # after k rounds, each node's 2**k-th ancestor (the root stays put)
@@ -85,7 +87,7 @@ def check_sklearn_tree(tree: Any, n_features: int | None, what: str = "a tree") 
         raise ChainFileError(f"{what} reads {width:,} features; the stage has {n_features:,}")
     leaf = (left == SKLEARN_LEAF) & (right == SKLEARN_LEAF)
     internal = ~leaf
-    check_links(left[internal], right[internal], count, what)
+    check_links(left[internal], right[internal], count, what, owners=np.flatnonzero(internal))
     feature = np.asarray(tree.feature)[internal]
     if feature.size and (feature.min() < 0 or feature.max() >= width):
         bad = int(feature[(feature < 0) | (feature >= width)][0])

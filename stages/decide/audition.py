@@ -110,7 +110,7 @@ def expand_grid(spec: StageSpec | dict[str, Any]) -> list[StageSpec]:
             raise StageSpecError(f"stage {data.get('kind', '?')!r}: {name} is an empty list; give at least one value")
     size = len(shrinkages) * math.prod(len(v) for _, v in axes)  # exact: a numpy product can overflow
     if size > MAX_CANDIDATES:
-        raise StageSpecError(f"the grid of {data.get('kind', '?')!r} has {size} candidates; at most {MAX_CANDIDATES}")
+        raise StageSpecError(f"the grid of {data.get('kind', '?')!r} has {size:,} candidates; at most {MAX_CANDIDATES}")
     specs = []
     for shrinkage in shrinkages:
         for combo in itertools.product(*(values for _, values in axes)):

@@ -227,6 +227,9 @@ def _load(path: str, key: bytes | str | None) -> tuple[FittedChain, dict[str, An
         probe = _read_probe(archive, manifest.get("probe"), schema, path)
     fitted = FittedChain(schema, loss, _number(manifest["start"]), loaded, meta=_meta(manifest),
                          start_scores=_scores(manifest.get("start_scores") or {}))
+    for scores in (fitted.start_scores, *(stage.scores for stage in fitted.stages)):
+        for part in ("train", "valid"):  # what the stage table reads, even from a file that left it out
+            scores.setdefault(part, {}).setdefault(loss.primary, math.nan)
     _check_stages_predict(fitted, probe, path)
     if probe is not None:
         _PROBES[fitted] = probe[0]
