@@ -23,7 +23,9 @@ from __future__ import annotations
 
 import contextlib
 import math
+import os
 import re
+import sys
 from collections.abc import Iterator
 
 import numpy as np
@@ -278,15 +280,36 @@ def _number(token: str, key: str, what: str) -> float:
 
 @contextlib.contextmanager
 def quiet_native_log() -> Iterator[None]:
-    """Silence LightGBM's native log inside the block (its ``[Fatal]`` lines would precede our error line)."""
+    """Silence LightGBM inside the block: its log callback, and the process's standard error, where its
+    C++ code writes ``[Fatal]`` lines directly (they would precede our one error line)."""
     import lightgbm.basic as basic
 
     saved = (basic._LOGGER, basic._INFO_METHOD_NAME, basic._WARNING_METHOD_NAME)
     basic.register_logger(_Silent())
     try:
-        yield
+        with _stderr_silenced():
+            yield
     finally:
         basic._LOGGER, basic._INFO_METHOD_NAME, basic._WARNING_METHOD_NAME = saved
+
+
+@contextlib.contextmanager
+def _stderr_silenced() -> Iterator[None]:
+    """Point file descriptor 2 at the null device inside the block (nothing happens where it cannot be)."""
+    try:
+        sys.stderr.flush()
+        kept = os.dup(2)
+        null = os.open(os.devnull, os.O_WRONLY)
+    except (OSError, ValueError, AttributeError):
+        yield
+        return
+    try:
+        os.dup2(null, 2)
+        yield
+    finally:
+        os.dup2(kept, 2)
+        os.close(kept)
+        os.close(null)
 
 
 class _Silent:

@@ -46,9 +46,9 @@ from ..fitting import Stage
 from ..kinds.base import ProgressFn
 from ..manifest_schema import ManifestMismatch, strict_json
 from ..reading import load_frame
-from ..session_manifest import check_session_manifest
 from ..validation import spec_from_dict
 from . import store
+from .session_manifest import check_session_manifest
 from .session_parts import (
     data_reference,
     describe_changes,

@@ -43,7 +43,6 @@ import numpy as np
 
 from .. import limits
 from ..atomic import write_atomic as _write_atomic
-from ..chain_manifest import check_manifest
 from ..container import ArchiveReader, ArchiveWriter, sha256_hex, size_text
 from ..errors import ChainFileError, RemnantError
 from ..kinds import get_kind
@@ -53,6 +52,7 @@ from ..manifest_schema import strict_json
 from ..predictor import FittedChain, FittedStage
 from ..schema import Schema
 from ..spec import StageSpec
+from .chain_manifest import check_manifest
 
 if TYPE_CHECKING:
     from ..chain import Chain
@@ -317,7 +317,7 @@ def _read_probe(archive: ArchiveReader, entry: Any, schema: Schema, path: str) -
 
 def _check_stages_predict(fitted: FittedChain, probe: Probe | None, path: str) -> None:
     """Raise ChainFileError naming the first stage that cannot predict the probe rows (or, without a
-    probe, a row of zeros and a row of missing values) as one finite value per row."""
+    probe, a row of zeros and a row of missing values) as finite values, one row of output per row."""
     n_columns = len(fitted.schema.columns)
     rows = probe[0] if probe is not None else np.vstack([np.zeros(n_columns), np.full(n_columns, np.nan)])
     for number, stage in enumerate(fitted.stages, 1):
@@ -328,8 +328,9 @@ def _check_stages_predict(fitted: FittedChain, probe: Probe | None, path: str) -
         except Exception as exc:
             raise ChainFileError(f"{path}: stage {number} ({stage.kind}) cannot predict "
                                  f"({type(exc).__name__}: {_one_line(exc)})") from None
-        if output.shape != (len(rows),) or not np.isfinite(output).all():
-            raise ChainFileError(f"{path}: stage {number} ({stage.kind}) does not predict one finite value per row")
+        if output.ndim not in (1, 2) or output.shape[0] != len(rows) or not np.isfinite(output).all():
+            raise ChainFileError(f"{path}: stage {number} ({stage.kind}) does not predict finite values, one row "
+                                 "per row")
 
 
 def _meta(manifest: dict[str, Any]) -> dict[str, Any]:

@@ -29,7 +29,7 @@ from hostile import (
 )
 
 import stages
-from stages.session import SessionError, load_session, save_session
+from stages.files.session import SessionError, load_session, save_session
 
 
 def callables(marker: str) -> dict[str, tuple[str, str, list]]:

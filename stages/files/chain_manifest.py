@@ -10,10 +10,10 @@ from __future__ import annotations
 import math
 from typing import Any
 
-from . import limits
-from .errors import ChainFileError
-from .kinds.base import Artifact
-from .manifest_schema import (
+from .. import limits
+from ..errors import ChainFileError
+from ..kinds.base import Artifact
+from ..manifest_schema import (
     ManifestMismatch,
     flag,
     items,
@@ -25,7 +25,7 @@ from .manifest_schema import (
     text,
     whole,
 )
-from .schema import FEATURE_ROLES
+from ..schema import FEATURE_ROLES
 
 TASKS = ("regression", "binary", "multiclass")
 _NAME = text(4096)
@@ -93,7 +93,7 @@ def check_manifest(manifest: Any, path: str) -> None:
 
 
 def _check_validation(spec: dict[str, Any], path: str) -> None:
-    from .validation import spec_from_dict
+    from ..validation import spec_from_dict
 
     try:
         spec_from_dict(dict(spec))

@@ -8,10 +8,9 @@ from __future__ import annotations
 
 from typing import Any
 
-from . import limits
-from .chain_manifest import PARAMS, SCHEMA, SPEC, TASKS
-from .kinds.base import Artifact
-from .manifest_schema import (
+from .. import limits
+from ..kinds.base import Artifact
+from ..manifest_schema import (
     ManifestMismatch,
     flag,
     items,
@@ -23,6 +22,7 @@ from .manifest_schema import (
     text,
     whole,
 )
+from .chain_manifest import PARAMS, SCHEMA, SPEC, TASKS
 
 #: the random-stream states a session may store (each distinct one once)
 MAX_STATES = 4 * limits.MAX_STAGES
