@@ -50,3 +50,8 @@ class SchemaError(RemnantError):
 
 class OutputError(RemnantError):
     """An output file cannot be written: not a regular file, another writer holds it, or a full disk."""
+
+
+class ExportError(RemnantError):
+    """A chain cannot be exported as asked (a stage that does not convert, a missing extra, a model
+    that would predict differently); nothing was written."""

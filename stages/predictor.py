@@ -114,6 +114,14 @@ class FittedChain:
         p = self.loss.link(self.predict_raw(frame, source=source))
         return np.column_stack([1.0 - p, p])
 
+    def to_onnx(self, path: Any, *, rows: pd.DataFrame | None = None) -> Any:
+        """Write the chain as one ONNX model at ``path`` (and its probe file beside it), checked against
+        ``predict`` first; return the report (``stages.bridges.onnx.OnnxReport``). Needs ``remnant[onnx]``."""
+        from .bridges.onnx import export_onnx
+        from .files import store
+
+        return export_onnx(self, path, stored_rows=store.stored_probe(self), rows=rows)
+
     def as_estimator(self):
         """Return this chain as a fitted scikit-learn estimator (regressor or classifier)."""
         from .bridges.estimator import wrap_fitted

@@ -1,4 +1,4 @@
-"""Third floor: the chain inside other libraries (scikit-learn estimators, Dask).
+"""Third floor: the chain inside other libraries and runtimes (scikit-learn estimators, Dask, ONNX).
 
 Imports the core and the second floor, never the files.
 """

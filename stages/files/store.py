@@ -100,6 +100,11 @@ def save(chain: Chain | FittedChain, path: str | os.PathLike) -> None:
     write_atomic(target, lambda handle: _write_archive(handle, fitted, probe, fingerprint, target))
 
 
+def stored_probe(fitted: FittedChain) -> np.ndarray | None:
+    """Return the probe rows (schema matrix rows) of a chain loaded from a file, else None."""
+    return _PROBES.get(fitted)
+
+
 def data_fingerprint(matrix: np.ndarray, y: np.ndarray, order: np.ndarray | None = None) -> dict[str, Any]:
     """Return the row and column counts and a SHA-256 of the feature matrix and target, in data order.
 

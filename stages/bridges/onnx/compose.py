@@ -1,0 +1,173 @@
+"""The whole chain as one graph: the schema's inputs, every stage, the raw score, the inverse link.
+
+The raw score is computed as ``FittedChain.raw_from_matrix`` computes it: the start value on
+every row, then ``raw + scale * output`` for each stage in turn (the same float64 operations in
+the same order). A ``Head`` turns the raw score into the model's outputs:
+
+- ``RegressionHead`` (squared, absolute, huber): ``prediction`` is the raw score;
+- ``BinaryHead`` (logloss): ``probability`` is the logistic of the raw score and ``prediction``
+  the positive class where it is at least the chain's threshold, else the negative class.
+
+Two heads slot in later without changing the rest: a log-link head (poisson, gamma, tweedie, and
+the ``glm`` kind, whose converter returns its linear predictor) declares one more double input,
+the exposure, adds ``Log(exposure)`` to the raw score as its offset (``offset``) and outputs
+``Exp(raw)``; a softmax head (multiclass) gets raw scores of K columns (the start value is a
+K-vector, and every converter returns [N, K]), outputs ``Softmax`` per row as one
+``probability_<class>`` output per class, and ``prediction`` as the class at the ``ArgMax``.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from typing import Any
+
+import numpy as np
+
+from ...errors import ExportError
+from ...predictor import FittedChain, class_label
+from .builder import GraphBuilder
+from .columns import SchemaColumns
+from .converters import FLOAT32, FLOAT64, StageGraph, StageInputs, convert_stage
+
+REGRESSION_LOSSES = ("squared", "absolute", "huber")
+BINARY_LOSSES = ("logloss",)
+
+
+@dataclass(frozen=True)
+class Output:
+    """One output of the model: its name, and what its values are."""
+
+    name: str
+    about: str
+
+
+class Head:
+    """Turns the raw score into the model's outputs; subclasses say which."""
+
+    outputs: tuple[Output, ...] = ()
+
+    def add_inputs(self, builder: GraphBuilder) -> None:
+        """Declare any input the head needs besides the features (none here)."""
+
+    def offset(self, builder: GraphBuilder, raw: str) -> str:
+        """Return the raw score with the head's offset added (none here)."""
+        return raw
+
+    def finish(self, builder: GraphBuilder, raw: str) -> None:
+        """Add the model's outputs computed from the [N, 1] raw score."""
+        raise NotImplementedError
+
+
+class RegressionHead(Head):
+    """``prediction``: the raw score itself (an identity link)."""
+
+    outputs = (Output("prediction", "the predicted value"),)
+
+    def finish(self, builder: GraphBuilder, raw: str) -> None:
+        """Output the raw score as ``prediction``, [N] doubles."""
+        from onnx import TensorProto
+
+        builder.add_output(builder.flat(raw), "prediction", TensorProto.DOUBLE, ["N"])
+
+
+class BinaryHead(Head):
+    """``probability`` (of the positive class) and ``prediction`` (the class at the chain's threshold)."""
+
+    outputs = (Output("prediction", "the predicted class"), Output("probability", "the positive class's probability"))
+
+    def __init__(self, classes: tuple[str, ...], threshold: float) -> None:
+        self.classes = classes
+        self.threshold = threshold
+
+    def finish(self, builder: GraphBuilder, raw: str) -> None:
+        """Output ``prediction`` (the class label, typed as ``predict`` returns it) and ``probability``."""
+        from onnx import TensorProto
+
+        probability = builder.flat(builder.op("Sigmoid", [raw], "probability"))
+        positive = builder.op("GreaterOrEqual", [probability, builder.constant([self.threshold], "threshold")])
+        labels, elem_type = label_constants(self.classes)
+        negative_label = builder.constant(labels[:1], "negative_class", labels.dtype)
+        positive_label = builder.constant(labels[1:], "positive_class", labels.dtype)
+        label = builder.op("Where", [positive, positive_label, negative_label], "label")
+        builder.add_output(label, "prediction", elem_type, ["N"])
+        builder.add_output(probability, "probability", TensorProto.DOUBLE, ["N"])
+
+
+def label_constants(classes: tuple[str, ...]) -> tuple[np.ndarray, int]:
+    """Return the class labels as ``predict`` gives them (whole numbers, other numbers, or text),
+    as an array, and the ONNX element type that holds them."""
+    from onnx import TensorProto
+
+    labels = [class_label(text) for text in classes]
+    if all(isinstance(label, int) for label in labels):
+        return np.asarray(labels, dtype=np.int64), TensorProto.INT64
+    if all(isinstance(label, int | float) for label in labels):
+        return np.asarray(labels, dtype=np.float64), TensorProto.DOUBLE
+    return np.asarray([str(label) for label in labels], dtype=object), TensorProto.STRING
+
+
+def head_for(fitted: FittedChain) -> Head:
+    """Return the head of ``fitted``'s task and loss; raise ExportError for one not exported yet."""
+    loss = fitted.loss.name
+    if fitted.task == "regression" and loss in REGRESSION_LOSSES:
+        return RegressionHead()
+    if fitted.task == "binary" and loss in BINARY_LOSSES and len(fitted.schema.classes) == 2:
+        return BinaryHead(fitted.schema.classes, fitted.threshold)
+    raise ExportError(f"a {fitted.task} chain with loss {loss!r} cannot be exported to ONNX yet "
+                      f"(exported: regression with {', '.join(REGRESSION_LOSSES)}; binary with logloss)")
+
+
+@dataclass
+class ChainGraph:
+    """The composed model and what each stage became."""
+
+    model: Any
+    stages: list[StageGraph] = field(default_factory=list)
+
+    @property
+    def precision(self) -> str:
+        """Return float32 when any stage computes in float32, else float64."""
+        return FLOAT32 if any(s.precision == FLOAT32 for s in self.stages) else FLOAT64
+
+
+def chain_graph(fitted: FittedChain, *, each_stage: bool = False) -> ChainGraph:
+    """Return the ONNX model of the whole chain; with ``each_stage``, also outputs ``after_k`` (the
+    raw score after stage k) for finding the stage where a difference starts.
+
+    Raise ExportError when a stage does not convert or a feature's name is one of the outputs'.
+    """
+    head = head_for(fitted)
+    names = fitted.schema.names
+    taken = sorted({o.name for o in head.outputs} & set(names))
+    if taken:
+        raise ExportError(f"feature {taken[0]!r} has the name of an output of the model; rename the column")
+    outputs = [o.name for o in head.outputs] + [f"after_{k}" for k in range(1, len(fitted.stages) + 1) if each_stage]
+    if each_stage and set(outputs) & set(names):
+        raise ExportError("a feature has the name of a stage's diagnostic output")
+    builder = GraphBuilder(outputs)
+    columns = SchemaColumns(builder, fitted.schema)
+    head.add_inputs(builder)
+    raw = head.offset(builder, _start(builder, names[0], fitted.start))
+    found = []
+    for number, stage in enumerate(fitted.stages, start=1):
+        graph = convert_stage(stage, StageInputs(builder, columns, number))
+        found.append(graph)
+        scaled = builder.op("Mul", [graph.output, builder.constant([stage.scale], "scale")], f"stage_{number}")
+        raw = builder.op("Add", [raw, scaled], "raw")
+        if each_stage:
+            from onnx import TensorProto
+
+            builder.add_output(builder.flat(raw), f"after_{number}", TensorProto.DOUBLE, ["N"])
+    head.finish(builder, raw)
+    metadata = {"remnant_task": fitted.task, "remnant_loss": fitted.loss.name,
+                "remnant_stages": ", ".join(s.kind for s in fitted.stages)}
+    return ChainGraph(builder.model("a residual chain exported by remnant", metadata), found)
+
+
+def _start(builder: GraphBuilder, first_input: str, start: float) -> str:
+    """Return the start value on every row, [N, 1] (the row count read from the first input)."""
+    from onnx import TensorProto, helper
+
+    shape = builder.op("Shape", [first_input], "rows")
+    value = helper.make_tensor("start", TensorProto.DOUBLE, [1], [float(start)])
+    return builder.column(builder.op("ConstantOfShape", [shape], "start", value=value))

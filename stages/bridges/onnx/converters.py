@@ -1,0 +1,157 @@
+"""One converter per stage kind: a fitted stage's learner as a graph from the schema's columns to its output.
+
+A converter gets the stage and the ``StageInputs`` (the graph, the schema's columns) and returns a
+``StageGraph``: the name of its output before the stage's scale, an [N, K] double tensor with
+K = 1 for regression and binary chains, and the precision it computes in. Adding a kind is one
+function registered with ``@converts("kind")``; a multiclass kind returns its K columns, and a
+kind on a log link (``glm``) returns its linear predictor, the head applying the inverse link
+(``compose.py``).
+"""
+
+from __future__ import annotations
+
+from collections.abc import Callable
+from dataclasses import dataclass
+
+import numpy as np
+
+from ...errors import ExportError
+from ...kinds import SKLEARN_PREFIX
+from ...predictor import FittedStage
+from .builder import GraphBuilder
+from .columns import SchemaColumns
+from .designs import linear_design, linear_output, spline_design
+from .neighbours import neighbours_output
+from .sklearn_stage import FOREST_CLASSES, TREE_CLASSES, estimator_graph
+from .trees import AVERAGE, SUM, lightgbm_trees, sklearn_tree, tree_ensemble
+
+FLOAT64 = "float64"
+FLOAT32 = "float32"
+
+
+@dataclass(frozen=True)
+class StageInputs:
+    """What a converter builds from: the graph, the schema's columns, and the stage's place in the chain."""
+
+    builder: GraphBuilder
+    columns: SchemaColumns
+    number: int
+
+    def where(self, stage: FittedStage) -> str:
+        """Return the stage as errors name it: ``stage 3 (forest)``."""
+        return f"stage {self.number} ({stage.kind})"
+
+
+@dataclass(frozen=True)
+class StageGraph:
+    """A stage's output in the graph ([N, K] double, before the stage's scale) and its precision."""
+
+    output: str
+    precision: str = FLOAT64
+    note: str = ""
+
+
+Converter = Callable[[FittedStage, StageInputs], StageGraph]
+CONVERTERS: dict[str, Converter] = {}
+
+
+def converts(*kinds: str) -> Callable[[Converter], Converter]:
+    """Register the decorated function as the converter of ``kinds``."""
+    def register(function: Converter) -> Converter:
+        for kind in kinds:
+            CONVERTERS[kind] = function
+        return function
+    return register
+
+
+def convert_stage(stage: FittedStage, inputs: StageInputs) -> StageGraph:
+    """Return the graph of ``stage``; raise ExportError when its kind has no converter."""
+    kind = SKLEARN_PREFIX if stage.kind.startswith(SKLEARN_PREFIX) else stage.kind
+    if kind not in CONVERTERS:
+        known = ", ".join(sorted(CONVERTERS))
+        raise ExportError(f"{inputs.where(stage)}: kind {stage.kind!r} has no ONNX converter "
+                          f"(kinds that convert: {known})")
+    return CONVERTERS[kind](stage, inputs)
+
+
+@converts("mean")
+def _mean(stage: FittedStage, inputs: StageInputs) -> StageGraph:
+    first = inputs.columns.column(stage.feature_index[0]) if stage.feature_index else inputs.columns.column(0)
+    return StageGraph(linear_output(inputs.builder, None, np.zeros(0), stage.learner.value, first))
+
+
+@converts("linear", "ridge", "lasso", "logistic")
+def _linear(stage: FittedStage, inputs: StageInputs) -> StageGraph:
+    model = stage.learner
+    columns = inputs.columns.columns(stage.feature_index)
+    design = linear_design(inputs.builder, columns, model.design)
+    return StageGraph(linear_output(inputs.builder, design, model.coef, model.intercept, columns[0]))
+
+
+@converts("spline")
+def _spline(stage: FittedStage, inputs: StageInputs) -> StageGraph:
+    model = stage.learner
+    columns = inputs.columns.columns(stage.feature_index)
+    design = spline_design(inputs.builder, columns, model.design)
+    return StageGraph(linear_output(inputs.builder, design, model.coef, model.intercept, columns[0]))
+
+
+@converts("tree")
+def _tree(stage: FittedStage, inputs: StageInputs) -> StageGraph:
+    matrix = inputs.columns.matrix(stage.feature_index, float32=True)
+    return StageGraph(tree_ensemble(inputs.builder, matrix, [sklearn_tree(stage.learner.tree_)]))
+
+
+@converts("forest", "extra_trees")
+def _forest(stage: FittedStage, inputs: StageInputs) -> StageGraph:
+    matrix = inputs.columns.matrix(stage.feature_index, float32=True)
+    trees = [sklearn_tree(member.tree_) for member in stage.learner.estimators_]
+    return StageGraph(tree_ensemble(inputs.builder, matrix, trees, aggregate=AVERAGE))
+
+
+@converts("lightgbm", "hist_tree")
+def _booster(stage: FittedStage, inputs: StageInputs) -> StageGraph:
+    try:
+        trees, per_iteration, average = lightgbm_trees(stage.learner.booster)
+    except ExportError as exc:
+        raise ExportError(f"{inputs.where(stage)}: {exc}") from None
+    matrix = inputs.columns.matrix(stage.feature_index)
+    output = tree_ensemble(inputs.builder, matrix, trees, n_targets=per_iteration,
+                           aggregate=AVERAGE if average else SUM)
+    return StageGraph(output)
+
+
+@converts("knn")
+def _knn(stage: FittedStage, inputs: StageInputs) -> StageGraph:
+    model = stage.learner
+    design = linear_design(inputs.builder, inputs.columns.columns(stage.feature_index), model.design)
+    params = model.params
+    output = neighbours_output(inputs.builder, design, model.matrix, model.target, int(params["n_neighbors"]),
+                               float(params["p"]), str(params["weights"]))
+    return StageGraph(output)
+
+
+@converts(SKLEARN_PREFIX)
+def _sklearn(stage: FittedStage, inputs: StageInputs) -> StageGraph:
+    model = stage.learner
+    estimator = model.estimator
+    design = linear_design(inputs.builder, inputs.columns.columns(stage.feature_index), model.design)
+    if design is None:
+        raise ExportError(f"{inputs.where(stage)}: its design has no column")
+    name = type(estimator).__name__
+    if name in TREE_CLASSES + FOREST_CLASSES and type(estimator).__module__.startswith("sklearn."):
+        rounded = _float32(inputs.builder, design)
+        members = [estimator] if name in TREE_CLASSES else list(estimator.estimators_)
+        trees = [sklearn_tree(member.tree_) for member in members]
+        aggregate = SUM if name in TREE_CLASSES else AVERAGE
+        return StageGraph(tree_ensemble(inputs.builder, rounded, trees, aggregate=aggregate))
+    converted = estimator_graph(inputs.builder, design, model.design.width, estimator, inputs.where(stage))
+    return StageGraph(converted.output, converted.precision, converted.note)
+
+
+def _float32(builder: GraphBuilder, matrix: str) -> str:
+    """Return ``matrix`` rounded to float32 and back, as scikit-learn's trees read their input."""
+    from onnx import TensorProto
+
+    single = builder.op("Cast", [matrix], "as_float32", to=TensorProto.FLOAT)
+    return builder.op("Cast", [single], "rounded", to=TensorProto.DOUBLE)
