@@ -89,6 +89,14 @@ probability).
 
 example:
   remnant predict houses.chain new.parquet --id listing_id --out scores.csv"""
+_EXPORT = """Write a chain file as one ONNX model, with its preprocessing, for any ONNX runtime.
+The model is checked in onnxruntime against the chain's own predictions on probe
+rows before it is written; the probe rows (inputs and expected outputs) are
+written beside it as OUT.probe.csv, to check the model where it is deployed.
+Needs the optional extra: pip install 'remnant[onnx]'.
+
+example:
+  remnant export houses.chain --onnx houses.onnx"""
 _SHOW = """Print a chain file's settings, its stage table (the scores stored when it was
 saved), its schema and the coefficients of its linear stages (linear, ridge,
 lasso, logistic) per unit of each feature. With --format csv, only the stage
@@ -151,6 +159,11 @@ def _add_headless_commands(commands: Any) -> None:
     predict.add_argument("--each-stage", action="store_true",
                          help="also write the prediction after each stage, and the residual when DATA has the target")
     predict.set_defaults(run=run_predict)
+    export = commands.add_parser("export", help="write a chain file as an ONNX model (and its probe file)",
+                                 description=_EXPORT, formatter_class=_RAW)
+    export.add_argument("chain", metavar="CHAIN", help="a chain file")
+    export.add_argument("--onnx", metavar="OUT", required=True, help="the ONNX model to write (e.g. model.onnx)")
+    export.set_defaults(run=run_export)
     show = commands.add_parser("show", help="print a chain file's stages, scores and schema", description=_SHOW,
                                formatter_class=_RAW)
     show.add_argument("chain", metavar="CHAIN", help="a chain file")
@@ -456,6 +469,19 @@ def run_verify(args: argparse.Namespace) -> int:
 
     fitted = verify(args.chain, _key(args, from_environment=True))
     print(f"{args.chain}: the signature matches the key; {len(fitted.stages)} stages load")
+    return 0
+
+
+def run_export(args: argparse.Namespace) -> int:
+    """Write a chain file as an ONNX model and its probe file, print what was measured; return 0."""
+    from stages import store
+
+    if _same_file(args.onnx, args.chain):
+        raise UsageError(f"--onnx {args.onnx} is the chain file; choose another file (nothing was written)")
+    report = store.load(args.chain).to_onnx(args.onnx)
+    for line in report.lines():
+        print(line)
+    print("caution: check the model where it runs against the probe file before relying on it", file=sys.stderr)
     return 0
 
 
