@@ -16,7 +16,7 @@ from sklearn.metrics import mean_squared_error
 import stages
 from tui import cli
 
-COMMANDS = ["demo", "explore", "fit", "predict", "show"]
+COMMANDS = ["demo", "explore", "fit", "predict", "show", "export"]
 
 
 def same_predictions(a: str, b: str) -> bool:

@@ -1,7 +1,9 @@
 """Writing the model and its probe file atomically: each to a temporary file beside it, then renamed.
 
-Both files are written in full before either is renamed into place, the model last, so a failure
-leaves what was there before (and removes the temporary files).
+Both files are written in full before either is renamed into place, and the model is renamed
+last: a failure leaves the model that was there before (and removes the temporary files); when
+only the probe file was replaced, it no longer matches that model, so a check against it fails
+rather than passes.
 """
 
 from __future__ import annotations
