@@ -36,6 +36,7 @@ SUITE: dict[str, tuple[list[str], list[str]]] = {
     "audition": ([], ["--rows", "20000", "--repeats", "1"]),
     "ui_latency": ([], ["--rows", "100000", "--rounds", "50"]),
     "understand": ([], ["--rows", "200000", "--sample", "50000"]),
+    "onnx_predict": ([], ["--rows", "100000", "--fit-rows", "20000", "--repeats", "2"]),
 }
 
 

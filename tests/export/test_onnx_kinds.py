@@ -33,6 +33,7 @@ FLOAT64_KINDS = [
     ("sklearn:sklearn.neural_network.MLPRegressor", {"max_iter": 200, "hidden_layer_sizes": [8]}),
     ("sklearn:sklearn.ensemble.RandomForestRegressor", {"n_estimators": 5, "max_depth": 4}),
     ("sklearn:sklearn.neighbors.KNeighborsRegressor", {}),
+    ("sklearn:sklearn.ensemble.GradientBoostingRegressor", {"n_estimators": 20}),
 ]
 
 
@@ -83,3 +84,14 @@ def test_a_float32_operator_stays_within_1e_5_of_the_spread_and_says_which(train
     got = run_onnx(tmp_path / "c.onnx", new_rows, fitted.schema)["prediction"]
     want, _ = predicted(fitted, new_rows)
     assert np.max(np.abs(got - want)) <= 1e-5 * float(fitted.start_scores["train"]["rmse"])
+
+
+def test_a_retired_tree_operator_beside_our_tree_stages_is_refused_naming_the_stage(train_frame, tmp_path):
+    # skl2onnx writes AdaBoostRegressor with TreeEnsembleRegressor, retired in ai.onnx.ml opset 5,
+    # which the chain's own tree stage needs: one model cannot import both opsets
+    from stages.errors import ExportError
+
+    with pytest.raises(ExportError, match=r"stage 2 \(sklearn:sklearn.ensemble.AdaBoostRegressor\).*TreeEnsembleRegressor"):
+        exported(train_frame, "y", [("linear", 1.0, {}), ("sklearn:sklearn.ensemble.AdaBoostRegressor", 0.5, {}),
+                                    ("tree", 0.5, {})], tmp_path)
+    assert not (tmp_path / "c.onnx").exists()

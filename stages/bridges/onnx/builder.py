@@ -11,9 +11,12 @@ from typing import Any
 
 import numpy as np
 
+from ...errors import ExportError
+
 #: the default domain's opset: every operator the export writes exists in it (ONNX 1.16, IR 10)
 OPSET = 21
-#: ai.onnx.ml opset 5 has TreeEnsemble, whose thresholds, leaves and output take doubles
+#: ai.onnx.ml opset 5 has TreeEnsemble, whose thresholds, leaves and output take doubles; the
+#: graph imports the lowest ai.onnx.ml opset its operators need (2 when there is no tree)
 ML_OPSET = 5
 ML = "ai.onnx.ml"
 IR_VERSION = 10
@@ -29,6 +32,8 @@ class GraphBuilder:
         self.inputs: list[Any] = []
         self.outputs: list[Any] = []
         self.domains: dict[str, int] = {"": OPSET}
+        #: (stage, operator) of embedded graphs whose operator ai.onnx.ml opset 5 retired
+        self.retired: list[tuple[str, str]] = []
         self._used: set[str] = set(outputs)
         self._output_names = set(outputs)
         self._counts: dict[str, int] = {}
@@ -63,15 +68,17 @@ class GraphBuilder:
         return name
 
     def op(self, op_type: str, inputs: list[str], base: str | None = None, *, outputs: int = 1,
-           domain: str = "", **attributes: Any) -> Any:
-        """Add one node; return its output name (or a list of names when ``outputs`` > 1)."""
+           domain: str = "", version: int = 1, **attributes: Any) -> Any:
+        """Add one node; return its output name (or a list of names when ``outputs`` > 1).
+
+        ``version`` is the lowest opset of ``domain`` the node needs (other than the default domain)."""
         from onnx import helper
 
         names = [self.fresh(base or op_type.lower()) for _ in range(outputs)]
         self.nodes.append(helper.make_node(op_type, inputs, names, name=self.fresh(f"node_{op_type}"),
                                            domain=domain, **attributes))
         if domain:
-            self.domains[domain] = max(self.domains.get(domain, 0), ML_OPSET if domain == ML else 1)
+            self.domains[domain] = max(self.domains.get(domain, 0), version)
         return names[0] if outputs == 1 else names
 
     def add_input(self, name: str, elem_type: int, shape: list[Any]) -> str:
@@ -144,5 +151,15 @@ class GraphBuilder:
         for key, value in (metadata or {}).items():
             entry = model.metadata_props.add()
             entry.key, entry.value = key, value
-        checker.check_model(model, full_check=True)
+        try:
+            checker.check_model(model, full_check=True)
+        except (checker.ValidationError, onnx_errors()) as exc:
+            raise ExportError(f"the composed ONNX graph is not valid ({' '.join(str(exc).split())[:300]})") from None
         return model
+
+
+def onnx_errors() -> type[Exception]:
+    """Return the error class of onnx's shape inference (raised by the checker's full check)."""
+    from onnx.shape_inference import InferenceError
+
+    return InferenceError

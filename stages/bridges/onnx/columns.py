@@ -75,16 +75,15 @@ def _numbers(builder: GraphBuilder, col: ColumnInfo) -> str:
 
 def _codes(builder: GraphBuilder, col: ColumnInfo) -> str:
     """Return a categorical input as its schema column: the level's code, NaN when unseen or missing."""
-    from onnx import TensorProto, helper, numpy_helper
+    from onnx import TensorProto, helper
 
     text = builder.column(col.name)
     if not col.levels:  # no level was ever seen: every value is unseen
         shape = builder.op("Shape", [text], "shape")
         nan = helper.make_tensor("nan", TensorProto.DOUBLE, [1], [np.nan])
         return builder.op("ConstantOfShape", [shape], f"codes_{col.name}", value=nan)
-    return builder.op(
-        "LabelEncoder", [text], f"codes_{col.name}", domain=ML,
-        keys_strings=list(col.levels),
-        values_tensor=numpy_helper.from_array(np.arange(len(col.levels), dtype=np.float64)),
-        default_tensor=numpy_helper.from_array(np.array([np.nan])),
-    )
+    # codes as float32 (ai.onnx.ml opset 2) are exact: whole numbers below 2**24 levels
+    codes = builder.op("LabelEncoder", [text], f"codes32_{col.name}", domain=ML, version=2,
+                       keys_strings=list(col.levels), values_floats=[float(i) for i in range(len(col.levels))],
+                       default_float=float("nan"))
+    return builder.op("Cast", [codes], f"codes_{col.name}", to=TensorProto.DOUBLE)

@@ -25,7 +25,7 @@ import numpy as np
 
 from ...errors import ExportError
 from ...predictor import FittedChain, class_label
-from .builder import GraphBuilder
+from .builder import ML, ML_OPSET, GraphBuilder
 from .columns import SchemaColumns
 from .converters import FLOAT32, FLOAT64, StageGraph, StageInputs, convert_stage
 
@@ -158,6 +158,10 @@ def chain_graph(fitted: FittedChain, *, each_stage: bool = False) -> ChainGraph:
             from onnx import TensorProto
 
             builder.add_output(builder.flat(raw), f"after_{number}", TensorProto.DOUBLE, ["N"])
+    if builder.retired and builder.domains.get(ML, 0) >= ML_OPSET:
+        where, operator = builder.retired[0]
+        raise ExportError(f"{where}: skl2onnx writes it with {operator}, which ai.onnx.ml opset {ML_OPSET} "
+                          "retired, and the chain's tree stages need that opset: the two cannot be in one model")
     head.finish(builder, raw)
     metadata = {"remnant_task": fitted.task, "remnant_loss": fitted.loss.name,
                 "remnant_stages": ", ".join(s.kind for s in fitted.stages)}

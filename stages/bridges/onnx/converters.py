@@ -12,6 +12,7 @@ from __future__ import annotations
 
 from collections.abc import Callable
 from dataclasses import dataclass
+from typing import Any
 
 import numpy as np
 
@@ -22,7 +23,7 @@ from .builder import GraphBuilder
 from .columns import SchemaColumns
 from .designs import linear_design, linear_output, spline_design
 from .neighbours import neighbours_output
-from .sklearn_stage import FOREST_CLASSES, TREE_CLASSES, estimator_graph
+from .sklearn_stage import BOOSTING_CLASSES, FOREST_CLASSES, TREE_CLASSES, estimator_graph
 from .trees import AVERAGE, SUM, lightgbm_trees, sklearn_tree, tree_ensemble
 
 FLOAT64 = "float64"
@@ -139,14 +140,34 @@ def _sklearn(stage: FittedStage, inputs: StageInputs) -> StageGraph:
     if design is None:
         raise ExportError(f"{inputs.where(stage)}: its design has no column")
     name = type(estimator).__name__
-    if name in TREE_CLASSES + FOREST_CLASSES and type(estimator).__module__.startswith("sklearn."):
-        rounded = _float32(inputs.builder, design)
-        members = [estimator] if name in TREE_CLASSES else list(estimator.estimators_)
-        trees = [sklearn_tree(member.tree_) for member in members]
-        aggregate = SUM if name in TREE_CLASSES else AVERAGE
-        return StageGraph(tree_ensemble(inputs.builder, rounded, trees, aggregate=aggregate))
+    if name in TREE_CLASSES + FOREST_CLASSES + BOOSTING_CLASSES and type(estimator).__module__.startswith("sklearn."):
+        return StageGraph(_sklearn_trees(inputs, design, estimator, inputs.where(stage)))
     converted = estimator_graph(inputs.builder, design, model.design.width, estimator, inputs.where(stage))
     return StageGraph(converted.output, converted.precision, converted.note)
+
+
+def _sklearn_trees(inputs: StageInputs, design: str, estimator: Any, where: str) -> str:
+    """Return a scikit-learn tree, forest or gradient boosting regressor as one TreeEnsemble on ``design``."""
+    builder = inputs.builder
+    rounded = _float32(builder, design)
+    name = type(estimator).__name__
+    if name in TREE_CLASSES:
+        return tree_ensemble(builder, rounded, [sklearn_tree(estimator.tree_)])
+    if name in FOREST_CLASSES:
+        trees = [sklearn_tree(member.tree_) for member in estimator.estimators_]
+        return tree_ensemble(builder, rounded, trees, aggregate=AVERAGE)
+    # gradient boosting: the initial constant plus learning_rate times each tree's leaf
+    start = estimator.init_
+    if isinstance(start, str) and start == "zero":
+        base = 0.0
+    elif type(start).__name__ == "DummyRegressor":
+        base = float(np.asarray(start.constant_, dtype=np.float64).ravel()[0])
+    else:
+        raise ExportError(f"{where}: a gradient boosting regressor with init={type(start).__name__} cannot be exported")
+    rate = float(estimator.learning_rate)
+    trees = [sklearn_tree(member.tree_, rate) for member in estimator.estimators_[:, 0]]
+    summed = tree_ensemble(builder, rounded, trees)
+    return builder.op("Add", [builder.constant([base], "init"), summed], "boosted")
 
 
 def _float32(builder: GraphBuilder, matrix: str) -> str:

@@ -14,11 +14,14 @@ from dataclasses import dataclass
 from typing import Any
 
 from ...errors import ExportError
-from .builder import ML, ML_OPSET, OPSET, GraphBuilder
+from .builder import ML, OPSET, GraphBuilder
 
 #: scikit-learn tree classes written by ``trees.py`` (exact, float64) rather than by skl2onnx
 TREE_CLASSES = ("DecisionTreeRegressor", "ExtraTreeRegressor")
 FOREST_CLASSES = ("RandomForestRegressor", "ExtraTreesRegressor")
+BOOSTING_CLASSES = ("GradientBoostingRegressor",)
+#: operators ai.onnx.ml opset 5 retired (in favour of TreeEnsemble); skl2onnx still writes them
+RETIRED_IN_ML5 = ("TreeEnsembleRegressor", "TreeEnsembleClassifier")
 
 
 @dataclass(frozen=True)
@@ -53,6 +56,7 @@ def estimator_graph(builder: GraphBuilder, design: str, width: int, estimator: A
 
         source = builder.op("Cast", [design], "as_float32", to=TensorProto.FLOAT)
     (output, *_rest) = builder.embed(model, {model.graph.input[0].name: source}, "sklearn")
+    builder.retired += [(where, node.op_type) for node in model.graph.node if node.op_type in RETIRED_IN_ML5]
     if precision == "float32":
         from onnx import TensorProto
 
@@ -71,7 +75,7 @@ def _convert(estimator: Any, width: int, precision: str, where: str) -> Any:
     name = f"{type(estimator).__module__}.{type(estimator).__name__}"
     try:
         return convert_sklearn(estimator, initial_types=[("design", kind([None, width]))],
-                               target_opset={"": OPSET, ML: ML_OPSET})
+                               target_opset={"": OPSET, ML: 3})
     except (MissingConverter, MissingShapeCalculator):
         raise ExportError(f"{where}: skl2onnx has no converter for {name}, so the chain cannot be "
                           "exported (nothing was written)") from None

@@ -24,7 +24,7 @@ from typing import Any
 import numpy as np
 
 from ...errors import ExportError
-from .builder import ML, GraphBuilder
+from .builder import ML, ML_OPSET, GraphBuilder
 
 LEAF = -1
 #: TreeEnsemble node modes (ai.onnx.ml opset 5)
@@ -150,7 +150,7 @@ def tree_ensemble(builder: GraphBuilder, matrix: str, trees: list[Tree], *, n_ta
     }
     if members:
         attributes["membership_values"] = numpy_helper.from_array(np.asarray(members, dtype=np.float64))
-    return builder.op("TreeEnsemble", [matrix], "trees", domain=ML, **attributes)
+    return builder.op("TreeEnsemble", [matrix], "trees", domain=ML, version=ML_OPSET, **attributes)
 
 
 def _write_tree(tree: Tree, columns: dict[str, list[Any]], members: list[float], leaf_targets: list[int],
