@@ -14,7 +14,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 import pytest
-from conftest import onnx_inputs, relative_gap, run_onnx
+from onnx_support import onnx_inputs, relative_gap, run_onnx
 
 import stages
 from stages.errors import ExportError

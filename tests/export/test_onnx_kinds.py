@@ -12,7 +12,7 @@ import warnings
 
 import numpy as np
 import pytest
-from conftest import relative_gap, run_onnx
+from onnx_support import relative_gap, run_onnx
 
 import stages
 
