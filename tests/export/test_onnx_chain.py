@@ -165,3 +165,13 @@ def test_without_the_extra_the_error_names_it(train_frame, tmp_path, monkeypatch
     with pytest.raises(ExportError, match=r"pip install 'remnant\[onnx\]' \(skl2onnx is not installed\)"):
         chain.fitted().to_onnx(tmp_path / "m.onnx")
     assert os.listdir(tmp_path) == []
+
+
+def test_the_readme_scoring_example_runs_on_the_exported_demo_chain(demo_chains, tmp_path, monkeypatch, capsys):
+    text = (Path(__file__).resolve().parents[2] / "README.md").read_text(encoding="utf-8")
+    section = text.split("## Exporting to ONNX", 1)[1]
+    example = section.split("```python", 1)[1].split("```", 1)[0]
+    stages.load(demo_chains["deliveries"]).to_onnx(tmp_path / "deliveries.onnx")
+    monkeypatch.chdir(tmp_path)
+    exec(compile(example, "README.md", "exec"), {})
+    assert float(capsys.readouterr().out) <= 1e-9 * 100  # predictions of tens of minutes

@@ -11,6 +11,7 @@ from __future__ import annotations
 import warnings
 
 import numpy as np
+import pandas as pd
 import pytest
 from onnx_support import relative_gap, run_onnx
 
@@ -95,3 +96,24 @@ def test_a_retired_tree_operator_beside_our_tree_stages_is_refused_naming_the_st
         exported(train_frame, "y", [("linear", 1.0, {}), ("sklearn:sklearn.ensemble.AdaBoostRegressor", 0.5, {}),
                                     ("tree", 0.5, {})], tmp_path)
     assert not (tmp_path / "c.onnx").exists()
+
+
+def test_knn_on_tied_distances_follows_the_kinds_tie_rule(tmp_path):
+    # integer features: many fitting rows lie at exactly the k-th distance
+    from stages.bridges.onnx.neighbours import tie_decimals
+    from stages.errors import ExportError
+
+    rng = np.random.RandomState(0)
+    frame = pd.DataFrame({"a": rng.randint(0, 4, 400).astype(float), "b": rng.randint(0, 3, 400).astype(float)})
+    frame["y"] = frame["a"] + frame["b"] + rng.normal(size=400)
+    chain = stages.Chain(frame, "y", stages.Holdout(fraction=0.25, seed=0))
+    chain.add("knn", 1.0, params={"n_neighbors": 7})
+    if tie_decimals() is None:  # the kind breaks ties as its search meets the rows: no graph can follow that
+        with pytest.raises(ExportError, match=r"stage 1 \(knn\)"):
+            chain.fitted().to_onnx(tmp_path / "knn.onnx")
+        return
+    fitted = chain.fitted()
+    fitted.to_onnx(tmp_path / "knn.onnx")
+    rows = frame.drop(columns="y").iloc[::7]
+    got = run_onnx(tmp_path / "knn.onnx", rows, fitted.schema)["prediction"]
+    assert relative_gap(got, fitted.predict(rows), 1.0) <= 1e-9
