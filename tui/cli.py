@@ -474,7 +474,7 @@ def run_verify(args: argparse.Namespace) -> int:
 
 def run_export(args: argparse.Namespace) -> int:
     """Write a chain file as an ONNX model and its probe file, print what was measured; return 0."""
-    from stages import store
+    from stages.files import store
 
     if _same_file(args.onnx, args.chain):
         raise UsageError(f"--onnx {args.onnx} is the chain file; choose another file (nothing was written)")

@@ -36,7 +36,7 @@ def demo_rows() -> pd.DataFrame:
 
 @pytest.fixture(scope="module")
 def demo_chains(tmp_path_factory) -> dict[str, Path]:
-    from stages.recipe import fit_recipe, read_recipe
+    from stages.files.recipe import fit_recipe, read_recipe
 
     folder = tmp_path_factory.mktemp("demo")
     out = {}
