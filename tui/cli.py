@@ -476,6 +476,8 @@ def run_export(args: argparse.Namespace) -> int:
     """Write a chain file as an ONNX model and its probe file, print what was measured; return 0."""
     from stages.files import store
 
+    if args.onnx == "-":
+        raise UsageError("--onnx needs a file name: the model is written with its probe file beside it")
     if _same_file(args.onnx, args.chain):
         raise UsageError(f"--onnx {args.onnx} is the chain file; choose another file (nothing was written)")
     report = store.load(args.chain).to_onnx(args.onnx)

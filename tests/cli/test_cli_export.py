@@ -28,6 +28,7 @@ def test_export_writes_the_model_and_its_probe_file_and_reports_the_difference(f
     ("missing/m.onnx", "the folder 'missing' does not exist"),
     (".", "exists and is not a regular file"),
     ("diabetes.chain", "is the chain file"),
+    ("-", "needs a file name"),
 ])
 def test_a_bad_output_is_one_error_line_with_status_2_and_nothing_written(fitted_files, work, run, target, message):
     before = sorted(p.name for p in work.iterdir())
