@@ -2,13 +2,17 @@
 
 This is ``Schema.encode`` in ONNX operators. Every feature column is one graph input of shape
 [N] named as in the schema: doubles for numeric and boolean columns (NaN for missing, 0 and 1
-for booleans), strings for categorical ones. Inside the graph each becomes one [N, 1] double
+for booleans), strings for categorical ones. Inside the graph each becomes one [N] double
 column, as the chain's own matrix holds it:
 
 - numeric: an infinity counts as missing (NaN), as ``Schema.encode`` treats it;
 - categorical: the level's code, its position in the schema's levels (a LabelEncoder); a level
   never seen in training, and a missing value (the empty string, unless it is a level), give
   NaN, so every stage then does with it what ``predict`` does with a missing value.
+
+The columns stay one-dimensional, [N], through the element-wise work (onnxruntime broadcasts
+an [N, 1] tensor against a constant one element at a time, some 30 times slower); they become
+[N, 1] only to be set side by side in a matrix.
 
 Each stage's own preprocessing (imputation, scaling, one-hot, ordinal codes) starts from these
 columns: see ``designs.py`` and the converters.
@@ -40,7 +44,7 @@ class SchemaColumns:
             builder.add_input(col.name, kind, ["N"])
 
     def column(self, index: int) -> str:
-        """Return feature ``index`` as an [N, 1] double column of the schema's matrix."""
+        """Return feature ``index`` as an [N] double column of the schema's matrix."""
         if index not in self._columns:
             col = self.schema.columns[index]
             encode = _codes if col.role == CATEGORICAL else _numbers
@@ -48,13 +52,13 @@ class SchemaColumns:
         return self._columns[index]
 
     def columns(self, indices: tuple[int, ...] | list[int]) -> list[str]:
-        """Return the [N, 1] columns of the features at ``indices``, in that order."""
+        """Return the [N] columns of the features at ``indices``, in that order."""
         return [self.column(i) for i in indices]
 
     def matrix(self, indices: tuple[int, ...] | list[int], *, float32: bool = False) -> str:
         """Return the [N, len(indices)] double matrix of those features; with ``float32`` each value is
         first rounded to float32 and back, as scikit-learn's trees read their input."""
-        parts = [self._rounded(i) if float32 else self.column(i) for i in indices]
+        parts = [self.builder.column(self._rounded(i) if float32 else self.column(i)) for i in indices]
         return self.builder.concat_columns(parts, "stage_matrix")
 
     def _rounded(self, index: int) -> str:
@@ -68,7 +72,7 @@ class SchemaColumns:
 
 def _numbers(builder: GraphBuilder, col: ColumnInfo) -> str:
     """Return a numeric or boolean input as its schema column: infinities become NaN."""
-    value = builder.column(col.name)
+    value = col.name
     infinite = builder.op("IsInf", [value], "is_infinite")
     return builder.op("Where", [infinite, builder.constant([np.nan], "nan"), value], f"column_{col.name}")
 
@@ -77,7 +81,7 @@ def _codes(builder: GraphBuilder, col: ColumnInfo) -> str:
     """Return a categorical input as its schema column: the level's code, NaN when unseen or missing."""
     from onnx import TensorProto, helper
 
-    text = builder.column(col.name)
+    text = col.name
     if not col.levels:  # no level was ever seen: every value is unseen
         shape = builder.op("Shape", [text], "shape")
         nan = helper.make_tensor("nan", TensorProto.DOUBLE, [1], [np.nan])

@@ -54,7 +54,7 @@ class Head:
         return raw
 
     def finish(self, builder: GraphBuilder, raw: str) -> None:
-        """Add the model's outputs computed from the [N, 1] raw score."""
+        """Add the model's outputs computed from the raw score ([N]; [N, K] for K outputs per row)."""
         raise NotImplementedError
 
 
@@ -67,7 +67,7 @@ class RegressionHead(Head):
         """Output the raw score as ``prediction``, [N] doubles."""
         from onnx import TensorProto
 
-        builder.add_output(builder.flat(raw), "prediction", TensorProto.DOUBLE, ["N"])
+        builder.add_output(raw, "prediction", TensorProto.DOUBLE, ["N"])
 
 
 class BinaryHead(Head):
@@ -83,7 +83,7 @@ class BinaryHead(Head):
         """Output ``prediction`` (the class label, typed as ``predict`` returns it) and ``probability``."""
         from onnx import TensorProto
 
-        probability = builder.flat(builder.op("Sigmoid", [raw], "probability"))
+        probability = builder.op("Sigmoid", [raw], "probability")
         positive = builder.op("GreaterOrEqual", [probability, builder.constant([self.threshold], "threshold")])
         labels, elem_type = label_constants(self.classes)
         negative_label = builder.constant(labels[:1], "negative_class", labels.dtype)
@@ -157,7 +157,7 @@ def chain_graph(fitted: FittedChain, *, each_stage: bool = False) -> ChainGraph:
         if each_stage:
             from onnx import TensorProto
 
-            builder.add_output(builder.flat(raw), f"after_{number}", TensorProto.DOUBLE, ["N"])
+            builder.add_output(raw, f"after_{number}", TensorProto.DOUBLE, ["N"])
     if builder.retired and builder.domains.get(ML, 0) >= ML_OPSET:
         where, operator = builder.retired[0]
         raise ExportError(f"{where}: skl2onnx writes it with {operator}, which ai.onnx.ml opset {ML_OPSET} "
@@ -169,9 +169,9 @@ def chain_graph(fitted: FittedChain, *, each_stage: bool = False) -> ChainGraph:
 
 
 def _start(builder: GraphBuilder, first_input: str, start: float) -> str:
-    """Return the start value on every row, [N, 1] (the row count read from the first input)."""
+    """Return the start value on every row, [N] (the row count read from the first input)."""
     from onnx import TensorProto, helper
 
     shape = builder.op("Shape", [first_input], "rows")
     value = helper.make_tensor("start", TensorProto.DOUBLE, [1], [float(start)])
-    return builder.column(builder.op("ConstantOfShape", [shape], "start", value=value))
+    return builder.op("ConstantOfShape", [shape], "start", value=value)

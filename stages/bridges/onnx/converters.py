@@ -1,9 +1,10 @@
 """One converter per stage kind: a fitted stage's learner as a graph from the schema's columns to its output.
 
 A converter gets the stage and the ``StageInputs`` (the graph, the schema's columns) and returns a
-``StageGraph``: the name of its output before the stage's scale, an [N, K] double tensor with
-K = 1 for regression and binary chains, and the precision it computes in. Adding a kind is one
-function registered with ``@converts("kind")``; a multiclass kind returns its K columns, and a
+``StageGraph``: the name of its output before the stage's scale, a double tensor of shape [N]
+for one output per row (regression and binary chains) or [N, K] for K (multiclass), and the
+precision it computes in. Adding a kind is one function registered with ``@converts("kind")``;
+a multiclass kind returns its K columns, and a
 kind on a log link (``glm``) returns its linear predictor, the head applying the inverse link
 (``compose.py``).
 """
@@ -45,7 +46,8 @@ class StageInputs:
 
 @dataclass(frozen=True)
 class StageGraph:
-    """A stage's output in the graph ([N, K] double, before the stage's scale) and its precision."""
+    """A stage's output in the graph ([N], or [N, K] with K outputs per row; before the stage's scale)
+    and its precision."""
 
     output: str
     precision: str = FLOAT64
@@ -167,7 +169,7 @@ def _sklearn_trees(inputs: StageInputs, design: str, estimator: Any, where: str)
     rate = float(estimator.learning_rate)
     trees = [sklearn_tree(member.tree_, rate) for member in estimator.estimators_[:, 0]]
     summed = tree_ensemble(builder, rounded, trees)
-    return builder.op("Add", [builder.constant([base], "init"), summed], "boosted")
+    return builder.op("Add", [builder.constant([base], "init"), summed], "boosted")  # [N]
 
 
 def _float32(builder: GraphBuilder, matrix: str) -> str:

@@ -1,6 +1,6 @@
 """The linear family's preprocessing in ONNX operators: ``LinearDesign`` and ``SplineDesign``.
 
-Each function takes a stage's input columns ([N, 1] doubles of the schema's matrix) and returns
+Each function takes a stage's input columns ([N] doubles of the schema's matrix) and returns
 the stage's design matrix, computed with the same operations in the same order as the kind's
 ``transform``, so the design is the same to the last bit:
 
@@ -36,9 +36,9 @@ def linear_design(builder: GraphBuilder, columns: list[str], design: LinearDesig
         missing = builder.op("IsNaN", [value], "missing")
         filled = builder.op("Where", [missing, builder.constant([step.median], "median"), value], "imputed")
         centred = builder.op("Sub", [filled, builder.constant([step.mean], "mean")], "centred")
-        parts.append(builder.op("Div", [centred, builder.constant([step.std], "std")], "scaled"))
+        parts.append(builder.column(builder.op("Div", [centred, builder.constant([step.std], "std")], "scaled")))
         if step.indicator:
-            parts.append(as_double(builder, missing))
+            parts.append(builder.column(as_double(builder, missing)))
     return builder.concat_columns(parts, "design") if parts else None
 
 
@@ -55,14 +55,14 @@ def spline_design(builder: GraphBuilder, columns: list[str], design: Any) -> str
         if "knots" in step:
             parts.append(spline_basis(builder, filled, np.asarray(step["knots"], dtype=np.float64), design.degree))
         else:
-            parts.append(filled)
+            parts.append(builder.column(filled))
     return builder.concat_columns(parts, "design") if parts else None
 
 
 def one_hot(builder: GraphBuilder, codes: str, seen: tuple[int, ...]) -> str:
-    """Return one 0/1 column per code in ``seen``; NaN and other codes give a row of zeros."""
+    """Return one 0/1 column per code in ``seen`` ([N, len(seen)]); NaN and other codes give zeros."""
     levels = builder.constant(np.asarray(seen, dtype=np.float64)[None, :], "levels")
-    return as_double(builder, builder.op("Equal", [codes, levels], "is_level"))
+    return as_double(builder, builder.op("Equal", [builder.column(codes), levels], "is_level"))
 
 
 def as_double(builder: GraphBuilder, value: str) -> str:
@@ -74,18 +74,19 @@ def as_double(builder: GraphBuilder, value: str) -> str:
 
 def linear_output(builder: GraphBuilder, design: str | None, coef: np.ndarray, intercept: float,
                   like: str) -> str:
-    """Return ``design @ coef + intercept`` as [N, 1]; with no design, the intercept on every row of ``like``."""
+    """Return ``design @ coef + intercept`` as [N]; with no design, the intercept on every row of ``like`` ([N])."""
     if design is None or not len(coef):
         zero = builder.op("Mul", [like, builder.constant([0.0], "zero")], "zero")
         zero = builder.op("Where", [builder.op("IsNaN", [zero]), builder.constant([0.0], "zero"), zero])
         return builder.op("Add", [zero, builder.constant([intercept], "intercept")], "linear")
-    product = builder.op("MatMul", [design, builder.constant(np.asarray(coef)[:, None], "coef")], "product")
+    # coef as a [width, 1] matrix: onnxruntime's float64 MatMul takes a slow path for a vector
+    product = builder.flat(builder.op("MatMul", [design, builder.constant(np.asarray(coef)[:, None], "coef")], "product"))
     return builder.op("Add", [product, builder.constant([intercept], "intercept")], "linear")
 
 
 # ----------------------------------------------------------------------------- B-splines
 def spline_basis(builder: GraphBuilder, values: str, knots: np.ndarray, degree: int) -> str:
-    """Return the [N, len(knots) - degree - 1] B-spline basis of the [N, 1] ``values`` (no NaN)."""
+    """Return the [N, len(knots) - degree - 1] B-spline basis of the [N] ``values`` (no NaN)."""
     n_basis = len(knots) - degree - 1
     low, high = builder.constant([knots[degree]], "low_knot"), builder.constant([knots[n_basis]], "high_knot")
     x = builder.op("Min", [builder.op("Max", [values, low], "above_low"), high], "inside")
@@ -115,7 +116,7 @@ def spline_basis(builder: GraphBuilder, values: str, knots: np.ndarray, degree: 
 
 def _knot_interval(builder: GraphBuilder, x: str, knots: np.ndarray, degree: int) -> str:
     """Return, per row, the index l of the knot interval scipy evaluates x in: the largest l in
-    [degree, n_basis - 1] with knots[l] <= x (as int64, [N, 1])."""
+    [degree, n_basis - 1] with knots[l] <= x (as int64, [N])."""
     from onnx import TensorProto
 
     n_basis = len(knots) - degree - 1
@@ -124,9 +125,9 @@ def _knot_interval(builder: GraphBuilder, x: str, knots: np.ndarray, degree: int
     if not len(inner):
         zeros = builder.op("Cast", [builder.op("Mul", [x, builder.constant([0.0], "zero")])], to=TensorProto.INT64)
         return builder.op("Add", [zeros, start], "interval")
-    passed = builder.op("LessOrEqual", [builder.constant(inner[None, :], "inner_knots"), x], "passed")
+    passed = builder.op("LessOrEqual", [builder.constant(inner[None, :], "inner_knots"), builder.column(x)], "passed")
     count = builder.op("ReduceSum", [builder.op("Cast", [passed], to=TensorProto.INT64),
-                                     builder.constant([1], "axis", np.int64)], "passed_count", keepdims=1)
+                                     builder.constant([1], "axis", np.int64)], "passed_count", keepdims=0)
     return builder.op("Add", [count, start], "interval")
 
 
@@ -136,7 +137,7 @@ def _scatter_basis(builder: GraphBuilder, h: list[str], interval: str, degree: i
     total = None
     for i, value in enumerate(h):
         column = builder.op("Add", [interval, builder.constant([i - degree], "offset", np.int64)], "basis_column")
-        here = as_double(builder, builder.op("Equal", [column, positions], "is_column"))
-        term = builder.op("Mul", [here, value], "basis_term")
+        here = as_double(builder, builder.op("Equal", [builder.column(column), positions], "is_column"))
+        term = builder.op("Mul", [here, builder.column(value)], "basis_term")
         total = term if total is None else builder.op("Add", [total, term], "basis")
     return total

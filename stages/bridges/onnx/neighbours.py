@@ -34,7 +34,7 @@ def tie_decimals() -> int | None:
 
 def neighbours_output(builder: GraphBuilder, design: str, matrix: np.ndarray, target: np.ndarray,
                       k: int, p: float, weights: str) -> str:
-    """Return the [N, 1] k-NN prediction of the [N, width] ``design`` rows from the fitting rows ``matrix``."""
+    """Return the [N] k-NN prediction of the [N, width] ``design`` rows from the fitting rows ``matrix``."""
     reduced = _reduced_distances(builder, design, matrix, p)
     decimals = tie_decimals()
     key = reduced
@@ -46,7 +46,7 @@ def neighbours_output(builder: GraphBuilder, design: str, matrix: np.ndarray, ta
     chosen = builder.op("GatherElements", [reduced, positions], "nearest_sums", axis=1)
     residuals = builder.op("Gather", [builder.constant(target, "fit_residuals"), positions], "nearest_residuals", axis=0)
     if weights == "uniform":
-        total = _sum_columns(builder, [_column(builder, residuals, j) for j in range(k)])
+        total = _sum_columns(builder, [builder.flat(_column(builder, residuals, j)) for j in range(k)])
         return builder.op("Div", [total, builder.constant([float(k)], "k_rows")], "knn")
     return _distance_weighted(builder, chosen, residuals, k, p)
 
@@ -83,8 +83,8 @@ def _distance_weighted(builder: GraphBuilder, chosen: str, residuals: str, k: in
     any_exact = builder.op("Greater", [on_a_row, builder.constant([0.0], "zero")], "has_exact")
     inverse = builder.op("Where", [any_exact, exact_double, inverse], "weights")
     weighted = builder.op("Mul", [inverse, residuals], "weighted")
-    total = _sum_columns(builder, [_column(builder, weighted, j) for j in range(k)])
-    weight = _sum_columns(builder, [_column(builder, inverse, j) for j in range(k)])
+    total = _sum_columns(builder, [builder.flat(_column(builder, weighted, j)) for j in range(k)])
+    weight = _sum_columns(builder, [builder.flat(_column(builder, inverse, j)) for j in range(k)])
     return builder.op("Div", [total, weight], "knn")
 
 
@@ -95,7 +95,7 @@ def _column(builder: GraphBuilder, matrix: str, j: int) -> str:
 
 
 def _sum_columns(builder: GraphBuilder, columns: list[str]) -> str:
-    """Return the sum of [N, 1] columns, added one at a time from zero, in order."""
+    """Return the sum of [N] columns, added one at a time from zero, in order."""
     total = builder.constant([0.0], "zero")
     for value in columns:
         total = builder.op("Add", [total, value], "sum")

@@ -26,7 +26,7 @@ RETIRED_IN_ML5 = ("TreeEnsembleRegressor", "TreeEnsembleClassifier")
 
 @dataclass(frozen=True)
 class Converted:
-    """An estimator's ONNX graph: its [N, 1] output here, and the precision it computes in."""
+    """An estimator's ONNX graph: its [N] output here, and the precision it computes in."""
 
     output: str
     precision: str
@@ -63,7 +63,7 @@ def estimator_graph(builder: GraphBuilder, design: str, width: int, estimator: A
         output = builder.op("Cast", [output], "as_double", to=TensorProto.DOUBLE)
     ops = sorted({node.op_type for node in model.graph.node if node.domain == ML})
     note = f"skl2onnx writes {name} in float32 ({', '.join(ops) or 'its operators'})" if precision == "float32" else ""
-    return Converted(builder.column(output), precision, note)
+    return Converted(builder.flat(output), precision, note)
 
 
 def _convert(estimator: Any, width: int, precision: str, where: str) -> Any:

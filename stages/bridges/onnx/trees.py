@@ -125,7 +125,8 @@ def _read_lightgbm_node(node: dict[str, Any], tree: Tree, target: int) -> int:
 # ----------------------------------------------------------------------------- the node
 def tree_ensemble(builder: GraphBuilder, matrix: str, trees: list[Tree], *, n_targets: int = 1,
                   aggregate: int = SUM) -> str:
-    """Add one TreeEnsemble node over the [N, p] double ``matrix``; return its [N, n_targets] output."""
+    """Add one TreeEnsemble node over the [N, p] double ``matrix``; return its output, [N] for one
+    target, else [N, n_targets]."""
     from onnx import numpy_helper
 
     columns: dict[str, list[Any]] = {key: [] for key in (
@@ -150,7 +151,8 @@ def tree_ensemble(builder: GraphBuilder, matrix: str, trees: list[Tree], *, n_ta
     }
     if members:
         attributes["membership_values"] = numpy_helper.from_array(np.asarray(members, dtype=np.float64))
-    return builder.op("TreeEnsemble", [matrix], "trees", domain=ML, version=ML_OPSET, **attributes)
+    output = builder.op("TreeEnsemble", [matrix], "trees", domain=ML, version=ML_OPSET, **attributes)
+    return builder.flat(output) if n_targets == 1 else output
 
 
 def _write_tree(tree: Tree, columns: dict[str, list[Any]], members: list[float], leaf_targets: list[int],
