@@ -22,6 +22,7 @@ from __future__ import annotations
 
 import numpy as np
 
+from ... import schema as schema_rules
 from ...schema import CATEGORICAL, ColumnInfo, Schema
 from .builder import ML, GraphBuilder
 
@@ -71,10 +72,21 @@ class SchemaColumns:
 
 
 def _numbers(builder: GraphBuilder, col: ColumnInfo) -> str:
-    """Return a numeric or boolean input as its schema column: infinities become NaN."""
+    """Return a numeric or boolean input as its schema column, by the schema's own rules: an infinity
+    (or, where the schema says so, any value beyond float32's range) is missing, and a missing value
+    takes the column's ``fill`` where the schema gives one."""
     value = col.name
-    infinite = builder.op("IsInf", [value], "is_infinite")
-    return builder.op("Where", [infinite, builder.constant([np.nan], "nan"), value], f"column_{col.name}")
+    limit = getattr(schema_rules, "FLOAT32_MAX", None)
+    if limit is None:
+        unusable = builder.op("IsInf", [value], "is_infinite")
+    else:
+        unusable = builder.op("Greater", [builder.op("Abs", [value]), builder.constant([limit], "largest")], "too_large")
+    value = builder.op("Where", [unusable, builder.constant([np.nan], "nan"), value], f"column_{col.name}")
+    fill = getattr(col, "fill", None)
+    if fill is None:
+        return value
+    missing = builder.op("IsNaN", [value], "missing")
+    return builder.op("Where", [missing, builder.constant([float(fill)], "fill"), value], f"filled_{col.name}")
 
 
 def _codes(builder: GraphBuilder, col: ColumnInfo) -> str:
