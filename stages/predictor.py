@@ -116,7 +116,8 @@ class FittedChain:
 
     def to_onnx(self, path: Any, *, rows: pd.DataFrame | None = None) -> Any:
         """Write the chain as one ONNX model at ``path`` (and its probe file beside it), checked against
-        ``predict`` first; return the report (``stages.bridges.onnx.OnnxReport``). Needs ``remnant[onnx]``."""
+        ``predict`` first on the chain file's probe rows and ``rows``; return the report
+        (``stages.bridges.onnx.OnnxReport``). Needs ``remnant[onnx]``."""
         from .bridges.onnx import export_onnx
         from .files import store
 

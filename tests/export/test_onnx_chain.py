@@ -175,3 +175,14 @@ def test_the_readme_scoring_example_runs_on_the_exported_demo_chain(demo_chains,
     monkeypatch.chdir(tmp_path)
     exec(compile(example, "README.md", "exec"), {})
     assert float(capsys.readouterr().out) <= 1e-9 * 100  # predictions of tens of minutes
+
+
+def test_rows_of_ones_own_are_checked_and_a_live_chain_without_them_says_so(train_frame, new_rows, tmp_path):
+    chain = stages.Chain(train_frame, "y", stages.Holdout(fraction=0.25, seed=0), ignore=["hit"])
+    chain.add("linear")
+    chain.add("tree", 0.5)
+    report = chain.fitted().to_onnx(tmp_path / "m.onnx", rows=new_rows)
+    assert report.own_rows == len(new_rows) and report.rows > 2 * len(new_rows)
+    assert not any(line.startswith("note:") for line in report.lines())
+    bare = chain.fitted().to_onnx(tmp_path / "m.onnx")
+    assert bare.own_rows == 0 and "pass rows=" in bare.lines()[-1]

@@ -57,6 +57,7 @@ class OnnxReport:
     tolerance: str
     stages: tuple[StageReport, ...]
     runtime: str
+    own_rows: int = 0        # probe rows from the chain file or the caller (the rest are made from them)
 
     def lines(self) -> list[str]:
         """Return the report as lines of text for the command line."""
@@ -67,6 +68,9 @@ class OnnxReport:
                f"tolerance, {self.tolerance})",
                f"probe file: {self.probe_path} (inputs and the chain's own outputs, to check the model where it runs)"]
         out += [f"stage {s.number} ({s.kind}): {s.note}" for s in self.stages if s.note]
+        if not self.own_rows:
+            out.append("note: the chain has no probe rows of its own (it was not loaded from a chain file); "
+                       "pass rows= to check the model on rows of your data")
         return out
 
 
@@ -121,8 +125,9 @@ def export_onnx(fitted: FittedChain, path: str | os.PathLike, *, stored_rows: np
                  f"{probe.RTOL_FLOAT64:g} relative")
     stages = tuple(StageReport(k, s.kind, g.precision, g.note)
                    for k, (s, g) in enumerate(zip(fitted.stages, built.stages, strict=True), start=1))
+    own = (0 if stored_rows is None else len(stored_rows)) + (0 if rows is None else len(rows))
     return OnnxReport(target, probe_target, result.rows, result.largest, result.largest_share, built.precision,
-                      tolerance, stages, f"onnxruntime {onnxruntime.__version__}")
+                      tolerance, stages, f"onnxruntime {onnxruntime.__version__}", own)
 
 
 def run_model(model: bytes, inputs: dict[str, np.ndarray]) -> dict[str, np.ndarray]:
