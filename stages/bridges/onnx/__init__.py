@@ -130,13 +130,21 @@ def export_onnx(fitted: FittedChain, path: str | os.PathLike, *, stored_rows: np
                       tolerance, stages, f"onnxruntime {onnxruntime.__version__}", own)
 
 
+#: rows scored at once when checking (a k-NN stage's graph holds rows x fitting rows distances)
+CHECK_BATCH = 64
+
+
 def run_model(model: bytes, inputs: dict[str, np.ndarray]) -> dict[str, np.ndarray]:
-    """Return the outputs of the serialised ONNX ``model`` on ``inputs`` in onnxruntime, by name."""
+    """Return the outputs of the serialised ONNX ``model`` on ``inputs`` in onnxruntime, by name,
+    scored CHECK_BATCH rows at a time."""
     import onnxruntime
 
     session = onnxruntime.InferenceSession(model, providers=["CPUExecutionProvider"])
     names = [o.name for o in session.get_outputs()]
-    return dict(zip(names, session.run(names, inputs), strict=True))
+    total = len(next(iter(inputs.values())))
+    parts = [session.run(names, {k: v[start:start + CHECK_BATCH] for k, v in inputs.items()})
+             for start in range(0, total, CHECK_BATCH)]
+    return {name: np.concatenate([part[i] for part in parts]) for i, name in enumerate(names)}
 
 
 def _refusal(fitted: FittedChain, rows: pd.DataFrame, result: Any, float32: bool) -> str:
