@@ -92,8 +92,10 @@ def check_sklearn_tree(tree: Any, n_features: int | None, what: str = "a tree") 
     if feature.size and (feature.min() < 0 or feature.max() >= width):
         bad = int(feature[(feature < 0) | (feature >= width)][0])
         raise ChainFileError(f"{what} splits on feature {bad:,}; it has {width:,}")
-    if not np.isfinite(np.asarray(tree.threshold)[internal]).all():
-        raise ChainFileError(f"{what} has a split threshold that is not a finite number")
+    # +inf is the threshold scikit-learn gives a split of the missing values from all the others
+    threshold = np.asarray(tree.threshold)[internal]
+    if not (np.isfinite(threshold) | (threshold == np.inf)).all():
+        raise ChainFileError(f"{what} has a split threshold that is not a number or is minus infinity")
     if not np.isfinite(np.asarray(tree.value)).all():
         raise ChainFileError(f"{what} has a leaf value that is not a finite number")
     if not np.isin(np.asarray(tree.missing_go_to_left), (0, 1)).all():

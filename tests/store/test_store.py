@@ -333,3 +333,18 @@ def test_an_unseen_category_level_is_treated_as_missing_and_warned(tmp_path, dia
     with pytest.warns(UnseenLevelsWarning):
         assert np.array_equal(predicted, chain.predict(unseen))
     assert not np.array_equal(predicted[:7], loaded.predict(diabetes)[:7])
+
+
+def test_a_tree_that_splits_missing_values_from_the_rest_loads_back(tmp_path):
+    # scikit-learn gives such a split the threshold +inf (every number goes one way, NaN the other)
+    rng = np.random.RandomState(0)
+    frame = pd.DataFrame({"a": rng.normal(size=300), "b": rng.normal(size=300)})
+    frame.loc[rng.rand(300) < 0.3, "a"] = np.nan
+    frame["y"] = frame["a"].isna() * 3.0 + rng.normal(scale=0.1, size=300)
+    chain = stages.Chain(frame, "y", stages.Holdout(fraction=0.2, seed=0))
+    chain.add("tree", 1.0, params={"max_depth": 1})
+    chain.add("forest", 0.5, params={"n_estimators": 5})
+    assert np.isinf(chain.fitted().stages[0].learner.tree_.threshold[0])
+    chain.save(tmp_path / "m.chain")
+    loaded = stages.load(tmp_path / "m.chain")
+    assert np.array_equal(loaded.predict(frame), chain.fitted().predict(frame))
