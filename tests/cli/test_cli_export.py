@@ -25,8 +25,8 @@ def test_export_writes_the_model_and_its_probe_file_and_reports_the_difference(f
 
 
 @pytest.mark.parametrize(("target", "message"), [
-    ("missing/m.onnx", "the folder 'missing' does not exist"),
-    (".", "exists and is not a regular file"),
+    ("missing/m.onnx", "missing' does not exist"),
+    (".", "it is a folder, not a regular file"),
     ("diabetes.chain", "is the chain file"),
     ("-", "needs a file name"),
 ])

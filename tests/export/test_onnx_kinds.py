@@ -33,7 +33,7 @@ FLOAT64_KINDS = [
     ("sklearn:sklearn.linear_model.HuberRegressor", {}),
     ("sklearn:sklearn.neural_network.MLPRegressor", {"max_iter": 200, "hidden_layer_sizes": [8]}),
     ("sklearn:sklearn.ensemble.RandomForestRegressor", {"n_estimators": 5, "max_depth": 4}),
-    ("sklearn:sklearn.neighbors.KNeighborsRegressor", {}),
+    ("sklearn:sklearn.linear_model.ElasticNet", {"alpha": 0.05}),
     ("sklearn:sklearn.ensemble.GradientBoostingRegressor", {"n_estimators": 20}),
 ]
 

@@ -10,7 +10,7 @@ job per module:
 - ``trees.py``: scikit-learn and LightGBM trees as one float64 ``TreeEnsemble`` node;
 - ``neighbours.py``: the k-NN stage; ``sklearn_stage.py``: ``sklearn:`` stages through skl2onnx;
 - ``converters.py``: one converter per kind; ``compose.py``: the chain, the raw score, the head;
-- ``probe.py``: the probe rows, the expected outputs, the comparison; ``writing.py``: atomic writes.
+- ``probe.py``: the probe rows, the expected outputs, the comparison; ``writing.py``: the writes.
 
 The extra ``remnant[onnx]`` (onnx, onnxruntime, skl2onnx) is needed; without it the export is an
 ExportError that names it.
@@ -118,7 +118,8 @@ def export_onnx(fitted: FittedChain, path: str | os.PathLike, *, stored_rows: np
         raise ExportError(_refusal(fitted, table_rows, result, float32))
     buffer = io.StringIO()
     probe.probe_table(fitted.schema, table_rows, want).to_csv(buffer, index=False)
-    writing.write_files({probe_target: buffer.getvalue().encode("utf-8"), target: model_bytes})
+    writing.write_files({probe_target: ("the probe file", buffer.getvalue().encode("utf-8")),
+                         target: ("the ONNX model", model_bytes)})
     import onnxruntime
 
     tolerance = (f"{probe.RTOL_FLOAT32:g} of the target's spread" if float32 else
