@@ -85,6 +85,10 @@ class Chain:
         # the one copy of the features, its rows gathered into chain order as it is filled
         self.matrix = self.prepared.encode(self.layout.order)
         self.y = self.prepared.y[self.layout.order]
+        # a missing value the fitting rows never had takes their median, here as in predict
+        self.schema = self.schema.with_fills(self.matrix[: self.layout.n_train])
+        self.prepared.schema = self.schema
+        self.matrix, _ = self.schema.fill_missing(self.matrix)
         # the matrix holds what the stages need; keeping the frame's rows too would double the data
         self.prepared.frame = self.prepared.frame.iloc[:0].copy()
         self.seed = int(seed)
@@ -233,7 +237,8 @@ class Chain:
         with self._lock:
             scores = self.scores()
             stages = [
-                FittedStage(s.spec, s.params, s.learners[0], s.scale, s.feature_index, scores[i + 1].to_dict(), s.fit_seconds)
+                FittedStage(s.spec, s.params, s.learners[0], s.scale, s.feature_index, scores[i + 1].to_dict(),
+                            s.fit_seconds, s.step_rule, s.oob_loss, s.notes)
                 for i, s in enumerate(self._stages)
             ]
             return FittedChain(self.schema, self.loss, self.starts[0], stages, meta=self.describe(),
@@ -251,6 +256,10 @@ class Chain:
     def predict(self, frame: pd.DataFrame) -> np.ndarray:
         """Return predictions of the chain as it stands for a new frame."""
         return self.fitted().predict(frame)
+
+    def predict_proba(self, frame: pd.DataFrame) -> np.ndarray:
+        """Return an (n, 2) array of class probabilities for a new frame, negative class first (binary chains)."""
+        return self.fitted().predict_proba(frame)
 
     def specs(self) -> list[StageSpec]:
         """Return the spec of every stage, in order."""

@@ -491,10 +491,29 @@ def _role_of_dtype(values: pd.Series) -> str:
 
 
 def _column_info(name: str, role: str, values: pd.Series) -> ColumnInfo:
-    levels: tuple[str, ...] = ()
-    if role == CATEGORICAL:
-        levels = tuple(sorted(values.astype("string").dropna().unique()))
-    return ColumnInfo(name, role, str(values.dtype), levels)
+    if role != CATEGORICAL:
+        return ColumnInfo(name, role, str(values.dtype))
+    levels, order = category_levels(values)
+    return ColumnInfo(name, role, str(values.dtype), levels, order)
+
+
+def category_levels(values: pd.Series) -> tuple[tuple[str, ...], str]:
+    """Return the levels present in a categorical column, in code order, and the order's name.
+
+    An ordered pandas Categorical keeps its own order ("ordered"); levels that all read as
+    numbers are sorted by value, so "10" follows "2" ("numeric"); others sort as text ("text").
+    """
+    present = list(values.astype("string").dropna().unique())
+    dtype = values.dtype
+    if isinstance(dtype, pd.CategoricalDtype) and dtype.ordered:
+        seen = set(present)
+        declared = pd.Series(dtype.categories).astype("string")
+        return tuple(level for level in declared if level in seen), "ordered"
+    numbers = pd.to_numeric(pd.Series(present, dtype="string"), errors="coerce").to_numpy(dtype=np.float64, na_value=np.nan)
+    if present and not np.isnan(numbers).any():
+        ranked = sorted(zip(numbers.tolist(), present, strict=True))
+        return tuple(level for _, level in ranked), "numeric"
+    return tuple(sorted(present)), "text"
 
 
 __all__ = ["ColumnReport", "Prepared", "describe_columns", "infer_role", "infer_task", "prepare",

@@ -13,9 +13,10 @@ from typing import Any
 
 import numpy as np
 
+from . import steps
 from .errors import FitCancelled, RemnantError, StageFitError
 from .kinds import FitRequest, get_kind
-from .kinds.base import ProgressFn
+from .kinds.base import ProgressFn, check_subsample
 from .losses import Loss
 from .schema import Schema
 from .spec import StageSpec
@@ -35,6 +36,10 @@ class Stage:
     fit_seconds: float
     rng_before: tuple[Any, ...]
     rng_after: tuple[Any, ...]
+    step_rule: str = ""                # how the main track's step was chosen (``stages.steps``)
+    oob_loss: tuple[float, float] | None = None   # main track, subsampled stages: loss on the rows
+    #                                               left out, before and after the stage
+    notes: tuple[str, ...] = ()        # what the main track's fit found worth saying (e.g. separation)
 
     @property
     def kind(self) -> str:
@@ -45,6 +50,16 @@ class Stage:
     def scale(self) -> float:
         """Return the main track's scale: what the stage's output is multiplied by."""
         return self.scales[0]
+
+    @property
+    def step(self) -> float:
+        """Return the main track's step: its scale over the stage's shrinkage."""
+        return steps.step_of(self.scales[0], self.spec.shrinkage)
+
+    @property
+    def oob_improvement(self) -> float:
+        """Return how much the stage lowered the loss on the rows its subsample left out (NaN without a subsample)."""
+        return self.oob_loss[0] - self.oob_loss[1] if self.oob_loss is not None else float("nan")
 
 
 @dataclass
@@ -105,12 +120,46 @@ def fit_stage(
         for rng, state in zip(ctx.rngs, before, strict=True):
             rng.set_state(state)
         raise _explain(exc, number, spec) from None
-    learners, scales, outputs = zip(*results, strict=True)
+    main = results[0]
     return Stage(
-        spec=spec, params=params, feature_index=features, learners=learners, scales=scales, outputs=outputs,
+        spec=spec, params=params, feature_index=features, learners=tuple(r.learner for r in results),
+        scales=tuple(r.scale for r in results), outputs=tuple(r.output for r in results),
         fit_seconds=time.perf_counter() - started, rng_before=before,
-        rng_after=tuple(rng.get_state() for rng in ctx.rngs),
+        rng_after=tuple(rng.get_state() for rng in ctx.rngs), step_rule=main.rule, oob_loss=main.oob_loss,
+        notes=main.notes,
     )
+
+
+@dataclass(frozen=True, eq=False)
+class TrackFit:
+    """One track's part of a stage fit: the learner, its scale and the track's new cumulative output."""
+
+    learner: Any
+    scale: float
+    output: np.ndarray
+    rule: str
+    oob_loss: tuple[float, float] | None
+    notes: tuple[str, ...]
+
+
+def draw_in_bag(n_rows: int, fraction: float, random_state: np.random.RandomState) -> np.ndarray:
+    """Return a mask of max(1, int(fraction * n_rows)) rows drawn without replacement, in row order.
+
+    Selection sampling (Knuth, TAOCP vol. 2, algorithm S) on ``n_rows`` uniform draws from the
+    stream, as scikit-learn's gradient boosting draws its subsample, so a chain of subsampled
+    tree stages draws the same rows as GradientBoostingRegressor(subsample=...).
+    """
+    wanted = max(1, int(fraction * n_rows))
+    try:
+        from sklearn.ensemble._gradient_boosting import _random_sample_mask
+    except ImportError:  # the same algorithm, slower, should the private helper move
+        draws = random_state.uniform(size=n_rows)
+        mask, taken = np.zeros(n_rows, dtype=bool), 0
+        for i, draw in enumerate(draws.tolist()):
+            if draw * (n_rows - i) < wanted - taken:
+                mask[i], taken = True, taken + 1
+        return mask
+    return np.asarray(_random_sample_mask(n_rows, wanted, random_state), dtype=bool)
 
 
 def _explain(exc: BaseException, number: int, spec: StageSpec) -> BaseException:
@@ -139,7 +188,7 @@ def _track_progress(progress: ProgressFn | None, t: int, ctx: FitContext) -> Pro
     return report
 
 
-def _fit_track(ctx, t, kind, spec, params, features, previous, cancel, progress):
+def _fit_track(ctx, t, kind, spec, params, features, previous, cancel, progress) -> TrackFit:
     if cancel is not None and cancel.is_set():
         raise FitCancelled("fit cancelled")
     track = ctx.layout.tracks[t]
@@ -151,6 +200,11 @@ def _fit_track(ctx, t, kind, spec, params, features, previous, cancel, progress)
         residual=ctx.loss.residual(fit_y, fit_raw), y=fit_y, raw=fit_raw, loss=ctx.loss,
         task=ctx.schema.task, random_state=ctx.rngs[t], cancel=cancel, progress=progress,
     )
+    if kind.subsamples and check_subsample(params.get("subsample", 1.0), spec.kind) < 1.0:
+        request.in_bag = draw_in_bag(len(fit_y), float(params["subsample"]), ctx.rngs[t])
+    crossing = kind.step_source(params) == steps.CROSS_FIT
+    share = 1.0 / (steps.CROSS_FIT_FOLDS + 1) if crossing else 1.0
+    request.progress = _scaled(progress, 0.0, share)
     if progress is not None:
         progress(0.0, "fitting")
     learner = kind.fit(request, params)
@@ -161,10 +215,26 @@ def _fit_track(ctx, t, kind, spec, params, features, previous, cancel, progress)
     bad = int(np.count_nonzero(~np.isfinite(output)))
     if bad:
         raise StageFitError(f"{bad:,} of {len(output):,} predictions are not finite (NaN or infinite)")
-    step = 1.0
-    if not (kind.fits_loss or kind.refines_leaves or ctx.loss.name == "squared"):
-        step = ctx.loss.line_search(fit_y, fit_raw, output[track.fit])
-    scale = spec.shrinkage * step
+    choice = steps.choose_step(kind, params, request, learner, output[track.fit], _scaled(progress, share, 1.0))
+    scale = spec.shrinkage * choice.step
+    oob = None
+    if request.in_bag is not None and not request.in_bag.all():
+        left_out = ~request.in_bag
+        y_out, raw_out = fit_y[left_out], fit_raw[left_out]
+        oob = (ctx.loss.value(y_out, raw_out), ctx.loss.value(y_out, raw_out + scale * output[track.fit][left_out]))
     if progress is not None:
         progress(1.0, "done")
-    return learner, scale, previous + scale * output
+    return TrackFit(learner, scale, previous + scale * output, choice.rule, oob, tuple(request.notes))
+
+
+def _scaled(progress: ProgressFn | None, low: float, high: float) -> ProgressFn | None:
+    """Return ``progress`` mapping a fit's own 0..1 onto low..high of the track."""
+    if progress is None:
+        return None
+    if (low, high) == (0.0, 1.0):
+        return progress
+
+    def report(fraction: float, message: str = "") -> None:
+        progress(low + (high - low) * min(max(fraction, 0.0), 1.0), message)
+
+    return report

@@ -9,6 +9,7 @@ take ``leaf_value`` (Friedman 2001, Greedy function approximation, Annals of Sta
 from __future__ import annotations
 
 import math
+from collections.abc import Callable
 from dataclasses import dataclass
 from typing import ClassVar
 
@@ -19,8 +20,8 @@ from scipy.special import expit, logit
 from . import metrics
 from .errors import StageSpecError
 
-# probabilities are kept this far from 0 and 1 wherever a log is taken
-_EPS = np.finfo(np.float64).eps
+#: how many times the search bracket may double past the data's own step size
+MAX_DOUBLINGS = 30
 
 
 @dataclass(frozen=True)
@@ -31,6 +32,10 @@ class Loss:
     task: ClassVar[str] = "regression"
     primary: ClassVar[str] = "rmse"
     lightgbm_objective: ClassVar[str] = "regression"
+    #: how a tree stage's leaves take their values under this loss, as a stage's details say it
+    leaf_rule: ClassVar[str] = "none (least squares)"
+    #: True when ``start`` is the loss's exact optimal constant (not for Huber, whose start is the median)
+    start_is_optimal: ClassVar[bool] = True
 
     def start(self, y: np.ndarray) -> float:
         """Return the loss's optimal constant on ``y``: the chain's start value."""
@@ -52,9 +57,27 @@ class Loss:
         """Return the loss-optimal value of one tree leaf, or None to keep the fitted mean."""
         return None
 
+    def best_constant(self, y: np.ndarray, raw: np.ndarray, residual: np.ndarray, context: dict[str, float]) -> float | None:
+        """Return the loss-optimal constant to add to ``raw``, or None to keep the mean residual.
+
+        Where ``raw`` is one constant and the start is the loss's exact optimum, this is
+        ``start(y) - raw``: exactly 0 right after the start. Otherwise it is ``leaf_value``.
+        """
+        if self.start_is_optimal and len(raw) and bool(np.all(raw == raw[0])):
+            return self.start(y) - float(raw[0])
+        return self.leaf_value(y, raw, residual, context)
+
+    def step_objective(self, y: np.ndarray, raw: np.ndarray, output: np.ndarray) -> Callable[[float], float]:
+        """Return the mean loss of ``raw + step * output`` as a function of ``step``."""
+        return lambda step: self.value(y, raw + step * output)
+
     def line_search(self, y: np.ndarray, raw: np.ndarray, output: np.ndarray) -> float:
-        """Return the step that minimises the loss along a stage's output; 1.0 where least squares already is optimal."""
-        return 1.0
+        """Return the step (at least 0) that minimises the loss along a stage's output ``output``.
+
+        The search runs in units of the data's own step size (``step_scale``), so multiplying the
+        target by c multiplies the step by c, to rounding, for every loss.
+        """
+        return bracketed_step(self.step_objective(y, raw, output), step_scale(self.display_residual(y, raw), output))
 
     def link(self, raw: np.ndarray) -> np.ndarray:
         """Return predictions on the target's scale from raw outputs."""
@@ -90,10 +113,52 @@ def lower_median(values: np.ndarray) -> float:
     return float(np.quantile(values, 0.5, method="inverted_cdf"))
 
 
-def _bounded_step(objective, upper: float = 10.0) -> float:
-    found = minimize_scalar(objective, bounds=(0.0, upper), method="bounded", options={"xatol": 1e-8})
-    step = float(found.x)
-    return step if np.isfinite(step) else 1.0
+def _rms(values: np.ndarray) -> float:
+    return float(np.sqrt(np.mean(np.square(values)))) if len(values) else 0.0
+
+
+def step_scale(residual: np.ndarray, output: np.ndarray) -> float:
+    """Return the data's own size of a step: the spread of the residuals over the spread of the output.
+
+    Spreads are root mean squares. Return 0.0 when either is zero (no step can help).
+    """
+    spread_out, spread_res = _rms(output), _rms(residual)
+    if not (spread_out > 0 and spread_res > 0 and np.isfinite(spread_out) and np.isfinite(spread_res)):
+        return 0.0
+    return spread_res / spread_out
+
+
+def bracketed_step(objective: Callable[[float], float], scale: float) -> float:
+    """Return the step >= 0 minimising a convex ``objective``, searched in units of ``scale``.
+
+    The bracket starts at one ``scale`` and doubles while the objective still falls at its end
+    (a convex function then has its minimum further out), at most MAX_DOUBLINGS times; then a
+    bounded Brent search runs inside it. A step that does no better than 0 is 0.
+    """
+    if not (scale > 0 and np.isfinite(scale)):
+        return 0.0
+
+    def along(t: float) -> float:
+        return objective(t * scale)
+
+    high, at_high, inside = 1.0, along(1.0), along(0.5)
+    for _ in range(MAX_DOUBLINGS):
+        if not at_high < inside:
+            break
+        high, inside, at_high = 2 * high, at_high, along(2 * high)
+    found = minimize_scalar(along, bounds=(0.0, high), method="bounded", options={"xatol": 1e-10 * high})
+    t = float(found.x)
+    if not np.isfinite(t) or not along(t) < along(0.0):
+        return 0.0
+    return t * scale
+
+
+def weighted_lower_median(values: np.ndarray, weights: np.ndarray) -> float:
+    """Return the first value (in sorted order) at which the cumulative weight reaches half the total."""
+    order = np.argsort(values, kind="stable")
+    cumulative = np.cumsum(weights[order])
+    at = int(np.searchsorted(cumulative, 0.5 * cumulative[-1], side="left"))
+    return float(values[order[min(at, len(order) - 1)]])
 
 
 @dataclass(frozen=True)
@@ -114,6 +179,13 @@ class SquaredLoss(Loss):
         """Return the mean squared error (the loss reported is MSE, not half of it)."""
         return float(np.mean((y - raw) ** 2))
 
+    def line_search(self, y: np.ndarray, raw: np.ndarray, output: np.ndarray) -> float:
+        """Return the least-squares step along ``output``: max(0, <y - F, h> / <h, h>), 0 for a zero output."""
+        size = float(np.dot(output, output))
+        if not size > 0:
+            return 0.0
+        return max(0.0, float(np.dot(y - raw, output)) / size)
+
 
 @dataclass(frozen=True)
 class AbsoluteLoss(Loss):
@@ -122,14 +194,19 @@ class AbsoluteLoss(Loss):
     name: ClassVar[str] = "absolute"
     primary: ClassVar[str] = "mae"
     lightgbm_objective: ClassVar[str] = "l1"
+    leaf_rule: ClassVar[str] = "median leaves"
 
     def start(self, y: np.ndarray) -> float:
         """Return the median of ``y``."""
         return float(np.median(y))
 
     def residual(self, y: np.ndarray, raw: np.ndarray) -> np.ndarray:
-        """Return sign(y - F)."""
-        return np.sign(y - raw)
+        """Return sign(y - F), with +1 where y == F.
+
+        |y - F| has no derivative at a tie; like scikit-learn's absolute error (whose gradient is
+        +1 where F > y and -1 otherwise) the tie counts as y above F.
+        """
+        return np.where(y < raw, -1.0, 1.0)
 
     def value(self, y: np.ndarray, raw: np.ndarray) -> float:
         """Return the mean absolute error."""
@@ -140,8 +217,16 @@ class AbsoluteLoss(Loss):
         return lower_median(y - raw)
 
     def line_search(self, y, raw, output) -> float:
-        """Return the step minimising mean |y - F - step * output| over [0, 10]."""
-        return _bounded_step(lambda s: float(np.mean(np.abs(y - raw - s * output))))
+        """Return the step >= 0 minimising mean |y - F - step * output|, exactly.
+
+        The sum of |h_i| * |(y_i - F_i) / h_i - step| is least at the weighted (lower) median of
+        the ratios, weights |h_i|; no bracket is needed, and the step scales with the target.
+        """
+        moving = output != 0
+        if not moving.any():
+            return 0.0
+        ratios = (y[moving] - raw[moving]) / output[moving]
+        return max(0.0, weighted_lower_median(ratios, np.abs(output[moving])))
 
 
 @dataclass(frozen=True)
@@ -150,6 +235,8 @@ class HuberLoss(Loss):
 
     name: ClassVar[str] = "huber"
     lightgbm_objective: ClassVar[str] = "huber"
+    leaf_rule: ClassVar[str] = "Huber leaves"
+    start_is_optimal: ClassVar[bool] = False
     alpha: float = 0.9
 
     def start(self, y: np.ndarray) -> float:
@@ -183,15 +270,15 @@ class HuberLoss(Loss):
         spread = diff - median
         return median + float(np.mean(np.sign(spread) * np.minimum(np.abs(spread), context["delta"])))
 
-    def line_search(self, y, raw, output) -> float:
-        """Return the step minimising the Huber loss at the current delta over [0, 10]."""
+    def step_objective(self, y, raw, output) -> Callable[[float], float]:
+        """Return the mean Huber loss along ``output`` at the current delta (held fixed along the line)."""
         delta = self.delta(y, raw)
 
         def objective(step: float) -> float:
             diff = np.abs(y - raw - step * output)
             return float(np.mean(np.where(diff <= delta, 0.5 * diff**2, delta * (diff - 0.5 * delta))))
 
-        return _bounded_step(objective)
+        return objective
 
 
 @dataclass(frozen=True)
@@ -202,6 +289,7 @@ class LogLoss(Loss):
     task: ClassVar[str] = "binary"
     primary: ClassVar[str] = "logloss"
     lightgbm_objective: ClassVar[str] = "binary"
+    leaf_rule: ClassVar[str] = "Newton leaves"
 
     def start(self, y: np.ndarray) -> float:
         """Return the log-odds of the base rate, with the rate kept away from 0 and 1."""
@@ -218,8 +306,8 @@ class LogLoss(Loss):
         return -gradient
 
     def value(self, y: np.ndarray, raw: np.ndarray) -> float:
-        """Return the mean log loss, computed stably from log-odds."""
-        return float(np.mean(np.logaddexp(0.0, raw) - y * raw))
+        """Return the mean log loss of the probabilities, clipped as scikit-learn clips them (``metrics.log_loss``)."""
+        return metrics.log_loss(y, expit(raw))
 
     def leaf_value(self, y, raw, residual, context) -> float:
         """Return one Newton step: mean(y - p) / mean(p (1 - p)), zero where the curvature vanishes."""
@@ -230,9 +318,17 @@ class LogLoss(Loss):
             return 0.0
         return numerator / denominator
 
-    def line_search(self, y, raw, output) -> float:
-        """Return the step minimising the mean log loss along ``output`` over [0, 10]."""
-        return _bounded_step(lambda s: float(np.mean(np.logaddexp(0.0, raw + s * output) - y * (raw + s * output))))
+    def step_objective(self, y, raw, output) -> Callable[[float], float]:
+        """Return the mean log loss along ``output``, computed from log-odds without clipping.
+
+        Clipping flattens the loss where a probability saturates, which would let a step run away;
+        the search needs the smooth, convex loss.
+        """
+        def objective(step: float) -> float:
+            moved = raw + step * output
+            return float(np.mean(np.logaddexp(0.0, moved) - y * moved))
+
+        return objective
 
     def link(self, raw: np.ndarray) -> np.ndarray:
         """Return probabilities of the positive class."""

@@ -1,11 +1,13 @@
-"""Metrics reported for every part of the data, computed with numpy only (checked against sklearn.metrics)."""
+"""Metrics reported for every part of the data, computed with numpy and scipy (checked against sklearn.metrics)."""
 
 from __future__ import annotations
 
 import numpy as np
+from scipy.special import xlogy
 
-# probabilities are clipped this far from 0 and 1 where a log is taken
-PROB_EPS = 1e-15
+#: probabilities (and their complements) are clipped this far from 0 and 1 where a log is taken:
+#: float64's machine epsilon, as sklearn.metrics.log_loss clips them
+PROB_EPS = float(np.finfo(np.float64).eps)
 
 #: metric name -> True when higher is better
 HIGHER_IS_BETTER = {"rmse": False, "mae": False, "r2": True, "loss": False, "logloss": False,
@@ -42,14 +44,23 @@ def roc_auc(y: np.ndarray, score: np.ndarray) -> float:
     return (rank_sum - positives * (positives + 1) / 2.0) / (positives * negatives)
 
 
+def log_loss(y: np.ndarray, probability: np.ndarray) -> float:
+    """Return the mean log loss of ``probability`` (of the positive class) against 0/1 ``y``.
+
+    As sklearn.metrics.log_loss computes it: p and 1 - p are each clipped to [eps, 1 - eps],
+    eps float64's machine epsilon, so a saturated wrong prediction costs -log(eps) = 36.04.
+    """
+    p = np.clip(probability, PROB_EPS, 1 - PROB_EPS)
+    q = np.clip(1 - probability, PROB_EPS, 1 - PROB_EPS)
+    return float(-np.mean(xlogy(y, p) + xlogy(1 - y, q)))
+
+
 def binary_scores(y: np.ndarray, probability: np.ndarray, threshold: float = 0.5) -> dict[str, float]:
     """Return log loss, ROC AUC, accuracy at 0.5 and at ``threshold``, and the Brier score."""
     if len(y) == 0:
         return {k: float("nan") for k in ("logloss", "auc", "accuracy", "accuracy_at", "brier")}
-    clipped = np.clip(probability, PROB_EPS, 1 - PROB_EPS)
-    logloss = float(-np.mean(y * np.log(clipped) + (1 - y) * np.log(1 - clipped)))
     return {
-        "logloss": logloss,
+        "logloss": log_loss(y, probability),
         "auc": roc_auc(y, probability),
         "accuracy": float(np.mean((probability >= 0.5) == (y == 1))),
         "accuracy_at": float(np.mean((probability >= threshold) == (y == 1))),

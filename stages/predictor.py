@@ -18,6 +18,18 @@ class UnseenLevelsWarning(UserWarning):
     """Category levels never seen in training reached a prediction (handled as missing)."""
 
 
+class UnseenMissingWarning(UserWarning):
+    """Missing values reached a prediction in columns whose fitting rows had none (given the fitting median)."""
+
+
+def unseen_missing_message(source: str, counts: dict[str, int], schema: Schema) -> str:
+    """Return the one-line warning for missing values in columns whose fitting rows had none."""
+    fills = {c.name: c.fill for c in schema.columns}
+    detail = ", ".join(f"{name!r}: {count:,} (given {fills[name]:.6g})" for name, count in counts.items())
+    return (f"{source}: missing values in columns that had none in the fitting rows were given the "
+            f"fitting rows' median ({detail})")
+
+
 @dataclass(frozen=True, eq=False)
 class FittedStage:
     """One stage of a fitted chain: its learner, the scale of its output, and its columns."""
@@ -29,11 +41,24 @@ class FittedStage:
     feature_index: tuple[int, ...]
     scores: dict[str, Any] = field(default_factory=dict)
     fit_seconds: float = 0.0
+    step_rule: str = ""                           # how the step was chosen (``stages.steps``)
+    oob_loss: tuple[float, float] | None = None   # subsampled stages: loss on the rows left out, before and after
+    notes: tuple[str, ...] = ()
 
     @property
     def kind(self) -> str:
         """Return the stage's kind name."""
         return self.spec.kind
+
+    @property
+    def step(self) -> float:
+        """Return the stage's step: its scale over its shrinkage."""
+        return self.scale / self.spec.shrinkage if self.spec.shrinkage else float("nan")
+
+    @property
+    def oob_improvement(self) -> float:
+        """Return how much the stage lowered the loss on the rows its subsample left out (NaN without one)."""
+        return self.oob_loss[0] - self.oob_loss[1] if self.oob_loss is not None else float("nan")
 
 
 @dataclass(eq=False)
@@ -78,7 +103,8 @@ class FittedChain:
 
     def encode(self, frame: pd.DataFrame, *, source: str = "data") -> np.ndarray:
         """Return the schema matrix of ``frame`` (column-major, as ``DataFrame.to_numpy`` lays it out),
-        warning once with the count of unseen levels."""
+        with missing values the fitting rows never had given their median (``Schema.fill_missing``);
+        warn once with the count of unseen levels, and once naming the columns so filled."""
         matrix, unseen = self.schema.encode(frame, source=source, order="F")
         if unseen:
             detail = ", ".join(f"{name!r}: {count:,}" for name, count in unseen.items())
@@ -86,6 +112,9 @@ class FittedChain:
                           f"text, infinity or a value beyond ±3.4e38 in a numeric column) were treated as "
                           f"missing ({detail})",
                           UnseenLevelsWarning, stacklevel=3)
+        matrix, filled = self.schema.fill_missing(matrix)
+        if filled:
+            warnings.warn(unseen_missing_message(source, filled, self.schema), UnseenMissingWarning, stacklevel=3)
         return matrix
 
     def predict_raw(self, frame: pd.DataFrame, *, source: str = "data") -> np.ndarray:

@@ -5,11 +5,23 @@ column per feature, in schema order. Numeric and boolean columns are their value
 missing); categorical columns are integer codes into the levels seen at fit time (NaN for a
 missing value or a level never seen). Keeping one matrix keeps memory near the size of the
 data whatever the number of stages.
+
+Level order (``ColumnInfo.order``): the codes follow an ordered pandas Categorical's own order
+("ordered"); levels that all read as numbers are sorted by value, so "10" comes after "2"
+("numeric"); other levels are sorted as text ("text"). Tree kinds split on the codes, so the
+order is what a split "below level x" means.
+
+Missing values the fitting rows never had (``ColumnInfo.fill``): when a numeric or boolean
+column had no missing value in the chain's fitting rows, no stage learnt what a missing value
+means there; such a value then takes the fitting rows' lower median (a value the column really
+holds: never outside its range, the majority value of a boolean), for every kind alike, and
+``predict`` warns naming the column. Where the fitting rows had missing values each kind uses
+what it learnt (see the kinds).
 """
 
 from __future__ import annotations
 
-from dataclasses import asdict, dataclass, field
+from dataclasses import asdict, dataclass, field, replace
 from typing import Any
 
 import numpy as np
@@ -34,14 +46,22 @@ def beyond_float32(values: np.ndarray) -> np.ndarray:
         return np.abs(values) > FLOAT32_MAX
 
 
+#: how the codes of a categorical column are ordered (``ColumnInfo.order``)
+LEVEL_ORDERS = ("ordered", "numeric", "text")
+
+
 @dataclass(frozen=True)
 class ColumnInfo:
-    """One feature column: its name, role, the dtype it was read with and, for categories, its levels."""
+    """One feature column: its name, role, the dtype it was read with and, for categories, its
+    levels and their order; for numbers, the value a missing entry takes when the fitting rows
+    had none (``fill``, None when they had some or it is not known)."""
 
     name: str
     role: str
     dtype: str
     levels: tuple[str, ...] = ()
+    order: str = ""
+    fill: float | None = None
 
     @property
     def is_categorical(self) -> bool:
@@ -49,15 +69,20 @@ class ColumnInfo:
         return self.role == CATEGORICAL
 
     def to_dict(self) -> dict[str, Any]:
-        """Return a JSON-ready dict of this column."""
+        """Return a JSON-ready dict of this column (``order`` and ``fill`` only where they are set)."""
         out = asdict(self)
         out["levels"] = list(self.levels)
+        for key in ("order", "fill"):
+            if out[key] in ("", None):
+                del out[key]
         return out
 
     @classmethod
     def from_dict(cls, data: dict[str, Any]) -> ColumnInfo:
         """Return the column described by ``data`` (the output of ``to_dict``)."""
-        return cls(data["name"], data["role"], data["dtype"], tuple(data.get("levels", ())))
+        fill = data.get("fill")
+        return cls(data["name"], data["role"], data["dtype"], tuple(data.get("levels", ())),
+                   str(data.get("order", "")), None if fill is None else float(fill))
 
 
 @dataclass(frozen=True)
@@ -147,6 +172,35 @@ class Schema:
                 return None
         matrix = frame[self.names].to_numpy(dtype=np.float64)
         return matrix if matrix.flags.f_contiguous else np.asfortranarray(matrix)
+
+    def with_fills(self, fitting: np.ndarray) -> Schema:
+        """Return the schema with each numeric and boolean column's ``fill`` set from the fitting rows
+        ``fitting`` (schema matrix rows): their lower median where they had no missing value, else None."""
+        columns = []
+        for j, col in enumerate(self.columns):
+            fill = None
+            if col.role in (NUMERIC, BOOLEAN) and len(fitting):
+                values = np.ascontiguousarray(fitting[:, j])
+                if not np.isnan(values).any():
+                    fill = float(np.quantile(values, 0.5, method="inverted_cdf"))
+            columns.append(replace(col, fill=fill))
+        return replace(self, columns=tuple(columns))
+
+    def fill_missing(self, matrix: np.ndarray) -> tuple[np.ndarray, dict[str, int]]:
+        """Return ``matrix`` with missing values of the columns that have a ``fill`` replaced by it,
+        and how many were replaced per column. A matrix that does not own its memory (a view of
+        the user's frame) is copied before anything is written."""
+        counts: dict[str, int] = {}
+        for j, col in enumerate(self.columns):
+            if col.fill is None:
+                continue
+            missing = np.isnan(matrix[:, j])
+            if missing.any():
+                if not (matrix.flags.owndata and matrix.flags.writeable):
+                    matrix = matrix.copy(order="K")
+                matrix[missing, j] = col.fill
+                counts[col.name] = int(missing.sum())
+        return matrix, counts
 
     def to_dict(self) -> dict[str, Any]:
         """Return a JSON-ready dict of the schema."""

@@ -19,7 +19,12 @@ import pandas as pd
 
 from stages.atomic import STDOUT, atomic_output
 from stages.errors import DataError, SchemaError
-from stages.predictor import FittedChain, UnseenLevelsWarning
+from stages.predictor import (
+    FittedChain,
+    UnseenLevelsWarning,
+    UnseenMissingWarning,
+    unseen_missing_message,
+)
 from stages.reading import (
     check_statistics,
     column_ranges,
@@ -89,13 +94,16 @@ def _first_line(err: object) -> str:
 
 
 def predict_chunk(fitted: FittedChain, chunk: pd.DataFrame, *, threshold: float, id_column: str | None,
-                  source: str, offset: int = 0, each_stage: bool = False) -> tuple[pd.DataFrame, dict[str, int]]:
+                  source: str, offset: int = 0, each_stage: bool = False,
+                  filled: dict[str, int] | None = None) -> tuple[pd.DataFrame, dict[str, int]]:
     """Return the output rows of one chunk (id, prediction, probability) and its unseen levels per column.
 
     With ``each_stage``, also ``after_1`` .. ``after_N`` (the prediction after each stage, the
     probability for a binary chain) and, when the chunk holds the target, ``residual`` (target
     minus the prediction; y - p for binary chains, y being 1 for the positive class).
     ``offset`` is the number of rows before the chunk, so that messages name rows of the whole file.
+    Missing values the fitting rows never had are given their median; ``filled`` (when given)
+    counts them per column.
     """
     if id_column is not None and id_column not in chunk.columns:
         raise DataError(f"{source}: id column {id_column!r} is not a column")
@@ -105,6 +113,10 @@ def predict_chunk(fitted: FittedChain, chunk: pd.DataFrame, *, threshold: float,
         raise SchemaError(_whole_file_rows(str(err), offset)) from None
     if len(chunk) == 0:  # a header-only file: the columns were checked, there is nothing to predict
         return pd.DataFrame(), unseen
+    matrix, found = fitted.schema.fill_missing(matrix)
+    if filled is not None:
+        for column, count in found.items():
+            filled[column] = filled.get(column, 0) + count
     after = fitted.raw_after_each_stage(matrix) if each_stage else None
     raw = fitted.raw_from_matrix(matrix) if after is None else after[:, -1]
     out: dict[str, Any] = {}
@@ -164,11 +176,12 @@ def write_predictions(fitted: FittedChain, data: str, out: str | None, *, id_col
     if each_stage and schema.task == "binary":
         text.append(schema.target)  # class labels compared as the chain wrote them
     threshold = float(fitted.meta.get("threshold", 0.5) or 0.5)
+    filled: dict[str, int] = {}
     with _output(out) as handle:
         rows, unseen = 0, {}
         for chunk in iter_chunks(data, columns, text, chunk_rows):
             frame, found = predict_chunk(fitted, chunk, threshold=threshold, id_column=id_column,
-                                         source=name, offset=rows, each_stage=each_stage)
+                                         source=name, offset=rows, each_stage=each_stage, filled=filled)
             for column, count in found.items():
                 unseen[column] = unseen.get(column, 0) + count
             if len(frame):
@@ -181,6 +194,8 @@ def write_predictions(fitted: FittedChain, data: str, out: str | None, *, id_col
         warnings.warn(f"{name}: values the chain cannot use (category levels never seen in training, text, "
                       f"infinity or a value beyond ±3.4e38 in a numeric column) were treated as missing ({detail})",
                       UnseenLevelsWarning, stacklevel=2)
+    if filled:
+        warnings.warn(unseen_missing_message(name, filled, schema), UnseenMissingWarning, stacklevel=2)
     return rows
 
 

@@ -25,7 +25,7 @@ from ..manifest_schema import (
     text,
     whole,
 )
-from ..schema import FEATURE_ROLES
+from ..schema import FEATURE_ROLES, LEVEL_ORDERS
 
 TASKS = ("regression", "binary", "multiclass")
 _NAME = text(4096)
@@ -34,20 +34,24 @@ _SCORE_TABLE = mapping(nullable(number()), max_items=64, max_key_length=64)
 SCORES = table({}, {"train": _SCORE_TABLE, "valid": _SCORE_TABLE, "test": _SCORE_TABLE,
                     "fold_valid": items(nullable(number()), limits.MAX_FOLDS)})
 COLUMN = table({"name": _NAME, "role": text(32, choices=FEATURE_ROLES), "dtype": text(64)},
-               {"levels": items(text(4096), limits.MAX_LEVELS)})
+               {"levels": items(text(4096), limits.MAX_LEVELS), "order": text(16, choices=LEVEL_ORDERS),
+                "fill": number()})
 SCHEMA = table({"target": _NAME, "columns": items(COLUMN, limits.MAX_COLUMNS, min_items=1)},
                {"task": text(32, choices=TASKS), "classes": items(text(4096), limits.MAX_CLASSES)})
 PARAMS = mapping(json_value(limits.MAX_NESTING, 1_000_000), max_items=1_000)
 SPEC = table({"kind": text(512)}, {"shrinkage": number(0, 1), "features": items(_NAME, limits.MAX_COLUMNS),
                                    "params": PARAMS})
 MEMBER = text(512)
+#: how a stage's step was chosen (``stages.steps``) and its value (null when the shrinkage is 0)
+STEP = table({}, {"rule": text(128), "value": nullable(number())})
 STAGE = table(
     {"index": whole(1, limits.MAX_STAGES), "kind": text(512), "spec": SPEC, "params": PARAMS,
      "scale": number(), "features": items(_NAME, limits.MAX_COLUMNS, min_items=1),
      "feature_index": items(whole(0, limits.MAX_COLUMNS - 1), limits.MAX_COLUMNS, min_items=1),
      "member": MEMBER, "sha256": _SHA256, "fmt": text(16, choices=tuple(Artifact.SUFFIX))},
     {"scores": SCORES, "fit_seconds": number(0), "meta": mapping(json_value(limits.MAX_NESTING, 10_000_000), 64),
-     "size": whole(0, limits.MAX_MEMBER_BYTES)},
+     "size": whole(0, limits.MAX_MEMBER_BYTES), "step": STEP, "oob_loss": nullable(items(nullable(number()), 2, min_items=2)),
+     "notes": items(text(2000), 16)},
 )
 PROBE = table({"member": MEMBER, "rows": whole(1, 100_000), "sha256": _SHA256},
               {"size": whole(0, limits.MAX_MEMBER_BYTES)})

@@ -216,6 +216,8 @@ def _snapshot(chain: Chain, state: ChainState) -> tuple[dict[str, Any], dict[str
             "feature_index": list(stage.feature_index), "scales": list(stage.scales),
             "fit_seconds": stage.fit_seconds, "rng_before": [state_id(s) for s in stage.rng_before],
             "rng_after": [state_id(s) for s in stage.rng_after], "outputs_sha256": digest, "learners": learners,
+            "step_rule": stage.step_rule, "oob_loss": list(stage.oob_loss) if stage.oob_loss else None,
+            "notes": list(stage.notes),
         })
     manifest = {
         "format": FORMAT_NAME, "format_version": FORMAT_VERSION,

@@ -39,7 +39,7 @@ STAGE = table({
     "scales": items(number(), _TRACKS, min_items=1), "fit_seconds": number(0),
     "rng_before": items(_STATE_ID, _TRACKS, min_items=1), "rng_after": items(_STATE_ID, _TRACKS, min_items=1),
     "outputs_sha256": _SHA256, "learners": items(LEARNER, _TRACKS, min_items=1),
-})
+}, {"step_rule": text(128), "oob_loss": nullable(items(nullable(number()), 2, min_items=2)), "notes": items(text(2000), 16)})
 DATA = table({"path": text(4096), "name": _NAME, "size": whole(0, 2**62), "mtime_ns": whole(-(2**62), 2**62),
               "sha256": _SHA256})
 FINGERPRINT = table({"rows": whole(0, 2**53), "columns": whole(0, limits.MAX_COLUMNS), "sha256": _SHA256,

@@ -217,10 +217,16 @@ def _restore_stage(chain: Chain, entry: dict[str, Any], before: tuple[np.ndarray
         learners.append(learner)
         artifacts.append(artifact)
         outputs.append(before[t] + scale * output)
+    oob, notes = entry.get("oob_loss"), entry.get("notes") or []
+    if not all(isinstance(note, str) for note in notes):
+        raise ValueError(f"stage {spec.kind!r} has notes that are not text")
     stage = Stage(spec=spec, params=params, feature_index=features, learners=tuple(learners), scales=tuple(scales),
                   outputs=tuple(outputs), fit_seconds=float(entry["fit_seconds"]),
                   rng_before=tuple(_pick(states, i) for i in entry["rng_before"]),
-                  rng_after=tuple(_pick(states, i) for i in entry["rng_after"]))
+                  rng_after=tuple(_pick(states, i) for i in entry["rng_after"]),
+                  step_rule=str(entry.get("step_rule", "")),
+                  oob_loss=None if oob is None else tuple(math.nan if v is None else float(v) for v in oob),
+                  notes=tuple(notes))
     if len(stage.rng_before) != len(tracks) or len(stage.rng_after) != len(tracks):
         raise ValueError(f"stage {spec.kind!r} does not have one random-stream state per track")
     digest = output_digest(stage.outputs)

@@ -152,6 +152,8 @@ def _stage_entry(number: int, stage: FittedStage, names: list[str], artifact: Ar
         "scale": float(stage.scale), "features": [names[i] for i in stage.feature_index],
         "feature_index": [int(i) for i in stage.feature_index], "scores": stage.scores,
         "fit_seconds": float(stage.fit_seconds), **written, "fmt": artifact.fmt, "meta": artifact.meta,
+        "step": {"rule": stage.step_rule, "value": float(stage.step)},
+        "oob_loss": list(stage.oob_loss) if stage.oob_loss is not None else None, "notes": list(stage.notes),
     }
 
 
@@ -299,8 +301,11 @@ def _load_stage(archive: ArchiveReader, entry: dict[str, Any], number: int, sche
         raise ChainFileError(f"{path}: stage {number} ({kind_name}) was refused: {_one_line(exc)}") from None
     if not callable(getattr(learner, "predict", None)):
         raise ChainFileError(f"{path}: stage {number} ({kind_name}) holds a {type(learner).__name__}, not a learner")
+    step, oob = entry.get("step") or {}, entry.get("oob_loss")
     return FittedStage(spec, dict(entry.get("params") or {}), learner, float(entry["scale"]), index,
-                       _scores(entry.get("scores") or {}), float(entry.get("fit_seconds", 0.0)))
+                       _scores(entry.get("scores") or {}), float(entry.get("fit_seconds", 0.0)),
+                       str(step.get("rule", "")), None if oob is None else (_number(oob[0]), _number(oob[1])),
+                       tuple(entry.get("notes") or ()))
 
 
 def _read_probe(archive: ArchiveReader, entry: Any, schema: Schema, path: str) -> Probe | None:

@@ -40,6 +40,10 @@ class FitRequest:
     random_state: np.random.RandomState
     cancel: threading.Event | None = None
     progress: ProgressFn | None = None
+    #: the rows drawn for this stage when it subsamples (True in bag), None when every row fits
+    in_bag: np.ndarray | None = None
+    #: what the fit found worth telling the user (e.g. separation), one line each
+    notes: list[str] = field(default_factory=list)
 
     def check_cancel(self) -> None:
         """Raise FitCancelled when the user asked to stop."""
@@ -47,6 +51,22 @@ class FitRequest:
             from ..errors import FitCancelled
 
             raise FitCancelled("fit cancelled")
+
+    def note(self, text: str) -> None:
+        """Record one line the stage's details will show; return None."""
+        if text not in self.notes:
+            self.notes.append(text)
+
+    def subset(self, rows: np.ndarray) -> FitRequest:
+        """Return the request restricted to ``rows`` (a mask or positions), on the same random stream.
+
+        A cross-fit fits each fold through such a request; it reports no progress and keeps no notes.
+        """
+        return FitRequest(
+            X=self.X[rows], columns=self.columns, residual=self.residual[rows], y=self.y[rows],
+            raw=self.raw[rows], loss=self.loss, task=self.task, random_state=self.random_state,
+            cancel=self.cancel,
+        )
 
 
 @dataclass(frozen=True)
@@ -88,6 +108,31 @@ class StageKind(ABC):
     refines_leaves: ClassVar[bool] = False
     #: Parameter names accepted besides the underlying estimator's own.
     extra_params: ClassVar[tuple[str, ...]] = ()
+    #: True when the kind takes ``subsample``: each stage fits a fraction of the fitting rows,
+    #: drawn without replacement from the chain's stream (``FitRequest.in_bag``)
+    subsamples: ClassVar[bool] = False
+
+    def step_source(self, params: dict[str, Any]) -> str:
+        """Return where the stage's step comes from: one of the sources in ``stages.steps``.
+
+        A kind that fits the loss needs no step, tree kinds set their leaves; any other learner
+        is taken to be able to interpolate its fitting rows, so its step is cross-fit.
+        """
+        from .. import steps
+
+        if self.fits_loss:
+            return steps.FITS_LOSS
+        if self.refines_leaves:
+            return steps.LEAVES
+        return steps.CROSS_FIT
+
+    def leaf_rule(self, loss: Any) -> str:
+        """Return how the leaves of this kind take their values under ``loss`` (kinds that refine leaves)."""
+        return loss.leaf_rule
+
+    def out_of_bag(self, learner: Any, request: FitRequest) -> tuple[np.ndarray, np.ndarray]:
+        """Return the learner's out-of-bag predictions on the fitting rows and the mask of rows that have one."""
+        raise NotImplementedError(f"kind {self.name!r} has no out-of-bag predictions")
 
     def accepted_params(self) -> set[str] | None:
         """Return the parameter names this kind accepts, or None when any name is accepted."""
@@ -130,6 +175,13 @@ class StageKind(ABC):
     def importance(self, learner: Any, columns: tuple[ColumnInfo, ...]) -> np.ndarray | None:
         """Return one non-negative importance per feature column, or None when the learner has none."""
         return None
+
+
+def check_subsample(value: Any, kind: str) -> float:
+    """Return ``subsample`` as a float; raise StageSpecError unless it lies in (0, 1]."""
+    if isinstance(value, bool) or not isinstance(value, int | float) or not 0.0 < float(value) <= 1.0:
+        raise StageSpecError(f"kind {kind!r}: subsample must be a fraction in (0, 1], not {value!r}")
+    return float(value)
 
 
 def check_has_features(X: np.ndarray, kind: str) -> None:

@@ -1,7 +1,9 @@
 """The ``forest`` and ``extra_trees`` kinds: a whole random forest, or extremely randomised trees, as one stage.
 
-Both are regressed on the residuals (the chain line-searches their step for non-squared
-losses). The defaults follow Breiman's random forests as randomForest sets them (Breiman 2001,
+Both are regressed on the residuals. A forest nearly interpolates the rows it was grown on,
+so its step is line-searched on predictions for rows it did not see: each row's out-of-bag
+prediction (the mean of the trees whose bootstrap sample left it out) when the trees are
+bootstrapped, a cross-fit otherwise (``stages.steps``). The defaults follow Breiman's random forests as randomForest sets them (Breiman 2001,
 Random Forests, Machine Learning 45:5-32; Liaw & Wiener 2002, Classification and Regression
 by randomForest, R News 2(3):18-22): a third of the features tried at each split and leaves of
 at least five rows for regression; the square root of the features and single-row leaves for
@@ -86,6 +88,29 @@ class ForestKind(StageKind):
         forest.fit(request.X, request.residual)  # scikit-learn casts the features to float32
         report(1.0, f"{n_trees} trees fitted")
         return forest
+
+    def step_source(self, params: dict[str, Any]) -> str:
+        """Return out-of-bag for bootstrapped trees; otherwise every tree saw every row, so cross-fit."""
+        from .. import steps
+
+        return steps.OUT_OF_BAG if params.get("bootstrap") else steps.CROSS_FIT
+
+    def out_of_bag(self, learner: Any, request: FitRequest) -> tuple[np.ndarray, np.ndarray]:
+        """Return each fitting row's mean prediction over the trees that left it out, and which rows have one."""
+        n = request.X.shape[0]
+        X = np.asarray(request.X, dtype=np.float32)  # what the forest's own predict casts to
+        total, count = np.zeros(n), np.zeros(n)
+        for tree, drawn in zip(learner.estimators_, learner.estimators_samples_, strict=True):
+            request.check_cancel()
+            left_out = np.ones(n, dtype=bool)
+            left_out[drawn] = False
+            if left_out.any():
+                total[left_out] += tree.predict(X[left_out], check_input=False)
+                count[left_out] += 1
+        has = count > 0
+        held = np.zeros(n)
+        held[has] = total[has] / count[has]
+        return held, has
 
     def save(self, learner: Any) -> Artifact:
         """Return the forest as a skops artifact, the exact types it holds in ``meta``."""

@@ -5,6 +5,8 @@ large data. It fits the loss from the chain's offset, so its leaves take LightGB
 optimal values: the mean residual for squared loss, one Newton step for log loss, and the
 leaf's median residual (LightGBM's leaf renewal) for absolute loss. The binned rows are kept
 between stages on the same rows (``binned.py``): the second and later stages skip the binning.
+With ``subsample`` below 1 each stage grows its tree on rows drawn without replacement from the
+chain's stream (stochastic gradient boosting, Friedman 2002), a subset of the binned rows.
 """
 
 from __future__ import annotations
@@ -12,7 +14,7 @@ from __future__ import annotations
 from typing import Any, ClassVar
 
 from . import register
-from .base import FitRequest
+from .base import FitRequest, check_subsample
 from .lightgbm_stage import MAX_LEAVES, BoosterKind, BoosterLearner, train_booster
 
 
@@ -42,12 +44,21 @@ class HistTreeKind(BoosterKind):
         "feature_fraction_bynode", "max_delta_step", "min_data_in_bin", "cat_smooth", "cat_l2",
         "max_cat_to_onehot", "max_cat_threshold", "min_data_per_group", "extra_trees",
         "path_smooth", "monotone_constraints", "use_missing", "zero_as_missing", "num_threads",
-        "force_col_wise",
+        "force_col_wise", "subsample",
     )
+    subsamples: ClassVar[bool] = True
+
+    def resolve_params(self, params: dict[str, Any] | None, task: str) -> dict[str, Any]:
+        """Return the resolved LightGBM parameters plus ``subsample``, the stage's own row fraction
+        (not LightGBM's bagging); raise StageSpecError for a bad name or value."""
+        given = dict(params or {})
+        fraction = check_subsample(given.pop("subsample", 1.0), self.name)
+        return {**super().resolve_params(given, task), "subsample": fraction}
 
     def fit(self, request: FitRequest, params: dict[str, Any]) -> BoosterLearner:
-        """Return a one-round booster; num_leaves defaults to 2**max_depth (all leaves a depth allows)."""
-        native = dict(params, num_boost_round=1, learning_rate=1.0)
+        """Return a one-round booster on the rows in bag; num_leaves defaults to 2**max_depth (all leaves a depth allows)."""
+        native = {k: v for k, v in params.items() if k != "subsample"}
+        native.update(num_boost_round=1, learning_rate=1.0)
         if native.get("num_leaves") is None:
             native["num_leaves"] = default_leaves(native.get("max_depth"))
         return train_booster(request, native, self.name, reuse_bins=True)

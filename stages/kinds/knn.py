@@ -1,9 +1,12 @@
 """The ``knn`` kind: k nearest neighbours on the standardised linear design.
 
 The residual at a row is predicted by the mean residual of its nearest fitting rows,
-measured on the imputed, standardised, one-hot encoded design. The artifact stores the
-fitting rows' design matrix and residuals as ``.npz``; loading refits the neighbour search
-on them, which is deterministic.
+measured on the imputed, standardised, one-hot encoded design. Rows tied at the k-th
+distance are taken in the order of their position among the fitting rows, so a row's
+prediction is the same whatever rows are predicted with it (``neighbour_search.py``); the
+mean matches scikit-learn's KNeighborsRegressor wherever no tie decides the neighbours. The
+artifact stores the fitting rows' design matrix and residuals as ``.npz``; loading refits the
+neighbour search on them, which is deterministic.
 """
 
 from __future__ import annotations
@@ -19,11 +22,15 @@ from . import register
 from .base import Artifact, FitRequest, StageKind, check_has_features
 from .design import LinearDesign
 from .linear import fit_estimator
+from .neighbour_search import average_of, nearest
+
+#: query rows predicted at once (the design of a block, and its candidates, stay small)
+PREDICT_BLOCK = 8192
 
 
 @dataclass
 class NeighboursModel:
-    """A fitted k-NN stage: its design, the fitted KNeighborsRegressor, and what it was fit on."""
+    """A fitted k-NN stage: its design, the fitted neighbour search, and what it was fit on."""
 
     design: LinearDesign
     estimator: Any
@@ -33,19 +40,31 @@ class NeighboursModel:
 
     def predict(self, X: np.ndarray) -> np.ndarray:
         """Return the mean (or distance-weighted) residual of each row's nearest fitting rows."""
-        if X.shape[0] == 0:
-            return np.zeros(0)
-        return self.estimator.predict(self.design.transform(X))
+        out = np.empty(X.shape[0], dtype=np.float64)
+        k, p = int(self.params["n_neighbors"]), float(self.params["p"])
+        for start in range(0, X.shape[0], PREDICT_BLOCK):
+            queries = self.design.transform(X[start:start + PREDICT_BLOCK])
+            positions, distances = nearest(self.estimator, self.matrix, queries, k, p)
+            out[start:start + PREDICT_BLOCK] = average_of(self.target, positions, distances, self.params["weights"])
+        return out
 
 
 def fit_neighbours(matrix: np.ndarray, target: np.ndarray, params: dict[str, Any], kind: str) -> Any:
-    """Return a KNeighborsRegressor fit on ``matrix``; raise StageSpecError when k exceeds the rows."""
-    from sklearn.neighbors import KNeighborsRegressor
+    """Return a NearestNeighbors search fit on ``matrix``; raise StageSpecError when k exceeds the rows
+    or a parameter has a value the stage cannot use."""
+    from sklearn.neighbors import NearestNeighbors
 
-    k = params["n_neighbors"]
-    if isinstance(k, int) and not isinstance(k, bool) and k > matrix.shape[0]:
+    k, weights, p = params["n_neighbors"], params["weights"], params["p"]
+    if isinstance(k, bool) or not isinstance(k, int) or k < 1:
+        raise StageSpecError(f"kind {kind!r}: n_neighbors must be a whole number of at least 1, not {k!r}")
+    if k > matrix.shape[0]:
         raise StageSpecError(f"kind {kind!r}: n_neighbors={k} is more than the {matrix.shape[0]} fitting rows")
-    return fit_estimator(KNeighborsRegressor(**params), matrix, target, kind)
+    if weights not in ("uniform", "distance"):
+        raise StageSpecError(f"kind {kind!r}: weights must be 'uniform' or 'distance', not {weights!r}")
+    if isinstance(p, bool) or not isinstance(p, int | float) or not p >= 1:
+        raise StageSpecError(f"kind {kind!r}: p must be a number of at least 1, not {p!r}")
+    settings = {name: value for name, value in params.items() if name != "weights"}
+    return fit_estimator(NearestNeighbors(**settings), matrix, target, kind)
 
 
 class KnnKind(StageKind):

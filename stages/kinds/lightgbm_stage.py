@@ -186,7 +186,12 @@ def train_booster(request: FitRequest, params: dict[str, Any], kind: str, *, reu
         shared = binned(request.X, categorical, native)
     callbacks = [_round_callback(request, rounds)]
     with shared.lock if shared is not None else contextlib.nullcontext():
-        train_set = shared.with_target(request.y, request.raw) if shared is not None else dataset(fit_rows)
+        if shared is None:
+            train_set = dataset(fit_rows if request.in_bag is None else np.flatnonzero(request.in_bag))
+        else:
+            train_set = shared.with_target(request.y, request.raw)
+            if request.in_bag is not None:  # the drawn rows, binned as every stage bins them
+                train_set = train_set.subset(np.flatnonzero(request.in_bag))
         valid_sets = []
         if held_out is not None:
             valid_sets.append(dataset(held_out, reference=train_set))

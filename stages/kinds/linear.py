@@ -184,6 +184,12 @@ def load_linear(artifact: Artifact, estimator: str) -> LinearModel:
 class LinearFamilyKind(StageKind):
     """Shared fitting for the least-squares kinds: build the design, fit the estimator, keep coefficients."""
 
+    def step_source(self, params: dict[str, Any]) -> str:
+        """Return in-sample: a linear fit cannot interpolate its fitting rows (no step at all on squared loss)."""
+        from .. import steps
+
+        return steps.IN_SAMPLE
+
     def make_estimator(self, params: dict[str, Any], request: FitRequest) -> Any:
         """Return the unfitted scikit-learn estimator for ``params``."""
         raise NotImplementedError

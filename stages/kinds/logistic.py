@@ -8,6 +8,10 @@ offset: it minimises
 
 with the intercept ``b`` unpenalised (``penalty=None`` drops the penalty, i.e. C = inf). This
 is scikit-learn's LogisticRegression objective plus the offset. The stage's output is ``z``.
+
+Without a penalty, classes that a hyperplane separates have no maximum-likelihood fit: the
+coefficients grow until the fitted probabilities reach 0 or 1 in float64 (Albert & Anderson
+1984, Biometrika 71:1-10). The stage says so in its notes and suggests a penalty.
 """
 
 from __future__ import annotations
@@ -19,6 +23,7 @@ from scipy.optimize import minimize
 from scipy.special import expit
 
 from ..errors import StageSpecError
+from ..metrics import PROB_EPS
 from . import register
 from .base import Artifact, FitRequest, StageKind, check_has_features
 from .design import LinearDesign
@@ -111,6 +116,20 @@ def newton_polish(matrix: np.ndarray, y: np.ndarray, offset: np.ndarray, C: floa
     return theta[:width], float(theta[width])
 
 
+#: log-odds beyond which a probability is within float64's machine epsilon of 0 or 1
+SATURATED_LOGIT = float(-np.log(PROB_EPS))
+
+
+def separation_note(logit: np.ndarray) -> str | None:
+    """Return the note for a fit whose log-odds saturate on some fitting rows (separation), else None."""
+    saturated = int(np.count_nonzero(np.abs(logit) >= SATURATED_LOGIT))
+    if not saturated:
+        return None
+    return (f"separation: {saturated:,} fitting rows get a probability of 0 or 1 (largest log-odds "
+            f"{float(np.abs(logit).max()):.3g}); the classes are separable and the coefficients grow "
+            "without bound; set penalty='l2' with a finite C")
+
+
 class LogisticKind(StageKind):
     """Logistic regression with the chain's log-odds as offset; its output adds to the log-odds."""
 
@@ -136,6 +155,10 @@ class LogisticKind(StageKind):
             int(params["max_iter"]), float(params["tol"]),
         )
         coef, intercept = checked_coefficients(w, b, self.name)
+        if np.isinf(inverse_penalty(params, self.name)):
+            note = separation_note(np.asarray(request.raw, dtype=np.float64) + matrix @ coef + intercept)
+            if note:
+                request.note(note)
         return LinearModel(design, coef, intercept)
 
     def save(self, learner: LinearModel) -> Artifact:

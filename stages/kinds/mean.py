@@ -32,14 +32,18 @@ class MeanKind(StageKind):
     summary: ClassVar[str] = "a constant shift: the best single value for the residuals"
     refines_leaves: ClassVar[bool] = True
 
+    def leaf_rule(self, loss: Any) -> str:
+        """Return the rule the details show: the constant is the loss's own optimum, so no step."""
+        return "none (best constant)"
+
     def fit(self, request: FitRequest, params: dict[str, Any]) -> Constant:
         """Return the mean of the residuals as a constant learner."""
         return Constant(float(np.mean(request.residual)))
 
     def refine(self, learner: Constant, request: FitRequest) -> None:
-        """Replace the mean with the loss's optimal constant where it has one."""
+        """Replace the mean with the loss's optimal constant where it has one (exactly 0 right after the start)."""
         context = request.loss.refinement_context(request.y, request.raw)
-        value = request.loss.leaf_value(request.y, request.raw, request.residual, context)
+        value = request.loss.best_constant(request.y, request.raw, request.residual, context)
         if value is not None:
             learner.value = float(value)
 

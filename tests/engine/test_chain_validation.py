@@ -11,6 +11,7 @@ from sklearn.model_selection import KFold as SklearnKFold
 import stages
 from stages.kinds import _REGISTRY, register
 from stages.kinds.base import Artifact, StageKind
+from stages.steps import CROSS_FIT_FOLDS
 
 
 class _Zero:
@@ -69,15 +70,16 @@ def test_no_row_outside_the_fitting_part_reaches_a_learner(recording_kind, schem
     train_ids = set(chain.matrix[chain.layout.train, 0].astype(int))
     held = set(chain.matrix[chain.layout.n_train:, 0].astype(int))
     tracks = len(chain.layout.tracks)
-    assert len(recording_kind) == 2 * tracks  # every stage is fit once per track
+    fits = 1 + CROSS_FIT_FOLDS  # the stage itself, then one fit per fold of its cross-fit step
+    assert len(recording_kind) == 2 * tracks * fits  # every stage is fit so on every track
     for i, rows in enumerate(recording_kind):
         assert not set(rows) & held, "a validation or test row reached fit()"
-        t = i % tracks
-        if t == 0:
-            assert set(rows) == train_ids
-        else:  # a fold track never sees its own fold
-            fold = chain.layout.tracks[t].evaluate
-            assert not set(rows) & set(chain.matrix[fold, 0].astype(int))
+        t, within = (i // fits) % tracks, i % fits
+        fitting = train_ids if t == 0 else train_ids - set(chain.matrix[chain.layout.tracks[t].evaluate, 0].astype(int))
+        if within == 0:
+            assert set(rows) == fitting
+        else:  # a cross-fit fold: four fifths of the track's own fitting rows
+            assert set(rows) < fitting and len(rows) == pytest.approx(0.8 * len(fitting), abs=1)
 
 
 def test_kfold_validation_is_the_out_of_fold_error_of_k_separate_fits():

@@ -169,7 +169,10 @@ def test_manifest_records_format_versions_schema_levels_specs_and_checksums(tmp_
     svr = manifest["stages"][2]
     assert svr["features"] == ["bmi", "band"] and svr["feature_index"] == chain.schema.index_of(["bmi", "band"])
     assert svr["member"] == "stages/003-sklearn_sklearn.svm.SVR.skops"
-    assert svr["params"]["C"] == 1.0 and svr["scale"] == 0.5
+    assert svr["params"]["C"] == 1.0 and svr["scale"] == 0.5 * svr["step"]["value"]
+    # an SVR can interpolate its fitting rows: its step is chosen on rows out of fold
+    assert svr["step"]["rule"] == "cross-fit 5 folds" and svr["step"]["value"] == chain.stages[2].step
+    assert manifest["stages"][0]["step"] == {"rule": "none (least squares)", "value": 1.0}
     with zipfile.ZipFile(tmp_path / "c.chain") as archive:
         assert all(info.compress_type == zipfile.ZIP_DEFLATED for info in archive.infolist())
         for entry in [*manifest["stages"], manifest["probe"]]:
