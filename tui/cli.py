@@ -344,6 +344,9 @@ def _fit_and_print(recipe: Any, data: str | None, fmt: str) -> Any:
         progress.clear()
     for note in chain.notes:
         print(f"note: {_one_line(note)}", file=sys.stderr)
+    for number, stage in enumerate(chain.stages, start=1):
+        for note in stage.notes:
+            print(f"note: stage {number} ({stage.kind}): {_one_line(note)}", file=sys.stderr)
     return chain
 
 
@@ -422,7 +425,7 @@ def _open_app(**kwargs: Any) -> int:
 def run_show(args: argparse.Namespace) -> int:
     """Print a chain file's settings, stage table and schema; return 0."""
     from stages.files import store
-    from tui.table_text import describe_chain, describe_coefficients, describe_schema, fitted_table
+    from tui.table_text import describe_chain, describe_coefficients, describe_schema, describe_steps, fitted_table
 
     fitted = store.load(args.chain, key=_key(args, from_environment=False))
     table = fitted_table(fitted)
@@ -431,6 +434,8 @@ def run_show(args: argparse.Namespace) -> int:
         return 0
     sys.stdout.write(describe_chain(args.chain, fitted) + "\n")
     print_table(table, "table")
+    if fitted.stages:
+        sys.stdout.write("\n" + describe_steps(fitted))
     sys.stdout.write("\n" + describe_schema(fitted))
     coefficients = describe_coefficients(fitted)
     if coefficients:

@@ -3,7 +3,8 @@ loaded chain file's settings and schema as text.
 
 Both read the DataFrame of ``Chain.table()`` (or ``fitted_table`` for a loaded chain file):
 columns ``stage, kind, shrinkage, features, train_<metric>, valid_<metric>, change,
-valid_<second>, seconds, overfit, best`` and, when present, ``fold_spread`` and ``test_<metric>``.
+valid_<second>, seconds, overfit, best, step, step_rule`` and, when present, ``oob_improvement``,
+``fold_spread`` and ``test_<metric>``. The text table leaves the step columns to ``describe_steps``.
 """
 
 from __future__ import annotations
@@ -89,6 +90,8 @@ def _columns(table: pd.DataFrame) -> list[tuple[str, str, str]]:
         shown.append(("fold_spread", "fold se", "number"))
     if f"test_{metric}" in table.columns:
         shown.append((f"test_{metric}", f"test {metric}", "number"))
+    if "oob_improvement" in table.columns:
+        shown.append(("oob_improvement", "oob gain", "change"))
     shown += [("features", "features", "text"), ("seconds", "secs", "seconds"), ("flags", "flags", "text")]
     return shown
 
@@ -174,7 +177,10 @@ def fitted_table(fitted: FittedChain) -> pd.DataFrame:
             **{f"valid_{name}": _get(s.valid, name) for name in extra_metrics(fitted.task, metric)},
             "seconds": stage.fit_seconds if stage else 0.0,
             "overfit": flags[i], "best": i == best,
+            "step": stage.step if stage else math.nan, "step_rule": stage.step_rule if stage else "",
         }
+        if any(st.oob_loss is not None for st in fitted.stages):
+            row["oob_improvement"] = stage.oob_improvement if stage else math.nan
         if kfold:
             row["fold_spread"] = fold_spread(s.fold_valid)
         if tested:
@@ -221,14 +227,41 @@ def _validation_text(spec: Any) -> str:
         return str(spec)
 
 
+#: how each level order reads in ``remnant show``
+ORDER_TEXT = {"ordered": "as the ordered Categorical", "numeric": "by value", "text": "as text"}
+
+
 def describe_schema(fitted: Any) -> str:
-    """Return the chain's feature columns as an aligned table: column, role, dtype, levels."""
-    cells = [("column", "role", "dtype", "levels")]
+    """Return the chain's feature columns as an aligned table: column, role, dtype, levels, the
+    order of the levels' codes, and what a missing value the fitting rows never had becomes."""
+    cells = [("column", "role", "dtype", "levels", "level order", "a missing value")]
     for col in fitted.schema.columns:
-        cells.append((col.name, col.role, col.dtype, str(len(col.levels)) if col.is_categorical else ""))
+        levels = str(len(col.levels)) if col.is_categorical else ""
+        order = ORDER_TEXT.get(col.order, "as text") if col.is_categorical else ""
+        if col.fill is not None:  # the fitting rows had none: no stage learnt what it means
+            missing = f"takes {col.fill:.6g} (fitting median)"
+        else:
+            missing = "as each stage learnt it"
+        cells.append((col.name, col.role, col.dtype, levels, order, missing))
+    widths = [max(len(row[j]) for row in cells) for j in range(len(cells[0]))]
+    lines = []
+    for row in cells:
+        parts = [*(c.ljust(w) for c, w in zip(row[:3], widths, strict=False)), row[3].rjust(widths[3]),
+                 *(c.ljust(w) for c, w in zip(row[4:], widths[4:], strict=False))]
+        lines.append("  ".join(parts).rstrip())
+    return "\n".join(lines) + "\n"
+
+
+def describe_steps(fitted: Any) -> str:
+    """Return, per stage, its step and how the step was chosen, then each stage's notes."""
+    cells = [("stage", "kind", "step", "step chosen by")]
+    for number, stage in enumerate(fitted.stages, start=1):
+        cells.append((str(number), stage.kind, format_number(stage.step), stage.step_rule or "not recorded"))
     widths = [max(len(row[j]) for row in cells) for j in range(4)]
-    lines = ["  ".join((*(c.ljust(w) for c, w in zip(row[:3], widths, strict=False)), row[3].rjust(widths[3])))
-             .rstrip() for row in cells]
+    lines = ["  ".join((row[0].rjust(widths[0]), row[1].ljust(widths[1]), row[2].rjust(widths[2]), row[3])).rstrip()
+             for row in cells]
+    for number, stage in enumerate(fitted.stages, start=1):
+        lines += [f"note: stage {number} ({stage.kind}): {note}" for note in stage.notes]
     return "\n".join(lines) + "\n"
 
 

@@ -54,6 +54,9 @@ class StageInfo:
     all_features: bool
     seconds: float
     importance: dict[str, float] | None
+    step: float = float("nan")
+    step_rule: str = ""
+    notes: tuple[str, ...] = ()
 
 
 @dataclass(frozen=True, eq=False)
@@ -185,7 +188,8 @@ def view_of_chain(chain: Any, cache: ImportanceCache) -> ChainView:
         infos.append(StageInfo(
             index=i, kind=stage.kind, shrinkage=stage.spec.shrinkage, given=dict(stage.spec.params),
             params=dict(stage.params), features=features, all_features=len(features) == len(names),
-            seconds=stage.fit_seconds, importance=cache.get(chain, i),
+            seconds=stage.fit_seconds, importance=cache.get(chain, i), step=stage.step,
+            step_rule=stage.step_rule, notes=tuple(stage.notes),
         ))
     described = chain.describe()
     layout = chain.layout
@@ -262,7 +266,8 @@ def view_of_fitted(fitted: Any, name: str) -> ChainView:
         infos.append(StageInfo(
             index=i, kind=stage.kind, shrinkage=stage.spec.shrinkage, given=dict(stage.spec.params),
             params=dict(stage.params), features=features, all_features=len(features) == len(names),
-            seconds=stage.fit_seconds, importance=_stored_importance(stage, columns),
+            seconds=stage.fit_seconds, importance=_stored_importance(stage, columns), step=stage.step,
+            step_rule=stage.step_rule, notes=tuple(stage.notes),
         ))
     return ChainView(
         source=name, target=fitted.schema.target, task=fitted.task, loss=fitted.loss.name, metric=metric,

@@ -26,7 +26,8 @@ def extra_metrics(task: str, metric: str) -> list[str]:
 
 
 def stage_table(chain: Chain) -> pd.DataFrame:
-    """Return the chain's stage table: kind, shrinkage, features, scores, change, seconds and flags."""
+    """Return the chain's stage table: kind, shrinkage, features, scores, change, seconds, flags, the
+    step and how it was chosen, and (with a subsample) the loss saved on the rows left out."""
     metric = chain.metric
     second = SECONDARY[chain.task]
     scores = chain.scores()
@@ -49,7 +50,11 @@ def stage_table(chain: Chain) -> pd.DataFrame:
             "seconds": stage.fit_seconds if stage else 0.0,
             "overfit": flags[i],
             "best": i == best,
+            "step": stage.step if stage else np.nan,
+            "step_rule": stage.step_rule if stage else "",
         }
+        if any(s.oob_loss is not None for s in chain.stages):
+            row["oob_improvement"] = stage.oob_improvement if stage else np.nan
         if chain.layout.is_kfold:
             row["fold_spread"] = fold_spread(s.fold_valid)
         if chain.test_revealed:

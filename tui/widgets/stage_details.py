@@ -89,6 +89,11 @@ def stage_text(view: ChainView, stage: StageInfo, width: int, timings: bool) -> 
         text.append(f"all {len(stage.features)}\n")
     else:
         text.append(f"{len(stage.features)} of {len(view.features)}: {', '.join(stage.features)}\n")
+    if stage.step_rule:
+        text.append("step ", style="bold")
+        text.append(f"{number(stage.step)} · {stage.step_rule}\n")
+    for note in stage.notes:
+        text.append(f"! {note}\n", style="bold yellow")
     if timings:
         text.append("fit time ", style="bold")
         text.append(f"{seconds(stage.seconds)}\n")
