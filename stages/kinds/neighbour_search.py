@@ -7,8 +7,11 @@ so the same row could get other neighbours when predicted alone than when predic
 
 Here scikit-learn's search proposes candidates (more than k); each candidate's distance is then
 computed again pair by pair, summing over the columns in a fixed order, so it does not depend on
-the batch; the k nearest are the first k by (that distance, row position). When the candidates
-might not hold every row tied at the k-th distance, the search is widened for those queries.
+the batch; the k nearest are the first k by (that distance, row position). Distances whose sums
+``sum_j |q_j - x_j|^p`` agree to TIE_DECIMALS decimals (on the standardised design) count as
+tied: two rows at the same true distance often differ in the last bits of their sums. When the
+candidates might not hold every row tied at the k-th distance, the search is widened for those
+queries.
 """
 
 from __future__ import annotations
@@ -21,6 +24,8 @@ import numpy as np
 MARGIN = 16
 #: query rows x candidates held at once (8 bytes each: 32 MB)
 BLOCK_CELLS = 4 * 1024 * 1024
+#: decimals to which two distance sums must agree to count as tied
+TIE_DECIMALS = 9
 
 
 def reduced_distances(queries: np.ndarray, matrix: np.ndarray, candidates: np.ndarray, p: float) -> np.ndarray:
@@ -37,10 +42,19 @@ def to_distance(reduced: np.ndarray, p: float) -> np.ndarray:
     return np.sqrt(reduced) if p == 2 else (reduced if p == 1 else reduced ** (1.0 / p))
 
 
-def _tolerance(queries: np.ndarray, matrix_size: float) -> np.ndarray:
-    """Return, per query, a bound on how far the search's distances may be from ours (brute force
-    computes |q|^2 + |x|^2 - 2 q.x, which loses precision on rows far from the origin)."""
-    return 1e-7 * (1.0 + np.abs(queries).max(axis=1, initial=0.0) * queries.shape[1] + matrix_size)
+def _reduced(distance: np.ndarray, p: float) -> np.ndarray:
+    return distance * distance if p == 2 else (distance if p == 1 else distance**p)
+
+
+def _error_bound(queries: np.ndarray, largest: float, p: float) -> np.ndarray:
+    """Return, per query, a bound on how far the search's distance sums may be from ours (brute
+    force computes |q|^2 + |x|^2 - 2 q.x, which loses precision on rows far from the origin)."""
+    return 1e-10 * (1.0 + (np.abs(queries) ** p).sum(axis=1) + largest)
+
+
+def tie_key(reduced: np.ndarray) -> np.ndarray:
+    """Return the distance sums rounded so that sums agreeing to TIE_DECIMALS decimals are equal."""
+    return np.round(reduced, TIE_DECIMALS)
 
 
 def nearest(search: Any, matrix: np.ndarray, queries: np.ndarray, k: int, p: float) -> tuple[np.ndarray, np.ndarray]:
@@ -50,13 +64,13 @@ def nearest(search: Any, matrix: np.ndarray, queries: np.ndarray, k: int, p: flo
     query row does not depend on the other rows queried with it.
     """
     n_fit = matrix.shape[0]
-    size = float(np.abs(matrix).max(initial=0.0)) * matrix.shape[1]
+    largest = float((np.abs(matrix) ** p).sum(axis=1).max(initial=0.0))
     positions = np.empty((len(queries), k), dtype=np.int64)
     reduced = np.empty((len(queries), k), dtype=np.float64)
     pending = np.arange(len(queries))
     wanted = min(n_fit, k + MARGIN)
     while len(pending):
-        covered = _nearest_among(search, matrix, queries, pending, k, wanted, p, size, positions, reduced)
+        covered = _nearest_among(search, matrix, queries, pending, k, wanted, p, largest, positions, reduced)
         if wanted == n_fit:
             break
         pending = pending[~covered]
@@ -64,7 +78,7 @@ def nearest(search: Any, matrix: np.ndarray, queries: np.ndarray, k: int, p: flo
     return positions, to_distance(reduced, p)
 
 
-def _nearest_among(search, matrix, queries, rows, k, wanted, p, size, positions, reduced) -> np.ndarray:
+def _nearest_among(search, matrix, queries, rows, k, wanted, p, largest, positions, reduced) -> np.ndarray:
     """Fill ``positions`` and ``reduced`` for query ``rows`` from ``wanted`` candidates each; return
     which rows are settled (no fitting row left out could tie with their k-th neighbour)."""
     covered = np.ones(len(rows), dtype=bool)
@@ -73,13 +87,14 @@ def _nearest_among(search, matrix, queries, rows, k, wanted, p, size, positions,
         picked = rows[start:start + block]
         found, candidates = search.kneighbors(queries[picked], n_neighbors=wanted)
         exact = reduced_distances(queries[picked], matrix, candidates, p)
-        order = np.lexsort((candidates, exact), axis=1)
+        order = np.lexsort((candidates, tie_key(exact)), axis=1)
         candidates = np.take_along_axis(candidates, order, axis=1)
         exact = np.take_along_axis(exact, order, axis=1)
         positions[picked], reduced[picked] = candidates[:, :k], exact[:, :k]
         if wanted < matrix.shape[0]:
-            kth = to_distance(exact[:, k - 1], p)
-            covered[start:start + block] = found[:, -1] - _tolerance(queries[picked], size) > kth
+            # a row the search left out is at least as far as its farthest candidate, to rounding
+            nearest_left_out = _reduced(found[:, -1], p) - _error_bound(queries[picked], largest, p)
+            covered[start:start + block] = tie_key(nearest_left_out) > tie_key(exact[:, k - 1])
     return covered
 
 

@@ -16,6 +16,7 @@ CHEAP_KINDS = [
     ("forest", 0.5, {"n_estimators": 3, "max_depth": 3}), ("extra_trees", 0.5, {"n_estimators": 3}),
     ("lightgbm", 0.5, {"n_estimators": 3, "num_leaves": 4, "n_jobs": 1}), ("hist_tree", 0.5, {"max_depth": 2}),
     ("knn", 0.3, {}), ("spline", 0.5, {}), ("mean", 0.5, {}), ("sklearn:sklearn.svm.SVR", 0.3, {}),
+    ("tree", 0.5, {"max_depth": 2, "subsample": 0.7}),
 ]
 
 
@@ -32,7 +33,8 @@ def stage_state(stage) -> dict:
     """Return everything a fitted stage holds besides its learners."""
     return {"spec": stage.spec, "params": stage.params, "features": stage.feature_index, "scales": stage.scales,
             "outputs": stage.outputs, "seconds": stage.fit_seconds, "before": stage.rng_before,
-            "after": stage.rng_after}
+            "after": stage.rng_after, "step_rule": stage.step_rule, "oob_loss": stage.oob_loss,
+            "notes": stage.notes}
 
 
 def chain_state(chain: stages.Chain) -> dict:
