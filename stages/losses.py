@@ -3,7 +3,8 @@
 Every loss works on the chain's raw output F: the prediction itself for regression, the
 log-odds for binary chains. Stage k is fit to ``residual(y, F)``; a tree stage's leaves then
 take ``leaf_value`` (Friedman 2001, Greedy function approximation, Annals of Statistics
-29:1189-1232, algorithms 3-5); other stages are scaled by ``line_search``.
+29:1189-1232, algorithms 3-5); other stages are scaled by ``line_search``, on the rows
+``stages.steps`` picks (out of bag or out of fold where the learner could interpolate).
 """
 
 from __future__ import annotations

@@ -191,11 +191,16 @@ class Schema:
         and how many were replaced per column. A matrix that does not own its memory (a view of
         the user's frame) is copied before anything is written."""
         counts: dict[str, int] = {}
+        if not any(col.fill is not None for col in self.columns) or matrix.shape[0] == 0:
+            return matrix, counts
+        # one pass over every column finds those that may hold NaN (a sum is NaN then)
+        with np.errstate(all="ignore"):
+            maybe = np.isnan(matrix.sum(axis=0))
         for j, col in enumerate(self.columns):
-            if col.fill is None:
+            if col.fill is None or not maybe[j]:
                 continue
             missing = np.isnan(matrix[:, j])
-            if missing.any():
+            if missing.any():  # (a sum can also be NaN from infinities of both signs)
                 if not (matrix.flags.owndata and matrix.flags.writeable):
                     matrix = matrix.copy(order="K")
                 matrix[missing, j] = col.fill
