@@ -64,6 +64,8 @@ def check_model_text(text: str, n_features: int | None, what: str = "the LightGB
         raise ChainFileError(f"{what} holds a NUL or carriage-return character")
     lines = text.split("\n")
     header, at = _read_header(lines, what)
+    if "end of trees" not in lines:  # wherever the cut fell, even inside a line
+        raise ChainFileError(f"{what} ends before 'end of trees' (the text was cut short)")
     if n_features is None:
         n_features = _whole(header.get("max_feature_idx", "-1"), "max_feature_idx", what) + 1
         if not 1 <= n_features <= MAX_COLUMNS:
