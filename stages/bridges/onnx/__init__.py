@@ -162,13 +162,14 @@ def _first_stage_differing(fitted: FittedChain, rows: pd.DataFrame, float32: boo
     """Return the first stage after which the model's raw score is off the chain's, or None."""
     import warnings
 
-    from ...predictor import UnseenLevelsWarning
+    from ...predictor import UnseenLevelsWarning, UnseenMissingWarning
     from . import probe
     from .compose import chain_graph
 
     got = run_model(chain_graph(fitted, each_stage=True).model.SerializeToString(), probe.feeds(fitted.schema, rows))
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", UnseenLevelsWarning)
+        warnings.simplefilter("ignore", UnseenMissingWarning)
         after = fitted.raw_after_each_stage(fitted.encode(rows, source="probe rows"))
     scale = probe.spread(fitted)
     for k in range(1, len(fitted.stages) + 1):

@@ -24,7 +24,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from ...predictor import FittedChain, UnseenLevelsWarning
+from ...predictor import FittedChain, UnseenLevelsWarning, UnseenMissingWarning
 from ...schema import BOOLEAN, CATEGORICAL, Schema
 from .columns import MISSING_TEXT
 
@@ -127,6 +127,7 @@ def expected(fitted: FittedChain, rows: pd.DataFrame) -> dict[str, np.ndarray]:
     """Return what ``predict`` (and ``predict_proba`` for binary chains) gives on ``rows``, by output name."""
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", UnseenLevelsWarning)  # the edge rows hold unseen levels on purpose
+        warnings.simplefilter("ignore", UnseenMissingWarning)  # and missing values in every column
         out = {"prediction": np.asarray(fitted.predict(rows, source="probe rows"))}
         if fitted.task == "binary":
             out["probability"] = fitted.predict_proba(rows, source="probe rows")[:, 1]
