@@ -180,7 +180,8 @@ class Chain:
         """Return one row per stage (row 0 is the start value) with its scores and flags."""
         from .report.table import stage_table
 
-        return stage_table(self)
+        with self._lock:  # the stages and their scores read together
+            return stage_table(self)
 
     def residuals(self, part: str = "valid", row: int | None = None) -> np.ndarray:
         """Return target minus prediction (y - p for binary) on ``part`` after row ``row``."""

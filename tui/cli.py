@@ -425,16 +425,16 @@ def _open_app(**kwargs: Any) -> int:
 def run_show(args: argparse.Namespace) -> int:
     """Print a chain file's settings, stage table and schema; return 0."""
     from stages.files import store
+    from stages.report.table import fitted_rows
     from tui.table_text import (
         describe_chain,
         describe_coefficients,
         describe_schema,
         describe_steps,
-        fitted_table,
     )
 
     fitted = store.load(args.chain, key=_key(args, from_environment=False))
-    table = fitted_table(fitted)
+    table = fitted_rows(fitted)
     if args.format == "csv":
         print_table(table, "csv")
         return 0

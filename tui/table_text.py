@@ -1,22 +1,23 @@
 """The stage table as text: aligned columns for a terminal, or CSV for other programs; and a
 loaded chain file's settings and schema as text.
 
-Both read the DataFrame of ``Chain.table()`` (or ``fitted_table`` for a loaded chain file):
-columns ``stage, kind, shrinkage, features, train_<metric>, valid_<metric>, change,
-valid_<second>, seconds, overfit, best, step, step_rule`` and, when present, ``oob_improvement``,
-``fold_spread`` and ``test_<metric>``. The text table leaves the step columns to ``describe_steps``.
+Both take the engine's ``StageTable`` (``stages.report.table.stage_rows`` of a live chain,
+``fitted_rows`` of a loaded chain file) or its DataFrame (``Chain.table()``): columns ``stage,
+kind, shrinkage, features, train_<metric>, valid_<metric>, change, valid_<second>, seconds,
+overfit, best, step, step_rule`` and, when present, ``oob_improvement``, ``fold_spread`` and
+``test_<metric>``. The text table leaves the step columns to ``describe_steps``. Every text cell
+is formatted in one place, ``_cell``.
 """
 
 from __future__ import annotations
 
 import io
 import math
-from typing import TYPE_CHECKING, Any
+from typing import Any
 
 import pandas as pd
 
-if TYPE_CHECKING:
-    from stages.predictor import FittedChain
+from stages.report.table import StageTable
 
 SIGNIFICANT = 4
 #: headers shorter than the column names
@@ -70,6 +71,10 @@ def format_fixed(value: Any, decimals: int, *, signed: bool = False) -> str:
     return f"{number:{sign}.{decimals}f}"
 
 
+def _frame(table: StageTable | pd.DataFrame) -> pd.DataFrame:
+    return table.frame() if isinstance(table, StageTable) else table
+
+
 def _metric(table: pd.DataFrame) -> str:
     for column in table.columns:
         if column.startswith("train_"):
@@ -121,8 +126,9 @@ def flags_of(row: pd.Series) -> str:
     return " ".join(marks)
 
 
-def format_table(table: pd.DataFrame) -> str:
+def format_table(table: StageTable | pd.DataFrame) -> str:
     """Return the stage table as aligned text: numbers right-aligned, text left-aligned."""
+    table = _frame(table)
     table = table.assign(flags=[flags_of(row) for _, row in table.iterrows()])
     if "seconds" in table.columns:  # the start value takes no fit time: leave its cell empty
         table["seconds"] = table["seconds"].where(table["kind"] != "start")
@@ -141,65 +147,15 @@ def format_table(table: pd.DataFrame) -> str:
     return "\n".join(lines) + "\n"
 
 
-def format_csv(table: pd.DataFrame) -> str:
+def format_csv(table: StageTable | pd.DataFrame) -> str:
     """Return the stage table as CSV, every number at full precision, flags as true/false."""
-    out = table.copy()
+    out = _frame(table).copy()
     for column in ("overfit", "best"):
         if column in out.columns:
             out[column] = out[column].map(lambda v: "true" if bool(v) else "false")
     buffer = io.StringIO()
     out.to_csv(buffer, index=False, lineterminator="\n")
     return buffer.getvalue()
-
-
-def fitted_table(fitted: FittedChain) -> pd.DataFrame:
-    """Return the stage table of a loaded chain file, from the scores its manifest stored."""
-    from stages.report.table import SECONDARY, extra_metrics
-    from stages.scoring import Scores, best_row, fold_spread, overfit_flags
-
-    metric, second = fitted.loss.primary, SECONDARY[fitted.task]
-    raw = [fitted.start_scores, *(stage.scores for stage in fitted.stages)]
-    scores = [Scores(dict(s.get("train", {})), dict(s.get("valid", {})), tuple(s.get("fold_valid", ())),
-                     dict(s.get("test", {}))) for s in raw]
-    flags, best = overfit_flags(metric, scores), best_row(metric, scores)
-    kfold = (fitted.meta.get("validation") or {}).get("scheme") == "kfold"
-    tested = any(s.test for s in scores)
-    n_features, rows = len(fitted.schema.columns), []
-    for i, s in enumerate(scores):
-        stage = fitted.stages[i - 1] if i else None
-        row = {
-            "stage": i, "kind": stage.kind if stage else "start",
-            "shrinkage": stage.spec.shrinkage if stage else math.nan,
-            "features": _features(stage, n_features),
-            f"train_{metric}": _get(s.train, metric), f"valid_{metric}": _get(s.valid, metric),
-            "change": _get(s.valid, metric) - _get(scores[i - 1].valid, metric) if i else math.nan,
-            f"valid_{second}": _get(s.valid, second),
-            **{f"valid_{name}": _get(s.valid, name) for name in extra_metrics(fitted.task, metric)},
-            "seconds": stage.fit_seconds if stage else 0.0,
-            "overfit": flags[i], "best": i == best,
-            "step": stage.step if stage else math.nan, "step_rule": stage.step_rule if stage else "",
-        }
-        if any(st.oob_loss is not None for st in fitted.stages):
-            row["oob_improvement"] = stage.oob_improvement if stage else math.nan
-        if kfold:
-            row["fold_spread"] = fold_spread(s.fold_valid)
-        if tested:
-            row[f"test_{metric}"] = _get(s.test, metric)
-        rows.append(row)
-    return pd.DataFrame(rows)
-
-
-def _get(scores: dict[str, Any], name: str) -> float:
-    value = scores.get(name)
-    return math.nan if value is None else float(value)
-
-
-def _features(stage: Any, n_features: int) -> str:
-    if stage is None:
-        return ""
-    if not stage.spec.features or len(stage.feature_index) == n_features:
-        return "all"
-    return ",".join(stage.spec.features)
 
 
 def describe_chain(path: str, fitted: Any) -> str:

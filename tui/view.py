@@ -9,7 +9,6 @@ without residuals, built from the scores stored in the file.
 
 from __future__ import annotations
 
-import math
 from dataclasses import dataclass, field
 from typing import Any
 
@@ -18,27 +17,11 @@ import numpy as np
 from stages import scoring
 from stages.kinds import get_kind
 from stages.losses import Loss
-from stages.report.table import SECONDARY
-from stages.scoring import Scores, fold_spread
+from stages.report.table import StageRow, fitted_rows, stage_rows
 from stages.tracks import Layout
 
-
-@dataclass(frozen=True)
-class StageRow:
-    """One row of the chain table: row 0 is the start value."""
-
-    index: int
-    kind: str
-    shrinkage: float | None
-    train: float
-    valid: float
-    change: float | None
-    second: float | None
-    test: float | None
-    spread: float | None
-    seconds: float
-    overfit: bool
-    best: bool
+__all__ = ["ChainView", "ImportanceCache", "ResidualSource", "StageInfo", "StageRow", "view_of_chain",
+           "view_of_fitted"]
 
 
 @dataclass(frozen=True)
@@ -148,27 +131,6 @@ class ImportanceCache:
         return self._values[stage]
 
 
-def _number(value: Any) -> float | None:
-    try:
-        number = float(value)
-    except (TypeError, ValueError):
-        return None
-    return None if math.isnan(number) else number
-
-
-def _rows_from_table(table: Any, metric: str, second: str) -> tuple[StageRow, ...]:
-    rows = []
-    for record in table.to_dict("records"):
-        rows.append(StageRow(
-            index=int(record["stage"]), kind=str(record["kind"]), shrinkage=_number(record["shrinkage"]),
-            train=float(record[f"train_{metric}"]), valid=float(record[f"valid_{metric}"]),
-            change=_number(record["change"]), second=_number(record.get(f"valid_{second}")),
-            test=_number(record.get(f"test_{metric}")), spread=_number(record.get("fold_spread")),
-            seconds=float(record["seconds"]), overfit=bool(record["overfit"]), best=bool(record["best"]),
-        ))
-    return tuple(rows)
-
-
 def _sizes(rows: dict[str, int], kfold: str = "") -> str:
     text = f"{rows.get('train', 0):,} fit · {rows.get('valid', 0):,} valid"
     if kfold:
@@ -180,7 +142,7 @@ def _sizes(rows: dict[str, int], kfold: str = "") -> str:
 
 def view_of_chain(chain: Any, cache: ImportanceCache) -> ChainView:
     """Return a snapshot of a live chain; call it only from the thread doing the chain's work."""
-    metric, second = chain.metric, SECONDARY[chain.task]
+    table = stage_rows(chain)
     names = chain.schema.names
     infos = []
     for i, stage in enumerate(chain.stages, start=1):
@@ -198,20 +160,15 @@ def view_of_chain(chain: Any, cache: ImportanceCache) -> ChainView:
                             tuple(chain.outputs(r) for r in range(len(chain.stages) + 1)))
     return ChainView(
         source=chain.source, target=chain.schema.target, task=chain.task, loss=chain.loss.name,
-        metric=metric, second=second, validation=chain.validation.describe(),
+        metric=table.metric, second=table.second, validation=chain.validation.describe(),
         sizes=_sizes(described["rows"], kfold), start_value=float(chain.starts[0]),
-        rows=_rows_from_table(chain.table(), metric, second), stages=tuple(infos), features=tuple(names),
+        rows=table.rows, stages=tuple(infos), features=tuple(names),
         notes=tuple(chain.notes), classes=tuple(chain.schema.classes), has_test=layout.n_test > 0,
         n_test=layout.n_test,
         test_revealed=chain.test_revealed, reveals=chain.reveal_count, can_undo=chain.can_undo(),
         kfold=layout.is_kfold,
         residuals=source, data_path=chain.data_path,
     )
-
-
-def _scores(data: dict[str, Any]) -> Scores:
-    return Scores(dict(data.get("train", {})), dict(data.get("valid", {})),
-                  tuple(data.get("fold_valid", ())), dict(data.get("test", {})))
 
 
 def _stored_importance(stage: Any, columns: tuple[Any, ...]) -> dict[str, float] | None:
@@ -228,30 +185,11 @@ def _stored_importance(stage: Any, columns: tuple[Any, ...]) -> dict[str, float]
     return {c.name: float(v) for c, v in zip(columns, values, strict=False)}
 
 
-def _stored_rows(fitted: Any, metric: str, second: str) -> tuple[StageRow, ...]:
-    scores = [_scores(fitted.start_scores)] + [_scores(s.scores) for s in fitted.stages]
-    flags = scoring.overfit_flags(metric, scores)
-    best = scoring.best_row(metric, scores)
-    rows = []
-    for i, s in enumerate(scores):
-        stage = fitted.stages[i - 1] if i else None
-        valid = s.valid.get(metric, math.nan)
-        rows.append(StageRow(
-            index=i, kind=stage.kind if stage else "start", shrinkage=stage.spec.shrinkage if stage else None,
-            train=s.train.get(metric, math.nan), valid=valid,
-            change=valid - scores[i - 1].valid.get(metric, math.nan) if i else None,
-            second=_number(s.valid.get(second)), test=_number(s.test.get(metric)),
-            spread=_number(fold_spread(s.fold_valid)) if s.fold_valid else None,
-            seconds=stage.fit_seconds if stage else 0.0, overfit=flags[i], best=i == best,
-        ))
-    return tuple(rows)
-
-
 def view_of_fitted(fitted: Any, name: str) -> ChainView:
     """Return a read-only view of a loaded chain file, from the scores stored in it."""
     from stages.validation import spec_from_dict
 
-    metric, second = fitted.loss.primary, SECONDARY[fitted.task]
+    table = fitted_rows(fitted)
     meta = dict(fitted.meta or {})
     try:
         validation = spec_from_dict(meta["validation"]).describe()
@@ -270,9 +208,9 @@ def view_of_fitted(fitted: Any, name: str) -> ChainView:
             step_rule=stage.step_rule, notes=tuple(stage.notes),
         ))
     return ChainView(
-        source=name, target=fitted.schema.target, task=fitted.task, loss=fitted.loss.name, metric=metric,
-        second=second, validation=validation, sizes=_sizes(dict(meta.get("rows", {})), "folds" if kfold else ""),
-        start_value=float(fitted.start), rows=_stored_rows(fitted, metric, second), stages=tuple(infos),
+        source=name, target=fitted.schema.target, task=fitted.task, loss=fitted.loss.name, metric=table.metric,
+        second=table.second, validation=validation, sizes=_sizes(dict(meta.get("rows", {})), "folds" if kfold else ""),
+        start_value=float(fitted.start), rows=table.rows, stages=tuple(infos),
         features=tuple(names), classes=tuple(fitted.schema.classes), read_only=True, kfold=kfold,
         extra={"data": meta.get("source", "")},
     )

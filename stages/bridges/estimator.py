@@ -29,6 +29,7 @@ from sklearn.utils.validation import check_is_fitted, validate_data
 from ..chain import Chain
 from ..errors import RemnantError
 from ..predictor import FittedChain, class_label
+from ..report.table import fitted_rows
 from ..spec import StageSpec
 from ..validation import AllRows, spec_from_dict
 
@@ -298,19 +299,6 @@ class ChainClassifier(ClassifierMixin, _ChainEstimator):
         return self.classes_[positive.astype(np.intp)]
 
 
-def stored_table(fitted: FittedChain) -> pd.DataFrame:
-    """Return a stage table from the scores stored with ``fitted``: kind, shrinkage, train and valid metrics."""
-    entries = [("start", np.nan, fitted.start_scores)]
-    entries += [(stage.kind, stage.spec.shrinkage, stage.scores) for stage in fitted.stages]
-    rows = []
-    for i, (kind, shrinkage, scores) in enumerate(entries):
-        row: dict[str, Any] = {"stage": i, "kind": kind, "shrinkage": shrinkage}
-        for part in ("train", "valid"):
-            row.update({f"{part}_{name}": value for name, value in scores.get(part, {}).items()})
-        rows.append(row)
-    return pd.DataFrame(rows)
-
-
 def wrap_fitted(fitted: FittedChain) -> ChainRegressor | ChainClassifier:
     """Return a fitted ChainRegressor or ChainClassifier that predicts with ``fitted``.
 
@@ -335,5 +323,5 @@ def wrap_fitted(fitted: FittedChain) -> ChainRegressor | ChainClassifier:
     estimator.chain_ = fitted
     estimator.n_features_in_ = len(fitted.schema.columns)
     estimator.feature_names_in_ = np.array(fitted.schema.names, dtype=object)
-    estimator.table_ = stored_table(fitted)
+    estimator.table_ = fitted_rows(fitted).frame()
     return estimator

@@ -89,7 +89,8 @@ def base_bytes(base_chain) -> bytes:
 
 def read_everything(path, data) -> None:
     """Load ``path`` and use it as show and predict do; anything but a RemnantError fails the test."""
-    from tui.table_text import describe_chain, describe_schema, fitted_table
+    from stages.report.table import fitted_rows
+    from tui.table_text import describe_chain, describe_schema, format_table
 
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
@@ -98,7 +99,7 @@ def read_everything(path, data) -> None:
         except stages.ChainFileError as exc:
             assert "\n" not in str(exc)
             return
-        fitted_table(fitted)
+        format_table(fitted_rows(fitted))
         describe_chain(str(path), fitted)
         describe_schema(fitted)
         with suppress(RemnantError):

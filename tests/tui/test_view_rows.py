@@ -13,9 +13,7 @@ from tui.view import ImportanceCache, view_of_chain, view_of_fitted
 SCHEMES = [
     stages.Holdout(fraction=0.25, seed=0),
     stages.KFold(folds=3, seed=0),
-    pytest.param(stages.AllRows(), marks=pytest.mark.xfail(
-        strict=True, reason="the read-only view builds its rows apart: a change that is not a number is "
-                            "None in the live view, NaN in the read-only one")),
+    stages.AllRows(),
 ]
 
 
