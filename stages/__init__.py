@@ -18,6 +18,7 @@ from typing import Any
 
 from .chain import Chain
 from .errors import (
+    Cancelled,
     ChainFileError,
     ChainStateError,
     DataError,
@@ -59,7 +60,8 @@ def __getattr__(name: str) -> Any:
 __all__ = [
     "Chain", "FittedChain", "StageSpec", "Holdout", "KFold", "TimeOrder", "GroupHoldout", "SplitColumn",
     "AllRows",
-    "RemnantError", "DataError", "ValidationSpecError", "StageSpecError", "ChainStateError", "StageFitError", "FitCancelled",
-    "RecipeError", "ChainFileError", "SchemaError", "load", "sign", "verify", "ChainRegressor", "ChainClassifier",
+    "RemnantError", "DataError", "ValidationSpecError", "StageSpecError", "ChainStateError", "StageFitError", "Cancelled",
+    "FitCancelled", "RecipeError", "ChainFileError", "SchemaError", "load", "sign", "verify", "ChainRegressor",
+    "ChainClassifier",
     "read_recipe", "fit_recipe", "__version__",
 ]

@@ -18,14 +18,12 @@ import re
 from collections.abc import Callable
 from typing import Any
 
+from .errors import ManifestMismatch
+
 Check = Callable[[Any, str], None]
 
 #: a whole number JSON may hold without losing precision in other readers
 _LARGEST_WHOLE = 2**63
-
-
-class ManifestMismatch(ValueError):
-    """A manifest value does not fit its schema; ``str(err)`` names the key path and the value."""
 
 
 def strict_json(text: str | bytes) -> Any:

@@ -9,17 +9,10 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
+from .errors import UnseenLevelsWarning, UnseenMissingWarning
 from .losses import Loss
 from .schema import Schema
 from .spec import StageSpec
-
-
-class UnseenLevelsWarning(UserWarning):
-    """Category levels never seen in training reached a prediction (handled as missing)."""
-
-
-class UnseenMissingWarning(UserWarning):
-    """Missing values reached a prediction in columns whose fitting rows had none (given the fitting median)."""
 
 
 def unseen_missing_message(source: str, counts: dict[str, int], schema: Schema) -> str:

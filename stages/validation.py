@@ -480,3 +480,12 @@ def spec_from_dict(data: dict[str, Any]) -> ValidationSpec:
     if cls in (TimeOrder, GroupHoldout) and "column" not in values:
         raise ValidationSpecError(f"validation scheme {scheme!r} needs a 'column'")
     return cls(**values)
+
+
+def describe_stored(data: Any) -> str | None:
+    """Return the one line that describes a stored ``[validation]`` table (a chain file's or a
+    session's), or None when it is not a table this version reads."""
+    try:
+        return spec_from_dict(data).describe()
+    except (ValidationSpecError, TypeError):
+        return None

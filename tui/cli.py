@@ -197,7 +197,7 @@ def main(argv: list[str] | None = None) -> int:
 def _run(args: argparse.Namespace) -> int:
     import warnings
 
-    from stages.errors import RemnantError
+    from stages.errors import Cancelled, RemnantError
 
     shown: set[str] = set()
 
@@ -211,7 +211,7 @@ def _run(args: argparse.Namespace) -> int:
         with warnings.catch_warnings():
             warnings.showwarning = show_warning
             return args.run(args)
-    except (RemnantError, UsageError) as err:
+    except (RemnantError, Cancelled, UsageError) as err:
         return _fail(str(err))
     except BrokenPipeError:  # the reader of standard output went away (e.g. `| head`)
         _silence_stdout()

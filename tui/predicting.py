@@ -18,13 +18,8 @@ import numpy as np
 import pandas as pd
 
 from stages.atomic import STDOUT, atomic_output
-from stages.errors import DataError, SchemaError
-from stages.predictor import (
-    FittedChain,
-    UnseenLevelsWarning,
-    UnseenMissingWarning,
-    unseen_missing_message,
-)
+from stages.errors import DataError, SchemaError, UnseenLevelsWarning, UnseenMissingWarning
+from stages.predictor import FittedChain, unseen_missing_message
 from stages.reading import (
     check_statistics,
     column_ranges,

@@ -175,12 +175,9 @@ def describe_chain(path: str, fitted: Any) -> str:
 
 
 def _validation_text(spec: Any) -> str:
-    from stages.validation import spec_from_dict
+    from stages.validation import describe_stored
 
-    try:
-        return spec_from_dict(dict(spec)).describe()
-    except Exception:  # an older or unusual manifest: show it as stored
-        return str(spec)
+    return describe_stored(spec) or str(spec)  # an older or unusual manifest: shown as stored
 
 
 #: how each level order reads in ``remnant show``

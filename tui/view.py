@@ -187,14 +187,11 @@ def _stored_importance(stage: Any, columns: tuple[Any, ...]) -> dict[str, float]
 
 def view_of_fitted(fitted: Any, name: str) -> ChainView:
     """Return a read-only view of a loaded chain file, from the scores stored in it."""
-    from stages.validation import spec_from_dict
+    from stages.validation import describe_stored
 
     table = fitted_rows(fitted)
     meta = dict(fitted.meta or {})
-    try:
-        validation = spec_from_dict(meta["validation"]).describe()
-    except Exception:  # an older or foreign manifest: say what is known
-        validation = "validation as stored"
+    validation = describe_stored(meta.get("validation")) or "validation as stored"  # an older or foreign file
     kfold = dict(meta.get("validation") or {}).get("scheme") == "kfold"
     names = fitted.schema.names
     infos = []

@@ -23,7 +23,7 @@ from textual.message import Message
 from textual.message_pump import MessagePump
 from textual.worker import Worker, WorkerState
 
-from stages.errors import FitCancelled, RemnantError
+from stages.errors import Cancelled, FitCancelled, RemnantError
 from stages.files import session as sessions
 
 from .messages import FitFailed, FitProgressed, FitStarted
@@ -62,7 +62,7 @@ def one_line(error: BaseException) -> str:
     """Return the one-line reason for ``error``: the engine's own message, or the error's first line."""
     text = str(error).strip()
     first = text.splitlines()[0] if text else ""
-    if isinstance(error, RemnantError):
+    if isinstance(error, RemnantError | Cancelled):
         return first or type(error).__name__
     return f"{type(error).__name__}: {first}" if first else type(error).__name__
 

@@ -75,7 +75,7 @@ def check_manifest(manifest: Any, path: str) -> None:
     try:
         MANIFEST(manifest, "")
     except ManifestMismatch as exc:
-        raise ChainFileError(f"{path}: chain file is damaged: its manifest does not fit the format ({exc})") from None
+        raise ChainFileError(f"{path}: chain file is damaged: its manifest does not fit the format ({exc})") from exc
     schema = manifest["schema"]
     task = schema.get("task", "regression")
     if manifest["task"] != task:

@@ -41,7 +41,13 @@ from ..atomic import write_atomic
 from ..chain import Chain
 from ..chain_state import ChainState
 from ..container import ArchiveReader, ArchiveWriter
-from ..errors import RemnantError
+from ..errors import (
+    DAMAGED_FILE_ERRORS,
+    RemnantError,
+    SessionDataChanged,
+    SessionError,
+    SessionSaveError,
+)
 from ..fitting import Stage
 from ..kinds.base import ProgressFn
 from ..manifest_schema import ManifestMismatch, strict_json
@@ -66,22 +72,6 @@ SUFFIX = ".session"
 #: environment variable naming the folder that replaces the platform's user data folder
 HOME_VARIABLE = "REMNANT_HOME"
 MAX_MANIFEST_BYTES = 512 * 1024**2
-
-
-class SessionError(RemnantError):
-    """A session file is damaged, from a newer format, or cannot be read or written."""
-
-
-class SessionSaveError(SessionError):
-    """A session could not be saved (full disk, unwritable folder); the previous file is intact."""
-
-
-class SessionDataChanged(SessionError):
-    """The data file changed since the session was saved; ``changes`` says how, one line each."""
-
-    def __init__(self, name: str, changes: list[str]) -> None:
-        self.changes = list(changes)
-        super().__init__(f"{name}: the data changed since the session was saved ({'; '.join(changes)})")
 
 
 # ----------------------------------------------------------------------------- where
@@ -318,14 +308,14 @@ def _rebuild(manifest: dict[str, Any], source: Any, name: str) -> Chain:
         chain = Chain(frame, target, data_path=data_path, **settings)
         if chain.schema.to_dict() != columns["schema"]:
             chain = Chain(frame, target, features=features, data_path=data_path, **settings)
-    except Exception as exc:  # settings that do not fit this data: a damaged session or changed data
-        reason = " ".join(str(exc).split()) or type(exc).__name__
-        raise SessionError(f"{name}: the session's settings do not apply to {data_name} ({reason})") from None
+    except (RemnantError, *DAMAGED_FILE_ERRORS) as exc:  # settings that do not fit this data: a damaged
+        reason = " ".join(str(exc).split()) or type(exc).__name__  # session or changed data
+        raise SessionError(f"{name}: the session's settings do not apply to {data_name} ({reason})") from exc
     return chain
 
 
 def _same_data(chain: Chain, manifest: dict[str, Any]) -> bool:
-    with contextlib.suppress(Exception):
+    with contextlib.suppress(*DAMAGED_FILE_ERRORS):
         stored = manifest["fingerprint"]
         now = store.data_fingerprint(chain.matrix, chain.y, chain.layout.order)
         return (chain.schema.to_dict() == manifest["columns"]["schema"] and now["sha256"] == stored["sha256"]
@@ -348,14 +338,15 @@ def _refit(chain: Chain, manifest: dict[str, Any], name: str, cancel: threading.
 
 @contextlib.contextmanager
 def _damaged(name: str):
-    """Turn anything raised inside into a SessionError naming the file (SessionErrors pass through)."""
+    """Turn what a damaged file raises inside into a SessionError naming the file (SessionErrors pass
+    through; a fault of remnant itself is not hidden as damage)."""
     try:
         yield
     except SessionError:
         raise
-    except Exception as exc:
+    except (RemnantError, *DAMAGED_FILE_ERRORS) as exc:
         reason = " ".join(str(exc).split()) or type(exc).__name__
-        raise SessionError(f"{name}: session file is damaged ({type(exc).__name__}: {reason})") from None
+        raise SessionError(f"{name}: session file is damaged ({type(exc).__name__}: {reason})") from exc
 
 
 def _open(name: str) -> ArchiveReader:
@@ -387,7 +378,7 @@ def _read_manifest(archive: ArchiveReader, name: str) -> dict[str, Any]:
     try:
         check_session_manifest(manifest)
     except ManifestMismatch as exc:
-        raise SessionError(f"{name}: session file is damaged: its manifest does not fit the format ({exc})") from None
+        raise SessionError(f"{name}: session file is damaged: its manifest does not fit the format ({exc})") from exc
     return manifest
 
 

@@ -26,13 +26,14 @@ from typing import TYPE_CHECKING, Any
 import numpy as np
 
 from ..atomic import node_kind
+from ..errors import VersionDriftWarning
 from ..fitting import Stage, feature_rows, resolve_features
 from ..kinds import get_kind
 from ..kinds.base import Artifact
 from ..reading import source_name
 from ..spec import StageSpec
 from ..tracks import Layout
-from .store import VersionDriftWarning, json_ready, library_versions
+from .store import json_ready, library_versions
 
 if TYPE_CHECKING:
     from ..chain import Chain

@@ -22,7 +22,7 @@ import stat
 
 from ..atomic import write_atomic
 from ..container import ArchiveReader, ArchiveWriter
-from ..errors import ChainFileError
+from ..errors import ChainFileError, SignatureError
 
 SIGNATURE = "signature.json"
 ALGORITHM = "HMAC-SHA256"
@@ -31,10 +31,6 @@ KEY_VARIABLE = "REMNANT_SIGNING_KEY"
 MIN_KEY_BYTES = 16
 _MAX_KEY_FILE_BYTES = 64 * 1024
 _CONTEXT = b"remnant chain file signature v1\n"
-
-
-class SignatureError(ChainFileError):
-    """A chain file is not signed, is signed with another key, or no usable key was given."""
 
 
 def read_key(key_file: str | os.PathLike | None = None, *, from_environment: bool = True) -> bytes:

@@ -44,7 +44,7 @@ import numpy as np
 from .. import limits
 from ..atomic import write_atomic as _write_atomic
 from ..container import ArchiveReader, ArchiveWriter, sha256_hex, size_text
-from ..errors import ChainFileError, RemnantError
+from ..errors import DAMAGED_FILE_ERRORS, ChainFileError, RemnantError, VersionDriftWarning
 from ..kinds import get_kind
 from ..kinds.base import Artifact
 from ..losses import get_loss
@@ -73,10 +73,6 @@ _CHAIN_KEYS = ("validation", "seed", "rows", "test_revealed", "test_reveals", "s
 
 # probe rows of loaded chains, so that saving a loaded chain again keeps its probe
 _PROBES: weakref.WeakKeyDictionary[FittedChain, np.ndarray] = weakref.WeakKeyDictionary()
-
-
-class VersionDriftWarning(UserWarning):
-    """A chain file was saved with other library versions than the ones installed."""
 
 
 # ----------------------------------------------------------------------------- saving
@@ -212,8 +208,8 @@ def load(path: str | os.PathLike, *, key: bytes | str | None = None) -> FittedCh
         fitted, manifest, probe = _load(name, key)
     except ChainFileError:
         raise
-    except Exception as exc:  # a malformed member the checks did not foresee: always the one error class
-        raise ChainFileError(f"{name}: chain file is damaged ({type(exc).__name__}: {_one_line(exc)})") from None
+    except DAMAGED_FILE_ERRORS as exc:  # a malformed manifest or member: always the one error class
+        raise ChainFileError(f"{name}: chain file is damaged ({type(exc).__name__}: {_one_line(exc)})") from exc
     _check_drift(fitted, manifest, probe, name)
     return fitted
 
@@ -335,9 +331,9 @@ def _check_stages_predict(fitted: FittedChain, probe: Probe | None, path: str) -
             with np.errstate(all="ignore"), warnings.catch_warnings():
                 warnings.simplefilter("ignore")
                 output = np.asarray(stage.learner.predict(rows[:, list(stage.feature_index)]), dtype=np.float64)
-        except Exception as exc:
+        except Exception as exc:  # a learner from a file may raise anything its library raises
             raise ChainFileError(f"{path}: stage {number} ({stage.kind}) cannot predict "
-                                 f"({type(exc).__name__}: {_one_line(exc)})") from None
+                                 f"({type(exc).__name__}: {_one_line(exc)})") from exc
         if output.ndim not in (1, 2) or output.shape[0] != len(rows) or not np.isfinite(output).all():
             raise ChainFileError(f"{path}: stage {number} ({stage.kind}) does not predict finite values, one row "
                                  "per row")
@@ -369,8 +365,8 @@ def _check_drift(fitted: FittedChain, manifest: dict[str, Any], probe: Probe | N
     try:
         with np.errstate(all="ignore"):
             now_raw = fitted.raw_from_matrix(matrix)
-    except Exception as exc:
-        raise ChainFileError(f"{path}: the chain's stages cannot predict on this machine ({_one_line(exc)})") from None
+    except Exception as exc:  # the libraries of this machine refuse a stage: anything they raise
+        raise ChainFileError(f"{path}: the chain's stages cannot predict on this machine ({_one_line(exc)})") from exc
     gap, relative = probe_difference(now_raw, stored)
     if relative > PROBE_RTOL:
         warnings.warn(f"{path}: predictions on this machine differ from the saved ones by up to {gap:.3g} "

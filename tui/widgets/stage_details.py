@@ -7,6 +7,7 @@ from textual.app import ComposeResult
 from textual.containers import VerticalScroll
 from textual.widgets import Static
 
+from stages.errors import RemnantError
 from stages.kinds import get_kind
 
 from ..format import bar, number, seconds, value
@@ -30,7 +31,7 @@ def _params(stage: StageInfo, task: str) -> list[tuple[str, str]]:
         kind = get_kind(stage.kind)
         defaults = kind.task_defaults(task)
         main = kind.main_params
-    except Exception:  # a kind this installation does not know: show what was given
+    except RemnantError:  # a kind this installation does not know: show what was given
         defaults, main = {}, ()
     shown += [(name, value(defaults.get(name))) for name in main if name not in stage.given]
     return shown
