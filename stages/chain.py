@@ -23,6 +23,7 @@ from .kinds import get_kind
 from .kinds.base import ProgressFn
 from .limits import MAX_REPEAT, MAX_STAGES
 from .losses import Loss, default_loss, get_loss
+from .parsing import whole_value
 from .predictor import FittedChain, FittedStage
 from .scoring import Scores
 from .spec import StageSpec
@@ -310,8 +311,7 @@ class Chain:
 
         All or nothing: when any fit fails or is cancelled, the chain is left as it was.
         """
-        if not isinstance(repeat, int) or isinstance(repeat, bool) or not 1 <= repeat <= MAX_REPEAT:
-            raise StageSpecError(f"repeat must be a whole number from 1 to {MAX_REPEAT:,}, not {repeat!r}")
+        repeat = whole_value({"repeat": repeat}, "repeat", 1, minimum=1, maximum=MAX_REPEAT)
         spec = StageSpec(kind, shrinkage, tuple(features or ()), dict(params or {}))
         return self.add_specs([spec] * repeat, cancel=cancel, progress=progress)
 

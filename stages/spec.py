@@ -22,9 +22,9 @@ class StageSpec:
         try:
             shrinkage = float(self.shrinkage)
         except (TypeError, ValueError):
-            raise StageSpecError(f"shrinkage must be a number, not {self.shrinkage!r}") from None
+            raise StageSpecError(f"shrinkage must be a number, not {self.shrinkage!r}", key="shrinkage") from None
         if not math.isfinite(shrinkage) or not 0 < shrinkage <= 1:
-            raise StageSpecError(f"shrinkage must be in (0, 1], not {self.shrinkage!r}")
+            raise StageSpecError(f"shrinkage must be in (0, 1], not {self.shrinkage!r}", key="shrinkage")
         object.__setattr__(self, "shrinkage", shrinkage)
         object.__setattr__(self, "features", tuple(self.features or ()))
         object.__setattr__(self, "params", dict(self.params or {}))
@@ -40,10 +40,8 @@ class StageSpec:
 
     @classmethod
     def from_dict(cls, data: dict[str, Any]) -> StageSpec:
-        """Return the spec described by ``data`` (keys kind, shrinkage, features, params)."""
-        unknown = sorted(set(data) - {"kind", "shrinkage", "features", "params"})
-        if unknown:
-            raise StageSpecError(f"stage has no key {unknown[0]!r} (keys: kind, shrinkage, features, params)")
-        if "kind" not in data:
-            raise StageSpecError("stage has no 'kind'")
-        return cls(data["kind"], data.get("shrinkage", 1.0), tuple(data.get("features", ())), dict(data.get("params", {})))
+        """Return the spec described by ``data`` (keys kind, shrinkage, features, params), checked
+        as ``stages.parsing.stage_spec`` checks any stage."""
+        from .parsing import stage_spec
+
+        return stage_spec(data)

@@ -47,33 +47,33 @@ class Split:
 
 def _fraction(name: str, value: Any, *, zero_ok: bool = False) -> float:
     if isinstance(value, bool) or not isinstance(value, Real) or math.isnan(float(value)):
-        raise ValidationSpecError(f"validation {name} must be a number, got {value!r}")
+        raise ValidationSpecError(f"validation {name} must be a number, got {value!r}", key=name)
     value = float(value)
     if not ((value >= 0 if zero_ok else value > 0) and value < 1):
         bounds = "[0, 1)" if zero_ok else "(0, 1)"
-        raise ValidationSpecError(f"validation {name} must be in {bounds}, got {value:g}")
+        raise ValidationSpecError(f"validation {name} must be in {bounds}, got {value:g}", key=name)
     return value
 
 
 def _integer(name: str, value: Any, minimum: int | None = None, maximum: int | None = None) -> int:
     if isinstance(value, bool) or not isinstance(value, Integral):
-        raise ValidationSpecError(f"validation {name} must be a whole number, got {value!r}")
+        raise ValidationSpecError(f"validation {name} must be a whole number, got {value!r}", key=name)
     if minimum is not None and value < minimum:
-        raise ValidationSpecError(f"validation {name} must be at least {minimum}, got {value}")
+        raise ValidationSpecError(f"validation {name} must be at least {minimum}, got {value}", key=name)
     if maximum is not None and value > maximum:
-        raise ValidationSpecError(f"validation {name} must be at most {maximum:,}, got {value:,}")
+        raise ValidationSpecError(f"validation {name} must be at most {maximum:,}, got {value:,}", key=name)
     return int(value)
 
 
 def _column_name(value: Any) -> str:
     if not isinstance(value, str) or not value:
-        raise ValidationSpecError(f"validation column must be a column name, got {value!r}")
+        raise ValidationSpecError(f"validation column must be a column name, got {value!r}", key="column")
     return value
 
 
 def _flag(value: Any) -> bool:
     if not isinstance(value, bool | np.bool_):
-        raise ValidationSpecError(f"validation stratify must be true or false, got {value!r}")
+        raise ValidationSpecError(f"validation stratify must be true or false, got {value!r}", key="stratify")
     return bool(value)
 
 
@@ -99,7 +99,7 @@ class _Scheme:
         if fraction + test >= 1:
             raise ValidationSpecError(
                 f"validation fraction {fraction:g} plus test_fraction {test:g} is "
-                f"{fraction + test:g}; together they must be below 1"
+                f"{fraction + test:g}; together they must be below 1", key="test_fraction"
             )
 
     @property
@@ -467,7 +467,7 @@ def spec_from_dict(data: dict[str, Any]) -> ValidationSpec:
     scheme = values.pop("scheme", "holdout")
     if scheme not in SCHEMES:
         raise ValidationSpecError(
-            f"unknown validation scheme {scheme!r}; accepted schemes: {', '.join(SCHEMES)}"
+            f"unknown validation scheme {scheme!r}; accepted schemes: {', '.join(SCHEMES)}", key="scheme"
         )
     cls = SCHEMES[scheme]
     known = [f.name for f in fields(cls)]
@@ -475,10 +475,10 @@ def spec_from_dict(data: dict[str, Any]) -> ValidationSpec:
     if unknown:
         raise ValidationSpecError(
             f"validation scheme {scheme!r} has no key {unknown[0]!r}; "
-            f"accepted keys: {', '.join(['scheme', *known])}"
+            f"accepted keys: {', '.join(['scheme', *known])}", key=unknown[0]
         )
     if cls in (TimeOrder, GroupHoldout) and "column" not in values:
-        raise ValidationSpecError(f"validation scheme {scheme!r} needs a 'column'")
+        raise ValidationSpecError(f"validation scheme {scheme!r} needs a 'column'", key="column")
     return cls(**values)
 
 

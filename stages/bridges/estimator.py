@@ -28,6 +28,7 @@ from sklearn.utils.validation import check_is_fitted, validate_data
 
 from ..chain import Chain
 from ..errors import RemnantError
+from ..parsing import STAGE_KEYS, stage_entry
 from ..predictor import FittedChain, class_label
 from ..report.table import fitted_rows
 from ..spec import StageSpec
@@ -40,6 +41,8 @@ DEFAULT_BOOSTER_PARAMS: dict[str, Any] = {
 }
 #: the largest seed numpy's RandomState accepts, plus one
 SEED_LIMIT = 2**32
+#: the keys of a stage given as a dict: a stage's, and how many times
+ESTIMATOR_KEYS = (*STAGE_KEYS, "repeat")
 
 
 def default_stages(first_kind: str) -> list[dict[str, Any]]:
@@ -54,7 +57,8 @@ def stage_specs(stages: Sequence[Any] | None, first_kind: str = "linear") -> lis
     """Return the StageSpec list that ``stages`` describes, with every ``repeat`` expanded.
 
     Each item is a StageSpec, a kind name, or a dict with ``kind`` and optionally
-    ``shrinkage``, ``features``, ``params`` and ``repeat``. None means ``default_stages``.
+    ``shrinkage``, ``features``, ``params`` and ``repeat``, read as a recipe's [[stage]] is
+    (StageSpecError names what is wrong). None means ``default_stages``.
     """
     items = default_stages(first_kind) if stages is None else stages
     if isinstance(items, str | Mapping | StageSpec) or not isinstance(items, Sequence):
@@ -66,11 +70,8 @@ def stage_specs(stages: Sequence[Any] | None, first_kind: str = "linear") -> lis
         elif isinstance(item, str):
             specs.append(StageSpec(item))
         elif isinstance(item, Mapping):
-            values = dict(item)
-            repeat = values.pop("repeat", 1)
-            if isinstance(repeat, bool) or not isinstance(repeat, Integral) or repeat < 1:
-                raise ValueError(f"stage repeat must be a whole number of at least 1, not {repeat!r}")
-            specs.extend([StageSpec.from_dict(values)] * int(repeat))
+            entry = stage_entry(item, keys=ESTIMATOR_KEYS, where="a stage")
+            specs.extend([entry.spec] * entry.repeat)
         else:
             raise TypeError(f"a stage must be a dict, a kind name or a StageSpec, not {type(item).__name__}")
     if not specs:

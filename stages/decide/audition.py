@@ -15,8 +15,6 @@ first candidate that is not really worse than the best.
 from __future__ import annotations
 
 import dataclasses
-import itertools
-import math
 import os
 import threading
 from concurrent.futures import ThreadPoolExecutor
@@ -26,23 +24,20 @@ from typing import TYPE_CHECKING, Any
 import numpy as np
 import pandas as pd
 
-from .. import limits, scoring
+from .. import scoring
 from ..errors import ChainStateError, FitCancelled, RemnantError, StageFitError, StageSpecError
 from ..fitting import FitContext, Stage, fit_stage
 from ..kinds import get_kind
 from ..kinds.base import ProgressFn
 from ..kinds.lightgbm_stage import BoosterKind
 from ..metrics import HIGHER_IS_BETTER
+from ..parsing import MAX_CANDIDATES, expand_grid
 from ..scoring import Scores, fold_spread
 from ..spec import StageSpec
 
 if TYPE_CHECKING:
     from ..chain import Chain
     from ..chain_state import ChainState
-
-#: more candidates than this in one audition is almost surely a typing slip in a grid
-MAX_CANDIDATES = limits.MAX_CANDIDATES
-
 
 @dataclass(frozen=True, eq=False)
 class Candidate:
@@ -90,33 +85,6 @@ class Candidate:
     def spread(self) -> float:
         """Return the standard error of the per-fold scores (NaN for fewer than two folds)."""
         return fold_spread(self.fold_scores)
-
-
-def expand_grid(spec: StageSpec | dict[str, Any]) -> list[StageSpec]:
-    """Return the specs of a candidate grid: one per combination of the list-valued params.
-
-    ``{"kind": "forest", "params": {"max_features": [0.33, 0.5, 1.0]}}`` gives three specs. A
-    list-valued ``shrinkage`` is expanded too. A parameter whose own value is a list is
-    written as a list of lists (``monotone_constraints = [[1, 0, -1]]``). An empty list
-    raises StageSpecError, as does a grid of more than MAX_CANDIDATES specs.
-    """
-    data = spec.to_dict() if isinstance(spec, StageSpec) else dict(spec)
-    params = dict(data.get("params") or {})
-    shrinkages = data.get("shrinkage", 1.0)
-    shrinkages = shrinkages if isinstance(shrinkages, list) else [shrinkages]
-    axes: list[tuple[str, list[Any]]] = [(name, v) for name, v in params.items() if isinstance(v, list)]
-    for name, values in [("shrinkage", shrinkages), *axes]:
-        if not values:
-            raise StageSpecError(f"stage {data.get('kind', '?')!r}: {name} is an empty list; give at least one value")
-    size = len(shrinkages) * math.prod(len(v) for _, v in axes)  # exact: a numpy product can overflow
-    if size > MAX_CANDIDATES:
-        raise StageSpecError(f"the grid of {data.get('kind', '?')!r} has {size:,} candidates; at most {MAX_CANDIDATES}")
-    specs = []
-    for shrinkage in shrinkages:
-        for combo in itertools.product(*(values for _, values in axes)):
-            chosen = {**params, **dict(zip([name for name, _ in axes], combo, strict=True))}
-            specs.append(StageSpec.from_dict({**data, "shrinkage": shrinkage, "params": chosen}))
-    return specs
 
 
 def audition(chain: Chain, specs: list[StageSpec | dict[str, Any]], *, cancel: threading.Event | None = None,

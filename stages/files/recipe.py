@@ -11,22 +11,25 @@ given, the ``[validation]`` seed of a scheme that draws rows is the ``[chain]`` 
 
 from __future__ import annotations
 
+import contextlib
 import difflib
 import os
 import re
 import stat
 import threading
 import tomllib
-from collections.abc import Callable
-from dataclasses import dataclass, field, fields
+from collections.abc import Callable, Iterator
+from dataclasses import dataclass, field
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
+from .. import parsing
 from ..errors import RecipeError, RemnantError, StageSpecError, ValidationSpecError
 from ..kinds.base import ProgressFn
-from ..limits import MAX_NESTING, MAX_REPEAT, MAX_SEED, MAX_STAGES
+from ..limits import MAX_NESTING, MAX_SEED, MAX_STAGES
+from ..parsing import ENTRY_KEYS, shown
 from ..spec import StageSpec
-from ..validation import SCHEMES, ValidationSpec, spec_from_dict
+from ..validation import Holdout, ValidationSpec
 from .recipe_steps import Audition, parse_auditions, replay
 from .toml_text import KeyLines, toml_key, toml_value
 
@@ -38,9 +41,7 @@ if TYPE_CHECKING:
 TABLES = ("data", "chain", "validation", "stage", "audition")
 DATA_KEYS = ("path", "target", "ignore", "features", "task", "positive")
 CHAIN_KEYS = ("loss", "seed", "threshold")
-STAGE_KEYS = ("kind", "shrinkage", "features", "params", "repeat", "patience")
 TASKS = ("regression", "binary")
-NONE_TEXT = "none"
 MAX_RECIPE_BYTES = 16 * 1024**2
 _SHOWN_TABLES = "[data], [chain], [validation], [[stage]], [[audition]]"
 
@@ -113,7 +114,7 @@ def read_recipe(path: str | os.PathLike) -> Recipe:
 
 def parse_recipe(text: str, base_dir: str | os.PathLike = ".", source: str = "recipe") -> Recipe:
     """Return the checked recipe in ``text``; ``base_dir`` is the folder data paths are relative to."""
-    probe = Recipe(None, "", SCHEMES["holdout"](), (), source=source, lines=KeyLines(text))
+    probe = Recipe(None, "", Holdout(), (), source=source, lines=KeyLines(text))
     try:
         doc = tomllib.loads(text)
     except tomllib.TOMLDecodeError as err:
@@ -128,23 +129,27 @@ def parse_recipe(text: str, base_dir: str | os.PathLike = ".", source: str = "re
     chain = reader.table(doc, "chain")
     reader.check_keys(chain, "chain", 0, CHAIN_KEYS)
     settings = reader.data_settings(data, Path(base_dir))
-    seed = reader.integer(chain, "chain", 0, "seed", 0)
+    with reader.at("chain"):
+        seed = parsing.whole_value(chain, "seed", 0)
     if not 0 <= seed <= MAX_SEED:
         raise reader.fail(f"seed must be a whole number from 0 to {MAX_SEED:,}, not {seed:,}", "chain", 0, "seed")
-    loss = reader.text(chain, "chain", 0, "loss")
-    threshold = reader.number(chain, "chain", 0, "threshold", 0.5)
+    with reader.at("chain"):
+        loss = parsing.text_value(chain, "loss")
+        threshold = parsing.number_value(chain, "threshold", 0.5)
     if not 0 < threshold < 1:
         raise reader.fail(f"threshold must be between 0 and 1, not {threshold:g}", "chain", 0, "threshold")
-    validation = reader.validation(reader.table(doc, "validation"), seed)
-    stages = reader.stages(doc, settings["task"])
-    total = sum(repeat for _, repeat in stages)
+    table = reader.table(doc, "validation")
+    with reader.at("validation"):
+        validation = parsing.validation_spec(table, seed=seed)
+    entries = reader.stages(doc, settings["task"])
+    total = sum(entry.repeat for entry in entries)
     if total > MAX_STAGES:
         raise reader.fail(f"the recipe asks for {total:,} stages; a chain holds at most {MAX_STAGES:,}", "stage")
-    patience = reader.patience(doc)
-    auditions = parse_auditions(doc.get("audition"), lambda i, key: probe.where("audition", i, key), len(stages),
+    auditions = parse_auditions(doc.get("audition"), lambda i, key: probe.where("audition", i, key), len(entries),
                                 settings["task"])
-    return Recipe(validation=validation, stages=stages, loss=loss, seed=seed, threshold=threshold,
-                  source=source, lines=probe.lines, patience=patience, auditions=auditions, **settings)
+    return Recipe(validation=validation, stages=tuple((e.spec, e.repeat) for e in entries), loss=loss, seed=seed,
+                  threshold=threshold, source=source, lines=probe.lines, auditions=auditions,
+                  patience={i: e.patience for i, e in enumerate(entries) if e.patience is not None}, **settings)
 
 
 def _syntax_message(name: str, err: tomllib.TOMLDecodeError) -> str:
@@ -154,13 +159,6 @@ def _syntax_message(name: str, err: tomllib.TOMLDecodeError) -> str:
         return f"{name}: not valid TOML ({text})"
     problem = text[: found.start()].strip()
     return f"{name} line {found.group(1)}: not valid TOML: {problem} (column {found.group(2)})"
-
-
-def _shown(value: Any) -> str:
-    try:
-        return toml_value(value)
-    except RecipeError:
-        return repr(value)
 
 
 class _Reader:
@@ -191,149 +189,55 @@ class _Reader:
             raise self.fail(f"{name} must be a table, written [{name}]", name)
         return value
 
+    @contextlib.contextmanager
+    def at(self, table: str, index: int = 0) -> Iterator[None]:
+        """Turn a mistake found inside into a RecipeError at the line of the key it names."""
+        try:
+            yield
+        except (StageSpecError, ValidationSpecError) as err:
+            raise self.fail(str(err), table, index, err.key) from None
+
     def check_keys(self, table: dict[str, Any], name: str, index: int, known: tuple[str, ...]) -> None:
-        shown = f"[[{name}]]" if name == "stage" else f"[{name}]"
-        for key in table:
-            if key not in known:
-                raise self.fail(f"unknown key {key!r} in {shown} (keys: {', '.join(known)})", name, index, key)
-
-    def text(self, table: dict[str, Any], name: str, index: int, key: str, default: Any = None) -> Any:
-        value = table.get(key, default)
-        if value is not default and not isinstance(value, str):
-            raise self.fail(f"{key} must be text in quotes, not {_shown(value)}", name, index, key)
-        return value
-
-    def names(self, table: dict[str, Any], name: str, index: int, key: str) -> tuple[str, ...] | None:
-        value = table.get(key)
-        if value is None:
-            return None
-        if not isinstance(value, list) or not all(isinstance(v, str) for v in value):
-            raise self.fail(f"{key} must be a list of column names in quotes, not {_shown(value)}", name, index, key)
-        return tuple(value)
-
-    def integer(self, table: dict[str, Any], name: str, index: int, key: str, default: int) -> int:
-        value = table.get(key, default)
-        if isinstance(value, bool) or not isinstance(value, int):
-            raise self.fail(f"{key} must be a whole number, not {_shown(value)}", name, index, key)
-        return value
-
-    def number(self, table: dict[str, Any], name: str, index: int, key: str, default: float) -> float:
-        value = table.get(key, default)
-        if isinstance(value, bool) or not isinstance(value, int | float):
-            raise self.fail(f"{key} must be a number, not {_shown(value)}", name, index, key)
-        return float(value)
+        shown_name = f"[[{name}]]" if name == "stage" else f"[{name}]"
+        with self.at(name, index):
+            parsing.check_keys(table, known, shown_name)
 
     def data_settings(self, data: dict[str, Any], base_dir: Path) -> dict[str, Any]:
-        path = self.text(data, "data", 0, "path")
-        target = self.text(data, "data", 0, "target")
+        with self.at("data"):
+            path = parsing.text_value(data, "path")
+            target = parsing.text_value(data, "target")
         if target is None:
             raise self.fail("[data] has no 'target' (the column to predict)", "data")
-        task = self.text(data, "data", 0, "task")
+        with self.at("data"):
+            task = parsing.text_value(data, "task")
         if task is not None and task not in TASKS:
             raise self.fail(f"task must be 'regression' or 'binary', not {task!r}", "data", 0, "task")
         positive = data.get("positive")
         if positive is not None and (isinstance(positive, dict | list) or not isinstance(positive, str | int | bool)):
-            raise self.fail(f"positive must be a class label, not {_shown(positive)}", "data", 0, "positive")
+            raise self.fail(f"positive must be a class label, not {shown(positive)}", "data", 0, "positive")
         if isinstance(positive, bool):
             positive = "true" if positive else "false"
+        with self.at("data"):
+            ignore = parsing.names_value(data, "ignore") or ()
+            features = parsing.names_value(data, "features")
         return {
             "data_path": None if path is None else base_dir / path,
             "target": target, "task": task,
             "positive": None if positive is None else str(positive),
-            "ignore": self.names(data, "data", 0, "ignore") or (),
-            "features": self.names(data, "data", 0, "features"),
+            "ignore": ignore, "features": features,
         }
 
-    def validation(self, table: dict[str, Any], seed: int) -> ValidationSpec:
-        values = dict(table)
-        scheme = values.get("scheme", "holdout")
-        if scheme not in SCHEMES:
-            raise self.fail(f"unknown validation scheme {_shown(scheme)} (schemes: {', '.join(SCHEMES)})",
-                            "validation", 0, "scheme")
-        known = ("scheme", *(f.name for f in fields(SCHEMES[scheme])))
-        for key in values:
-            if key not in known:
-                raise self.fail(f"unknown key {key!r} in [validation] for scheme {scheme!r} (keys: {', '.join(known)})",
-                                "validation", 0, key)
-        if "seed" in known and "seed" not in values:
-            values["seed"] = seed
-        try:
-            return spec_from_dict(values)
-        except (ValidationSpecError, TypeError) as err:
-            culprit = next((k for k in sorted(values, key=len, reverse=True) if re.search(rf"\b{k}\b", str(err))), None)
-            raise self.fail(str(err), "validation", 0, culprit) from None
-
-    def stages(self, doc: dict[str, Any], task: str | None) -> tuple[tuple[StageSpec, int], ...]:
+    def stages(self, doc: dict[str, Any], task: str | None) -> list[parsing.StageEntry]:
         entries = doc.get("stage")
         if entries is None or entries == []:
             raise self.fail("the recipe has no [[stage]] (a chain needs at least one stage)", None)
         if not isinstance(entries, list) or not all(isinstance(e, dict) for e in entries):
             raise self.fail("stages must be written [[stage]], one table per stage", "stage")
-        return tuple(self.stage(entry, i, task) for i, entry in enumerate(entries))
-
-    def stage(self, entry: dict[str, Any], i: int, task: str | None) -> tuple[StageSpec, int]:
-        self.check_keys(entry, "stage", i, STAGE_KEYS)
-        kind = self.text(entry, "stage", i, "kind")
-        if kind is None:
-            raise self.fail(f"[[stage]] number {i + 1} has no 'kind'", "stage", i)
-        from ..kinds import get_kind
-
-        try:
-            found = get_kind(kind)
-        except StageSpecError as err:
-            raise self.fail(str(err), "stage", i, "kind") from None
-        params = entry.get("params", {})
-        if not isinstance(params, dict):
-            raise self.fail(f"params must be a table such as {{ max_depth = 3 }}, not {_shown(params)}", "stage", i, "params")
-        if _depth(params) > MAX_NESTING:
-            raise self.fail(f"params are nested more than {MAX_NESTING} levels deep", "stage", i, "params")
-        try:
-            spec = StageSpec(kind, self.number(entry, "stage", i, "shrinkage", 1.0),
-                             self.names(entry, "stage", i, "features") or (), _from_toml(params))
-        except StageSpecError as err:
-            raise self.fail(str(err), "stage", i, "shrinkage") from None
-        try:
-            found.resolve_params(spec.params, task or "regression")
-        except StageSpecError as err:
-            raise self.fail(str(err), "stage", i, "params") from None
-        repeat = self.integer(entry, "stage", i, "repeat", 1)
-        if repeat < 1:
-            raise self.fail(f"repeat must be at least 1, not {repeat}", "stage", i, "repeat")
-        if repeat > MAX_REPEAT:
-            raise self.fail(f"repeat must be at most {MAX_REPEAT:,} (a documented limit), not {repeat:,}", "stage", i,
-                            "repeat")
-        return spec, repeat
-
-    def patience(self, doc: dict[str, Any]) -> dict[int, int]:
-        """Return stage entry -> patience for the entries that grow (``repeat`` with ``patience``)."""
-        found = {}
-        for i, entry in enumerate(doc.get("stage") or []):
-            if "patience" in entry:
-                value = self.integer(entry, "stage", i, "patience", 10)
-                if value < 1:
-                    raise self.fail(f"patience must be at least 1, not {value}", "stage", i, "patience")
-                found[i] = value
+        found = []
+        for i, entry in enumerate(entries):
+            with self.at("stage", i):
+                found.append(parsing.stage_entry(entry, task or "regression", keys=ENTRY_KEYS, toml=True))
         return found
-
-
-def _depth(value: Any) -> int:
-    """Return how deeply lists and tables nest in ``value`` (a plain value is 0 deep)."""
-    deepest, stack = 0, [(value, 0)]
-    while stack:
-        item, depth = stack.pop()
-        if isinstance(item, dict | list):
-            deepest = max(deepest, depth + 1)
-            stack.extend((inner, depth + 1) for inner in (item.values() if isinstance(item, dict) else item))
-    return deepest
-
-
-def _from_toml(value: Any, none: Any = NONE_TEXT, to: Any = None) -> Any:
-    """Return a params value with ``none`` replaced by ``to`` at any depth (TOML's stand-in for None)."""
-    if isinstance(value, list | tuple):
-        return [_from_toml(v, none, to) for v in value]
-    if isinstance(value, dict):
-        return {k: _from_toml(v, none, to) for k, v in value.items()}
-    return to if value is none or (isinstance(none, str) and value == none) else value
 
 
 # ----------------------------------------------------------------------------- writing
@@ -356,7 +260,7 @@ def recipe_to_toml(recipe: Recipe, base_dir: str | os.PathLike | None = None) ->
     for i, (spec, repeat) in enumerate(recipe.stages):
         entry = spec.to_dict()
         if "params" in entry:
-            entry["params"] = _from_toml(entry["params"], None, NONE_TEXT)
+            entry["params"] = parsing.to_toml(entry["params"])
         if repeat > 1:
             entry["repeat"] = repeat
         if i in recipe.patience:
@@ -368,7 +272,7 @@ def recipe_to_toml(recipe: Recipe, base_dir: str | os.PathLike | None = None) ->
         out += ["", "[[audition]]", *_pairs(settings)]
         for candidate in candidates:
             if "params" in candidate:
-                candidate["params"] = _from_toml(candidate["params"], None, NONE_TEXT)
+                candidate["params"] = parsing.to_toml(candidate["params"])
             out += ["[[audition.candidate]]", *_pairs(candidate)]
     return "\n".join(out) + "\n"
 

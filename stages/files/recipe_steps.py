@@ -24,6 +24,7 @@ from collections.abc import Callable
 from dataclasses import dataclass
 from typing import TYPE_CHECKING, Any
 
+from .. import parsing
 from ..errors import RecipeError, StageSpecError
 from ..kinds.base import ProgressFn
 from ..spec import StageSpec
@@ -33,7 +34,6 @@ if TYPE_CHECKING:
     from .recipe import Recipe
 
 AUDITION_KEYS = ("after", "choose", "candidate")
-CANDIDATE_KEYS = ("kind", "shrinkage", "features", "params")
 
 
 @dataclass(frozen=True)
@@ -49,13 +49,14 @@ class Audition:
         out: dict[str, Any] = {"choose": self.choose}
         if self.after is not None:
             out["after"] = self.after
-        out["candidate"] = [spec.to_dict() for spec in self.candidates]
+        out["candidate"] = [parsing.as_candidate(spec) for spec in self.candidates]
         return out
 
 
-def parse_auditions(entries: Any, where, n_stage_entries: int, task: str | None) -> tuple[Audition, ...]:
+def parse_auditions(entries: Any, where: Callable[[int, str | None], str], n_stage_entries: int,
+                    task: str | None) -> tuple[Audition, ...]:
     """Return the checked ``[[audition]]`` tables; ``where(i, key)`` names the recipe line for messages."""
-    from ..decide.audition import CHOICE_RULES, expand_grid
+    from ..decide.audition import CHOICE_RULES
 
     if entries is None:
         return ()
@@ -63,9 +64,10 @@ def parse_auditions(entries: Any, where, n_stage_entries: int, task: str | None)
         raise RecipeError(f"{where(0, None)}: auditions must be written [[audition]], one table each")
     found = []
     for i, entry in enumerate(entries):
-        for key in entry:
-            if key not in AUDITION_KEYS:
-                raise RecipeError(f"{where(i, key)}: unknown key {key!r} in [[audition]] (keys: {', '.join(AUDITION_KEYS)})")
+        try:
+            parsing.check_keys(entry, AUDITION_KEYS, "[[audition]]")
+        except StageSpecError as err:
+            raise RecipeError(f"{where(i, err.key)}: {err}") from None
         after = entry.get("after")
         if after is not None and (isinstance(after, bool) or not isinstance(after, int) or not 0 <= after <= n_stage_entries):
             raise RecipeError(f"{where(i, 'after')}: after must be a whole number from 0 to {n_stage_entries}, not {after!r}")
@@ -77,25 +79,13 @@ def parse_auditions(entries: Any, where, n_stage_entries: int, task: str | None)
             raise RecipeError(f"{where(i, 'candidate')}: [[audition]] needs at least one [[audition.candidate]]")
         specs: list[StageSpec] = []
         for candidate in candidates:
-            unknown = sorted(set(candidate) - set(CANDIDATE_KEYS))
-            if unknown:
-                raise RecipeError(f"{where(i, 'candidate')}: unknown key {unknown[0]!r} in [[audition.candidate]] "
-                                  f"(keys: {', '.join(CANDIDATE_KEYS)})")
             try:
-                grid = expand_grid(candidate)
-                for spec in grid:
-                    _check_spec(spec, task)
+                specs += parsing.expand_grid(candidate, task or "regression", where="[[audition.candidate]]",
+                                             toml=True)
             except StageSpecError as err:
                 raise RecipeError(f"{where(i, 'candidate')}: {err}") from None
-            specs.extend(grid)
         found.append(Audition(after, tuple(specs), choose))
     return tuple(found)
-
-
-def _check_spec(spec: StageSpec, task: str | None) -> None:
-    from ..kinds import get_kind
-
-    get_kind(spec.kind).resolve_params(spec.params, task or "regression")
 
 
 def replay(chain: Chain, recipe: Recipe, *, cancel: threading.Event | None = None,
@@ -121,7 +111,9 @@ def replay(chain: Chain, recipe: Recipe, *, cancel: threading.Event | None = Non
         for audition in recipe.auditions:
             at = len(entries) if audition.after is None else audition.after
             if at == position:
-                candidates = chain.audition(list(audition.candidates), cancel=cancel, progress=step_progress)
+                # each candidate as a table that is that one candidate (its grid is expanded already)
+                tables = [parsing.as_candidate(spec) for spec in audition.candidates]
+                candidates = chain.audition(tables, cancel=cancel, progress=step_progress)
                 chain.keep(CHOICE_RULES[audition.choose](candidates))
                 done += 1
                 if on_stage is not None:

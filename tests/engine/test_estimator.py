@@ -267,7 +267,7 @@ def test_default_stages_are_a_linear_or_logistic_stage_then_lightgbm() -> None:
     ("specs", "error", "message"),
     [
         ([{"kind": "nonsense"}], ValueError, "unknown stage kind 'nonsense'"),
-        ([{"kind": "tree", "repeat": 0}], ValueError, "repeat must be a whole number"),
+        ([{"kind": "tree", "repeat": 0}], ValueError, "repeat must be at least 1, not 0"),
         ([], ValueError, "stages is empty"),
         ("linear", TypeError, "stages must be a list"),
         ([3], TypeError, "a stage must be a dict"),

@@ -120,7 +120,7 @@ async def test_the_form_says_what_is_wrong_before_any_fit(tmp_path):
         await pilot.pause()
         form = app.screen
         assert isinstance(form, AddStageScreen)
-        assert "shrinkage must be above 0 and at most 1" in str(form.query_one("#add-error").render())
+        assert "shrinkage must be in (0, 1], not 1.5" in str(form.query_one("#add-error").render())
         await pilot.press("escape")
         await pilot.pause()
         assert app.screen.view.n_stages == 0 and not app.fitting

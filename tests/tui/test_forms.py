@@ -19,7 +19,6 @@ def engine_says(shrinkage: float) -> str:
     return str(caught.value)
 
 
-@pytest.mark.xfail(strict=True, reason="the add-stage form checks shrinkage itself, in its own words")
 async def test_the_add_stage_form_refuses_a_shrinkage_in_the_engines_words_at_its_field(tmp_path):
     app = setup_app(diabetes_csv(tmp_path))
     async with app.run_test(size=(80, 24)) as pilot:
@@ -32,7 +31,6 @@ async def test_the_add_stage_form_refuses_a_shrinkage_in_the_engines_words_at_it
         assert form.focused is form.query_one("#shrinkage")
 
 
-@pytest.mark.xfail(strict=True, reason="the grow form checks shrinkage itself, in its own words")
 async def test_the_grow_form_refuses_a_shrinkage_in_the_engines_words_at_its_field(tmp_path):
     app = setup_app(diabetes_csv(tmp_path))
     async with app.run_test(size=(80, 24)) as pilot:

@@ -1,7 +1,7 @@
 """The add-stage form: kind, shrinkage, features, the kind's main params (defaults shown) and repeat.
 
-It returns a recipe-shaped dict (``kind``, ``shrinkage``, ``features``, ``params``, ``repeat``)
-or None when cancelled. Typing mistakes are shown in the form; whether the kind takes a
+It returns the stage it describes, read by the engine's stage reader (``spec`` and ``repeat``),
+or None when cancelled. Mistakes are shown in the form, at their field; whether the kind takes a
 parameter is the engine's call, made when the stage is fit.
 """
 
@@ -14,15 +14,19 @@ from textual.app import ComposeResult
 from textual.containers import Horizontal, Vertical, VerticalScroll
 from textual.widgets import Button, Footer, Input, Label, Select, SelectionList
 
+from stages.errors import StageSpecError
 from stages.kinds import get_kind, kind_names
+from stages.parsing import STAGE_KEYS, stage_entry
 
 from ..format import parse_value, value
-from .form import FormError, FormScreen
+from .form import FormError, FormScreen, engine_error
 
 #: the option that stands for any scikit-learn regressor, named by its import path
 SKLEARN = "sklearn:"
 #: kinds that only fit one task
 ONLY_FOR = {"logistic": "binary"}
+#: the field that holds each key of a stage
+FIELDS = {"kind": "kind", "shrinkage": "shrinkage", "features": "features", "params": "more", "repeat": "repeat"}
 #: our starting shrinkage per kind: full steps for kinds fit once, smaller for trees (common practice)
 SHRINKAGE = {"tree": 0.3, "hist_tree": 0.3, "forest": 0.5, "extra_trees": 0.5, "lightgbm": 0.5, "knn": 0.5,
              "spline": 0.5}
@@ -34,7 +38,7 @@ def parse_pairs(text: str) -> dict[str, Any]:
     for chunk in filter(None, (part.strip() for part in text.split(","))):
         name, sep, raw = chunk.partition("=")
         if not sep or not name.strip():
-            raise FormError(f"more params: write name=value, not {chunk!r}")
+            raise FormError(f"more params: write name=value, not {chunk!r}", "more")
         params[name.strip()] = parse_value(raw)
     return params
 
@@ -124,7 +128,7 @@ class AddStageScreen(FormScreen):
             return self.kind
         path = self.query_one("#estimator", Input).value.strip()
         if not path:
-            raise FormError("estimator: type the import path of a regressor, e.g. sklearn.svm.SVR")
+            raise FormError("estimator: type the import path of a regressor, e.g. sklearn.svm.SVR", "estimator")
         return SKLEARN + path
 
     def _params(self, kind: str) -> dict[str, Any]:
@@ -145,20 +149,22 @@ class AddStageScreen(FormScreen):
             return int(text) if whole else float(text)
         except ValueError:
             kind = "a whole number" if whole else "a number"
-            raise FormError(f"{field} must be {kind}, not {text!r}") from None
+            raise FormError(f"{field} must be {kind}, not {text!r}", field) from None
 
     def request(self) -> dict[str, Any]:
-        """Return the stage the form describes; raise FormError naming a field that cannot be used."""
+        """Return the stage the form describes, ``spec`` and ``repeat``, read by the engine's stage
+        reader; raise FormError naming the field that cannot be used."""
         kind = self._kind_name()
         shrinkage = self._number("shrinkage", whole=False)
-        if not 0 < shrinkage <= 1:
-            raise FormError(f"shrinkage must be above 0 and at most 1, not {shrinkage:g}")
         repeat = int(self._number("repeat", whole=True))
-        if repeat < 1:
-            raise FormError(f"repeat must be at least 1, not {repeat}")
         ticked = list(self.query_one("#features", SelectionList).selected)
         if not ticked:
-            raise FormError("tick at least one feature (all ticked means every feature)")
+            raise FormError("tick at least one feature (all ticked means every feature)", "features")
         features = [] if len(ticked) == len(self.features) else [f for f in self.features if f in ticked]
-        return {"kind": kind, "shrinkage": shrinkage, "features": features, "params": self._params(kind),
-                "repeat": repeat}
+        entry = {"kind": kind, "shrinkage": shrinkage, "features": features, "params": self._params(kind),
+                 "repeat": repeat}
+        try:
+            checked = stage_entry(entry, keys=(*STAGE_KEYS, "repeat"), where="the stage")
+        except StageSpecError as err:
+            raise engine_error(err, FIELDS) from None
+        return {"spec": checked.spec, "repeat": checked.repeat}

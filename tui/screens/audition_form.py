@@ -3,7 +3,8 @@
 Each candidate is a ``[[candidate]]`` table with the keys of a recipe's ``[[stage]]`` (kind,
 shrinkage, features, params); a list is a grid, so ``max_features = [0.33, 0.5, 1.0]`` makes
 three candidates. A recipe's ``[[audition.candidate]]`` tables paste in as they are. The form
-checks the text (TOML, kinds, parameter names) and returns the candidates as dicts, or None.
+reads each table with the engine's stage reader (keys, kinds, parameter names) and returns the
+candidates as dicts, or None.
 """
 
 from __future__ import annotations
@@ -18,13 +19,11 @@ from textual.containers import Horizontal, Vertical
 from textual.screen import ModalScreen
 from textual.widgets import Button, Footer, Label, Select, TextArea
 
-from stages.decide.audition import MAX_CANDIDATES, expand_grid
-from stages.errors import RemnantError
-from stages.kinds import get_kind
+from stages.errors import StageSpecError
+from stages.parsing import MAX_CANDIDATES, expand_grid, from_toml
 
 from .form import FormError
 
-KEYS = ("kind", "shrinkage", "features", "params")
 #: ready-made candidate sets: name -> TOML text (simplest first, for the one-standard-error pick)
 READY = {
     "forests by max_features, LightGBM by num_leaves, spline": """\
@@ -94,26 +93,20 @@ def _tables(text: str) -> list[Any]:
 
 
 def parse_candidates(text: str, task: str) -> tuple[list[dict[str, Any]], int]:
-    """Return the candidate tables of ``text`` and how many candidates their grids make.
+    """Return the candidate tables of ``text`` (``"none"`` read as None, grids not yet expanded) and
+    how many candidates their grids make.
 
-    Raise FormError naming what is wrong: bad TOML, an unknown key, kind or parameter, an
-    empty list, or more than the engine's MAX_CANDIDATES candidates.
+    Each table is read by the engine's stage reader, as a recipe's ``[[audition.candidate]]`` is.
+    Raise FormError naming what is wrong: bad TOML, an unknown key, kind or parameter, an empty
+    list, or more than the engine's MAX_CANDIDATES candidates.
     """
-    tables = _tables(text)
+    tables = [from_toml(table) for table in _tables(text)]
     count = 0
     for i, table in enumerate(tables, start=1):
-        unknown = sorted(set(table) - set(KEYS))
-        if unknown:
-            raise FormError(f"candidate {i}: unknown key {unknown[0]!r} (keys: {', '.join(KEYS)})")
-        if "kind" not in table:
-            raise FormError(f"candidate {i}: give its kind, e.g. kind = \"forest\"")
         try:
-            specs = expand_grid(table)
-            for spec in specs:
-                get_kind(spec.kind).resolve_params(spec.params, task)
-        except (RemnantError, TypeError, ValueError) as err:
+            count += len(expand_grid(table, task, where="[[candidate]]"))
+        except StageSpecError as err:
             raise FormError(f"candidate {i}: {err}") from None
-        count += len(specs)
     if count > MAX_CANDIDATES:
         raise FormError(f"{count} candidates: at most {MAX_CANDIDATES} in one audition")
     return tables, count

@@ -1,4 +1,5 @@
-"""What the workbench's forms share: submit on enter or the run button, cancel on escape, one error line."""
+"""What the workbench's forms share: submit on enter or the run button, cancel on escape, one error line
+beside the field it is about."""
 
 from __future__ import annotations
 
@@ -8,9 +9,22 @@ from textual.binding import Binding
 from textual.screen import ModalScreen
 from textual.widgets import Button, Input, Label
 
+from stages.errors import RemnantError
+
 
 class FormError(ValueError):
-    """A field of a form holds something that cannot be used; the message says which."""
+    """A field of a form holds something that cannot be used; the message says which, and
+    ``field``, when given, is the id of the widget that holds it."""
+
+    def __init__(self, message: str, field: str | None = None) -> None:
+        super().__init__(message)
+        self.field = field
+
+
+def engine_error(err: RemnantError, fields: dict[str, str], prefix: str = "") -> FormError:
+    """Return the FormError for a mistake the engine found: its message, at the form's field for the
+    key it names (``fields`` maps the engine's keys to the form's widget ids)."""
+    return FormError(prefix + str(err), fields.get(err.key or ""))
 
 
 class FormScreen(ModalScreen[dict | None]):
@@ -33,6 +47,8 @@ class FormScreen(ModalScreen[dict | None]):
             request = self.request()
         except FormError as err:
             self.query_one(f"#{self.ERROR_ID}", Label).update(str(err))
+            if err.field is not None:
+                self.query_one(f"#{err.field}").focus()
             return
         self.dismiss(request)
 

@@ -1,7 +1,8 @@
 """The grow form: append stages of one kind until validation stops improving, then trim to the best.
 
-Returns ``kind``, ``shrinkage``, ``params``, ``max_stages`` and ``patience`` (None: never stop
-early), or None when cancelled.
+Returns ``spec`` (the stage to grow, read by the engine's stage reader), the form's ``kind``,
+``shrinkage`` and ``params``, ``max_stages`` and ``patience`` (None: never stop early), or None
+when cancelled.
 """
 
 from __future__ import annotations
@@ -12,15 +13,18 @@ from textual.app import ComposeResult
 from textual.containers import Horizontal, Vertical
 from textual.widgets import Button, Footer, Input, Label, Select
 
-from stages.errors import RemnantError
+from stages.errors import StageSpecError
 from stages.kinds import get_kind
+from stages.parsing import stage_spec
 
 from ..format import value
 from .add_stage import kinds_for, parse_pairs
-from .form import FormError, FormScreen
+from .form import FormError, FormScreen, engine_error
 
 #: the grow defaults: a small shrinkage (common practice for boosting) and the engine's stopping rule
 DEFAULTS = {"kind": "tree", "shrinkage": 0.1, "max_stages": 100, "patience": 10}
+#: the field that holds each key of the grown stages
+FIELDS = {"kind": "grow-kind", "shrinkage": "grow-shrinkage", "params": "grow-params"}
 EXPLAIN = ("stops once patience stages in a row bring no better validation score, then trims back to "
            "the best (u undoes the trim); cancel keeps what was grown")
 
@@ -91,27 +95,30 @@ class GrowForm(FormScreen):
             number = int(text)
         except ValueError:
             none = " or none" if allow_none else ""
-            raise FormError(f"{name} must be a whole number{none}, not {text!r}") from None
+            raise FormError(f"{name} must be a whole number{none}, not {text!r}", field) from None
         if number < 1:
-            raise FormError(f"{name} must be at least 1, not {number}")
+            raise FormError(f"{name} must be at least 1, not {number}", field)
         return number
 
     def request(self) -> dict[str, Any]:
-        """Return what to grow; raise FormError naming a field that cannot be used."""
+        """Return what to grow (``spec``, read by the engine's stage reader, and the form's values);
+        raise FormError naming the field that cannot be used."""
         kind = str(self.query_one("#grow-kind", Select).value)
         text = self.query_one("#grow-shrinkage", Input).value.strip()
         try:
             shrinkage = float(text)
         except ValueError:
-            raise FormError(f"shrinkage must be a number, not {text!r}") from None
-        if not 0 < shrinkage <= 1:
-            raise FormError(f"shrinkage must be above 0 and at most 1, not {shrinkage:g}")
+            raise FormError(f"shrinkage must be a number, not {text!r}", "grow-shrinkage") from None
         params_text = self.query_one("#grow-params", Input).value
-        params = parse_pairs(params_text)
         try:
-            get_kind(kind).resolve_params(params, self.chain_task)
-        except RemnantError as err:
-            raise FormError(str(err)) from None
-        return {"kind": kind, "shrinkage": shrinkage, "params": params, "params_text": params_text,
+            params = parse_pairs(params_text)
+        except FormError as err:
+            raise FormError(str(err), "grow-params") from None
+        try:
+            spec = stage_spec({"kind": kind, "shrinkage": shrinkage, "params": params}, self.chain_task,
+                              where="the grow")
+        except StageSpecError as err:
+            raise engine_error(err, FIELDS) from None
+        return {"spec": spec, "kind": kind, "shrinkage": shrinkage, "params": params, "params_text": params_text,
                 "max_stages": self._whole("grow-max", "max stages"),
                 "patience": self._whole("grow-patience", "patience", allow_none=True)}

@@ -10,9 +10,6 @@ from typing import Any
 
 from textual.widgets import Static
 
-from stages.errors import RemnantError
-from stages.spec import StageSpec
-
 from .. import decision_jobs
 from ..messages import AuditionDone, ReferencesFitted, StageGrown
 from ..widgets.reference_pane import ReferencePane
@@ -70,14 +67,8 @@ class NextStageActions:
             if request is None:
                 return
             self.grow_last = request
-            try:
-                spec = StageSpec.from_dict({"kind": request["kind"], "shrinkage": request["shrinkage"],
-                                            "params": request["params"]})
-            except RemnantError as err:
-                self.app.show_failure("cannot grow", str(err), "the chain is as it was")
-                return
-            self._start(decision_jobs.grow(self, self.chain, self.cache, self.view, spec, request["max_stages"],
-                                           request["patience"]))
+            self._start(decision_jobs.grow(self, self.chain, self.cache, self.view, request["spec"],
+                                           request["max_stages"], request["patience"]))
 
         self.app.push_screen(GrowForm(self.view.task, self.grow_last), asked)
 

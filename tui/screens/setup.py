@@ -7,6 +7,7 @@ session, the app offers it over this screen; resuming loads it in the worker too
 
 from __future__ import annotations
 
+import dataclasses
 from typing import Any
 
 import pandas as pd
@@ -18,31 +19,33 @@ from textual.screen import Screen
 from textual.widgets import Button, Footer, Input, Label, Select, Static
 
 from stages.data import describe_columns, infer_task
-from stages.errors import RemnantError
+from stages.errors import RemnantError, ValidationSpecError
 from stages.losses import LOSSES, default_loss
+from stages.parsing import validation_spec
 from stages.schema import DATETIME
-from stages.validation import GroupHoldout, Holdout, KFold, SplitColumn, TimeOrder
+from stages.validation import SCHEMES, ValidationSpec
 
 from ..jobs import SetupChoices, build_chain
 from ..messages import ChainReady, FitFailed, FitStarted
 from ..sessions import resume_job
 from ..view import ImportanceCache
 from ..widgets.column_roles import ColumnRoles
+from .form import FormError, engine_error
 
 CAUTION = ("caution: a chain tuned by looking at validation error needs a final check on the locked "
            "test part or on new data before anyone relies on it")
-#: scheme -> (label, the fields it uses)
-SCHEMES = {
-    "holdout": ("holdout", ("fraction", "seed", "test")),
-    "kfold": ("k-fold", ("folds", "seed", "test")),
-    "time": ("time order", ("column", "fraction", "test")),
-    "group": ("groups", ("column", "fraction", "seed", "test")),
-    "column": ("split column", ("column",)),
-}
+#: the validation schemes the form offers, by the engine's scheme name, with their labels
+LABELS = {"holdout": "holdout", "kfold": "k-fold", "time": "time order", "group": "groups", "column": "split column"}
+#: the form's field for each setting of a scheme (the engine's names; stratify is left at its default)
+FIELDS = {"fraction": "fraction", "folds": "folds", "column": "column", "test_fraction": "test", "seed": "seed",
+          "scheme": "scheme"}
+#: the settings typed as whole numbers
+WHOLE = ("folds", "seed")
 
 
-class SetupError(ValueError):
-    """A setup field holds something that cannot be used; the message says which."""
+def fields_of(scheme: str) -> tuple[str, ...]:
+    """Return the settings of the engine's validation scheme ``scheme`` that the form shows."""
+    return tuple(f.name for f in dataclasses.fields(SCHEMES[scheme]) if f.name in FIELDS)
 
 
 def losses_for(task: str) -> list[str]:
@@ -82,7 +85,7 @@ class SetupScreen(Screen):
                                                         prompt="pick a column", compact=True))
                 yield self._field("task", Label("-", id="task"))
                 yield self._field("loss", Select([], id="loss", prompt="-", compact=True))
-                yield self._field("validation", Select([(label, key) for key, (label, _) in SCHEMES.items()],
+                yield self._field("validation", Select([(label, key) for key, label in LABELS.items()],
                                                             value="holdout", allow_blank=False, id="scheme",
                                                             compact=True))
                 yield self._field("fraction", Input("0.2", id="fraction", type="number", compact=True))
@@ -138,9 +141,9 @@ class SetupScreen(Screen):
     @on(Select.Changed, "#scheme")
     def _scheme_changed(self) -> None:
         scheme = str(self.query_one("#scheme", Select).value)
-        used = SCHEMES[scheme][1]
+        used = [FIELDS[name] for name in fields_of(scheme)]
         for key in ("fraction", "folds", "column", "test", "seed"):
-            self.query_one(f"#row-{key}").display = key in used or key == "seed"
+            self.query_one(f"#row-{key}").display = key in used or key == "seed"  # seed: the chain's too
         column = self.query_one("#column", Select)
         if "column" in used and column.value is Select.NULL:
             guess = self._column_for(scheme)
@@ -170,30 +173,31 @@ class SetupScreen(Screen):
         try:
             return int(text) if whole else float(text)
         except ValueError:
-            raise SetupError(f"{field} must be {'a whole number' if whole else 'a number'}, not {text!r}") from None
+            raise FormError(f"{field} must be {'a whole number' if whole else 'a number'}, not {text!r}",
+                            field) from None
 
-    def validation(self) -> Any:
-        """Return the validation spec the form describes (the engine checks the values)."""
+    def validation(self) -> ValidationSpec:
+        """Return the validation spec the form describes, read by the engine's validation reader;
+        raise FormError at the field that cannot be used."""
         scheme = str(self.query_one("#scheme", Select).value)
-        column = self.query_one("#column", Select).value
-        if SCHEMES[scheme][1][0] == "column" and column is Select.NULL:
-            raise SetupError(f"{SCHEMES[scheme][0]} needs a column: pick one")
-        seed, test = self._number("seed", True), self._number("test", False)
-        if scheme == "holdout":
-            return Holdout(fraction=self._number("fraction", False), seed=seed, test_fraction=test)
-        if scheme == "kfold":
-            return KFold(folds=self._number("folds", True), seed=seed, test_fraction=test)
-        if scheme == "time":
-            return TimeOrder(column=str(column), fraction=self._number("fraction", False), test_fraction=test)
-        if scheme == "group":
-            return GroupHoldout(column=str(column), fraction=self._number("fraction", False), seed=seed,
-                                test_fraction=test)
-        return SplitColumn(column=str(column))
+        table: dict[str, Any] = {"scheme": scheme}
+        for name in fields_of(scheme):
+            if name == "column":
+                column = self.query_one("#column", Select).value
+                if column is Select.NULL:
+                    raise FormError(f"{LABELS[scheme]} needs a column: pick one", "column")
+                table[name] = str(column)
+            else:
+                table[name] = self._number(FIELDS[name], name in WHOLE)
+        try:
+            return validation_spec(table)
+        except ValidationSpecError as err:
+            raise engine_error(err, FIELDS) from None
 
     def choices(self) -> SetupChoices:
-        """Return what the form describes; raise SetupError or the engine's error for a bad choice."""
+        """Return what the form describes; raise FormError for a bad choice."""
         if self.target is None:
-            raise SetupError("pick the target: t on a column, or the target list")
+            raise FormError("pick the target: t on a column, or the target list", "target")
         loss = self.query_one("#loss", Select).value
         return SetupChoices(
             frame=self.frame, source=self.source, data_path=self.data_path, target=self.target,
@@ -207,7 +211,9 @@ class SetupScreen(Screen):
             return
         try:
             choices = self.choices()
-        except (SetupError, RemnantError) as err:
+        except FormError as err:
+            if err.field is not None:
+                self.query_one(f"#{err.field}").focus()
             self.app.show_failure("cannot start", str(err), "change the choice and start again")
             return
         self.app.start_job(build_chain(self, choices, self.cache))

@@ -280,14 +280,9 @@ class WorkbenchScreen(NextStageActions, Screen):
     def _stage_requested(self, request: dict | None) -> None:
         if request is None:
             return
-        self.last_kind = request["kind"]
-        repeat = request.pop("repeat")
-        try:
-            spec = StageSpec.from_dict(request)
-        except Exception as err:  # a spec the engine refuses: say why, change nothing
-            self.app.show_failure("cannot add the stage", str(err), "the chain is as it was")
-            return
-        self._start(jobs.add_stages(self, self.chain, self.cache, self.view, spec, repeat))
+        spec: StageSpec = request["spec"]
+        self.last_kind = spec.kind
+        self._start(jobs.add_stages(self, self.chain, self.cache, self.view, spec, request["repeat"]))
 
     def action_step_back(self) -> None:
         """Remove the last stage (no refit; undo brings it back)."""
