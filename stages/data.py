@@ -26,10 +26,7 @@ Task (``infer_task``)
 
 from __future__ import annotations
 
-import bz2
 import difflib
-import gzip
-import lzma
 import warnings
 from collections import Counter
 from collections.abc import Sequence
@@ -50,11 +47,6 @@ ID_MIN_ROWS = 20
 DATE_SAMPLE = 500
 DATE_SHARE = 0.95
 
-_PARQUET_SUFFIXES = (".parquet", ".pq")
-_COMPRESSION = {".gz": ("gzip", gzip.open), ".bz2": ("bz2", bz2.open), ".xz": ("xz", lzma.open)}
-_DELIMITERS = ",;\t|"
-_SNIFF_BYTES = 64 * 1024
-_MAX_HEADER_BYTES = 64 * 1024 * 1024
 _TRUE_WORDS = {"true", "yes"}
 _FALSE_WORDS = {"false", "no"}
 _POSITIVE_WORDS = ("1", "true", "yes", "y", "positive")

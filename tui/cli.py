@@ -12,11 +12,11 @@ import contextlib
 import os
 import sys
 import time
-from pathlib import Path
 from typing import IO, Any, NoReturn
 
-CAUTION = ("caution: these scores come from the data the chain was fit and validated on; before relying "
-           "on it, score data it never saw, and check for leakage and drift")
+from .caution import CAUTION
+from .demo_app import demo_folder
+
 DEFAULT_CHUNK_ROWS = 100_000
 
 
@@ -242,13 +242,6 @@ def _silence_stdout() -> None:
 # ----------------------------------------------------------------------------- helpers
 
 
-def demo_folder() -> Path:
-    """Return the folder of the built-in demo data and recipes."""
-    import tui
-
-    return Path(tui.__file__).resolve().parent.parent / "demo"
-
-
 def _same_file(a: str | os.PathLike, b: str | os.PathLike) -> bool:
     try:
         return os.path.samefile(a, b)
@@ -334,7 +327,7 @@ def print_table(table: Any, fmt: str, stream: IO[str] | None = None) -> None:
     out.flush()
 
 
-def _fit_and_print(recipe: Any, data: str | None, fmt: str) -> Any:
+def _fit_with_progress(recipe: Any, data: str | None) -> Any:
     from stages.files.recipe import fit_recipe
 
     progress = Progress(sys.stderr)
@@ -361,7 +354,7 @@ def run_fit(args: argparse.Namespace) -> int:
     recipe = read_recipe(args.recipe)
     check_out(args.out, {"recipe": args.recipe, "input data file": args.data or recipe.data_path})
     with _holding(args.out):  # a second `remnant fit` to the same --out is refused before it fits
-        chain = _fit_and_print(recipe, args.data, args.format)
+        chain = _fit_with_progress(recipe, args.data)
         store.save(chain, args.out)
     to_stdout = args.out == "-"
     print_table(chain.table(), args.format, stream=sys.stderr if to_stdout else sys.stdout)
@@ -379,7 +372,7 @@ def run_demo(args: argparse.Namespace) -> int:
         return _open_app(data_path=str(folder / "deliveries.csv"), recipe_path=str(recipe_path))
     from stages.files.recipe import read_recipe
 
-    chain = _fit_and_print(read_recipe(recipe_path), None, args.format)
+    chain = _fit_with_progress(read_recipe(recipe_path), None)
     print_table(chain.table(), args.format)
     print(CAUTION, file=sys.stderr)
     return 0

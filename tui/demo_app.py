@@ -6,10 +6,12 @@ The tests, the README screenshot script and the quick start all use ``demo_app()
 from __future__ import annotations
 
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 import tui
 
-from .app import RemnantApp, build_app
+if TYPE_CHECKING:
+    from .app import RemnantApp
 
 
 def demo_folder() -> Path:
@@ -23,5 +25,7 @@ def demo_app(*, timings: bool = True, binary: bool = False, sessions: bool = Fal
     It saves no session unless asked (``sessions``), so a screenshot never replaces the
     user's own session of the demo data; ``remnant demo`` saves one.
     """
+    from .app import build_app
+
     recipe = "deliveries_binary.toml" if binary else "deliveries.toml"
     return build_app(recipe_path=str(demo_folder() / recipe), timings=timings, sessions=sessions)

@@ -71,7 +71,7 @@ def score_change(before: ChainView | None, after: ChainView) -> str:
     return f"valid {after.metric} {number(before.rows[-1].valid)} → {number(after.rows[-1].valid)}"
 
 
-def build_chain(owner: MessagePump, choices: SetupChoices, cache: ImportanceCache) -> FitJob:
+def new_chain(owner: MessagePump, choices: SetupChoices, cache: ImportanceCache) -> FitJob:
     """Return the job that builds a chain from the setup screen's choices."""
 
     # a finished worker outlives its job (Textual keeps it in the worker thread's context), so
@@ -90,7 +90,7 @@ def build_chain(owner: MessagePump, choices: SetupChoices, cache: ImportanceCach
                   failure_note="nothing was built; change the choices and start again")
 
 
-def fit_recipe(owner: MessagePump, recipe: Any, data: str | None, cache: ImportanceCache) -> FitJob:
+def replay_recipe(owner: MessagePump, recipe: Any, data: str | None, cache: ImportanceCache) -> FitJob:
     """Return the job that builds a recipe's chain and fits its stages one at a time."""
     from stages.files.recipe import build_chain
     from stages.files.recipe_steps import replay

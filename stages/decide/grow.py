@@ -13,7 +13,7 @@ from __future__ import annotations
 import threading
 from collections.abc import Callable
 from dataclasses import dataclass
-from typing import TYPE_CHECKING, Any
+from typing import TYPE_CHECKING, Any, Literal
 
 from .. import scoring
 from ..errors import FitCancelled, StageSpecError
@@ -23,19 +23,20 @@ from ..spec import StageSpec
 if TYPE_CHECKING:
     from ..chain import Chain
 
-STOPPED = ("patience", "max_stages", "cancelled")
+#: why a grow stopped: no improvement for ``patience`` stages, ``max_stages`` grown, or the user cancelled
+Stopped = Literal["patience", "max_stages", "cancelled"]
 
 
 @dataclass(frozen=True)
 class GrowResult:
     """What a grow did: ``grown`` stages fit, ``kept`` after the trim, the chain's ``best_row``
-    (0 is the start value), why it ``stopped`` (one of STOPPED), and the validation metric
+    (0 is the start value), why it ``stopped`` (``Stopped``), and the validation metric
     after each grown stage (``curve``)."""
 
     grown: int
     kept: int
     best_row: int
-    stopped: str
+    stopped: Stopped
     curve: tuple[float, ...] = ()
 
     @property

@@ -24,6 +24,7 @@ from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
 from .. import parsing
+from ..data import TASKS
 from ..errors import RecipeError, RemnantError, StageSpecError, ValidationSpecError
 from ..kinds.base import ProgressFn
 from ..limits import MAX_NESTING, MAX_SEED, MAX_STAGES
@@ -41,7 +42,6 @@ if TYPE_CHECKING:
 TABLES = ("data", "chain", "validation", "stage", "audition")
 DATA_KEYS = ("path", "target", "ignore", "features", "task", "positive")
 CHAIN_KEYS = ("loss", "seed", "threshold")
-TASKS = ("regression", "binary")
 MAX_RECIPE_BYTES = 16 * 1024**2
 _SHOWN_TABLES = "[data], [chain], [validation], [[stage]], [[audition]]"
 

@@ -9,6 +9,8 @@ from textual.containers import VerticalScroll
 from textual.screen import ModalScreen
 from textual.widgets import Footer, Static
 
+from ..caution import CAUTION
+
 #: keys the widgets bring with them, described in our words
 MOVING = [
     ("up / down", "move through the rows of a table"),
@@ -17,8 +19,6 @@ MOVING = [
     ("enter", "open a list, press a button, or submit a form"),
 ]
 
-CAUTION = ("A chain tuned by looking at validation error needs a final check on the locked test "
-           "part or on new data before anyone relies on it.")
 
 
 def key_name(key: str) -> str:
@@ -59,7 +59,7 @@ class HelpScreen(ModalScreen[None]):
                 text.append(f"  {key:<{width}}  ", style="bold")
                 text.append(f"{what}\n")
             text.append("\n")
-        text.append(CAUTION, style="italic")
+        text.append(CAUTION[0].upper() + CAUTION[1:] + ".", style="italic")
         with VerticalScroll(id="help", classes="dialog") as box:
             box.border_title = "keys"
             box.border_subtitle = "esc closes"

@@ -8,11 +8,12 @@ from textual.containers import Container
 from textual.screen import Screen
 from textual.widgets import Footer, Static
 
+from ..caution import CAUTION_LINE
 from ..view import ChainView
 from ..widgets.chain_table import ChainTable
 from ..widgets.error_curve import ErrorCurve
 from ..widgets.stage_details import StageDetails
-from .workbench import CAUTION, title_line
+from .workbench import title_line
 
 NOTE = ("read-only: the scores are the ones stored in the file. Residuals need the data: open the "
         "data file to build on this chain.")
@@ -43,7 +44,7 @@ class InspectScreen(Screen):
             yield StageDetails(timings=self.timings, id="details", classes="pane")
         data = self.view.extra.get("data")
         where = f" · fit on {data}" if data else ""
-        yield Static(f"read-only chain file{where} · {CAUTION}", id="caution", markup=False)
+        yield Static(f"read-only chain file{where} · {CAUTION_LINE}", id="caution", markup=False)
         yield Footer(compact=True, show_command_palette=False)
 
     def on_mount(self) -> None:

@@ -25,15 +25,14 @@ from stages.parsing import validation_spec
 from stages.schema import DATETIME
 from stages.validation import SCHEMES, ValidationSpec
 
-from ..jobs import SetupChoices, build_chain
+from ..caution import CAUTION
+from ..jobs import SetupChoices, new_chain
 from ..messages import ChainReady, FitFailed, FitStarted
 from ..sessions import resume_job
 from ..view import ImportanceCache
 from ..widgets.column_roles import ColumnRoles
 from .form import FormError, engine_error
 
-CAUTION = ("caution: a chain tuned by looking at validation error needs a final check on the locked "
-           "test part or on new data before anyone relies on it")
 #: the validation schemes the form offers, by the engine's scheme name, with their labels
 LABELS = {"holdout": "holdout", "kfold": "k-fold", "time": "time order", "group": "groups", "column": "split column"}
 #: the form's field for each setting of a scheme (the engine's names; stratify is left at its default)
@@ -216,7 +215,7 @@ class SetupScreen(Screen):
                 self.query_one(f"#{err.field}").focus()
             self.app.show_failure("cannot start", str(err), "change the choice and start again")
             return
-        self.app.start_job(build_chain(self, choices, self.cache))
+        self.app.start_job(new_chain(self, choices, self.cache))
 
     def on_button_pressed(self, event: Button.Pressed) -> None:
         """Start on the start button."""

@@ -19,6 +19,7 @@ from textual.widgets import Footer, Static
 from stages.spec import StageSpec
 
 from .. import jobs
+from ..caution import CAUTION_LINE
 from ..messages import (
     ChainChanged,
     ChainFileOpened,
@@ -42,7 +43,6 @@ from .confirm import ConfirmScreen
 from .next_stage import NextStageActions
 from .save import PathPrompt, default_path
 
-CAUTION = "validate on data the chain never saw; check for leakage and drift"
 #: actions that change the chain or write files: none of them while a job runs
 CHANGES = {"add_stage", "step_back", "drop_stage", "trim", "undo", "reveal_test", "save_chain",
            "export_recipe", "open_chain", "audition", "grow"}
@@ -106,7 +106,7 @@ class WorkbenchScreen(NextStageActions, Screen):
         with Vertical(id="status"):
             yield Static("", id="result", markup=False)
             yield FitProgress(timings=self.timings, id="progress")
-            yield Static(CAUTION, id="caution", markup=False)
+            yield Static(CAUTION_LINE, id="caution", markup=False)
         yield Footer(compact=True, show_command_palette=False)
 
     def on_mount(self) -> None:
@@ -126,7 +126,7 @@ class WorkbenchScreen(NextStageActions, Screen):
 
     def _fit_recipe(self) -> None:
         self.query_one("#title", Static).update(f"fitting {self.recipe.name} …")
-        self.app.start_job(jobs.fit_recipe(self, self.recipe, self.recipe_data, self.cache))
+        self.app.start_job(jobs.replay_recipe(self, self.recipe, self.recipe_data, self.cache))
 
     # ----- the one refresh -------------------------------------------------------------
     @property
