@@ -14,6 +14,7 @@ The Python facade::
 
 from __future__ import annotations
 
+import logging
 from typing import Any
 
 from .chain import Chain
@@ -35,6 +36,10 @@ from .spec import StageSpec
 from .validation import AllRows, GroupHoldout, Holdout, KFold, SplitColumn, TimeOrder
 
 __version__ = "0.1.0"
+
+# every logger of the engine is under "remnant" (remnant.stages.<module>); the program using the
+# engine decides where the records go
+logging.getLogger("remnant").addHandler(logging.NullHandler())
 
 _LAZY = {
     "load": ("files.store", "load"),

@@ -7,6 +7,7 @@ all-or-nothing: a failed or cancelled fit leaves the chain exactly as it was.
 
 from __future__ import annotations
 
+import logging
 import os
 import threading
 from typing import Any
@@ -29,6 +30,8 @@ from .scoring import Scores
 from .spec import StageSpec
 from .tracks import build_layout
 from .validation import Holdout, ValidationSpec
+
+log = logging.getLogger(f"remnant.{__name__}")
 
 
 class Chain:
@@ -327,6 +330,7 @@ class Chain:
             new = self._fit_sequence(list(specs), self.outputs(), len(self._stages) + 1, cancel, progress)
             self._commit(new)
             self._removals.clear()
+            log.info("added %d stage(s) (%s): the chain has %d", len(new), _kinds(new), len(self._stages))
             return new
 
     def check_spec(self, spec: StageSpec) -> None:
@@ -355,6 +359,7 @@ class Chain:
             self._commit([stage])
             self._removals.clear()
             self._restore_streams(stage.rng_after)
+            log.info("kept a %s stage fit elsewhere as stage %d, no refit", stage.kind, len(self._stages))
 
     def _remember(self, action: str) -> None:
         self._removals.append(Removal(action, self._stages, tuple(self._scores)))
@@ -373,6 +378,7 @@ class Chain:
             self._truncate(len(self._stages) - 1)
             self._restore_streams(stage.rng_before)
             self._relock()
+            log.info("stepped back from stage %d (%s)", len(self._stages) + 1, stage.kind)
             return stage
 
     def drop(self, index: int, *, cancel: threading.Event | None = None, progress: ProgressFn | None = None) -> list[Stage]:
@@ -396,6 +402,7 @@ class Chain:
             self._remember("drop")
             self._truncate(index - 1)
             self._commit(refits)
+            log.info("dropped stage %d, refit the %d after it", index, len(refits))
             return refits
 
     def trim(self, row: int | None = None) -> list[Stage]:
@@ -411,6 +418,7 @@ class Chain:
             self._restore_streams(removed[0].rng_before)
             self._truncate(best)
             self._relock()
+            log.info("trimmed to stage %d: removed %d", best, len(removed))
             return removed
 
     def can_undo(self) -> bool:
@@ -430,6 +438,7 @@ class Chain:
             else:
                 self._rngs = seeded_streams(self.seed, len(self.layout.tracks))
             self._relock()
+            log.info("undid the %s: the chain has %d stages", removal.action, len(self._stages))
             return removal.action
 
     def reveal_test(self) -> list[dict[str, float]]:
@@ -442,6 +451,7 @@ class Chain:
                           for i, out in enumerate(rows)}
             self.test_revealed = True
             self.reveal_count += 1
+            log.info("revealed the locked test part (reveal %d)", self.reveal_count)
             return [self._test[i] for i in range(len(rows))]
 
     def save(self, path: str | os.PathLike) -> None:
@@ -555,6 +565,14 @@ class Chain:
             if revealed and self.layout.n_test:
                 self.reveal_test()
             self.reveal_count = int(reveals)
+
+
+def _kinds(stages: list[Stage]) -> str:
+    """Return the kinds of ``stages`` for the log: ``tree``, ``40 × tree`` or ``linear, tree``."""
+    kinds = [s.kind for s in stages]
+    if len(set(kinds)) == 1 and len(kinds) > 1:
+        return f"{len(kinds)} × {kinds[0]}"
+    return ", ".join(kinds) or "none"
 
 
 def _release_arrow_pages() -> None:

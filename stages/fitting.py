@@ -6,6 +6,7 @@ or cancelled fit leaves the chain exactly as it was.
 
 from __future__ import annotations
 
+import logging
 import threading
 import time
 from dataclasses import dataclass
@@ -21,6 +22,8 @@ from .losses import Loss
 from .schema import Schema
 from .spec import StageSpec
 from .tracks import Layout
+
+log = logging.getLogger(f"remnant.{__name__}")
 
 
 @dataclass(frozen=True, eq=False)
@@ -119,12 +122,21 @@ def fit_stage(
     except BaseException as exc:
         for rng, state in zip(ctx.rngs, before, strict=True):
             rng.set_state(state)
-        raise _explain(exc, number, spec) from None
+        explained = _explain(exc, number, spec)
+        if isinstance(explained, FitCancelled):
+            log.info("%s", explained)
+        else:  # the learner's own traceback goes to the log; the user sees one line
+            log.warning("%s", explained, exc_info=exc)
+        if explained is exc:
+            raise
+        raise explained from exc
     main = results[0]
+    seconds = time.perf_counter() - started
+    log.debug("stage %d (%s) fit on %d track(s) in %.3f s", number, spec.kind, len(results), seconds)
     return Stage(
         spec=spec, params=params, feature_index=features, learners=tuple(r.learner for r in results),
         scales=tuple(r.scale for r in results), outputs=tuple(r.output for r in results),
-        fit_seconds=time.perf_counter() - started, rng_before=before,
+        fit_seconds=seconds, rng_before=before,
         rng_after=tuple(rng.get_state() for rng in ctx.rngs), step_rule=main.rule, oob_loss=main.oob_loss,
         notes=main.notes,
     )

@@ -19,6 +19,7 @@ from textual.binding import Binding
 
 from stages.errors import DataError, RemnantError
 
+from .logs import log_to_file, logger, stop_logging
 from .screens.add_stage import AddStageScreen
 from .screens.audition_form import AuditionForm
 from .screens.audition_result import AuditionResultScreen
@@ -34,6 +35,8 @@ from .view import ChainView, ImportanceCache, view_of_chain, view_of_fitted
 from .widgets.column_roles import ColumnRoles
 from .worker import FitRunner
 
+log = logger(__name__)
+
 
 class RemnantApp(FitRunner, App):
     """The workbench: one chain, its panes, and every action by keyboard.
@@ -46,6 +49,8 @@ class RemnantApp(FitRunner, App):
     """
 
     CSS_PATH = "app.tcss"
+    #: the log file this run writes (``run`` sets it; an app built for a test or a screenshot has none)
+    log_file: Path | None = None
     TITLE = "remnant"
     ENABLE_COMMAND_PALETTE = False
     BINDINGS = [
@@ -130,9 +135,9 @@ class RemnantApp(FitRunner, App):
         ]
 
     def action_help(self) -> None:
-        """Show every key."""
+        """Show every key, and where the log is written."""
         if not isinstance(self.screen, HelpScreen):
-            self.push_screen(HelpScreen(self.help_sections()))
+            self.push_screen(HelpScreen(self.help_sections(), self.log_file))
 
     async def action_quit(self) -> None:
         """Cancel a running fit, then leave."""
@@ -187,5 +192,12 @@ def run(data_path: str | None = None, target: str | None = None, recipe_path: st
     except RemnantError as err:
         print(f"error: {err}", file=sys.stderr)
         return 2
-    app.run()
+    handler = log_to_file()
+    app.log_file = None if handler is None else Path(handler.baseFilename)
+    log.info("workbench started on %s", chain_path or recipe_path or data_path)
+    try:
+        app.run()
+    finally:
+        log.info("workbench closed")
+        stop_logging(handler)
     return int(app.return_code or 0)

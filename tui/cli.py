@@ -18,6 +18,8 @@ from .caution import CAUTION
 from .demo_app import demo_folder
 
 DEFAULT_CHUNK_ROWS = 100_000
+VERBOSE = ("log what the engine does to standard error (the workbench always writes a log file, named "
+           "on its help screen)")
 
 
 class UsageError(Exception):
@@ -118,9 +120,12 @@ def build_parser() -> argparse.ArgumentParser:
                      "fit to what the chain so far gets wrong.",
                      epilog="Run 'remnant COMMAND --help' for the options of a command.")
     parser.add_argument("--version", action=_Version, help="print the version and exit")
+    parser.add_argument("-v", "--verbose", action="store_true", help=VERBOSE)
     commands = parser.add_subparsers(dest="command", metavar="COMMAND", required=True, parser_class=_Parser)
     _add_workbench_commands(commands)
     _add_headless_commands(commands)
+    for command in commands.choices.values():  # also after the command; given there, it overrides nothing
+        command.add_argument("-v", "--verbose", action="store_true", default=argparse.SUPPRESS, help=VERBOSE)
     return parser
 
 
@@ -207,11 +212,15 @@ def _run(args: argparse.Namespace) -> int:
             shown.add(line)
             print(f"warning: {line}", file=sys.stderr)
 
+    from .logs import log_to_stderr, stop_logging
+
+    handler = log_to_stderr() if args.verbose else None
     try:
         with warnings.catch_warnings():
             warnings.showwarning = show_warning
             return args.run(args)
     except (RemnantError, Cancelled, UsageError) as err:
+        _log().debug("%s", err, exc_info=err)  # with --verbose: the cause, for a damaged file and the like
         return _fail(str(err))
     except BrokenPipeError:  # the reader of standard output went away (e.g. `| head`)
         _silence_stdout()
@@ -222,6 +231,14 @@ def _run(args: argparse.Namespace) -> int:
     except KeyboardInterrupt:
         _fail("interrupted; nothing was written")
         return 130
+    finally:
+        stop_logging(handler)
+
+
+def _log() -> Any:
+    from .logs import logger
+
+    return logger(__name__)
 
 
 def _fail(message: str) -> int:

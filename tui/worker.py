@@ -13,6 +13,7 @@ the chain in memory is untouched.
 
 from __future__ import annotations
 
+import logging
 import threading
 from collections.abc import Callable
 from dataclasses import dataclass
@@ -26,7 +27,10 @@ from textual.worker import Worker, WorkerState
 from stages.errors import Cancelled, FitCancelled, RemnantError
 from stages.files import session as sessions
 
+from .logs import logger
 from .messages import FitFailed, FitProgressed, FitStarted
+
+log = logger(__name__)
 
 SESSION_NOTE = ("the chain in memory is as the action left it; s saves it as a chain file. "
                 "The previous session file is intact.")
@@ -92,6 +96,7 @@ class FitRunner:
             return False
         self._job = job
         self._cancel = threading.Event()
+        log.info("%s", job.label)
         job.owner.post_message(FitStarted(job.label, job.cancellable))
         self._run_job(job, self._cancel)
         return True
@@ -118,6 +123,7 @@ class FitRunner:
         try:
             sessions.save_session(chain)
         except Exception as err:  # a save must never undo the action it follows
+            log.warning("the session was not saved: %s", one_line(err), exc_info=err)
             return one_line(err)
         return ""
 
@@ -139,14 +145,19 @@ class FitRunner:
         if job is None:
             return
         if event.state == WorkerState.SUCCESS:
+            log.info("%s: done", job.label)
             job.owner.post_message(event.worker.result)
             return
         error = event.worker.error
         if event.state == WorkerState.CANCELLED or isinstance(error, FitCancelled):
             reason = one_line(error) if isinstance(error, FitCancelled) else "cancelled"
+            log.info("%s: %s", job.label, reason)
             job.owner.post_message(FitFailed(job.label, reason, cancelled=True))
             return
         reason = one_line(error) if error is not None else "stopped"
+        # a mistake the user can fix is a warning; anything else is a fault, its traceback kept here
+        level = logging.WARNING if isinstance(error, RemnantError) else logging.ERROR
+        log.log(level, "%s failed: %s", job.label, reason, exc_info=error)
         job.owner.post_message(FitFailed(job.label, reason, cancelled=False))
         self.show_failure(f"{job.label} failed", reason, job.failure_note)
 

@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+from pathlib import Path
+
 from rich.text import Text
 from textual.app import ComposeResult
 from textual.binding import Binding, BindingType
@@ -45,9 +47,10 @@ class HelpScreen(ModalScreen[None]):
         Binding("escape,q,question_mark", "close", "close"),
     ]
 
-    def __init__(self, sections: list[tuple[str, list[tuple[str, str]]]]) -> None:
+    def __init__(self, sections: list[tuple[str, list[tuple[str, str]]]], log_file: Path | None = None) -> None:
         super().__init__()
         self.sections = sections
+        self.log_file = log_file
 
     def compose(self) -> ComposeResult:
         """Return the scrolling list of keys."""
@@ -60,6 +63,8 @@ class HelpScreen(ModalScreen[None]):
                 text.append(f"{what}\n")
             text.append("\n")
         text.append(CAUTION[0].upper() + CAUTION[1:] + ".", style="italic")
+        if self.log_file is not None:
+            text.append(f"\n\nlog file (what each action did, and the cause of any failure): {self.log_file}")
         with VerticalScroll(id="help", classes="dialog") as box:
             box.border_title = "keys"
             box.border_subtitle = "esc closes"
