@@ -10,13 +10,14 @@ from __future__ import annotations
 import logging
 import os
 import threading
+from collections.abc import Mapping, Sequence
 from typing import Any
 
 import numpy as np
 import pandas as pd
 
 from . import scoring
-from .chain_state import ChainState, Removal, StreamState, same_stream, seeded_streams
+from .chain_state import ChainState, Removal, StreamState, same_stream, seeded_streams, stream_state
 from .data import Prepared, load_frame, prepare
 from .errors import ChainStateError, RemnantError, StageSpecError
 from .fitting import FitContext, Stage, fit_stage
@@ -29,7 +30,7 @@ from .predictor import FittedChain, FittedStage
 from .scoring import Scores
 from .spec import StageSpec
 from .tracks import build_layout
-from .validation import Holdout, ValidationSpec
+from .validation import Holdout, TimeOrder, ValidationSpec
 
 log = logging.getLogger(f"remnant.{__name__}")
 
@@ -78,7 +79,7 @@ class Chain:
     ) -> None:
         self.validation = validation if validation is not None else Holdout()
         ignore = tuple(ignore) + tuple(c for c in self.validation.columns_used if c not in ignore)
-        if self.validation.scheme == "time":
+        if isinstance(self.validation, TimeOrder):
             ignore = tuple(c for c in ignore if c != self.validation.column)
         self.prepared: Prepared = prepare(frame, target, ignore=ignore, features=features, task=task,
                                           positive=positive, source=source, encode=False)
@@ -156,7 +157,7 @@ class Chain:
         with self._lock:
             return ChainState(
                 stages=self._stages, outputs=self.outputs(), scores=self.scores()[-1],
-                streams=tuple(rng.get_state() for rng in self._rngs), removals=tuple(self._removals),
+                streams=tuple(stream_state(rng) for rng in self._rngs), removals=tuple(self._removals),
                 test_revealed=self.test_revealed, reveal_count=self.reveal_count,
             )
 
@@ -353,7 +354,7 @@ class Chain:
         """
         with self._lock:
             same = (len(self._stages) == len(after) and all(a is b for a, b in zip(self._stages, after, strict=True))
-                    and all(same_stream(r.get_state(), s) for r, s in zip(self._rngs, stage.rng_before, strict=True)))
+                    and all(same_stream(stream_state(r), s) for r, s in zip(self._rngs, stage.rng_before, strict=True)))
             if not same:
                 raise ChainStateError("the chain changed since this stage was fit")
             self._commit([stage])
@@ -467,7 +468,7 @@ class Chain:
         return chain_to_recipe(self)
 
     # ----- deciding the next stage: stages.decide.audition, stages.decide.grow, stages.decide.references ---------
-    def audition(self, specs: list[StageSpec | dict[str, Any]], *, cancel: threading.Event | None = None,
+    def audition(self, specs: Sequence[StageSpec | Mapping[str, Any]], *, cancel: threading.Event | None = None,
                  progress: ProgressFn | None = None, workers: int = 2) -> list[Any]:
         """Return a stages.decide.audition.Candidate per spec (grids expanded), fit side by side; the chain is unchanged."""
         from .decide.audition import audition

@@ -60,6 +60,11 @@ def seeded_streams(seed: int, n_tracks: int) -> list[np.random.RandomState]:
     return [np.random.RandomState(seed)] + [np.random.RandomState([seed, t]) for t in range(1, n_tracks)]
 
 
+def stream_state(rng: np.random.RandomState) -> StreamState:
+    """Return the state of one random stream, as ``get_state()`` gives it (a tuple)."""
+    return tuple(rng.get_state(legacy=True))
+
+
 def same_stream(a: StreamState, b: StreamState) -> bool:
     """Return True when two random-stream states are the same state."""
     return a[0] == b[0] and np.array_equal(a[1], b[1]) and tuple(a[2:]) == tuple(b[2:])

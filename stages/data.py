@@ -282,8 +282,9 @@ def prepare(
         task = infer_task(values, source=source, target=target)
     if task not in TASKS:
         raise DataError(f"{source}: unknown task {task!r} (use 'regression' or 'binary')")
+    classes: tuple[str, ...] = ()
     if task == "regression":
-        y, classes = _regression_target(values, rows, target, source), ()
+        y = _regression_target(values, rows, target, source)
     else:
         y, classes = _binary_target(values, target, positive, source, notes)
     columns = _feature_columns(kept, target, set(ignore), features, source, notes)

@@ -22,7 +22,7 @@ what it learnt (see the kinds).
 from __future__ import annotations
 
 from dataclasses import asdict, dataclass, field, replace
-from typing import Any
+from typing import Any, Literal
 
 import numpy as np
 import pandas as pd
@@ -121,7 +121,7 @@ class Schema:
         """Return the column infos at ``indices``."""
         return tuple(self.columns[i] for i in indices)
 
-    def encode(self, frame: pd.DataFrame, *, source: str = "data", order: str = "C",
+    def encode(self, frame: pd.DataFrame, *, source: str = "data", order: Literal["C", "F"] = "C",
                rows: np.ndarray | None = None) -> tuple[np.ndarray, dict[str, int]]:
         """Return the float64 feature matrix of ``frame`` and the count of unseen levels per column.
 

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 from dataclasses import dataclass, field
+from typing import Any
 
 import numpy as np
 
@@ -22,7 +23,7 @@ class Scores:
 
     def to_dict(self) -> dict:
         """Return a JSON-ready dict of the scores."""
-        out = {"train": self.train, "valid": self.valid}
+        out: dict[str, Any] = {"train": self.train, "valid": self.valid}
         if self.fold_valid:
             out["fold_valid"] = list(self.fold_valid)
         if self.test:
@@ -99,7 +100,7 @@ def best_row(metric: str, scores: list[Scores]) -> int:
     return best
 
 
-def histogram(values: list[np.ndarray], bins: int | str = "auto", max_bins: int = 60) -> tuple[list[np.ndarray], np.ndarray]:
+def histogram(values: list[np.ndarray], bins: int | str | np.ndarray = "auto", max_bins: int = 60) -> tuple[list[np.ndarray], np.ndarray]:
     """Return counts per array over shared bin edges (numpy's bin rule on all values, at most ``max_bins``)."""
     finite = [v[np.isfinite(v)] for v in values]
     pooled = np.concatenate(finite) if finite else np.array([0.0])

@@ -423,7 +423,8 @@ class SplitColumn(_Scheme):
         for part in ("train", "valid"):
             if not len(parts[part]):
                 raise ValidationSpecError(f"split column {self.column!r} has no {part} rows")
-        return Split(**{k: v.astype(np.int64) for k, v in parts.items()})
+        return Split(train=parts["train"].astype(np.int64), valid=parts["valid"].astype(np.int64),
+                     test=parts["test"].astype(np.int64))
 
 
 @dataclass(frozen=True)

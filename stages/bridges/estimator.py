@@ -86,9 +86,10 @@ def resolve_seed(random_state: Any) -> int:
     scikit-learn; a ``RandomState`` is drawn from, so it advances.
     """
     if isinstance(random_state, Integral) and not isinstance(random_state, bool):
-        if not 0 <= random_state < SEED_LIMIT:
-            raise ValueError(f"random_state must be between 0 and 2**32 - 1, not {random_state}")
-        return int(random_state)
+        seed = int(random_state)
+        if not 0 <= seed < SEED_LIMIT:
+            raise ValueError(f"random_state must be between 0 and 2**32 - 1, not {seed}")
+        return seed
     return int(check_random_state(random_state).randint(np.iinfo(np.int32).max))
 
 

@@ -17,6 +17,7 @@ from __future__ import annotations
 import dataclasses
 import os
 import threading
+from collections.abc import Mapping, Sequence
 from concurrent.futures import ThreadPoolExecutor
 from dataclasses import dataclass, field
 from typing import TYPE_CHECKING, Any
@@ -87,7 +88,7 @@ class Candidate:
         return fold_spread(self.fold_scores)
 
 
-def audition(chain: Chain, specs: list[StageSpec | dict[str, Any]], *, cancel: threading.Event | None = None,
+def audition(chain: Chain, specs: Sequence[StageSpec | Mapping[str, Any]], *, cancel: threading.Event | None = None,
              progress: ProgressFn | None = None, workers: int = 2) -> list[Candidate]:
     """Return one Candidate per spec (grids expanded), each fit on the chain's current residuals.
 
@@ -293,13 +294,14 @@ class _Progress:
 
     def part(self, i: int, kind: str) -> ProgressFn | None:
         """Return the progress function of candidate ``i`` (None when nobody listens)."""
-        if self.progress is None:
+        progress = self.progress
+        if progress is None:
             return None
 
         def report(fraction: float, message: str = "") -> None:
             with self.lock:
                 self.done[i] = min(max(fraction, 0.0), 1.0)
                 overall = sum(self.done) / len(self.done)
-                self.progress(overall, f"candidate {i + 1} of {len(self.done)} ({kind}): {message}")
+                progress(overall, f"candidate {i + 1} of {len(self.done)} ({kind}): {message}")
 
         return report

@@ -74,7 +74,8 @@ def grow_spec(chain: Chain, spec: StageSpec, *, max_stages: int = 100, patience:
     metric = chain.metric
     start = len(chain)
     best_row, best = start, chain.scores()[-1].valid[metric]
-    since, stopped, curve = 0, "max_stages", []
+    stopped: Stopped = "max_stages"
+    since, curve = 0, []
     for i in range(max_stages):
         try:
             if cancel is not None and cancel.is_set():

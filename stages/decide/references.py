@@ -21,6 +21,7 @@ from ..chain_state import seeded_streams
 from ..errors import FitCancelled, StageFitError
 from ..fitting import FitContext, fit_stage
 from ..kinds.base import ProgressFn
+from ..losses import HuberLoss
 from ..scoring import fold_spread
 from ..spec import StageSpec
 
@@ -78,7 +79,7 @@ def lightgbm_defaults(chain: Chain, user: dict[str, Any] | None = None) -> dict[
     quiet and deterministic (which change no model setting), overlaid with ``user``."""
     params: dict[str, Any] = {"objective": chain.loss.lightgbm_objective, "seed": chain.seed,
                               "verbosity": -1, "deterministic": True, "force_row_wise": True}
-    if params["objective"] == "huber":
+    if isinstance(chain.loss, HuberLoss):  # LightGBM's huber objective: its alpha is our delta
         fit = chain.layout.train
         params["alpha"] = chain.loss.delta(chain.y[fit], chain.outputs(0)[0][fit])
     params.update(user or {})
@@ -150,7 +151,8 @@ class _Fitter:
         # early stopping may end a fit before its last round: the bar moves by rounds of the cap
         within = (env.iteration + 1) / env.end_iteration
         fit = f"fit {self.done + 1} of {self.fits}, " if self.fits > 1 else ""
-        self.progress((self.done + within) / self.fits, f"LightGBM reference: {fit}round {env.iteration + 1}")
+        if self.progress is not None:  # the callback is only added with a progress function
+            self.progress((self.done + within) / self.fits, f"LightGBM reference: {fit}round {env.iteration + 1}")
 
     def predict(self, booster: Any, rows: Any) -> np.ndarray:
         """Return the booster's raw score at its best iteration on ``rows`` of the chain's matrix."""

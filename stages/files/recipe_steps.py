@@ -124,7 +124,7 @@ def replay(chain: Chain, recipe: Recipe, *, cancel: threading.Event | None = Non
         patience = recipe.patience.get(i)
         if patience is None and on_stage is None:
             chain.add_specs([spec] * repeat, cancel=cancel, progress=step_progress)
-        elif patience is None:
+        elif patience is None and on_stage is not None:
             for _ in range(repeat):
                 chain.add_specs([spec], cancel=cancel, progress=step_progress)
                 on_stage(chain)

@@ -74,6 +74,10 @@ HOME_VARIABLE = "REMNANT_HOME"
 MAX_MANIFEST_BYTES = 512 * 1024**2
 
 
+#: what settings that do not fit the data, or a damaged manifest, raise while a session is read
+_NOT_APPLICABLE: tuple[type[BaseException], ...] = (RemnantError, *DAMAGED_FILE_ERRORS)
+
+
 # ----------------------------------------------------------------------------- where
 def sessions_folder() -> Path:
     """Return the folder holding session files: ``$REMNANT_HOME/sessions`` or the user data folder's."""
@@ -308,7 +312,7 @@ def _rebuild(manifest: dict[str, Any], source: Any, name: str) -> Chain:
         chain = Chain(frame, target, data_path=data_path, **settings)
         if chain.schema.to_dict() != columns["schema"]:
             chain = Chain(frame, target, features=features, data_path=data_path, **settings)
-    except (RemnantError, *DAMAGED_FILE_ERRORS) as exc:  # settings that do not fit this data: a damaged
+    except _NOT_APPLICABLE as exc:  # settings that do not fit this data: a damaged
         reason = " ".join(str(exc).split()) or type(exc).__name__  # session or changed data
         raise SessionError(f"{name}: the session's settings do not apply to {data_name} ({reason})") from exc
     return chain
@@ -344,7 +348,7 @@ def _damaged(name: str):
         yield
     except SessionError:
         raise
-    except (RemnantError, *DAMAGED_FILE_ERRORS) as exc:
+    except _NOT_APPLICABLE as exc:
         reason = " ".join(str(exc).split()) or type(exc).__name__
         raise SessionError(f"{name}: session file is damaged ({type(exc).__name__}: {reason})") from exc
 

@@ -14,13 +14,14 @@ from __future__ import annotations
 
 import os
 import sys
+from typing import Any
 
 from ..chain import Chain
 from ..errors import RemnantError
 from .session import load_session, save_session
 
 #: the kinds fit in turn, with small parameters so that each fit takes milliseconds
-CYCLE = (
+CYCLE: tuple[tuple[str, float, dict[str, Any]], ...] = (
     ("linear", 1.0, {}),
     ("tree", 0.5, {"max_depth": 2}),
     ("knn", 0.3, {"n_neighbors": 7}),

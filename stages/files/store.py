@@ -83,6 +83,8 @@ def save(chain: Chain | FittedChain, path: str | os.PathLike) -> None:
     """
     from ..chain import Chain as LiveChain  # at call time: the chain module imports this one lazily
 
+    probe: np.ndarray | None
+    fingerprint: dict[str, Any] | None
     if isinstance(chain, LiveChain):
         fitted = chain.fitted()
         probe = np.array(chain.matrix[: min(PROBE_ROWS, chain.layout.n_train)], dtype=np.float64)

@@ -77,7 +77,7 @@ class KeyLines:
         self.headers: dict[tuple[str, int], int] = {}
         self.keys: dict[tuple[str | None, int, str], int] = {}
         table: str | None = None
-        index, counts = 0, {}
+        index, counts = 0, dict[str, int]()
         for number, line in enumerate(text.splitlines(), 1):
             header = _HEADER.match(line)
             if header:

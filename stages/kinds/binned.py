@@ -24,7 +24,7 @@ BIN_SEED = 1
 #: how many binned blocks are kept at most (a k-fold chain has k + 1 blocks)
 MAX_ENTRIES = 8
 
-_ENTRIES: OrderedDict[tuple, BinnedData] = OrderedDict()
+_ENTRIES: OrderedDict[tuple, _Entry] = OrderedDict()
 _LOCK = threading.Lock()
 
 

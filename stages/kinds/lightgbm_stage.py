@@ -169,8 +169,9 @@ def train_booster(request: FitRequest, params: dict[str, Any], kind: str, *, reu
     native = booster_params(request, params, seed)
     rounds = int(native.pop("num_boost_round", 100))
     categorical = [i for i, col in enumerate(request.columns) if col.is_categorical]
-    stopping = params.get("early_stopping_rounds")
-    fit_rows, held_out = slice(None), None
+    stopping: int | None = params.get("early_stopping_rounds")
+    fit_rows: Any = slice(None)
+    held_out: np.ndarray | None = None
     if stopping is not None:
         fit_rows, held_out = early_stopping_split(len(request.y), params.get("validation_fraction", 0.1), request.random_state)
 
@@ -193,7 +194,7 @@ def train_booster(request: FitRequest, params: dict[str, Any], kind: str, *, reu
             if request.in_bag is not None:  # the drawn rows, binned as every stage bins them
                 train_set = train_set.subset(np.flatnonzero(request.in_bag))
         valid_sets = []
-        if held_out is not None:
+        if held_out is not None and stopping is not None:  # a held-out part only with early stopping
             valid_sets.append(dataset(held_out, reference=train_set))
             callbacks.append(lightgbm.early_stopping(stopping, first_metric_only=True, verbose=False))
         if request.progress is not None:

@@ -71,7 +71,7 @@ class LinearModel:
 BLOCK_ROWS = 16_384
 
 
-def blocked_least_squares(design: Design, X: np.ndarray, target: np.ndarray,
+def blocked_least_squares(design: LinearDesign, X: np.ndarray, target: np.ndarray,
                           fit_intercept: bool = True) -> tuple[np.ndarray, float]:
     """Return the least-squares coefficients and intercept of ``target`` on ``design.transform(X)``.
 

@@ -81,7 +81,7 @@ class SklearnKind(StageKind):
         self.cls = cls
         self.name = f"{SKLEARN_PREFIX}{path}"  # type: ignore[misc]  # one kind instance per path
         shallow = cls().get_params(deep=False)
-        order = [p for p in inspect.signature(cls.__init__).parameters if p in shallow]
+        order = [p for p in inspect.signature(cls).parameters if p in shallow]
         # defaults the form can show; random_state is left out so an unset one comes from the stream
         self.defaults = {  # type: ignore[misc]
             k: shallow[k] for k in order if k != "random_state" and isinstance(shallow[k], _SCALARS)

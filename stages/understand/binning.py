@@ -92,10 +92,10 @@ def bins_of(column: ColumnInfo, fit_values: np.ndarray, max_bins: int = 20) -> B
     inner = np.unique(cuts)
     inner = inner[inner > finite.min()]  # a cut at the smallest value would leave the first bin empty
     low, high = np.r_[-np.inf, inner], np.r_[inner, np.inf]
-    labels = [f"below {_number(inner[0])}"]
-    labels += [f"{_number(a)} to {_number(b)}" for a, b in zip(inner[:-1], inner[1:], strict=True)]
-    labels.append(f"{_number(inner[-1])} and above")
-    return Bins(column.name, column.role, inner, (*labels, MISSING), np.r_[low, np.nan], np.r_[high, np.nan])
+    texts = [f"below {_number(inner[0])}"]
+    texts += [f"{_number(a)} to {_number(b)}" for a, b in zip(inner[:-1], inner[1:], strict=True)]
+    texts.append(f"{_number(inner[-1])} and above")
+    return Bins(column.name, column.role, inner, (*texts, MISSING), np.r_[low, np.nan], np.r_[high, np.nan])
 
 
 def _level_bins(name: str, role: str, levels: tuple[str, ...]) -> Bins:

@@ -53,5 +53,5 @@ def _copy(answer: T) -> T:
     if isinstance(answer, pd.DataFrame):
         copied = answer.copy()
         copied.attrs = dict(answer.attrs)
-        return copied  # type: ignore[return-value]
+        return copied
     return answer

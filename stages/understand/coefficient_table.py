@@ -118,16 +118,17 @@ def _check_kind(kind: str, k: int) -> None:
                              "and logistic stages")
 
 
-def _frame(terms: Terms, values: np.ndarray, errors: np.ndarray | None, note: str,
-           quantile: float | None = None) -> pd.DataFrame:
+def _frame(terms: Terms, values: np.ndarray, errors: tuple[np.ndarray, float] | None, note: str) -> pd.DataFrame:
+    """Return the coefficient table; ``errors`` holds the standard errors and the quantile of the
+    95 % interval, or is None when the stage has none."""
     table = pd.DataFrame({"term": terms.names, "feature": terms.features, "coefficient": values,
                           "std_error": np.nan, "ci_low": np.nan, "ci_high": np.nan,
                           "reference": terms.references})
     if errors is not None:
-        errors, quantile = errors
-        table["std_error"] = errors
-        table["ci_low"] = values - quantile * errors
-        table["ci_high"] = values + quantile * errors
+        std, quantile = errors
+        table["std_error"] = std
+        table["ci_low"] = values - quantile * std
+        table["ci_high"] = values + quantile * std
     table.attrs["note"] = note
     return table[COLUMNS]
 

@@ -244,7 +244,7 @@ class ScoredBins:
     @classmethod
     def of(cls, codes: np.ndarray, residual: np.ndarray, n_bins: int) -> ScoredBins:
         """Return the per-bin power sums of the scored residuals."""
-        powers = [np.bincount(codes, minlength=n_bins).astype(np.float64)]
+        powers: list[np.ndarray] = [np.bincount(codes, minlength=n_bins).astype(np.float64)]
         term = np.ones_like(residual)
         for _ in range(4):
             term = term * residual
