@@ -18,7 +18,7 @@ import pandas as pd
 
 from . import scoring
 from .chain_state import ChainState, Removal, StreamState, same_stream, seeded_streams, stream_state
-from .data import Prepared, load_frame, prepare
+from .data import Prepared, Task, load_frame, prepare
 from .errors import ChainStateError, RemnantError, StageSpecError
 from .fitting import FitContext, Stage, fit_stage
 from .kinds import get_kind
@@ -30,7 +30,7 @@ from .predictor import FittedChain, FittedStage
 from .scoring import Scores
 from .spec import StageSpec
 from .tracks import build_layout
-from .validation import Holdout, TimeOrder, ValidationSpec
+from .validation import Holdout, Part, TimeOrder, ValidationSpec
 
 log = logging.getLogger(f"remnant.{__name__}")
 
@@ -129,7 +129,7 @@ class Chain:
 
     # ----- reading ----------------------------------------------------------------------
     @property
-    def task(self) -> str:
+    def task(self) -> Task:
         """Return "regression" or "binary"."""
         return self.schema.task
 
@@ -188,7 +188,7 @@ class Chain:
         with self._lock:  # the stages and their scores read together
             return stage_table(self)
 
-    def residuals(self, part: str = "valid", row: int | None = None) -> np.ndarray:
+    def residuals(self, part: Part = "valid", row: int | None = None) -> np.ndarray:
         """Return target minus prediction (y - p for binary) on ``part`` after row ``row``."""
         outputs = self.outputs(row)
         layout = self.layout
@@ -204,7 +204,7 @@ class Chain:
             raise StageSpecError(f"unknown part {part!r} (train, valid or test)")
         return self.loss.display_residual(y, raw)
 
-    def fitted_values(self, part: str = "valid", row: int | None = None) -> np.ndarray:
+    def fitted_values(self, part: Part = "valid", row: int | None = None) -> np.ndarray:
         """Return the predictions (probabilities for binary) on ``part`` after row ``row``."""
         outputs = self.outputs(row)
         if part == "train":
@@ -215,7 +215,7 @@ class Chain:
             raise StageSpecError(f"unknown part {part!r} (train or valid)")
         return self.loss.link(raw)
 
-    def part_targets(self, part: str) -> np.ndarray:
+    def part_targets(self, part: Part) -> np.ndarray:
         """Return the targets of ``part`` in the order residuals and fitted values use."""
         if part == "train":
             return self.y[self.layout.train]
@@ -225,7 +225,7 @@ class Chain:
             return self.y[self.layout.test]
         raise StageSpecError(f"unknown part {part!r} (train, valid or test)")
 
-    def histogram(self, row: int | None = None, parts: tuple[str, ...] = ("train", "valid"),
+    def histogram(self, row: int | None = None, parts: tuple[Part, ...] = ("train", "valid"),
                   bins: int | str = "auto", max_bins: int = 60) -> tuple[dict[str, np.ndarray], np.ndarray]:
         """Return residual counts per part over shared bin edges, and the edges."""
         values = [self.residuals(p, row) for p in parts]
@@ -495,14 +495,14 @@ class Chain:
         return reference_scores(self, **options)
 
     # ----- understanding the chain: stages.understand ---------------------------------------
-    def residual_scan(self, upto: int | None = None, part: str = "valid", **options: Any) -> pd.DataFrame:
+    def residual_scan(self, upto: int | None = None, part: Part = "valid", **options: Any) -> pd.DataFrame:
         """Return one row per feature, best first: the residual signal left in it (``score``, scored on
         rows the scan did not fit on), its noise band and its binned residuals (see stages.understand.scan)."""
         from .understand import residual_scan
 
         return residual_scan(self, upto, part, **options)
 
-    def binned_residuals(self, feature: str, upto: int | None = None, part: str = "valid",
+    def binned_residuals(self, feature: str, upto: int | None = None, part: Part = "valid",
                          **options: Any) -> pd.DataFrame:
         """Return the residuals of ``part`` in the scan's bins of ``feature``: one row per bin."""
         from .understand import binned_residuals
@@ -510,7 +510,7 @@ class Chain:
         return binned_residuals(self, feature, upto, part, **options)
 
     def partial_dependence(self, feature: str | list[str], upto: int | None = None, stage: int | None = None,
-                           grid: Any = None, part: str = "train", sample: int | None = None,
+                           grid: Any = None, part: Part = "train", sample: int | None = None,
                            **options: Any) -> pd.DataFrame:
         """Return the average prediction (``average``) with ``feature`` set to each grid value, and the
         spread of the individual curves (see stages.understand.dependence)."""
@@ -531,14 +531,14 @@ class Chain:
 
         return spline_curves(self, stage, **options)
 
-    def largest_residuals(self, n: int = 20, part: str = "valid", upto: int | None = None,
+    def largest_residuals(self, n: int = 20, part: Part = "valid", upto: int | None = None,
                           **options: Any) -> pd.DataFrame:
         """Return the ``n`` rows of ``part`` with the largest absolute residual, with the residual after each stage."""
         from .understand import largest_residuals
 
         return largest_residuals(self, n, part, upto, **options)
 
-    def calibration(self, part: str = "valid", bins: int = 10, **options: Any) -> pd.DataFrame:
+    def calibration(self, part: Part = "valid", bins: int = 10, **options: Any) -> pd.DataFrame:
         """Return predicted probability in bins against the observed rate, with counts (binary chains)."""
         from .understand import calibration
 

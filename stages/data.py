@@ -31,6 +31,7 @@ import warnings
 from collections import Counter
 from collections.abc import Sequence
 from dataclasses import dataclass
+from typing import get_args
 
 import numpy as np
 import pandas as pd
@@ -38,10 +39,10 @@ from pandas.api import types as pdt
 
 from .errors import DataError, SchemaError
 from .reading import check_duplicates, load_frame, read_table, source_name
-from .schema import BOOLEAN, CATEGORICAL, DATETIME, NUMERIC, ColumnInfo, Schema, beyond_float32
+from .schema import BOOLEAN, CATEGORICAL, DATETIME, NUMERIC, ColumnInfo, Schema, Task, beyond_float32
 
 EXCLUDED = "excluded"
-TASKS = ("regression", "binary")
+TASKS: tuple[Task, ...] = get_args(Task)
 MAX_LEVELS = 1_000
 ID_MIN_ROWS = 20
 DATE_SAMPLE = 500
@@ -189,7 +190,7 @@ def _looks_like_dates(non_missing: np.ndarray) -> bool:
 # ----------------------------------------------------------------------------- task
 
 
-def infer_task(values: pd.Series, *, source: str = "data", target: str = "") -> str:
+def infer_task(values: pd.Series, *, source: str = "data", target: str = "") -> Task:
     """Return ``"regression"`` or ``"binary"`` for a target column; DataError for multiclass."""
     non_missing = values.dropna()
     label = f"target {target!r}" if target else "the target"

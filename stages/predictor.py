@@ -11,7 +11,7 @@ import pandas as pd
 
 from .errors import UnseenLevelsWarning, UnseenMissingWarning
 from .losses import Loss
-from .schema import Schema
+from .schema import Schema, Task
 from .spec import StageSpec
 
 
@@ -66,7 +66,7 @@ class FittedChain:
     start_scores: dict[str, Any] = field(default_factory=dict)
 
     @property
-    def task(self) -> str:
+    def task(self) -> Task:
         """Return "regression" or "binary"."""
         return self.schema.task
 

@@ -29,6 +29,9 @@ import pandas as pd
 
 from .errors import SchemaError
 
+#: what a chain learns: a number (regression) or one of two classes (binary)
+Task = Literal["regression", "binary"]
+
 NUMERIC = "numeric"
 CATEGORICAL = "categorical"
 BOOLEAN = "boolean"
@@ -95,7 +98,7 @@ class Schema:
 
     columns: tuple[ColumnInfo, ...]
     target: str
-    task: str = "regression"
+    task: Task = "regression"
     classes: tuple[str, ...] = ()
     notes: tuple[str, ...] = field(default=(), compare=False)
 

@@ -13,7 +13,7 @@ from __future__ import annotations
 import math
 from dataclasses import dataclass, fields
 from numbers import Integral, Real
-from typing import Any, ClassVar
+from typing import Any, ClassVar, Literal
 
 import numpy as np
 import pandas as pd
@@ -23,6 +23,8 @@ from sklearn.model_selection import StratifiedKFold
 from .errors import ValidationSpecError
 from .limits import MAX_FOLDS, MAX_SEED
 
+#: the parts of a chain's rows: fit on (train), scored (valid), locked away (test)
+Part = Literal["train", "valid", "test"]
 SPLIT_LABELS = {"train": "train", "valid": "valid", "validation": "valid", "test": "test"}
 
 

@@ -13,6 +13,7 @@ import numpy as np
 import pandas as pd
 
 from ..errors import StageSpecError
+from ..validation import Part
 from .cache import remembered
 from .rows import check_part, check_upto, encode_target, part_raw
 
@@ -21,7 +22,7 @@ if TYPE_CHECKING:
     from ..predictor import FittedChain
 
 
-def calibration(chain: Chain, part: str = "valid", bins: int = 10, *, upto: int | None = None,
+def calibration(chain: Chain, part: Part = "valid", bins: int = 10, *, upto: int | None = None,
                 strategy: str = "uniform") -> pd.DataFrame:
     """Return one row per bin of predicted probability on ``part`` after row ``upto`` (default the
     last stage): ``low``, ``high``, ``rows``, ``predicted`` (mean probability) and ``observed``

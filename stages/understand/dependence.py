@@ -33,6 +33,7 @@ import pandas as pd
 
 from ..errors import StageSpecError
 from ..schema import BOOLEAN, CATEGORICAL, ColumnInfo
+from ..validation import Part
 from .cache import remembered
 from .rows import (
     check_part,
@@ -92,7 +93,7 @@ class Rows:
 
 
 def partial_dependence(chain: Chain, feature: str | Sequence[str], upto: int | None = None,
-                       stage: int | None = None, grid: Any = None, part: str = "train",
+                       stage: int | None = None, grid: Any = None, part: Part = "train",
                        sample: int | None = None, *, ice_rows: int = ICE_ROWS, seed: int | None = None) -> pd.DataFrame:
     """Return one row per grid value: ``feature`` (and ``feature_2`` for a pair), ``average``,
     ``ice_low``, ``ice_high``, ``ice_std``, ``rows`` and ``ice_rows``.
@@ -116,7 +117,7 @@ def partial_dependence(chain: Chain, feature: str | Sequence[str], upto: int | N
 
 
 def individual_curves(chain: Chain, feature: str | Sequence[str], upto: int | None = None,
-                      stage: int | None = None, grid: Any = None, part: str = "train", *, curves: int = 50,
+                      stage: int | None = None, grid: Any = None, part: Part = "train", *, curves: int = 50,
                       seed: int | None = None) -> pd.DataFrame:
     """Return individual conditional expectation curves of at most ``curves`` rows of ``part``, long
     form: ``position`` (row of the frame the chain was built from), ``feature`` (and ``feature_2``)
@@ -344,7 +345,7 @@ def _positive(value: int, name: str) -> int:
     return int(value)
 
 
-def _chain_rows(chain: Chain, part: str, sample: int | None, seed: int) -> Rows:
+def _chain_rows(chain: Chain, part: Part, sample: int | None, seed: int) -> Rows:
     positions = part_positions(chain, part)
     rows = Rows(chain.matrix, positions, frame_positions(chain, positions))
     return rows.subset(sample_rows(len(positions), sample, seed))

@@ -13,6 +13,7 @@ import numpy as np
 import pandas as pd
 
 from ..errors import StageSpecError
+from ..validation import Part
 from .cache import remembered
 from .rows import check_part, check_upto, encode_target, frame_positions, part_positions, part_raw
 
@@ -21,7 +22,7 @@ if TYPE_CHECKING:
     from ..predictor import FittedChain
 
 
-def largest_residuals(chain: Chain, n: int = 20, part: str = "valid", upto: int | None = None, *,
+def largest_residuals(chain: Chain, n: int = 20, part: Part = "valid", upto: int | None = None, *,
                       ids: Any = None) -> pd.DataFrame:
     """Return the ``n`` rows of ``part`` with the largest absolute residual after row ``upto`` (default
     the last stage), largest first: ``position`` (row of the frame the chain was built from), ``id``

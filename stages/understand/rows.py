@@ -15,6 +15,7 @@ import pandas as pd
 
 from .. import scoring
 from ..errors import DataError, StageSpecError
+from ..validation import Part
 
 if TYPE_CHECKING:
     from ..chain import Chain
@@ -38,7 +39,7 @@ def check_stage(n_stages: int, stage: int) -> int:
     return int(stage)
 
 
-def check_part(chain: Chain, part: str) -> str:
+def check_part(chain: Chain, part: Part) -> Part:
     """Return ``part`` when the chain has rows in it; raise StageSpecError otherwise."""
     if part not in PARTS:
         raise StageSpecError(f"unknown part {part!r} (train, valid or test)")
@@ -53,7 +54,7 @@ def check_part(chain: Chain, part: str) -> str:
     return part
 
 
-def part_positions(chain: Chain, part: str) -> np.ndarray:
+def part_positions(chain: Chain, part: Part) -> np.ndarray:
     """Return the chain positions of ``part``'s rows, in the order ``chain.residuals(part)`` uses."""
     layout = chain.layout
     check_part(chain, part)
@@ -63,7 +64,7 @@ def part_positions(chain: Chain, part: str) -> np.ndarray:
     return np.arange(chosen.start, chosen.stop)
 
 
-def part_raw(chain: Chain, part: str, row: int) -> np.ndarray:
+def part_raw(chain: Chain, part: Part, row: int) -> np.ndarray:
     """Return the chain's raw output on ``part`` after row ``row`` (out of fold for k-fold validation)."""
     outputs = chain.outputs(row)
     layout = chain.layout

@@ -37,6 +37,7 @@ import numpy as np
 import pandas as pd
 
 from ..errors import StageSpecError
+from ..validation import Part
 from .binning import Bins, bins_of
 from .cache import remembered
 from .rows import check_part, check_upto, feature_index, part_positions, sample_rows
@@ -60,7 +61,7 @@ class Block:
     shown: np.ndarray
 
 
-def residual_scan(chain: Chain, upto: int | None = None, part: str = "valid", *, bins: int = 20,
+def residual_scan(chain: Chain, upto: int | None = None, part: Part = "valid", *, bins: int = 20,
                   sample: int | None = None, permutations: int = 20, seed: int | None = None) -> pd.DataFrame:
     """Return one row per feature, highest score first: ``feature``, ``score``, ``share``, ``band``,
     ``stands_out``, ``spread_score``, ``spread_band``, ``spread_stands_out``, ``role``, ``bins``,
@@ -84,7 +85,7 @@ def residual_scan(chain: Chain, upto: int | None = None, part: str = "valid", *,
                       question, lambda: _scan(chain, row, part, bins, sample, permutations, seed))
 
 
-def binned_residuals(chain: Chain, feature: str, upto: int | None = None, part: str = "valid", *,
+def binned_residuals(chain: Chain, feature: str, upto: int | None = None, part: Part = "valid", *,
                      bins: int = 20, sample: int | None = None, seed: int | None = None) -> pd.DataFrame:
     """Return one row per bin of ``feature`` (the scan's bins): ``bin``, ``low``, ``high``, ``value``
     (mean feature value of the part's rows in the bin), ``rows``, ``mean_residual``, ``spread``
@@ -103,7 +104,7 @@ def binned_residuals(chain: Chain, feature: str, upto: int | None = None, part: 
 # ----------------------------------------------------------------------------- the rows
 
 
-def scan_blocks(chain: Chain, row: int, part: str, sample: int | None, seed: int) -> list[Block]:
+def scan_blocks(chain: Chain, row: int, part: Part, sample: int | None, seed: int) -> list[Block]:
     """Return the blocks of a scan of ``part`` after chain row ``row`` (one per fold for k-fold)."""
     layout, loss, y = chain.layout, chain.loss, chain.y
     outputs = chain.outputs(row)
@@ -146,7 +147,7 @@ class FeatureBins:
     scored: list[ScoredBins]
 
 
-def _scan(chain: Chain, row: int, part: str, n_bins: int, sample: int | None, permutations: int,
+def _scan(chain: Chain, row: int, part: Part, n_bins: int, sample: int | None, permutations: int,
           seed: int) -> pd.DataFrame:
     blocks = scan_blocks(chain, row, part, sample, seed)
     scored_square = sum(float(np.sum(block.scored_residual ** 2)) for block in blocks)
@@ -287,7 +288,7 @@ def _ratio(top: np.ndarray, bottom: np.ndarray) -> np.ndarray:
 # ----------------------------------------------------------------------------- one feature
 
 
-def _binned(chain: Chain, j: int, row: int, part: str, n_bins: int, sample: int | None, seed: int) -> pd.DataFrame:
+def _binned(chain: Chain, j: int, row: int, part: Part, n_bins: int, sample: int | None, seed: int) -> pd.DataFrame:
     bins = feature_bins(chain, j, n_bins)
     positions = part_positions(chain, part)
     shown = chain.residuals(part, row)
