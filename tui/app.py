@@ -12,7 +12,7 @@ import difflib
 import gc
 import sys
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 from textual.app import App
 from textual.binding import Binding
@@ -34,6 +34,13 @@ from .sessions import ResumeOffer, resume_offer
 from .view import ChainView, ImportanceCache, view_of_chain, view_of_fitted
 from .widgets.column_roles import ColumnRoles
 from .worker import FitRunner
+
+if TYPE_CHECKING:
+    import pandas as pd
+
+    from stages.chain import Chain
+    from stages.files.recipe import Recipe
+    from stages.predictor import FittedChain
 
 log = logger(__name__)
 
@@ -59,12 +66,12 @@ class RemnantApp(FitRunner, App):
         Binding("ctrl+q", "quit", "quit", show=False),
     ]
 
-    def __init__(self, *, frame: Any = None, source: str = "data", data_path: str | None = None,
-                 target: str | None = None, recipe: Any = None, recipe_data: str | None = None,
-                 chain: Any = None, fitted: Any = None, offer: ResumeOffer | None = None, timings: bool = True,
-                 sessions: bool = True) -> None:
+    def __init__(self, *, frame: pd.DataFrame | None = None, source: str = "data", data_path: str | None = None,
+                 target: str | None = None, recipe: Recipe | None = None, recipe_data: str | None = None,
+                 chain: Chain | None = None, fitted: FittedChain | None = None, offer: ResumeOffer | None = None,
+                 timings: bool = True, sessions: bool = True) -> None:
         super().__init__()
-        self.start = {"frame": frame, "source": source, "data_path": data_path, "target": target,
+        self.start: dict[str, Any] = {"frame": frame, "source": source, "data_path": data_path, "target": target,
                       "recipe": recipe, "recipe_data": recipe_data, "chain": chain, "fitted": fitted}
         self.offer = offer
         self.timings = timings
@@ -102,7 +109,7 @@ class RemnantApp(FitRunner, App):
         gc.collect()
         gc.freeze()
 
-    def open_workbench(self, chain: Any, view: ChainView, cache: ImportanceCache, summary: str = "",
+    def open_workbench(self, chain: Chain, view: ChainView, cache: ImportanceCache, summary: str = "",
                        session_error: str = "") -> None:
         """Show the workbench over ``chain`` in place of the current screen, ``summary`` in its status line
         (and ``session_error``, why the session was not saved, once it is up)."""
@@ -126,7 +133,8 @@ class RemnantApp(FitRunner, App):
             ("add-stage form", [("enter", "fit the stage"), *describe(AddStageScreen.BINDINGS)]),
             ("audition form", [("tab", "from the text to the buttons"), *describe(AuditionForm.BINDINGS)]),
             ("audition result", [("arrows / tab", "move between the candidates"),
-                                 *describe([b for b in AuditionResultScreen.BINDINGS if b.show])]),
+                                 *describe([b for b in AuditionResultScreen.BINDINGS
+                                            if isinstance(b, Binding) and b.show])]),
             ("grow form", [("enter", "grow"), *describe(GrowForm.BINDINGS)]),
             ("saved session offer", describe(ResumeScreen.BINDINGS)),
             ("read-only chain file", describe(InspectScreen.BINDINGS)),
@@ -145,7 +153,7 @@ class RemnantApp(FitRunner, App):
         self.exit()
 
 
-def _check_target(frame: Any, target: str | None, name: str) -> None:
+def _check_target(frame: pd.DataFrame, target: str | None, name: str) -> None:
     if target is None or target in frame.columns:
         return
     close = difflib.get_close_matches(target, [str(c) for c in frame.columns], n=1)

@@ -7,7 +7,7 @@ and returns the message to post; the jobs that change the chain save its session
 from __future__ import annotations
 
 import time
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 from textual.message_pump import MessagePump
 
@@ -22,12 +22,16 @@ from .messages import AuditionDone, ChainChanged, ReferencesFitted, StageGrown
 from .view import ChainView, ImportanceCache, view_of_chain
 from .worker import FitJob, JobContext
 
+if TYPE_CHECKING:
+    from stages.chain import Chain
+    from stages.decide.audition import Candidate
+
 #: a grow shows the chain it has grown so far at most this often, in seconds: fast stages would
 #: otherwise flood the screen with snapshots it cannot draw in time (and delay the cancel key)
 LIVE_EVERY = 0.25
 
 
-def audition(owner: MessagePump, chain: Any, tables: list[dict[str, Any]], count: int) -> FitJob:
+def audition(owner: MessagePump, chain: Chain, tables: list[dict[str, Any]], count: int) -> FitJob:
     """Return the job that fits the candidate ``tables`` (grids expanded) side by side."""
 
     def run(ctx: JobContext) -> AuditionDone:
@@ -38,7 +42,7 @@ def audition(owner: MessagePump, chain: Any, tables: list[dict[str, Any]], count
     return FitJob(f"auditioning {count} candidate{'s' if count != 1 else ''}", run, owner)
 
 
-def keep(owner: MessagePump, chain: Any, cache: ImportanceCache, before: ChainView, candidate: Any,
+def keep(owner: MessagePump, chain: Chain, cache: ImportanceCache, before: ChainView, candidate: Candidate,
          number: int) -> FitJob:
     """Return the job that commits an auditioned candidate as the next stage, with no refit."""
     what = f"candidate {number} ({candidate.spec.kind}, {spec_text(candidate.spec)})"
@@ -67,7 +71,7 @@ def grow_summary(result: GrowResult, kind: str, start: int, patience: int | None
     return f"none of the {result.grown} {kind} stage{plural} grown beat stage {start}: none kept ({why}; u undoes)"
 
 
-def grow(owner: MessagePump, chain: Any, cache: ImportanceCache, before: ChainView, spec: StageSpec,
+def grow(owner: MessagePump, chain: Chain, cache: ImportanceCache, before: ChainView, spec: StageSpec,
          max_stages: int, patience: int | None) -> FitJob:
     """Return the job that grows stages of ``spec``; each committed stage is posted as it comes."""
 
@@ -76,7 +80,7 @@ def grow(owner: MessagePump, chain: Any, cache: ImportanceCache, before: ChainVi
         start = len(chain)
         shown = [0.0]
 
-        def stage_done(chain: Any) -> None:
+        def stage_done(chain: Chain) -> None:
             if time.monotonic() - shown[0] >= LIVE_EVERY:
                 view = view_of_chain(chain, cache)
                 ctx.post(StageGrown(view, f"growing {spec.kind}: {len(chain) - start} grown, "
@@ -97,7 +101,7 @@ def grow(owner: MessagePump, chain: Any, cache: ImportanceCache, before: ChainVi
     return FitJob(f"growing {spec.kind}", run, owner, failure_note="the stages grown before it are kept")
 
 
-def references(owner: MessagePump, chain: Any) -> FitJob:
+def references(owner: MessagePump, chain: Chain) -> FitJob:
     """Return the job that fits the reference models on the chain's split."""
 
     def run(ctx: JobContext) -> ReferencesFitted:
@@ -107,7 +111,7 @@ def references(owner: MessagePump, chain: Any) -> FitJob:
     return FitJob("fitting the reference models", run, owner, failure_note="the chain is as it was")
 
 
-def reveal(owner: MessagePump, chain: Any, cache: ImportanceCache) -> FitJob:
+def reveal(owner: MessagePump, chain: Chain, cache: ImportanceCache) -> FitJob:
     """Return the job that reveals the locked test part and scores the reference models on it too."""
 
     def run(ctx: JobContext) -> ChainChanged:

@@ -12,7 +12,7 @@ from __future__ import annotations
 import time
 from dataclasses import dataclass
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Literal, get_args
 
 import pandas as pd
 from textual.message_pump import MessagePump
@@ -25,6 +25,11 @@ from .messages import ChainChanged, ChainFileOpened, ChainReady, FileWritten, St
 from .view import ChainView, ImportanceCache, view_of_chain
 from .worker import FitJob, JobContext
 
+if TYPE_CHECKING:
+    from stages.chain import Chain
+    from stages.files.recipe import Recipe
+    from stages.validation import ValidationSpec
+
 
 @dataclass(frozen=True)
 class SetupChoices:
@@ -36,7 +41,7 @@ class SetupChoices:
     target: str
     ignore: tuple[str, ...]
     loss: str | None
-    validation: Any
+    validation: ValidationSpec
     seed: int
 
 
@@ -52,12 +57,12 @@ class SessionSaver:
         self.last = time.monotonic()
         self.problem = ""
 
-    def after_stage(self, chain: Any) -> None:
+    def after_stage(self, chain: Chain) -> None:
         """Save when the last save is SAVE_EVERY seconds old."""
         if time.monotonic() - self.last >= SAVE_EVERY:
             self.now(chain)
 
-    def now(self, chain: Any) -> str:
+    def now(self, chain: Chain) -> str:
         """Save now and return "" or why the session could not be saved."""
         self.problem = self.ctx.save(chain)
         self.last = time.monotonic()
@@ -90,7 +95,7 @@ def new_chain(owner: MessagePump, choices: SetupChoices, cache: ImportanceCache)
                   failure_note="nothing was built; change the choices and start again")
 
 
-def replay_recipe(owner: MessagePump, recipe: Any, data: str | None, cache: ImportanceCache) -> FitJob:
+def replay_recipe(owner: MessagePump, recipe: Recipe, data: str | None, cache: ImportanceCache) -> FitJob:
     """Return the job that builds a recipe's chain and fits its stages one at a time."""
     from stages.files.recipe import build_chain
     from stages.files.recipe_steps import replay
@@ -102,7 +107,7 @@ def replay_recipe(owner: MessagePump, recipe: Any, data: str | None, cache: Impo
         ctx.post(ChainReady(chain, views[0]))
         saver = SessionSaver(ctx)
 
-        def stage_done(chain: Any) -> None:
+        def stage_done(chain: Chain) -> None:
             before, after = views[-1], view_of_chain(chain, cache)
             views.append(after)
             kind = chain.stages[-1].kind
@@ -121,7 +126,7 @@ def replay_recipe(owner: MessagePump, recipe: Any, data: str | None, cache: Impo
                   failure_note="the stages fitted before it are kept")
 
 
-def add_stages(owner: MessagePump, chain: Any, cache: ImportanceCache, before: ChainView,
+def add_stages(owner: MessagePump, chain: Chain, cache: ImportanceCache, before: ChainView,
                spec: StageSpec, repeat: int) -> FitJob:
     """Return the job that fits ``repeat`` stages of ``spec`` after the last stage."""
     what = spec.kind if repeat == 1 else f"{repeat} × {spec.kind}"
@@ -137,7 +142,7 @@ def add_stages(owner: MessagePump, chain: Any, cache: ImportanceCache, before: C
     return FitJob(f"adding {what}", run, owner)
 
 
-def drop_stage(owner: MessagePump, chain: Any, cache: ImportanceCache, before: ChainView, row: int) -> FitJob:
+def drop_stage(owner: MessagePump, chain: Chain, cache: ImportanceCache, before: ChainView, row: int) -> FitJob:
     """Return the job that drops stage ``row`` and refits the stages after it."""
     kind = before.rows[row].kind
 
@@ -151,8 +156,16 @@ def drop_stage(owner: MessagePump, chain: Any, cache: ImportanceCache, before: C
     return FitJob(f"dropping stage {row}", run, owner)
 
 
-def quick_change(owner: MessagePump, chain: Any, cache: ImportanceCache, before: ChainView, action: str) -> FitJob:
-    """Return the job for an action that needs no fit: step back, trim or undo."""
+#: the changes that need no fit
+QuickChange = Literal["step back", "trim", "undo"]
+
+
+def quick_change(owner: MessagePump, chain: Chain, cache: ImportanceCache, before: ChainView,
+                 action: QuickChange) -> FitJob:
+    """Return the job for an action that needs no fit: step back, trim or undo (anything else raises
+    ValueError)."""
+    if action not in get_args(QuickChange):
+        raise ValueError(f"no quick change {action!r} (one of {', '.join(get_args(QuickChange))})")
 
     def run(ctx: JobContext) -> ChainChanged:
         if action == "step back":
@@ -161,7 +174,7 @@ def quick_change(owner: MessagePump, chain: Any, cache: ImportanceCache, before:
         elif action == "trim":
             removed = chain.trim()
             summary = f"trimmed to the best stage {len(chain)}: removed {len(removed)}"
-        else:
+        elif action == "undo":
             summary = f"undid the {chain.undo()}: {len(chain)} stages"
         view = view_of_chain(chain, cache)
         summary += f"; {score_change(before, view)}"
@@ -179,7 +192,7 @@ def write_text(path: Path, text: str, what: str = "recipe") -> None:
         out.write(text)
 
 
-def save_chain(owner: MessagePump, chain: Any, path: Path) -> FitJob:
+def save_chain(owner: MessagePump, chain: Chain, path: Path) -> FitJob:
     """Return the job that writes the chain file at ``path``."""
 
     def run(ctx: JobContext) -> FileWritten:
@@ -189,7 +202,7 @@ def save_chain(owner: MessagePump, chain: Any, path: Path) -> FitJob:
     return FitJob(f"saving {path.name}", run, owner, cancellable=False, failure_note="nothing was written")
 
 
-def export_recipe(owner: MessagePump, chain: Any, path: Path) -> FitJob:
+def export_recipe(owner: MessagePump, chain: Chain, path: Path) -> FitJob:
     """Return the job that writes the chain's recipe at ``path`` (data path relative to it)."""
     from stages.files.recipe import chain_to_recipe
 

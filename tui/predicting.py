@@ -173,7 +173,7 @@ def write_predictions(fitted: FittedChain, data: str, out: str | None, *, id_col
     threshold = float(fitted.meta.get("threshold", 0.5) or 0.5)
     filled: dict[str, int] = {}
     with _output(out) as handle:
-        rows, unseen = 0, {}
+        rows, unseen = 0, dict[str, int]()
         for chunk in iter_chunks(data, columns, text, chunk_rows):
             frame, found = predict_chunk(fitted, chunk, threshold=threshold, id_column=id_column,
                                          source=name, offset=rows, each_stage=each_stage, filled=filled)

@@ -10,7 +10,7 @@ without residuals, built from the scores stored in the file.
 from __future__ import annotations
 
 from dataclasses import dataclass, field
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
@@ -18,7 +18,15 @@ from stages import scoring
 from stages.kinds import get_kind
 from stages.losses import Loss
 from stages.report.table import StageRow, fitted_rows, stage_rows
+from stages.schema import Task
 from stages.tracks import Layout
+from stages.validation import Part
+
+if TYPE_CHECKING:
+    from stages.chain import Chain
+    from stages.predictor import FittedChain, FittedStage
+    from stages.schema import ColumnInfo
+
 
 __all__ = ["ChainView", "ImportanceCache", "ResidualSource", "StageInfo", "StageRow", "view_of_chain",
            "view_of_fitted"]
@@ -51,22 +59,22 @@ class ResidualSource:
     loss: Loss
     outputs: tuple[tuple[np.ndarray, ...], ...]
 
-    def residuals(self, part: str, row: int) -> np.ndarray:
+    def residuals(self, part: Part, row: int) -> np.ndarray:
         """Return target minus prediction on ``part`` (train or valid) after row ``row``."""
         return self.loss.display_residual(self.targets(part), self.raw(part, row))
 
-    def fitted(self, part: str, row: int) -> np.ndarray:
+    def fitted(self, part: Part, row: int) -> np.ndarray:
         """Return the predictions (probabilities for binary chains) on ``part`` after row ``row``."""
         return self.loss.link(self.raw(part, row))
 
-    def raw(self, part: str, row: int) -> np.ndarray:
+    def raw(self, part: Part, row: int) -> np.ndarray:
         """Return the raw output on ``part`` after row ``row``, in the order of ``targets``."""
         outputs = self.outputs[row]
         if part == "train":
             return outputs[0][self.layout.train]
         return scoring.validation_raw(self.layout, outputs)
 
-    def targets(self, part: str) -> np.ndarray:
+    def targets(self, part: Part) -> np.ndarray:
         """Return the targets of ``part`` (train or valid)."""
         if part == "train":
             return self.y[self.layout.train]
@@ -79,7 +87,7 @@ class ChainView:
 
     source: str
     target: str
-    task: str
+    task: Task
     loss: str
     metric: str
     second: str
@@ -123,7 +131,7 @@ class ImportanceCache:
     def __init__(self) -> None:
         self._values: dict[Any, dict[str, float]] = {}
 
-    def get(self, chain: Any, row: int) -> dict[str, float]:
+    def get(self, chain: Chain, row: int) -> dict[str, float]:
         """Return the importance of stage ``row`` of ``chain``, computing it on first use."""
         stage = chain.stages[row - 1]
         if stage not in self._values:
@@ -140,7 +148,7 @@ def _sizes(rows: dict[str, int], kfold: str = "") -> str:
     return text
 
 
-def view_of_chain(chain: Any, cache: ImportanceCache) -> ChainView:
+def view_of_chain(chain: Chain, cache: ImportanceCache) -> ChainView:
     """Return a snapshot of a live chain; call it only from the thread doing the chain's work."""
     table = stage_rows(chain)
     names = chain.schema.names
@@ -171,7 +179,7 @@ def view_of_chain(chain: Any, cache: ImportanceCache) -> ChainView:
     )
 
 
-def _stored_importance(stage: Any, columns: tuple[Any, ...]) -> dict[str, float] | None:
+def _stored_importance(stage: FittedStage, columns: tuple[ColumnInfo, ...]) -> dict[str, float] | None:
     try:
         values = get_kind(stage.kind).importance(stage.learner, columns)
     except Exception:  # an importance the learner cannot give is simply not shown
@@ -185,7 +193,7 @@ def _stored_importance(stage: Any, columns: tuple[Any, ...]) -> dict[str, float]
     return {c.name: float(v) for c, v in zip(columns, values, strict=False)}
 
 
-def view_of_fitted(fitted: Any, name: str) -> ChainView:
+def view_of_fitted(fitted: FittedChain, name: str) -> ChainView:
     """Return a read-only view of a loaded chain file, from the scores stored in it."""
     from stages.validation import describe_stored
 

@@ -17,7 +17,7 @@ import logging
 import threading
 from collections.abc import Callable
 from dataclasses import dataclass
-from typing import Any
+from typing import TYPE_CHECKING, Any, cast
 
 from textual import work
 from textual.message import Message
@@ -30,13 +30,20 @@ from stages.files import session as sessions
 from .logs import logger
 from .messages import FitFailed, FitProgressed, FitStarted
 
+if TYPE_CHECKING:
+    from textual.app import App as _App
+
+    from stages.chain import Chain
+else:
+    _App = object  # a mixin at run time; mypy checks it as the App it is mixed into
+
 log = logger(__name__)
 
 SESSION_NOTE = ("the chain in memory is as the action left it; s saves it as a chain file. "
                 "The previous session file is intact.")
 
 
-def _no_save(chain: Any) -> str:
+def _no_save(chain: Chain) -> str:
     return ""
 
 
@@ -71,7 +78,7 @@ def one_line(error: BaseException) -> str:
     return f"{type(error).__name__}: {first}" if first else type(error).__name__
 
 
-class FitRunner:
+class FitRunner(_App):
     """Mixin for the App: runs one ``FitJob`` at a time in a thread worker."""
 
     _job: FitJob | None = None
@@ -113,7 +120,7 @@ class FitRunner:
 
         return job.run(JobContext(cancel, progress, job.owner.post_message, self.save_session))
 
-    def save_session(self, chain: Any) -> str:
+    def save_session(self, chain: Chain) -> str:
         """Save ``chain``'s session (keyed by its data file); return "" or the one-line reason it failed.
 
         Runs in the worker thread. A chain not read from a file has no session.
@@ -146,7 +153,7 @@ class FitRunner:
             return
         if event.state == WorkerState.SUCCESS:
             log.info("%s: done", job.label)
-            job.owner.post_message(event.worker.result)
+            job.owner.post_message(cast(Message, event.worker.result))
             return
         error = event.worker.error
         if event.state == WorkerState.CANCELLED or isinstance(error, FitCancelled):

@@ -17,6 +17,7 @@ from textual.widgets import Button, Footer, Input, Label, Select, SelectionList
 from stages.errors import StageSpecError
 from stages.kinds import get_kind, kind_names
 from stages.parsing import STAGE_KEYS, stage_entry
+from stages.schema import Task
 
 from ..format import parse_value, value
 from .form import FormError, FormScreen, engine_error
@@ -43,7 +44,7 @@ def parse_pairs(text: str) -> dict[str, Any]:
     return params
 
 
-def kinds_for(task: str) -> list[str]:
+def kinds_for(task: Task) -> list[str]:
     """Return the kinds offered for a chain of ``task``."""
     return [k for k in kind_names() if ONLY_FOR.get(k, task) == task]
 
@@ -55,7 +56,7 @@ class AddStageScreen(FormScreen):
     SUBMIT_ID = "add-fit"
 
 
-    def __init__(self, task: str, features: tuple[str, ...], kind: str = "linear") -> None:
+    def __init__(self, task: Task, features: tuple[str, ...], kind: str = "linear") -> None:
         super().__init__()
         self.chain_task = task
         self.features = features

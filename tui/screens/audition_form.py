@@ -21,6 +21,7 @@ from textual.widgets import Button, Footer, Label, Select, TextArea
 
 from stages.errors import StageSpecError
 from stages.parsing import MAX_CANDIDATES, expand_grid, from_toml
+from stages.schema import Task
 
 from .form import FormError
 
@@ -92,7 +93,7 @@ def _tables(text: str) -> list[Any]:
     return tables
 
 
-def parse_candidates(text: str, task: str) -> tuple[list[dict[str, Any]], int]:
+def parse_candidates(text: str, task: Task) -> tuple[list[dict[str, Any]], int]:
     """Return the candidate tables of ``text`` (``"none"`` read as None, grids not yet expanded) and
     how many candidates their grids make.
 
@@ -120,7 +121,7 @@ class AuditionForm(ModalScreen[list | None]):
         Binding("escape", "cancel", "cancel"),
     ]
 
-    def __init__(self, task: str, text: str = "", next_stage: int = 1) -> None:
+    def __init__(self, task: Task, text: str = "", next_stage: int = 1) -> None:
         super().__init__()
         self.chain_task = task
         self.text = text or next(iter(READY.values()))

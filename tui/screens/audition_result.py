@@ -10,8 +10,9 @@ or None.
 
 from __future__ import annotations
 
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
+import numpy as np
 from textual.app import ComposeResult
 from textual.binding import Binding
 from textual.containers import VerticalScroll
@@ -21,6 +22,9 @@ from textual.widgets import Footer, Static
 from ..format import number
 from ..widgets.candidate_card import BEST, PICK, CandidateCard
 from ..widgets.candidate_histogram import fold_tails
+
+if TYPE_CHECKING:
+    pass
 
 #: cards per row at each width class of the screen
 COLUMNS = {"-narrow": 2, "-normal": 3, "-wide": 5}
@@ -65,8 +69,10 @@ class AuditionResultScreen(Screen[int | None]):
         yield Static(f"audition · {n} candidates for stage {self.next_stage} · valid {self.metric} now "
                      f"{number(self.current)}", id="title", markup=False)
         fitted = [c for c in self.candidates if c.ok]
-        edges = fitted[0].edges if fitted else None
-        folded, shared = fold_tails([c.histogram for c in fitted], edges) if fitted else ([], None)
+        shared: np.ndarray | None = None
+        folded: list[dict[str, np.ndarray]] = []
+        if fitted:
+            folded, shared = fold_tails([c.histogram for c in fitted], fitted[0].edges)
         counts = iter(folded)
         with VerticalScroll(id="cards"):
             for i, candidate in enumerate(self.candidates):

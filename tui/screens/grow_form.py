@@ -16,6 +16,7 @@ from textual.widgets import Button, Footer, Input, Label, Select
 from stages.errors import StageSpecError
 from stages.kinds import get_kind
 from stages.parsing import stage_spec
+from stages.schema import Task
 
 from ..format import value
 from .add_stage import kinds_for, parse_pairs
@@ -36,7 +37,7 @@ class GrowForm(FormScreen):
     SUBMIT_ID = "grow-run"
 
 
-    def __init__(self, task: str, last: dict[str, Any] | None = None) -> None:
+    def __init__(self, task: Task, last: dict[str, Any] | None = None) -> None:
         super().__init__()
         self.chain_task = task
         self.kinds = [k for k in kinds_for(task) if k != "mean"]

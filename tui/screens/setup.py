@@ -8,7 +8,7 @@ session, the app offers it over this screen; resuming loads it in the worker too
 from __future__ import annotations
 
 import dataclasses
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import pandas as pd
 from textual import on
@@ -22,7 +22,7 @@ from stages.data import describe_columns, infer_task
 from stages.errors import RemnantError, ValidationSpecError
 from stages.losses import LOSSES, default_loss
 from stages.parsing import validation_spec
-from stages.schema import DATETIME
+from stages.schema import DATETIME, Task
 from stages.validation import SCHEMES, ValidationSpec
 
 from ..caution import CAUTION
@@ -32,6 +32,11 @@ from ..sessions import resume_job
 from ..view import ImportanceCache
 from ..widgets.column_roles import ColumnRoles
 from .form import FormError, engine_error
+
+if TYPE_CHECKING:
+    from textual import getters
+
+    from ..app import RemnantApp
 
 #: the validation schemes the form offers, by the engine's scheme name, with their labels
 LABELS = {"holdout": "holdout", "kfold": "k-fold", "time": "time order", "group": "groups", "column": "split column"}
@@ -47,7 +52,7 @@ def fields_of(scheme: str) -> tuple[str, ...]:
     return tuple(f.name for f in dataclasses.fields(SCHEMES[scheme]) if f.name in FIELDS)
 
 
-def losses_for(task: str) -> list[str]:
+def losses_for(task: Task) -> list[str]:
     """Return the loss names that fit ``task``."""
     return [name for name, cls in LOSSES.items() if cls.task == task]
 
@@ -56,6 +61,8 @@ class SetupScreen(Screen):
     """Choose what to predict and how to validate, then start the chain."""
 
     BINDINGS = [Binding("s", "start", "start", tooltip="start: build the chain with these choices")]
+    if TYPE_CHECKING:
+        app = getters.app(RemnantApp)
 
     def __init__(self, frame: pd.DataFrame, source: str, data_path: str | None, target: str | None) -> None:
         super().__init__()
@@ -66,7 +73,7 @@ class SetupScreen(Screen):
         self.names = [r.name for r in self.reports]
         self.target = target if target in self.names else None
         self.excluded: set[str] = set()
-        self.chain_task: str | None = None
+        self.chain_task: Task | None = None
         self.cache = ImportanceCache()
 
     def compose(self) -> ComposeResult:

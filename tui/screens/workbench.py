@@ -7,8 +7,9 @@ decide the next stage (audition, grow, references, reveal) are in ``next_stage``
 
 from __future__ import annotations
 
+from collections.abc import Callable
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING
 
 from textual.app import ComposeResult
 from textual.binding import Binding
@@ -42,6 +43,13 @@ from .add_stage import AddStageScreen
 from .confirm import ConfirmScreen
 from .next_stage import NextStageActions
 from .save import PathPrompt, default_path
+
+if TYPE_CHECKING:
+    from stages.chain import Chain
+    from stages.files.recipe import Recipe
+
+    from ..worker import FitJob
+
 
 #: actions that change the chain or write files: none of them while a job runs
 CHANGES = {"add_stage", "step_back", "drop_stage", "trim", "undo", "reveal_test", "save_chain",
@@ -78,7 +86,7 @@ class WorkbenchScreen(NextStageActions, Screen):
         Binding("c,escape", "cancel_fit", "cancel", tooltip="cancel the running fit (the chain stays as it was)"),
     ]
 
-    def __init__(self, chain: Any = None, view: ChainView | None = None, *, recipe: Any = None,
+    def __init__(self, chain: Chain | None = None, view: ChainView | None = None, *, recipe: Recipe | None = None,
                  recipe_data: str | None = None, resume: ResumeOffer | None = None,
                  cache: ImportanceCache | None = None, summary: str = "", session_error: str = "",
                  timings: bool = True) -> None:
@@ -125,6 +133,8 @@ class WorkbenchScreen(NextStageActions, Screen):
             self._fit_recipe()
 
     def _fit_recipe(self) -> None:
+        if self.recipe is None:
+            return
         self.query_one("#title", Static).update(f"fitting {self.recipe.name} …")
         self.app.start_job(jobs.replay_recipe(self, self.recipe, self.recipe_data, self.cache))
 
@@ -266,15 +276,15 @@ class WorkbenchScreen(NextStageActions, Screen):
         """Return whether the reference key works now: to fit them (no job running) or to show them."""
         return self.chain is not None and (self.query_one(ReferencePane).fitted or not self.app.fitting)
 
-    def _start(self, job: Any) -> None:
+    def _start(self, job: FitJob) -> None:
         if not self.app.start_job(job):
             self.notify("a fit is running; wait for it or cancel it (c)", severity="warning")
 
     # ----- actions ---------------------------------------------------------------------
     def action_add_stage(self) -> None:
         """Open the add-stage form (on the kind last added); fit what it returns."""
-        kind = self.last_kind or (self.view.rows[-1].kind if self.view.n_stages else "linear")
-        form = AddStageScreen(self.view.task, self.view.features, kind)
+        kind = self.last_kind or (self.shown.rows[-1].kind if self.shown.n_stages else "linear")
+        form = AddStageScreen(self.shown.task, self.shown.features, kind)
         self.app.push_screen(form, self._stage_requested)
 
     def _stage_requested(self, request: dict | None) -> None:
@@ -282,53 +292,57 @@ class WorkbenchScreen(NextStageActions, Screen):
             return
         spec: StageSpec = request["spec"]
         self.last_kind = spec.kind
-        self._start(jobs.add_stages(self, self.chain, self.cache, self.view, spec, request["repeat"]))
+        self._start(jobs.add_stages(self, self.live, self.cache, self.shown, spec, request["repeat"]))
 
     def action_step_back(self) -> None:
         """Remove the last stage (no refit; undo brings it back)."""
-        self._start(jobs.quick_change(self, self.chain, self.cache, self.view, "step back"))
+        self._start(jobs.quick_change(self, self.live, self.cache, self.shown, "step back"))
 
     def action_drop_stage(self) -> None:
         """Ask, then drop the selected stage and refit the stages after it."""
         row = self.selected
-        later = self.view.n_stages - row
+        later = self.shown.n_stages - row
         detail = (f"The {later} stage{'s' if later != 1 else ''} after it will be refit on the new residuals."
                   if later else "It is the last stage: nothing needs a refit.")
-        question = f"Drop stage {row} ({self.view.rows[row].kind})?"
+        question = f"Drop stage {row} ({self.shown.rows[row].kind})?"
 
         def answered(yes: bool | None) -> None:
             if yes:
-                self._start(jobs.drop_stage(self, self.chain, self.cache, self.view, row))
+                self._start(jobs.drop_stage(self, self.live, self.cache, self.shown, row))
 
         self.app.push_screen(ConfirmScreen("drop a stage", question, detail, yes="drop"), answered)
 
     def action_trim(self) -> None:
         """Keep the stages up to the best validation score."""
-        self._start(jobs.quick_change(self, self.chain, self.cache, self.view, "trim"))
+        self._start(jobs.quick_change(self, self.live, self.cache, self.shown, "trim"))
 
     def action_undo(self) -> None:
         """Undo the last step back, drop or trim."""
-        self._start(jobs.quick_change(self, self.chain, self.cache, self.view, "undo"))
+        self._start(jobs.quick_change(self, self.live, self.cache, self.shown, "undo"))
 
     def action_switch_view(self) -> None:
         """Switch the residual pane to its next view."""
         mode = self.query_one(ResidualHistogram).next_mode()
         self.query_one("#result", Static).update(f"residual pane: {mode}")
 
-    def _ask_path(self, title: str, suffix: str, then: Any, must_exist: bool = False) -> None:
+    def _ask_path(self, title: str, suffix: str, then: Callable[[Path], None], must_exist: bool = False) -> None:
         view = self.view
         default = default_path(view.data_path if view else None, view.source if view else "chain", suffix)
-        self.app.push_screen(PathPrompt(title, default, must_exist=must_exist),
-                             lambda path: path is not None and then(Path(path)))
+
+        def answered(path: Path | None) -> None:
+            if path is not None:
+                then(Path(path))
+
+        self.app.push_screen(PathPrompt(title, default, must_exist=must_exist), answered)
 
     def action_save_chain(self) -> None:
         """Ask where, then write the chain file."""
-        self._ask_path("save the chain file", ".chain", lambda p: self._start(jobs.save_chain(self, self.chain, p)))
+        self._ask_path("save the chain file", ".chain", lambda p: self._start(jobs.save_chain(self, self.live, p)))
 
     def action_export_recipe(self) -> None:
         """Ask where, then write the chain's recipe."""
         self._ask_path("export the recipe", ".toml",
-                       lambda p: self._start(jobs.export_recipe(self, self.chain, p)))
+                       lambda p: self._start(jobs.export_recipe(self, self.live, p)))
 
     def action_open_chain(self) -> None:
         """Ask which chain file, then show it read-only."""

@@ -3,7 +3,7 @@
 from __future__ import annotations
 
 import math
-from typing import Any
+from typing import TYPE_CHECKING
 
 import numpy as np
 from rich.text import Text
@@ -14,11 +14,14 @@ from textual.widgets import Static
 from ..format import number, seconds, signed, spec_text
 from .candidate_histogram import CandidateHistogram
 
+if TYPE_CHECKING:
+    from stages.decide.audition import Candidate
+
 #: the marks of the best candidate and of the one-standard-error pick, as the border says them
 BEST, PICK = "* best", "◆ 1-SE pick"
 
 
-def scores_text(candidate: Any, timings: bool) -> Text:
+def scores_text(candidate: Candidate, timings: bool) -> Text:
     """Return the card's lines: params; validation metric and its change; fold spread, fit time, train."""
     text = Text(no_wrap=True, overflow="ellipsis")
     text.append(spec_text(candidate.spec) + "\n", style="dim")
@@ -42,7 +45,8 @@ def scores_text(candidate: Any, timings: bool) -> Text:
 class CandidateCard(Vertical, can_focus=True):
     """A focusable card for candidate ``number``; ``marks`` are BEST and PICK where they apply."""
 
-    def __init__(self, number: int, candidate: Any, metric: str, counts: dict[str, np.ndarray], edges: np.ndarray,
+    def __init__(self, number: int, candidate: Candidate, metric: str, counts: dict[str, np.ndarray],
+                 edges: np.ndarray | None,
                  *, marks: tuple[str, ...] = (), timings: bool = True) -> None:
         super().__init__(classes="candidate")
         self.number = number
@@ -61,5 +65,5 @@ class CandidateCard(Vertical, can_focus=True):
     def compose(self) -> ComposeResult:
         """Return the scores and, for a candidate that fitted, its residual histogram."""
         yield Static(scores_text(self.candidate, self.timings), classes="candidate-scores")
-        if self.candidate.ok:
+        if self.candidate.ok and self.edges is not None:  # a fitted candidate has its edges
             yield CandidateHistogram(self.counts, self.edges, classes="candidate-histogram")

@@ -3,6 +3,8 @@
 from __future__ import annotations
 
 import math
+from collections.abc import Sequence
+from typing import cast
 
 from rich.text import Text
 from textual.app import RenderResult
@@ -16,7 +18,7 @@ LINES = {"train": ("braille", "cyan"), "valid": ("•", "orange"), "test": ("x",
 LEGEND = {"train": "⠒⠒ train", "valid": "•• valid", "test": "xx test"}
 
 
-def _finite(xs: list[int], ys: list[float | None]) -> tuple[list[int], list[float]]:
+def _finite(xs: list[int], ys: Sequence[float | None]) -> tuple[list[int], list[float]]:
     pairs = [(x, y) for x, y in zip(xs, ys, strict=True) if y is not None and math.isfinite(y)]
     return [p[0] for p in pairs], [p[1] for p in pairs]
 
@@ -55,7 +57,8 @@ class ErrorCurve(PlotextPlot):
         if view is None:
             return False
         xs = [r.index for r in view.rows]
-        parts = {"train": [r.train for r in view.rows], "valid": [r.valid for r in view.rows]}
+        parts: dict[str, list[float | None]] = {"train": [r.train for r in view.rows],
+                                                "valid": [r.valid for r in view.rows]}
         if view.test_revealed:
             parts["test"] = [r.test for r in view.rows]
         drawn = False
@@ -70,7 +73,7 @@ class ErrorCurve(PlotextPlot):
         plt.frame(False)
         if len(xs) > 1:
             plt.vline(self.selected, color="gray")
-        plt.xticks(_ticks(len(xs), self.size.width))
+        plt.xticks(cast(list[float], _ticks(len(xs), self.size.width)))  # whole numbers, shown as such
         return True
 
     def render(self) -> RenderResult:

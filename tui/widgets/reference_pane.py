@@ -37,8 +37,8 @@ def _value(record: dict[str, Any], key: str) -> float | None:
 def verdict(view: ChainView, references: list[dict[str, Any]]) -> str:
     """Return one line comparing the chain's best validation score with the best reference's."""
     metric = view.metric
-    scored = [(r["model"], _value(r, f"valid_{metric}")) for r in references]
-    scored = [(m, v) for m, v in scored if v is not None]
+    values = [(r["model"], _value(r, f"valid_{metric}")) for r in references]
+    scored = [(m, v) for m, v in values if v is not None]
     chain = view.rows[view.best].valid
     if not scored or not math.isfinite(chain):
         return ""

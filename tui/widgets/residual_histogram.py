@@ -136,8 +136,8 @@ class ResidualHistogram(PlotextPlot):
             self.border_title = f"valid probability · {where} · █ class {negative} • class {positive}"
             self.border_subtitle = f"rows: {negative} {int((y == 0).sum()):,} · {positive} {int((y == 1).sum()):,}"
 
-    def _draw_bins(self) -> None:
-        plt, edges = self.plt, self.edges
+    def _draw_bins(self, edges: np.ndarray) -> None:
+        plt = self.plt
         centers = (edges[1:] + edges[:-1]) / 2
         (first, under), (second, over) = list(self.counts.items())
         shares = [c / max(1, c.sum()) for c in (under, over)]
@@ -148,9 +148,9 @@ class ResidualHistogram(PlotextPlot):
         plt.yticks([])
         plt.frame(False)
 
-    def _draw_points(self) -> None:
+    def _draw_points(self, points: tuple[np.ndarray, np.ndarray]) -> None:
         plt = self.plt
-        fitted, resid = self._points
+        fitted, resid = points
         plt.scatter(fitted.tolist(), resid.tolist(), marker="•", color="orange")
         plt.hline(0.0, color="gray")
         low, high = float(np.min(fitted)), float(np.max(fitted))
@@ -164,9 +164,9 @@ class ResidualHistogram(PlotextPlot):
             return Text("(too small to draw)", style="dim")
         self.plt.clear_figure()
         if self.counts and self.edges is not None:
-            self._draw_bins()
+            self._draw_bins(self.edges)
         elif self._points is not None and len(self._points[0]):
-            self._draw_points()
+            self._draw_points(self._points)
         else:
             return Text("no residuals to show", style="dim")
         return super().render()

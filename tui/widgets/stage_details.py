@@ -9,6 +9,7 @@ from textual.widgets import Static
 
 from stages.errors import RemnantError
 from stages.kinds import get_kind
+from stages.schema import Task
 
 from ..format import bar, number, seconds, value
 from ..view import ChainView, StageInfo
@@ -24,7 +25,7 @@ START_RULE = {
 TOP = 8
 
 
-def _params(stage: StageInfo, task: str) -> list[tuple[str, str]]:
+def _params(stage: StageInfo, task: Task) -> list[tuple[str, str]]:
     """Return the params worth showing: the user's, then the kind's main ones at their defaults."""
     shown = [(name, value(v)) for name, v in stage.given.items()]
     try:
