@@ -2,7 +2,7 @@
 
 The scenario is invented. Every number comes from ``numpy.random.default_rng(seed)``, so the
 same ``rows`` and ``seed`` always give the same frame, and running this file always writes the
-same bytes to ``deliveries.csv`` next to it::
+same bytes to ``tui/demo/deliveries.csv`` (the demo data ships with the ``remnant`` command)::
 
     python demo/make_data.py            # 4000 rows, seed 7
     python demo/make_data.py --rows 500 --seed 1 --out small.csv
@@ -43,7 +43,8 @@ DAYS = 548  # about 18 months
 HEAT_LIMIT_C = 27.0
 HEAVY_LOAD_KG = 1800.0
 SENSOR_GAP = {"door_open_min": 0.06, "compressor_duty": 0.07}
-DEFAULT_OUT = Path(__file__).with_name("deliveries.csv")
+#: where the demo data lives: package data of the workbench, so it ships with remnant
+DEFAULT_OUT = Path(__file__).resolve().parent.parent / "tui" / "demo" / "deliveries.csv"
 
 
 def _dates(rng: np.random.Generator, rows: int) -> np.ndarray:

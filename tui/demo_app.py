@@ -15,8 +15,9 @@ if TYPE_CHECKING:
 
 
 def demo_folder() -> Path:
-    """Return the folder holding the demo data and its recipes."""
-    return Path(tui.__file__).resolve().parent.parent / "demo"
+    """Return the folder holding the demo data and its recipes: ``tui/demo``, package data that
+    ships in the wheel, so ``remnant demo`` works wherever remnant is installed."""
+    return Path(tui.__file__).resolve().parent / "demo"
 
 
 def demo_app(*, timings: bool = True, binary: bool = False, sessions: bool = False) -> RemnantApp:

@@ -2,8 +2,6 @@
 
 from __future__ import annotations
 
-from pathlib import Path
-
 import lightgbm as lgb
 import numpy as np
 import pandas as pd
@@ -13,8 +11,9 @@ from sklearn.metrics import mean_squared_error
 import stages
 from stages.data import load_frame
 from stages.decide.references import linear_reference
+from tui.demo_app import demo_folder
 
-DEMO = Path(__file__).resolve().parents[2] / "demo" / "deliveries.csv"
+DEMO = demo_folder() / "deliveries.csv"
 
 
 def _demo_chain(**validation) -> stages.Chain:

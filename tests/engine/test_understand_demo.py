@@ -3,13 +3,12 @@ threshold for heavy loads, and noise that widens with distance)."""
 
 from __future__ import annotations
 
-from pathlib import Path
-
 import pytest
 
 from stages.files.recipe import build_chain, read_recipe
+from tui.demo_app import demo_folder
 
-DEMO = Path(__file__).resolve().parents[2] / "demo"
+DEMO = demo_folder()
 
 
 @pytest.fixture(scope="module")
