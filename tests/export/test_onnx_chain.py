@@ -18,8 +18,9 @@ from onnx_support import onnx_inputs, relative_gap, run_onnx
 
 import stages
 from stages.errors import ExportError
+from tui.demo_app import demo_folder
 
-DEMO = Path(__file__).resolve().parents[2] / "demo"
+DEMO = demo_folder()
 
 
 def demo_rows() -> pd.DataFrame:
