@@ -11,7 +11,7 @@ import math
 from typing import Any
 
 from .. import limits
-from ..errors import ChainFileError
+from ..errors import DAMAGED_FILE_ERRORS, ChainFileError, ValidationSpecError
 from ..kinds.base import Artifact
 from ..manifest_schema import (
     ManifestMismatch,
@@ -96,11 +96,15 @@ def check_manifest(manifest: Any, path: str) -> None:
             raise ChainFileError(f"{path}: stage {number_} has no finite scale")
 
 
+#: what a stored validation spec the validation module cannot read raises
+_UNREADABLE_SPEC: tuple[type[BaseException], ...] = (ValidationSpecError, *DAMAGED_FILE_ERRORS)
+
+
 def _check_validation(spec: dict[str, Any], path: str) -> None:
     from ..validation import spec_from_dict
 
     try:
         spec_from_dict(dict(spec))
-    except Exception as exc:  # any spec the validation module cannot read is damage
+    except _UNREADABLE_SPEC as exc:  # a spec the validation module cannot read
         raise ChainFileError(f"{path}: manifest validation is not a scheme remnant knows "
-                             f"({' '.join(str(exc).split())[:200]})") from None
+                             f"({' '.join(str(exc).split())[:200]})") from exc
