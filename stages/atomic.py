@@ -132,8 +132,8 @@ def _write_replacing(name: str, target: str, text: bool, what: str, error: type[
     except OSError as exc:
         raise _error(error, what, name, exc) from None
     try:
-        mode = "w" if text else "wb"
-        with os.fdopen(fd, mode, **({"encoding": "utf-8", "newline": ""} if text else {})) as handle:
+        opened: IO[Any] = os.fdopen(fd, "w", encoding="utf-8", newline="") if text else os.fdopen(fd, "wb")
+        with opened as handle:
             yield handle
             handle.flush()
             os.fsync(handle.fileno())

@@ -39,7 +39,16 @@ from pandas.api import types as pdt
 
 from .errors import DataError, SchemaError
 from .reading import check_duplicates, load_frame, read_table, source_name
-from .schema import BOOLEAN, CATEGORICAL, DATETIME, NUMERIC, ColumnInfo, Schema, Task, beyond_float32
+from .schema import (
+    BOOLEAN,
+    CATEGORICAL,
+    DATETIME,
+    NUMERIC,
+    ColumnInfo,
+    Schema,
+    Task,
+    beyond_float32,
+)
 
 EXCLUDED = "excluded"
 TASKS: tuple[Task, ...] = get_args(Task)

@@ -214,7 +214,7 @@ def _check_children(left: np.ndarray, right: np.ndarray, leaves: int, what: str)
     check_links(nodes[:len(left)], nodes[len(left):], 2 * leaves - 1, what)
 
 
-def _check_splits(tree: dict[str, str], arrays: dict[str, list], what: str) -> None:
+def _check_splits(tree: dict[str, str], arrays: dict[str, np.ndarray], what: str) -> None:
     decisions = np.asarray(arrays["decision_type"], dtype=np.int64)
     if decisions.min() < 0 or decisions.max() > _MAX_DECISION or ((decisions >> 2) & 3 == 3).any():
         raise ChainFileError(f"{what} has a decision type LightGBM does not write")
@@ -236,7 +236,8 @@ def _check_splits(tree: dict[str, str], arrays: dict[str, list], what: str) -> N
         raise ChainFileError(f"{what} has a category bitset word out of range")
 
 
-def _check_linear_leaves(tree: dict[str, str], arrays: dict[str, list], leaves: int, n_features: int, what: str) -> None:
+def _check_linear_leaves(tree: dict[str, str], arrays: dict[str, np.ndarray], leaves: int, n_features: int,
+                         what: str) -> None:
     counts = arrays.get("num_features")
     if counts is None or "leaf_const" not in arrays or (counts < 0).any() or (counts > n_features).any():
         raise ChainFileError(f"{what} is a linear tree without valid leaf feature counts")
@@ -249,7 +250,7 @@ def _check_linear_leaves(tree: dict[str, str], arrays: dict[str, list], leaves: 
         raise ChainFileError(f"{what} has a linear leaf over a feature out of range or a coefficient not finite")
 
 
-def _check_finite(arrays: dict[str, list], keys: tuple[str, ...], what: str) -> None:
+def _check_finite(arrays: dict[str, np.ndarray], keys: tuple[str, ...], what: str) -> None:
     for key in keys:
         if key in arrays and not np.isfinite(arrays[key]).all():
             raise ChainFileError(f"{what} has a {key.replace('_', ' ')} that is not a finite number")

@@ -88,11 +88,12 @@ def whole_value(table: Mapping[str, Any], key: str, default: int, *, minimum: in
     value = table.get(key, default)
     if isinstance(value, bool) or not isinstance(value, Integral):
         raise StageSpecError(f"{key} must be a whole number, not {shown(value)}", key=key)
-    if minimum is not None and value < minimum:
-        raise StageSpecError(f"{key} must be at least {minimum}, not {value}", key=key)
-    if maximum is not None and value > maximum:
-        raise StageSpecError(f"{key} must be at most {maximum:,} (a documented limit), not {value:,}", key=key)
-    return int(value)
+    whole = int(value)
+    if minimum is not None and whole < minimum:
+        raise StageSpecError(f"{key} must be at least {minimum}, not {whole}", key=key)
+    if maximum is not None and whole > maximum:
+        raise StageSpecError(f"{key} must be at most {maximum:,} (a documented limit), not {whole:,}", key=key)
+    return whole
 
 
 def number_value(table: Mapping[str, Any], key: str, default: float) -> float:

@@ -60,11 +60,12 @@ def _fraction(name: str, value: Any, *, zero_ok: bool = False) -> float:
 def _integer(name: str, value: Any, minimum: int | None = None, maximum: int | None = None) -> int:
     if isinstance(value, bool) or not isinstance(value, Integral):
         raise ValidationSpecError(f"validation {name} must be a whole number, got {value!r}", key=name)
-    if minimum is not None and value < minimum:
-        raise ValidationSpecError(f"validation {name} must be at least {minimum}, got {value}", key=name)
-    if maximum is not None and value > maximum:
-        raise ValidationSpecError(f"validation {name} must be at most {maximum:,}, got {value:,}", key=name)
-    return int(value)
+    whole = int(value)
+    if minimum is not None and whole < minimum:
+        raise ValidationSpecError(f"validation {name} must be at least {minimum}, got {whole}", key=name)
+    if maximum is not None and whole > maximum:
+        raise ValidationSpecError(f"validation {name} must be at most {maximum:,}, got {whole:,}", key=name)
+    return whole
 
 
 def _column_name(value: Any) -> str:

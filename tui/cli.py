@@ -476,19 +476,18 @@ def run_predict(args: argparse.Namespace) -> int:
 
 def run_sign(args: argparse.Namespace) -> int:
     """Sign a chain file in place with the key; return 0."""
-    from stages.files.signing import ALGORITHM, sign
+    from stages.files.signing import ALGORITHM, read_key, sign
 
-    key = _key(args, from_environment=True)
-    sign(args.chain, key)
+    sign(args.chain, read_key(args.key_file, from_environment=True))
     print(f"signed {args.chain} ({ALGORITHM} over its manifest)", file=sys.stderr)
     return 0
 
 
 def run_verify(args: argparse.Namespace) -> int:
     """Check a chain file's signature with the key and load it; return 0 when both succeed."""
-    from stages.files.signing import verify
+    from stages.files.signing import read_key, verify
 
-    fitted = verify(args.chain, _key(args, from_environment=True))
+    fitted = verify(args.chain, read_key(args.key_file, from_environment=True))
     print(f"{args.chain}: the signature matches the key; {len(fitted.stages)} stages load")
     return 0
 

@@ -128,6 +128,8 @@ def _booster(stage: FittedStage, inputs: StageInputs) -> StageGraph:
 def _knn(stage: FittedStage, inputs: StageInputs) -> StageGraph:
     model = stage.learner
     design = linear_design(inputs.builder, inputs.columns.columns(stage.feature_index), model.design)
+    if design is None:
+        raise ExportError("a k-NN stage with no design column cannot be exported")
     params = model.params
     output = neighbours_output(inputs.builder, design, model.matrix, model.target, int(params["n_neighbors"]),
                                float(params["p"]), str(params["weights"]))

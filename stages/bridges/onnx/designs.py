@@ -20,6 +20,7 @@ from typing import Any
 
 import numpy as np
 
+from ...errors import ExportError
 from ...kinds.design import LinearDesign
 from ...schema import CATEGORICAL
 from .builder import GraphBuilder
@@ -140,4 +141,6 @@ def _scatter_basis(builder: GraphBuilder, h: list[str], interval: str, degree: i
         here = as_double(builder, builder.op("Equal", [builder.column(column), positions], "is_column"))
         term = builder.op("Mul", [here, builder.column(value)], "basis_term")
         total = term if total is None else builder.op("Add", [total, term], "basis")
+    if total is None:
+        raise ExportError("a spline basis of no function has nothing to export")
     return total

@@ -19,6 +19,7 @@ import importlib
 
 import numpy as np
 
+from ...errors import ExportError
 from .builder import GraphBuilder
 
 
@@ -64,6 +65,8 @@ def _reduced_distances(builder: GraphBuilder, design: str, matrix: np.ndarray, p
             term = builder.op("Pow", [gap, builder.constant([float(p)], "p")], "gap_power")
         start = builder.constant([0.0], "zero") if total is None else total  # the kind starts from zeros
         total = builder.op("Add", [start, term], "sums")
+    if total is None:
+        raise ExportError("a k-NN stage with no design column has no distances to export")
     return total
 
 

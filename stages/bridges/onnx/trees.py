@@ -176,9 +176,10 @@ def _write_tree(tree: Tree, columns: dict[str, list[Any]], members: list[float],
                 ways.append((placed[child], 1))
             else:
                 ways.append((split_index[child], 0))
-        mode = BRANCH_LEQ if tree.members[node] is None else BRANCH_MEMBER
-        if mode == BRANCH_MEMBER:
-            members.extend([*tree.members[node], float("nan")])
+        node_members = tree.members[node]
+        mode = BRANCH_LEQ if node_members is None else BRANCH_MEMBER
+        if node_members is not None:
+            members.extend([*node_members, float("nan")])
         _append_split(columns, tree.feature[node], mode, tree.threshold[node], ways[0], ways[1],
                       tree.missing_left[node])
 

@@ -8,7 +8,9 @@ fails rather than passes).
 
 from __future__ import annotations
 
+import functools
 import os
+from typing import IO
 
 from ...atomic import STDOUT, output_target, write_atomic
 from ...errors import ExportError
@@ -29,4 +31,8 @@ def write_files(contents: dict[str, tuple[str, bytes]]) -> None:
     Raise ExportError naming the path and the reason when one cannot be written.
     """
     for path, (what, data) in contents.items():
-        write_atomic(path, lambda handle, data=data: handle.write(data), what=what, error=ExportError)
+        write_atomic(path, functools.partial(_write, data=data), what=what, error=ExportError)
+
+
+def _write(handle: IO[bytes], data: bytes) -> None:
+    handle.write(data)
