@@ -226,7 +226,7 @@ def _restore_stage(chain: Chain, entry: dict[str, Any], before: tuple[np.ndarray
                   rng_before=tuple(_pick(states, i) for i in entry["rng_before"]),
                   rng_after=tuple(_pick(states, i) for i in entry["rng_after"]),
                   step_rule=str(entry.get("step_rule", "")),
-                  oob_loss=None if oob is None else tuple(math.nan if v is None else float(v) for v in oob),
+                  oob_loss=None if oob is None else _loss_pair(oob),
                   notes=tuple(notes))
     if len(stage.rng_before) != len(tracks) or len(stage.rng_after) != len(tracks):
         raise ValueError(f"stage {spec.kind!r} does not have one random-stream state per track")
@@ -262,3 +262,10 @@ def _pick(items: list[Any], index: Any, below: int | None = None) -> Any:
 
 def _whole(value: Any) -> bool:
     return isinstance(value, int) and not isinstance(value, bool)
+
+
+def _loss_pair(values: Any) -> tuple[float, float]:
+    """Return a stored out-of-bag loss pair, before and after the stage (None as NaN); a value that is
+    not two numbers raises ValueError, as other damage does."""
+    before, after = (math.nan if v is None else float(v) for v in values)
+    return before, after
