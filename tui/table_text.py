@@ -13,11 +13,14 @@ from __future__ import annotations
 
 import io
 import math
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import pandas as pd
 
-from stages.report.table import StageTable
+from stages.report.table import StageTable, fitted_rows
+
+if TYPE_CHECKING:
+    from stages.predictor import FittedChain
 
 SIGNIFICANT = 4
 #: headers shorter than the column names
@@ -156,6 +159,12 @@ def format_csv(table: StageTable | pd.DataFrame) -> str:
     buffer = io.StringIO()
     out.to_csv(buffer, index=False, lineterminator="\n")
     return buffer.getvalue()
+
+
+def fitted_table(fitted: FittedChain) -> pd.DataFrame:
+    """Return the stage table of a loaded chain file as a DataFrame (``fitted_rows(fitted).frame()``:
+    the engine builds the rows, from the scores the manifest stored)."""
+    return fitted_rows(fitted).frame()
 
 
 def describe_chain(path: str, fitted: Any) -> str:

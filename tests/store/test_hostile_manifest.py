@@ -89,8 +89,7 @@ def base_bytes(base_chain) -> bytes:
 
 def read_everything(path, data) -> None:
     """Load ``path`` and use it as show and predict do; anything but a RemnantError fails the test."""
-    from stages.report.table import fitted_rows
-    from tui.table_text import describe_chain, describe_schema, format_table
+    from tui.table_text import describe_chain, describe_schema, fitted_table
 
     with warnings.catch_warnings():
         warnings.simplefilter("ignore")
@@ -99,7 +98,7 @@ def read_everything(path, data) -> None:
         except stages.ChainFileError as exc:
             assert "\n" not in str(exc)
             return
-        format_table(fitted_rows(fitted))
+        fitted_table(fitted)
         describe_chain(str(path), fitted)
         describe_schema(fitted)
         with suppress(RemnantError):
