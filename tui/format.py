@@ -1,42 +1,31 @@
-"""Numbers and values as short text for narrow panes."""
+"""Values as short text for narrow panes; numbers through the engine's one formatter
+(``stages.report.numbers``), so the panes, the table and the command line agree."""
 
 from __future__ import annotations
 
-import math
 from typing import Any
+
+from stages.report.numbers import DIGITS, column_text, number_text, pair_text, seconds_text
+
+__all__ = ["bar", "column_text", "number", "pair_text", "parse_value", "seconds", "signed", "spec_text", "value"]
 
 #: one-eighth steps of a block, for bars drawn in text
 _EIGHTHS = " ▏▎▍▌▋▊▉"
 
 
-def number(value: float | None, digits: int = 4) -> str:
-    """Return ``value`` with about ``digits`` significant digits in at most 8 characters; "-" when missing."""
-    if value is None or not math.isfinite(value):
-        return "-"
-    size = abs(value)
-    if size >= 1e6 or (0 < size < 1e-3):
-        return f"{value:.2e}"
-    if size >= 1000:
-        return f"{value:,.0f}"
-    return f"{value:.{digits}g}" if size >= 1 else f"{value:.{digits - 1}f}"
+def number(value: float | None, digits: int = DIGITS) -> str:
+    """Return one number as the engine's formatter writes it (``digits`` significant); "-" when missing."""
+    return number_text(value, digits=digits)
 
 
-def signed(value: float | None, digits: int = 4) -> str:
+def signed(value: float | None, digits: int = DIGITS) -> str:
     """Return ``value`` as ``number`` does, with a + on positive values."""
-    text = number(value, digits)
-    if value is not None and math.isfinite(value) and value > 0:
-        return "+" + text
-    return text
+    return number_text(value, digits=digits, signed=True)
 
 
 def seconds(value: float) -> str:
     """Return a duration such as ``0.42 s``, ``12.3 s`` or ``2 min 05 s``."""
-    if value < 10:
-        return f"{value:.2f} s"
-    if value < 60:
-        return f"{value:.1f} s"
-    minutes, rest = divmod(int(round(value)), 60)
-    return f"{minutes} min {rest:02d} s"
+    return seconds_text(value)
 
 
 def value(item: Any) -> str:
