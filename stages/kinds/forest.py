@@ -15,6 +15,7 @@ scikit-learn's forests route natively (RandomForest since 1.4, ExtraTrees since 
 
 from __future__ import annotations
 
+import time
 from typing import Any, ClassVar
 
 import numpy as np
@@ -25,6 +26,8 @@ from . import register, skops_io
 from .base import Artifact, FitRequest, StageKind, check_has_features
 
 _SEED_NOTE = "the chain's seed sets it (the [chain] seed of a recipe)"
+#: a forest grows in batches of trees taking about this long each, so a cancel is seen that soon
+BATCH_SECONDS = 0.5
 
 
 def _forest_defaults(bootstrap: bool) -> dict[str, Any]:
@@ -81,12 +84,8 @@ class ForestKind(StageKind):
         """Return the forest fit to the residuals, its trees seeded from the chain's stream."""
         check_has_features(request.X, self.name)
         request.check_cancel()
-        report = request.progress or (lambda fraction, message: None)
-        n_trees = params.get("n_estimators", 0)
-        report(0.0, f"fitting {n_trees} trees")
         forest = self.estimator_class()(random_state=request.random_state, **params)
-        forest.fit(request.X, request.residual)  # scikit-learn casts the features to float32
-        report(1.0, f"{n_trees} trees fitted")
+        grow_in_batches(forest, request)
         return forest
 
     def step_source(self, params: dict[str, Any]) -> str:
@@ -129,6 +128,42 @@ class ForestKind(StageKind):
     def importance(self, learner: Any, columns) -> np.ndarray:
         """Return the forest's impurity-based importances (they sum to 1)."""
         return np.asarray(learner.feature_importances_, dtype=np.float64)
+
+
+def grow_in_batches(forest: Any, request: FitRequest) -> None:
+    """Grow ``forest`` a batch of trees at a time, reporting progress and checking for a cancel
+    between batches; the forest is the one a single fit with the same stream would grow.
+
+    Each batch is a warm start from the stream's state before the first tree: scikit-learn's
+    warm start skips the seeds of the trees already grown, so every tree gets the seed it would
+    have got in one fit. A batch is sized to take about ``BATCH_SECONDS`` (from the time the
+    trees so far took), so a cancel is seen within about that long. Afterwards the chain's
+    stream stands where a single fit would have left it.
+    """
+    report = request.progress or (lambda fraction, message: None)
+    n_trees = forest.n_estimators
+    if isinstance(n_trees, bool) or not isinstance(n_trees, int) or n_trees < 1:
+        forest.fit(request.X, request.residual)  # scikit-learn says what is wrong with it
+        return
+    warm_start, stream = forest.warm_start, request.random_state
+    before = stream.get_state()
+    batch_stream = np.random.RandomState()
+    X = np.asarray(request.X, dtype=np.float32)  # what scikit-learn would cast it to, once instead of per batch
+    done, size = 0, 1
+    report(0.0, f"0/{n_trees} trees")
+    forest.set_params(warm_start=True)
+    while done < n_trees:
+        request.check_cancel()
+        started = time.perf_counter()
+        batch_stream.set_state(before)
+        done = min(n_trees, done + size)
+        forest.set_params(n_estimators=done, random_state=batch_stream)
+        forest.fit(X, request.residual)
+        report(done / n_trees, f"{done}/{n_trees} trees")
+        per_tree = (time.perf_counter() - started) / size
+        size = max(1, min(n_trees - done, int(BATCH_SECONDS / max(per_tree, 1e-6))))
+    forest.set_params(warm_start=warm_start, random_state=stream)
+    stream.set_state(batch_stream.get_state())
 
 
 class RandomForestKind(ForestKind):

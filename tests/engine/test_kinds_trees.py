@@ -19,6 +19,7 @@ from sklearn.pipeline import make_pipeline
 from sklearn.preprocessing import StandardScaler
 
 from stages.errors import ChainFileError, FitCancelled, StageSpecError
+from stages.kinds import forest as forest_module
 from stages.kinds.base import Artifact, FitRequest
 from stages.kinds.forest import ExtraTreesKind, RandomForestKind
 from stages.kinds.hist_tree import HistTreeKind
@@ -124,12 +125,42 @@ def test_forest_fits_and_predicts_rows_with_missing_values(diabetes, kind):
     assert np.isfinite(learner.predict(X)).all()
 
 
-def test_forest_reports_progress_once_at_start_and_once_at_end(diabetes):
+@pytest.mark.parametrize(("kind", "reference"), [(RandomForestKind(), RandomForestRegressor),
+                                                 (ExtraTreesKind(), ExtraTreesRegressor)])
+def test_a_forest_grown_a_tree_at_a_time_is_the_forest_of_one_fit(diabetes, kind, reference, monkeypatch):
+    monkeypatch.setattr(forest_module, "BATCH_SECONDS", 0.0)  # every batch one tree: the most warm starts
     X, y = diabetes
+    X = X.copy()
+    X[::7, 3] = np.nan
     calls = []
+    request = make_request(X, y, progress=lambda f, m: calls.append((f, m)))
+    learner = kind.fit(request, kind.resolve_params({"n_estimators": 12}, "regression"))
+    # scikit-learn reference: one fit of the same estimator from a RandomState(0) object
+    stream = np.random.RandomState(0)
+    expected = reference(n_estimators=12, max_features=1 / 3, min_samples_leaf=5,
+                         bootstrap=kind.name == "forest", random_state=stream)
+    expected.fit(X, y - y.mean())
+    assert np.array_equal(learner.predict(X), expected.predict(X))
+    assert [t.random_state for t in learner.estimators_] == [t.random_state for t in expected.estimators_]
+    # the chain's stream is left where the single fit leaves it, so the next stage draws the same
+    assert request.random_state.randint(2**31 - 1) == stream.randint(2**31 - 1)
+    assert learner.get_params()["warm_start"] is False and len(learner.estimators_) == 12
+    assert [f for f, _ in calls] == [i / 12 for i in range(13)] and calls[-1][1] == "12/12 trees"
+
+
+def test_a_cancel_between_batches_of_trees_stops_the_forest(diabetes, monkeypatch):
+    monkeypatch.setattr(forest_module, "BATCH_SECONDS", 0.0)
+    X, y = diabetes
+    cancel = threading.Event()
+
+    def progress(fraction, message):
+        if fraction >= 0.25:
+            cancel.set()
+
     kind = RandomForestKind()
-    kind.fit(make_request(X, y, progress=lambda f, m: calls.append(f)), kind.resolve_params({"n_estimators": 3}, "regression"))
-    assert calls == [0.0, 1.0]
+    with pytest.raises(FitCancelled):
+        kind.fit(make_request(X, y, cancel=cancel, progress=progress),
+                 kind.resolve_params({"n_estimators": 400}, "regression"))
 
 
 @pytest.mark.parametrize("kind", [RandomForestKind(), ExtraTreesKind()])
