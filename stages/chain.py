@@ -52,6 +52,9 @@ class Chain:
         Seeds the chain's one random stream.
     data_path : str or path, optional
         The data file the frame was read from (``from_file`` sets it); sessions and recipes refer to it.
+    dates : dict, optional
+        Date columns and the parts of them that become features, such as ``{"placed_at": ["hour"]}``
+        (parts: year, month, day_of_week, hour, day_of_year).
 
     State
     -----
@@ -76,13 +79,14 @@ class Chain:
         threshold: float = 0.5,
         source: str = "frame",
         data_path: str | os.PathLike | None = None,
+        dates: dict[str, list[str]] | None = None,
     ) -> None:
         self.validation = validation if validation is not None else Holdout()
         ignore = tuple(ignore) + tuple(c for c in self.validation.columns_used if c not in ignore)
         if isinstance(self.validation, TimeOrder):
             ignore = tuple(c for c in ignore if c != self.validation.column)
         self.prepared: Prepared = prepare(frame, target, ignore=ignore, features=features, task=task,
-                                          positive=positive, source=source, encode=False)
+                                          positive=positive, source=source, encode=False, dates=dates)
         self.schema = self.prepared.schema
         self.loss: Loss = get_loss(loss or default_loss(self.schema.task), self.schema.task)
         self.split = self.validation.split(self.prepared.frame, self.prepared.y, self.schema.task)

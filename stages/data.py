@@ -15,8 +15,12 @@ Column roles (``infer_role``), first rule that applies wins
     5. datetime dtype, or text where at least 95% of a sample of up to 500 values parses
        as a date (pure numbers never count as dates) -> DATETIME: not a feature, but
        usable to order rows by time;
-    6. other text: every non-missing value unique with more than 20 of them -> excluded
-       ("an ID?"); more than 1,000 distinct levels -> excluded; otherwise CATEGORICAL.
+    6. other text: every non-missing value unique with more than 20 of them -> ID; more
+       than 1,000 distinct levels -> excluded; otherwise CATEGORICAL.
+    An integer column with more than 20 rows, no missing value and values that strictly rise
+    (or fall) down the file is an ID too: a row number, not a measurement.
+    ID columns are not features; the first one names the rows (``Schema.id_column``) in
+    views of single rows and in ``remnant predict --id``.
     Durations and cells holding lists or other unhashable objects are excluded.
 
 Task (``infer_task``)
@@ -37,6 +41,7 @@ import numpy as np
 import pandas as pd
 from pandas.api import types as pdt
 
+from .dates import DATE_PARTS, derived_name
 from .errors import DataError, SchemaError
 from .reading import check_duplicates, load_frame, read_table, source_name
 from .schema import (
@@ -51,6 +56,8 @@ from .schema import (
 )
 
 EXCLUDED = "excluded"
+ID = "id"
+ID_NOTE = "a distinct value on every row: an id, not a feature"
 TASKS: tuple[Task, ...] = get_args(Task)
 MAX_LEVELS = 1_000
 ID_MIN_ROWS = 20
@@ -85,7 +92,7 @@ def infer_role(values: pd.Series) -> tuple[str, str]:
         non_missing, uniques = _distinct(values)
     except TypeError:
         return EXCLUDED, _NOT_PLAIN
-    return _role(values.dtype, non_missing, uniques)
+    return _role(values.dtype, non_missing, uniques, len(values))
 
 
 def describe_columns(frame: pd.DataFrame) -> list[ColumnReport]:
@@ -95,7 +102,7 @@ def describe_columns(frame: pd.DataFrame) -> list[ColumnReport]:
         values = frame.iloc[:, j]
         try:
             non_missing, uniques = _distinct(values)
-            role, note = _role(values.dtype, non_missing, uniques)
+            role, note = _role(values.dtype, non_missing, uniques, len(values))
         except TypeError:
             non_missing = uniques = values.dropna().to_numpy()
             role, note = EXCLUDED, _NOT_PLAIN
@@ -121,7 +128,18 @@ def _numeric_role(array: np.ndarray) -> tuple[str, str]:
         return EXCLUDED, "every value is missing"
     if np.all(non_missing == non_missing[0]):
         return EXCLUDED, f"constant (every value is {pd.unique(non_missing[:1])[0]!s})"
+    if len(non_missing) == len(array) and _counts_rows(array):
+        return ID, ID_NOTE
     return NUMERIC, ""
+
+
+def _counts_rows(array: np.ndarray) -> bool:
+    """Return True for more than ID_MIN_ROWS integers that strictly rise or fall: row numbers.
+    Floats never count: whole numbers stored as floats are more often measurements."""
+    if len(array) <= ID_MIN_ROWS or array.dtype.kind not in "iu":
+        return False
+    steps = np.diff(array)
+    return bool(np.all(steps > 0) or np.all(steps < 0))
 
 
 def _distinct(values: pd.Series) -> tuple[np.ndarray, np.ndarray]:
@@ -131,7 +149,16 @@ def _distinct(values: pd.Series) -> tuple[np.ndarray, np.ndarray]:
     return non_missing, pd.unique(non_missing)
 
 
-def _role(dtype: object, non_missing: np.ndarray, uniques: np.ndarray) -> tuple[str, str]:
+def _numbers_role(non_missing: np.ndarray, n_rows: int | None) -> tuple[str, str]:
+    """Return ID for row numbers (no value missing), else NUMERIC."""
+    if n_rows is not None and len(non_missing) == n_rows:
+        numbers = pd.Series(non_missing).infer_objects().to_numpy()
+        if numbers.dtype.kind in "iu" and _counts_rows(numbers):
+            return ID, ID_NOTE
+    return NUMERIC, ""
+
+
+def _role(dtype: object, non_missing: np.ndarray, uniques: np.ndarray, n_rows: int | None = None) -> tuple[str, str]:
     if len(non_missing) == 0:
         return EXCLUDED, "every value is missing"
     if len(uniques) == 1:
@@ -141,9 +168,9 @@ def _role(dtype: object, non_missing: np.ndarray, uniques: np.ndarray) -> tuple[
     if pdt.is_object_dtype(dtype):
         inferred = pd.Series(non_missing).infer_objects().dtype
         if pdt.is_numeric_dtype(inferred) and not pdt.is_bool_dtype(inferred):
-            return NUMERIC, ""
+            return _numbers_role(non_missing, n_rows)
     if pdt.is_numeric_dtype(dtype):
-        return NUMERIC, ""
+        return _numbers_role(non_missing, n_rows)
     if pdt.is_datetime64_any_dtype(dtype):
         return DATETIME, "dates: usable to order rows by time"
     if pdt.is_timedelta64_dtype(dtype):
@@ -171,7 +198,7 @@ def _text_role(non_missing: np.ndarray, uniques: np.ndarray) -> tuple[str, str]:
         example = non_missing[np.flatnonzero(stray)[0]]
         return NUMERIC, f"numbers with {int(stray.sum()):,} text values such as {example!r} (treated as missing)"
     if len(uniques) == len(non_missing) and len(non_missing) > ID_MIN_ROWS:
-        return EXCLUDED, "every value is unique (an ID?)"
+        return ID, ID_NOTE
     if len(uniques) > MAX_LEVELS:
         return EXCLUDED, f"{len(uniques):,} distinct values (more than {MAX_LEVELS:,})"
     return CATEGORICAL, ""
@@ -274,13 +301,15 @@ def prepare(
     positive: str | None = None,
     source: str = "frame",
     encode: bool = True,
+    dates: dict[str, Sequence[str]] | None = None,
 ) -> Prepared:
     """Return the Prepared data for fitting a chain on ``frame`` to predict ``target``.
 
     Rows with a missing target are dropped; features default to every usable column
     other than the target and ``ignore``. Raises DataError for anything unusable. With
     ``encode=False`` the matrix is left for ``Prepared.encode`` (which can gather the rows in
-    another order as it fills the matrix).
+    another order as it fills the matrix). ``dates`` maps date columns to the parts of them
+    that become features (``dates.DATE_PARTS``), after the other features.
     """
     frame = _string_columns(frame, source)
     _require_columns([target], frame, source, what="target")
@@ -297,9 +326,14 @@ def prepare(
         y = _regression_target(values, rows, target, source)
     else:
         y, classes = _binary_target(values, target, positive, source, notes)
-    columns = _feature_columns(kept, target, set(ignore), features, source, notes)
-    schema = Schema(tuple(columns), target, task, classes, tuple(notes))
-    inferred = features is None or _inferred_names(kept, target, set(ignore)) == schema.names
+    derived = _date_features(kept, dates or {}, target, source, notes)
+    if features is not None:
+        features = [name for name in features if name not in {c.name for c in derived}]
+    columns = _feature_columns(kept, target, set(ignore), features, source, notes, bool(derived)) + derived
+    schema = Schema(tuple(columns), target, task, classes, tuple(notes),
+                    id_column=_id_column(kept, target, [c.name for c in columns]))
+    inferred = features is None or _inferred_names(kept, target, set(ignore)) == [
+        c.name for c in columns if not c.date_column]
     prepared = Prepared(schema, None, y, rows, kept, tuple(notes), inferred, source)
     if encode:
         prepared.matrix = prepared.encode()
@@ -320,7 +354,7 @@ def _kept_rows(frame: pd.DataFrame, rows: np.ndarray) -> pd.DataFrame:
 def _inferred_names(kept: pd.DataFrame, target: str, ignore: set[str]) -> list[str]:
     """Return the names of the columns inference would pick as features."""
     return [name for name in kept.columns if name != target and name not in ignore
-            and infer_role(kept[name])[0] not in (EXCLUDED, DATETIME)]
+            and infer_role(kept[name])[0] not in (EXCLUDED, DATETIME, ID)]
 
 
 def _unusable_note(values: pd.Series, name: str, count: int) -> str:
@@ -438,29 +472,33 @@ def _positive_label(ordered: list[str], positive: str | None, target: str, sourc
 
 
 def _feature_columns(kept: pd.DataFrame, target: str, ignore: set[str], features: Sequence[str] | None,
-                     source: str, notes: list[str]) -> list[ColumnInfo]:
-    """Return the feature columns: the listed ones, or every usable column (noting exclusions)."""
+                     source: str, notes: list[str], derived: bool = False) -> list[ColumnInfo]:
+    """Return the feature columns: the listed ones, or every usable column (noting exclusions).
+    With ``derived`` (date features follow), having none of them is not an error."""
     if features is not None:
-        return _listed_features(kept, target, ignore, list(features), source)
+        return _listed_features(kept, target, ignore, list(features), source, derived)
     columns = []
     for name in kept.columns:
         if name == target or name in ignore:
             continue
         values = kept[name]
         role, note = infer_role(values)
-        if role == EXCLUDED:
+        if role == ID:
+            notes.append(f"column {name!r} is an id (a distinct value on every row), not a feature")
+        elif role == EXCLUDED:
             notes.append(f"column {name!r} excluded: {note}")
         elif role == DATETIME:
-            notes.append(f"column {name!r} is not a feature: it holds dates (usable to order rows by time)")
+            notes.append(f"column {name!r} is not a feature: it holds dates (usable to order rows by time, "
+                         "or to give date features)")
         else:
             columns.append(_column_info(name, role, values))
-    if not columns:
+    if not columns and not derived:
         raise DataError(f"{source}: no usable feature columns (every column but target {target!r} is ignored or excluded)")
     return columns
 
 
 def _listed_features(kept: pd.DataFrame, target: str, ignore: set[str], features: list[str],
-                     source: str) -> list[ColumnInfo]:
+                     source: str, derived: bool = False) -> list[ColumnInfo]:
     """Return the columns the user listed, keeping any infer_role would exclude (but not dates)."""
     _require_columns(features, kept, source, what="feature")
     repeated = [name for name, count in Counter(features).items() if count > 1]
@@ -476,12 +514,45 @@ def _listed_features(kept: pd.DataFrame, target: str, ignore: set[str], features
         role, _ = infer_role(values)
         if role == DATETIME:
             raise DataError(f"{source}: feature {name!r} holds dates; dates are not features (use them to order rows)")
-        if role == EXCLUDED:
+        if role in (EXCLUDED, ID):
             role = _role_of_dtype(values)
         columns.append(_column_info(name, role, values))
-    if not columns:
+    if not columns and not derived:
         raise DataError(f"{source}: no usable feature columns (every listed feature is ignored)")
     return columns
+
+
+def _date_features(kept: pd.DataFrame, dates: dict[str, Sequence[str]], target: str, source: str,
+                   notes: list[str]) -> list[ColumnInfo]:
+    """Return the features derived from date columns; DataError for a column that is not a date
+    column, an unknown or repeated part, or a name the data already uses."""
+    _require_columns(list(dates), kept, source, what="date column")
+    columns = []
+    for name, parts in dates.items():
+        if name == target:
+            raise DataError(f"{source}: target {name!r} cannot give date features")
+        if infer_role(kept[name])[0] != DATETIME:
+            raise DataError(f"{source}: column {name!r} does not hold dates, so it cannot give date features")
+        parts = list(parts)
+        unknown = [p for p in parts if p not in DATE_PARTS]
+        if unknown or not parts or len(set(parts)) < len(parts):
+            problem = f"unknown date part {unknown[0]!r}" if unknown else "each part once, at least one"
+            raise DataError(f"{source}: date features of {name!r}: {problem} (parts: {', '.join(DATE_PARTS)})")
+        for part in parts:
+            feature = derived_name(name, part)
+            if feature in kept.columns:
+                raise DataError(f"{source}: date feature {feature!r} would shadow the column of that name")
+            columns.append(ColumnInfo(feature, NUMERIC, "float64", date_column=name, date_part=part))
+        notes.append(f"column {name!r} gives date features: {', '.join(derived_name(name, p) for p in parts)}")
+    return columns
+
+
+def _id_column(kept: pd.DataFrame, target: str, features: list[str]) -> str:
+    """Return the first column that names the rows (role ID) and is neither the target nor a feature, or ""."""
+    for name in kept.columns:
+        if name != target and name not in features and infer_role(kept[name])[0] == ID:
+            return str(name)
+    return ""
 
 
 def _role_of_dtype(values: pd.Series) -> str:
@@ -520,4 +591,4 @@ def category_levels(values: pd.Series) -> tuple[tuple[str, ...], str]:
 
 
 __all__ = ["ColumnReport", "Prepared", "describe_columns", "infer_role", "infer_task", "prepare",
-           "load_frame", "read_table", "source_name", "EXCLUDED"]
+           "load_frame", "read_table", "source_name", "EXCLUDED", "ID"]

@@ -27,6 +27,7 @@ from typing import Any, Literal
 import numpy as np
 import pandas as pd
 
+from .dates import DATE_PARTS, date_part, parse_dates
 from .errors import SchemaError
 
 #: what a chain learns: a number (regression) or one of two classes (binary)
@@ -57,7 +58,12 @@ LEVEL_ORDERS = ("ordered", "numeric", "text")
 class ColumnInfo:
     """One feature column: its name, role, the dtype it was read with and, for categories, its
     levels and their order; for numbers, the value a missing entry takes when the fitting rows
-    had none (``fill``, None when they had some or it is not known)."""
+    had none (``fill``, None when they had some or it is not known).
+
+    A feature derived from a date column names that column (``date_column``) and the part of the
+    date it holds (``date_part``, one of ``dates.DATE_PARTS``); its values are computed from the
+    date column whenever a frame is encoded.
+    """
 
     name: str
     role: str
@@ -65,6 +71,13 @@ class ColumnInfo:
     levels: tuple[str, ...] = ()
     order: str = ""
     fill: float | None = None
+    date_column: str = ""
+    date_part: str = ""
+
+    @property
+    def frame_column(self) -> str:
+        """Return the column of a frame this feature is read from (the date column of a derived one)."""
+        return self.date_column or self.name
 
     @property
     def is_categorical(self) -> bool:
@@ -72,20 +85,25 @@ class ColumnInfo:
         return self.role == CATEGORICAL
 
     def to_dict(self) -> dict[str, Any]:
-        """Return a JSON-ready dict of this column (``order`` and ``fill`` only where they are set)."""
+        """Return a JSON-ready dict of this column (``order``, ``fill`` and the date keys only where they are set)."""
         out = asdict(self)
         out["levels"] = list(self.levels)
-        for key in ("order", "fill"):
+        for key in ("order", "fill", "date_column", "date_part"):
             if out[key] in ("", None):
                 del out[key]
         return out
 
     @classmethod
     def from_dict(cls, data: dict[str, Any]) -> ColumnInfo:
-        """Return the column described by ``data`` (the output of ``to_dict``)."""
+        """Return the column described by ``data`` (the output of ``to_dict``); raise ValueError
+        for a derived feature whose date part is unknown or whose role is not numeric."""
         fill = data.get("fill")
-        return cls(data["name"], data["role"], data["dtype"], tuple(data.get("levels", ())),
-                   str(data.get("order", "")), None if fill is None else float(fill))
+        column = cls(data["name"], data["role"], data["dtype"], tuple(data.get("levels", ())),
+                     str(data.get("order", "")), None if fill is None else float(fill),
+                     date_column=str(data.get("date_column") or ""), date_part=str(data.get("date_part") or ""))
+        if column.date_column and (column.date_part not in DATE_PARTS or column.role != NUMERIC):
+            raise ValueError(f"column {column.name!r}: unknown date part {column.date_part!r}")
+        return column
 
 
 @dataclass(frozen=True)
@@ -93,7 +111,8 @@ class Schema:
     """The features of a chain, in matrix order, and its target.
 
     ``task`` is ``"regression"`` or ``"binary"``; for binary chains ``classes`` holds the
-    negative then the positive class as strings, as they appeared in the data.
+    negative then the positive class as strings, as they appeared in the data. ``id_column``
+    is the column that names the rows (a distinct value on each, not a feature), or "".
     """
 
     columns: tuple[ColumnInfo, ...]
@@ -101,6 +120,7 @@ class Schema:
     task: Task = "regression"
     classes: tuple[str, ...] = ()
     notes: tuple[str, ...] = field(default=(), compare=False)
+    id_column: str = ""
 
     @property
     def names(self) -> list[str]:
@@ -111,6 +131,19 @@ class Schema:
     def positive_class(self) -> str | None:
         """Return the positive class of a binary chain, else None."""
         return self.classes[1] if len(self.classes) == 2 else None
+
+    @property
+    def frame_columns(self) -> list[str]:
+        """Return the columns of a frame the matrix is read from, each once, in schema order."""
+        return list(dict.fromkeys(c.frame_column for c in self.columns))
+
+    def dates(self) -> dict[str, tuple[str, ...]]:
+        """Return the derived date features: date column -> its parts, in schema order."""
+        out: dict[str, tuple[str, ...]] = {}
+        for c in self.columns:
+            if c.date_column:
+                out[c.date_column] = (*out.get(c.date_column, ()), c.date_part)
+        return out
 
     def index_of(self, names: list[str] | tuple[str, ...]) -> list[int]:
         """Return the matrix column indices of ``names``; raise SchemaError for an unknown one."""
@@ -137,7 +170,7 @@ class Schema:
         Columns not in the schema are ignored. A missing column, or a column whose type
         no longer fits its role, raises SchemaError naming the column.
         """
-        missing = [c.name for c in self.columns if c.name not in frame.columns]
+        missing = [name for name in self.frame_columns if name not in frame.columns]
         if missing:
             raise SchemaError(f"{source}: column {missing[0]!r} is missing (the chain was fit with it)")
         if rows is not None and order != "C":
@@ -150,7 +183,14 @@ class Schema:
         matrix = np.empty((n_rows, len(self.columns)), dtype=np.float64, order=order)
         unseen: dict[str, int] = {}
         plain: list[tuple[int, np.ndarray]] = []
+        times: dict[str, pd.Series] = {}
         for j, col in enumerate(self.columns):
+            if col.date_column:
+                if col.date_column not in times:
+                    times[col.date_column] = parse_dates(frame[col.date_column])
+                derived = date_part(times[col.date_column], col.date_part)
+                matrix[:, j] = derived if rows is None else derived[rows]
+                continue
             values = frame[col.name]
             ready = plain_numbers(values, col)
             if ready is not None and order == "C":
@@ -170,6 +210,8 @@ class Schema:
         """Return the column-major float64 matrix of a frame whose features are all plain float64
         numbers (without copying when pandas holds them as one block), else None."""
         for col in self.columns:
+            if col.date_column:
+                return None
             values = frame[col.name]
             if values.dtype != np.float64 or plain_numbers(values, col) is None:
                 return None
@@ -212,12 +254,15 @@ class Schema:
 
     def to_dict(self) -> dict[str, Any]:
         """Return a JSON-ready dict of the schema."""
-        return {
+        out = {
             "target": self.target,
             "task": self.task,
             "classes": list(self.classes),
             "columns": [c.to_dict() for c in self.columns],
         }
+        if self.id_column:
+            out["id_column"] = self.id_column
+        return out
 
     @classmethod
     def from_dict(cls, data: dict[str, Any]) -> Schema:
@@ -227,6 +272,7 @@ class Schema:
             target=data["target"],
             task=data.get("task", "regression"),
             classes=tuple(data.get("classes", ())),
+            id_column=str(data.get("id_column") or ""),
         )
 
 

@@ -84,6 +84,8 @@ example:
 _PREDICT = """Predict every row of DATA with a chain file and write CSV: column 'prediction',
 and 'probability' for a binary chain; one row per input row, in input order.
 The data is read in chunks, so files larger than memory can be scored.
+--id COL copies COL first; --id alone copies the chain's id column (the column
+with a distinct value on every row that the chain found when it was fit).
 With --each-stage, also 'after_1' .. 'after_N' (the prediction after each stage;
 the probability for a binary chain) and, when DATA has the target column,
 'residual' (target minus prediction; for a binary chain 1 or 0 minus the
@@ -158,7 +160,9 @@ def _add_headless_commands(commands: Any) -> None:
     predict.add_argument("data", metavar="DATA", help="a CSV or Parquet file with the chain's feature columns")
     predict.add_argument("--out", metavar="FILE", help="write here instead of to standard output ('-': standard output)")
     _add_key_file(predict, "refuse the chain file unless it is signed with the key in FILE")
-    predict.add_argument("--id", metavar="COL", help="copy this column first into the output")
+    predict.add_argument("--id", metavar="COL", nargs="?", const="",
+                         help="copy this column first into the output; --id alone copies the column the chain "
+                              "found to name the rows (its id column)")
     predict.add_argument("--chunk-rows", metavar="N", type=_positive, default=DEFAULT_CHUNK_ROWS,
                          help=f"rows read at a time (default {DEFAULT_CHUNK_ROWS:,})")
     predict.add_argument("--each-stage", action="store_true",
@@ -469,7 +473,13 @@ def run_predict(args: argparse.Namespace) -> int:
         check_out(out, {"input data file": args.data, "chain file": args.chain})
     with _holding(out or "-"):
         fitted = store.load(args.chain, key=_key(args, from_environment=False))
-        write_predictions(fitted, args.data, out, id_column=args.id, chunk_rows=args.chunk_rows,
+        id_column = args.id
+        if id_column == "":
+            id_column = fitted.schema.id_column
+            if not id_column:
+                raise UsageError(f"--id: {args.chain} names no id column (none had a distinct value on every row); "
+                                 "name one: --id COL")
+        write_predictions(fitted, args.data, out, id_column=id_column, chunk_rows=args.chunk_rows,
                           each_stage=args.each_stage)
     return 0
 

@@ -166,7 +166,7 @@ def write_predictions(fitted: FittedChain, data: str, out: str | None, *, id_col
     wanted = [id_column] if id_column else []
     if each_stage and schema.target not in wanted:
         wanted.append(schema.target)  # read when the file has it, for the residual
-    columns = schema.names + [c for c in wanted if c not in schema.names]
+    columns = schema.frame_columns + [c for c in wanted if c not in schema.frame_columns]
     text = [c.name for c in schema.columns if c.is_categorical] + ([id_column] if id_column else [])
     if each_stage and schema.task == "binary":
         text.append(schema.target)  # class labels compared as the chain wrote them

@@ -40,7 +40,7 @@ if TYPE_CHECKING:
     from ..chain import Chain
 
 TABLES = ("data", "chain", "validation", "stage", "audition")
-DATA_KEYS = ("path", "target", "ignore", "features", "task", "positive")
+DATA_KEYS = ("path", "target", "ignore", "features", "task", "positive", "dates")
 CHAIN_KEYS = ("loss", "seed", "threshold")
 MAX_RECIPE_BYTES = 16 * 1024**2
 _SHOWN_TABLES = "[data], [chain], [validation], [[stage]], [[audition]]"
@@ -66,6 +66,7 @@ class Recipe:
     lines: KeyLines | None = field(default=None, compare=False, repr=False)
     patience: dict[int, int] = field(default_factory=dict)   # stage entry -> patience (grow)
     auditions: tuple[Audition, ...] = ()
+    dates: tuple[tuple[str, tuple[str, ...]], ...] = ()      # date column -> parts that become features
 
     @property
     def name(self) -> str:
@@ -224,8 +225,28 @@ class _Reader:
             "data_path": None if path is None else base_dir / path,
             "target": target, "task": task,
             "positive": None if positive is None else str(positive),
-            "ignore": ignore, "features": features,
+            "ignore": ignore, "features": features, "dates": self.dates(data),
         }
+
+    def dates(self, data: dict[str, Any]) -> tuple[tuple[str, tuple[str, ...]], ...]:
+        """Return ``[data] dates``: each date column with the parts of it that become features."""
+        from ..dates import DATE_PARTS
+
+        value = data.get("dates", {})
+        example = 'dates = { placed_at = ["hour", "day_of_week"] }'
+        if not isinstance(value, dict):
+            raise self.fail(f"dates must be a table such as {example}, not {shown(value)}", "data", 0, "dates")
+        out = []
+        for column, parts in value.items():
+            if not isinstance(parts, list) or not parts or not all(isinstance(p, str) for p in parts):
+                raise self.fail(f"dates: {column!r} must list its parts in quotes, such as {example}", "data", 0,
+                                "dates")
+            unknown = [p for p in parts if p not in DATE_PARTS]
+            if unknown:
+                raise self.fail(f"dates: unknown part {unknown[0]!r} of {column!r} (parts: {', '.join(DATE_PARTS)})",
+                                "data", 0, "dates")
+            out.append((column, tuple(parts)))
+        return tuple(out)
 
     def stages(self, doc: dict[str, Any], task: str | None) -> list[parsing.StageEntry]:
         entries = doc.get("stage")
@@ -250,13 +271,18 @@ def recipe_to_toml(recipe: Recipe, base_dir: str | os.PathLike | None = None) ->
         out.append(f"path = {toml_value(_relative(recipe.data_path, base_dir))}")
     else:
         out.append('# path = "data.csv"  (not known: set it here or pass --data)')
+    binary = recipe.task == "binary"
     data: dict[str, Any] = {"target": recipe.target, "ignore": list(recipe.ignore), "features": recipe.features,
-                            "task": recipe.task, "positive": recipe.positive}
+                            "task": recipe.task, "positive": recipe.positive if binary else None,
+                            "dates": {column: list(parts) for column, parts in recipe.dates} or None}
     out += _pairs({k: v for k, v in data.items() if v is not None and v != []})
     out += ["", "[chain]"]
-    out += _pairs({k: v for k, v in {"loss": recipe.loss, "seed": recipe.seed, "threshold": recipe.threshold}.items()
-                   if v is not None})
-    out += ["", "[validation]", *_pairs(recipe.validation.to_dict())]
+    chain = {"loss": recipe.loss, "seed": recipe.seed, "threshold": recipe.threshold if binary else None}
+    out += _pairs({k: v for k, v in chain.items() if v is not None})
+    validation = recipe.validation.to_dict()
+    if not binary and validation.get("stratify") is True:
+        del validation["stratify"]  # only a binary target is stratified: the default says nothing here
+    out += ["", "[validation]", *_pairs(validation)]
     for i, (spec, repeat) in enumerate(recipe.stages):
         entry = spec.to_dict()
         if "params" in entry:
@@ -307,6 +333,7 @@ def recipe_of_chain(chain: Chain) -> Recipe:
         stages=tuple((spec, n) for spec, n in folded), ignore=tuple(c for c in chain.ignore if c not in used),
         features=None if chain.prepared.features_inferred else tuple(schema.names), task=schema.task,
         positive=schema.positive_class, loss=chain.loss.name, seed=chain.seed, threshold=chain.threshold,
+        dates=tuple(schema.dates().items()),
     )
 
 
@@ -347,7 +374,7 @@ def build_chain(recipe: Recipe, data: str | os.PathLike | pd.DataFrame | None = 
         chain = Chain(frame, recipe.target, recipe.validation, recipe.loss, seed=recipe.seed,
                       ignore=recipe.ignore, features=None if recipe.features is None else list(recipe.features),
                       task=recipe.task, positive=recipe.positive, threshold=recipe.threshold, source=name,
-                      data_path=data_path)
+                      data_path=data_path, dates={column: list(parts) for column, parts in recipe.dates})
     except ValidationSpecError as err:
         raise RecipeError(f"{recipe.where('validation')}: {err}") from None
     except StageSpecError as err:
@@ -359,7 +386,8 @@ def build_chain(recipe: Recipe, data: str | os.PathLike | pd.DataFrame | None = 
 def _check_columns(recipe: Recipe, columns: list[str], data_name: str) -> None:
     """Raise RecipeError, with the recipe line, for a column the recipe names that the data lacks."""
     named = [("target", recipe.target)] + [("ignore", c) for c in recipe.ignore]
-    named += [("features", c) for c in recipe.features or ()]
+    named += [("features", c) for c in recipe.features or () if c not in _derived_names(recipe)]
+    named += [("dates", c) for c, _ in recipe.dates]
     named += [("column", c) for c in recipe.validation.columns_used]
     for key, column in named:
         if column in columns:
@@ -368,6 +396,12 @@ def _check_columns(recipe: Recipe, columns: list[str], data_name: str) -> None:
         close = difflib.get_close_matches(column, columns, n=1)
         hint = f" (did you mean {close[0]!r}?)" if close else ""
         raise RecipeError(f"{recipe.where(table, 0, key)}: {key} {column!r} is not a column of {data_name}{hint}")
+
+
+def _derived_names(recipe: Recipe) -> set[str]:
+    from ..dates import derived_name
+
+    return {derived_name(column, part) for column, parts in recipe.dates for part in parts}
 
 
 def _check_stage_features(recipe: Recipe, chain: Chain) -> None:

@@ -52,6 +52,7 @@ from ..fitting import Stage
 from ..kinds.base import ProgressFn
 from ..manifest_schema import ManifestMismatch, strict_json
 from ..reading import load_frame
+from ..schema import Schema
 from ..validation import spec_from_dict
 from . import store
 from .session_manifest import check_session_manifest
@@ -305,7 +306,8 @@ def _rebuild(manifest: dict[str, Any], source: Any, name: str) -> Chain:
         settings = {"validation": spec_from_dict(dict(manifest["validation"])), "loss": str(manifest["loss"]),
                     "seed": int(manifest["seed"]), "ignore": [str(c) for c in columns["ignore"]],
                     "task": str(columns["task"]), "positive": columns["positive"],
-                    "threshold": float(columns["threshold"]), "source": data_name}
+                    "threshold": float(columns["threshold"]), "source": data_name,
+                    "dates": {k: list(v) for k, v in Schema.from_dict(columns["schema"]).dates().items()}}
         target, features = str(columns["target"]), [str(c) for c in columns["features"]]
     data_path = os.fspath(source) if isinstance(source, str | os.PathLike) else None
     try:

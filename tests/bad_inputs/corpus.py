@@ -241,7 +241,7 @@ _ENTRIES = (
           handling="every column is a feature (one float64 matrix column each)", rows=30, features=9_999, data_rows=30),
     Entry("id_column", "a column of unique strings (an ID)",
           _csv("ids.csv", _with("order_id", lambda n: [f"ORD-{i:05d}" for i in range(n)])),
-          handling="the ID column is excluded, with a note", note=("column 'order_id' excluded: every value is unique (an ID?)",),
+          handling="the id column is not a feature, with a note", note=("column 'order_id' is an id (a distinct value on every row), not a feature",),
           rows=ROWS, features=3),
     Entry("dates_as_text", "dates as text", _csv("dates.csv", _with("ordered", _dates)),
           handling="the date column is not a feature (it can order rows for time validation), with a note",

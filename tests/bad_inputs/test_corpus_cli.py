@@ -124,7 +124,7 @@ def test_a_real_process_fits_past_an_id_column_with_its_note(corpus, tmp_path):
     folder, _ = corpus
     done = remnant("fit", "id_column.toml", "--out", tmp_path / "ids.chain", cwd=folder)
     assert done.returncode == 0, done.stderr
-    assert "note: column 'order_id' excluded: every value is unique (an ID?)" in done.stderr.splitlines()
+    assert "note: column 'order_id' is an id (a distinct value on every row), not a feature" in done.stderr.splitlines()
     assert "Traceback" not in done.stderr
 
 

@@ -14,6 +14,7 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 
 from stages.data import (
+    ID,
     ColumnReport,
     Prepared,
     describe_columns,
@@ -302,9 +303,34 @@ def test_text_that_is_mostly_not_dates_is_categorical():
     assert infer_role(values)[0] == CATEGORICAL
 
 
-def test_unique_text_over_20_rows_is_excluded_as_an_id():
-    assert infer_role(pd.Series([f"order-{i}" for i in range(21)])) == ("excluded", "every value is unique (an ID?)")
+def test_unique_text_over_20_rows_is_an_id():
+    assert infer_role(pd.Series([f"order-{i}" for i in range(21)])) == (ID, "a distinct value on every row: an id, not a feature")
     assert infer_role(pd.Series([f"order-{i}" for i in range(20)]))[0] == CATEGORICAL
+
+
+def test_whole_numbers_that_rise_or_fall_down_every_row_are_an_id():
+    assert infer_role(pd.Series(np.arange(100, 130)))[0] == ID
+    assert infer_role(pd.Series(np.arange(30)[::-1]))[0] == ID
+    assert infer_role(pd.Series(pd.array(range(30), dtype="Int64")))[0] == ID
+    # not row numbers: floats, a repeat, a fraction, a missing value, too few rows, or no order
+    assert infer_role(pd.Series(np.arange(30.0)))[0] == NUMERIC
+    assert infer_role(pd.Series(np.r_[np.arange(29), 28]))[0] == NUMERIC
+    assert infer_role(pd.Series(np.arange(30) + 0.5))[0] == NUMERIC
+    assert infer_role(pd.Series(np.r_[np.arange(29.0), np.nan]))[0] == NUMERIC
+    assert infer_role(pd.Series(np.arange(20)))[0] == NUMERIC
+    assert infer_role(pd.Series(np.random.RandomState(0).permutation(30)))[0] == NUMERIC
+    roles = {r.name: r.role for r in describe_columns(pd.DataFrame({"n": np.arange(30), "x": np.arange(30) % 7}))}
+    assert roles == {"n": ID, "x": NUMERIC}
+
+
+def test_the_first_id_column_names_the_rows_even_when_ignored():
+    frame = pd.DataFrame({"ref": [f"r{i}" for i in range(30)], "row": np.arange(30), "x": np.arange(30) % 7,
+                          "y": np.arange(30) % 5})
+    prepared = prepare(frame, "y", ignore=["ref"])
+    assert prepared.schema.names == ["x"] and prepared.schema.id_column == "ref"
+    assert prepare(frame, "y", features=["x", "row"]).schema.id_column == "ref"
+    assert prepare(frame.drop(columns="ref"), "y").schema.id_column == "row"
+    assert prepare(frame[["x", "y"]], "y").schema.id_column == ""
 
 
 def test_more_than_1000_levels_is_excluded_with_the_count():
@@ -522,13 +548,13 @@ def test_excluded_columns_get_a_note_but_ignored_ones_do_not():
         "placed": pd.date_range("2024-01-01", periods=30).astype(str),
         "note": ["same"] * 30,
         "driver": [f"d{i}" for i in range(30)],
-        "x": np.arange(30.0),
+        "x": np.arange(30.0) % 11,
         "y": np.arange(30.0) % 7,
     })
     prepared = prepare(frame, "y", ignore=["driver"])
     assert prepared.schema.names == ["x"]
     joined = "\n".join(prepared.notes)
-    assert "column 'order_id' excluded: every value is unique (an ID?)" in joined
+    assert "column 'order_id' is an id (a distinct value on every row), not a feature" in joined
     assert "column 'placed' is not a feature: it holds dates" in joined
     assert "column 'note' excluded: constant" in joined
     assert "driver" not in joined
