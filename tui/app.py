@@ -19,6 +19,7 @@ from textual.binding import Binding
 
 from stages.errors import DataError, RemnantError
 
+from .background import BackgroundRunner
 from .logs import log_to_file, logger, stop_logging
 from .screens.add_stage import AddStageScreen
 from .screens.audition_form import AuditionForm
@@ -45,7 +46,7 @@ if TYPE_CHECKING:
 log = logger(__name__)
 
 
-class RemnantApp(FitRunner, App):
+class RemnantApp(BackgroundRunner, FitRunner, App):
     """The workbench: one chain, its panes, and every action by keyboard.
 
     Give one of: ``frame`` (the setup screen), ``recipe`` (fit it, then the workbench),
@@ -62,8 +63,9 @@ class RemnantApp(FitRunner, App):
     ENABLE_COMMAND_PALETTE = False
     BINDINGS = [
         Binding("question_mark,f1", "help", "help", tooltip="list every key"),
-        Binding("q", "quit", "quit", tooltip="quit (a running fit is cancelled)"),
-        Binding("ctrl+q", "quit", "quit", show=False),
+        # priority: q quits from every screen and dialog, unless a text field takes the letter
+        Binding("q", "quit", "quit", priority=True, tooltip="quit (a running fit is cancelled); in a text field, ctrl+q"),
+        Binding("ctrl+q", "quit", "quit", show=False, priority=True, tooltip="quit, from anywhere"),
     ]
 
     def __init__(self, *, frame: pd.DataFrame | None = None, source: str = "data", data_path: str | None = None,
@@ -110,12 +112,12 @@ class RemnantApp(FitRunner, App):
         gc.freeze()
 
     def open_workbench(self, chain: Chain, view: ChainView, cache: ImportanceCache, summary: str = "",
-                       session_error: str = "") -> None:
+                       session_error: str = "", ids: Any = None) -> None:
         """Show the workbench over ``chain`` in place of the current screen, ``summary`` in its status line
-        (and ``session_error``, why the session was not saved, once it is up)."""
+        (and ``session_error``, why the session was not saved, once it is up); ``ids`` names the rows."""
         self.start["frame"] = None  # the chain holds the data now; the frame read for setup would be a second copy
         screen = WorkbenchScreen(chain, view, cache=cache, summary=summary, session_error=session_error,
-                                 timings=self.timings)
+                                 timings=self.timings, ids=ids)
         if len(self.screen_stack) > 1:
             self.switch_screen(screen)
         else:
@@ -141,6 +143,11 @@ class RemnantApp(FitRunner, App):
             ("questions", [("y / enter", "yes"), ("n / esc", "no")]),
             ("everywhere", describe(self.BINDINGS)),
         ]
+
+    def on_worker_state_changed(self, event: Any) -> None:
+        """Deliver a pane's answer, or a finished job."""
+        if not self.answer_finished(event):
+            super().on_worker_state_changed(event)
 
     def action_help(self) -> None:
         """Show every key, and where the log is written."""

@@ -3,11 +3,13 @@
 
 from __future__ import annotations
 
+import math
 from typing import Any
 
 from stages.report.numbers import DIGITS, column_text, number_text, pair_text, seconds_text
 
-__all__ = ["bar", "column_text", "number", "pair_text", "parse_value", "seconds", "signed", "spec_text", "value"]
+__all__ = ["bar", "column_text", "nice_ticks", "number", "pair_text", "parse_value", "seconds", "signed", "spec_text",
+           "tick_labels", "value"]
 
 #: one-eighth steps of a block, for bars drawn in text
 _EIGHTHS = " ▏▎▍▌▋▊▉"
@@ -69,3 +71,22 @@ def bar(share: float, width: int) -> str:
     full, rest = divmod(eighths, 8)
     text = "█" * full + (_EIGHTHS[rest] if rest else "")
     return text.ljust(width)
+
+
+def nice_ticks(low: float, high: float, count: int) -> list[float]:
+    """Return about ``count`` round tick values (steps of 1, 2 or 5 times a power of ten) within [low, high]."""
+    if not (math.isfinite(low) and math.isfinite(high)) or high <= low:
+        return [float(low)] if math.isfinite(low) else []
+    raw = (high - low) / max(1, count - 1)
+    power = 10.0 ** math.floor(math.log10(raw))
+    # the round step whose number of ticks inside the range is closest to count
+    step = min((m * power for m in (0.5, 1, 2, 5, 10)),
+               key=lambda s: abs(math.floor(high / s + 1e-9) - math.ceil(low / s - 1e-9) + 1 - count))
+    first = math.ceil(low / step - 1e-9)
+    ticks = [k * step for k in range(first, math.floor(high / step + 1e-9) + 1)]
+    return [0.0 if abs(t) < step * 1e-9 else t for t in ticks] or [float(low), float(high)]
+
+
+def tick_labels(ticks: list[float]) -> list[str]:
+    """Return axis labels for ``ticks``: one style, three significant digits, no trailing zeros."""
+    return column_text(ticks, digits=3, trim=True)

@@ -20,7 +20,8 @@ from textual.message_pump import MessagePump
 import stages
 from stages.spec import StageSpec
 
-from .format import number
+from .answers import compact_ids
+from .format import number, pair_text
 from .messages import ChainChanged, ChainFileOpened, ChainReady, FileWritten, StageFitted
 from .view import ChainView, ImportanceCache, view_of_chain
 from .worker import FitJob, JobContext
@@ -43,6 +44,7 @@ class SetupChoices:
     loss: str | None
     validation: ValidationSpec
     seed: int
+    dates: dict[str, tuple[str, ...]] | None = None
 
 
 #: during a long job (a recipe, a grow) the session is saved after a stage at most this often, in seconds
@@ -70,10 +72,12 @@ class SessionSaver:
 
 
 def score_change(before: ChainView | None, after: ChainView) -> str:
-    """Return the change in the last row's validation metric, as the status line says it."""
+    """Return the change in the last row's validation metric, as the status line says it (both
+    numbers in one style, so the digits that changed show)."""
     if before is None or not before.rows:
         return f"valid {after.metric} {number(after.rows[-1].valid)}"
-    return f"valid {after.metric} {number(before.rows[-1].valid)} → {number(after.rows[-1].valid)}"
+    old, new = pair_text(before.rows[-1].valid, after.rows[-1].valid)
+    return f"valid {after.metric} {old} → {new}"
 
 
 def new_chain(owner: MessagePump, choices: SetupChoices, cache: ImportanceCache) -> FitJob:
@@ -87,9 +91,12 @@ def new_chain(owner: MessagePump, choices: SetupChoices, cache: ImportanceCache)
         ctx.progress(0.0, "preparing the data")
         choices = held.pop()
         chain = stages.Chain(choices.frame, choices.target, choices.validation, choices.loss, seed=choices.seed,
-                             ignore=choices.ignore, source=choices.source, data_path=choices.data_path or None)
+                             ignore=choices.ignore, source=choices.source, data_path=choices.data_path or None,
+                             dates={k: list(v) for k, v in (choices.dates or {}).items()})
+        id_column = chain.schema.id_column
+        ids = compact_ids(choices.frame[id_column]) if id_column else None
         view = view_of_chain(chain, cache)
-        return ChainReady(chain, view, session_error=ctx.save(chain))
+        return ChainReady(chain, view, session_error=ctx.save(chain), ids=ids)
 
     return FitJob("building the chain", run, owner, cancellable=False,
                   failure_note="nothing was built; change the choices and start again")

@@ -7,7 +7,7 @@ screens react by setting their widgets' attributes.
 from __future__ import annotations
 
 from pathlib import Path
-from typing import TYPE_CHECKING
+from typing import TYPE_CHECKING, Any
 
 from textual.message import Message
 
@@ -23,11 +23,13 @@ if TYPE_CHECKING:
 class ChainReady(Message):
     """A chain was built (setup screen, recipe) or resumed from its session; ``summary`` says how."""
 
-    def __init__(self, chain: Chain, view: ChainView, summary: str = "", session_error: str = "") -> None:
+    def __init__(self, chain: Chain, view: ChainView, summary: str = "", session_error: str = "",
+                 ids: Any = None) -> None:
         self.chain = chain
         self.view = view
         self.summary = summary
         self.session_error = session_error
+        self.ids = ids
         super().__init__()
 
 

@@ -48,6 +48,7 @@ class StageInfo:
     step: float = float("nan")
     step_rule: str = ""
     notes: tuple[str, ...] = ()
+    importance_type: str = ""
 
 
 @dataclass(frozen=True, eq=False)
@@ -109,6 +110,10 @@ class ChainView:
     read_only: bool = False
     data_path: str | None = None
     extra: dict[str, Any] = field(default_factory=dict)
+    #: the chain's stage objects when the snapshot was taken (they name the chain state in questions)
+    stage_objects: tuple[Any, ...] = ()
+    id_column: str = ""
+    n_rows: int = 0
 
     @property
     def n_stages(self) -> int:
@@ -126,25 +131,32 @@ class ChainView:
 
 
 class ImportanceCache:
-    """Feature importance per fitted stage, computed once (stage objects never change)."""
+    """Feature importance per fitted stage and what it measures, computed once (stage objects never change)."""
 
     def __init__(self) -> None:
-        self._values: dict[Any, dict[str, float]] = {}
+        self._values: dict[Any, tuple[dict[str, float], str]] = {}
 
     def get(self, chain: Chain, row: int) -> dict[str, float]:
         """Return the importance of stage ``row`` of ``chain``, computing it on first use."""
+        return self.entry(chain, row)[0]
+
+    def entry(self, chain: Chain, row: int) -> tuple[dict[str, float], str]:
+        """Return the importance of stage ``row`` of ``chain`` and what it measures (``importance_type``)."""
+        from stages.understand.importance import importance_type
+
         stage = chain.stages[row - 1]
         if stage not in self._values:
-            self._values[stage] = chain.importance(row)
+            columns = chain.schema.subset(list(stage.feature_index))
+            self._values[stage] = (chain.importance(row), importance_type(stage.kind, stage.learners[0], columns))
         return self._values[stage]
 
 
-def _sizes(rows: dict[str, int], kfold: str = "") -> str:
-    text = f"{rows.get('train', 0):,} fit · {rows.get('valid', 0):,} valid"
+def _sizes(rows: dict[str, int], kfold: str = "", revealed: bool = False) -> str:
+    text = f"{rows.get('train', 0):,} train · {rows.get('valid', 0):,} valid"
     if kfold:
-        text = f"{rows.get('train', 0):,} rows scored out of fold"
+        text = f"{rows.get('train', 0):,} train, scored out of fold"
     if rows.get("test"):
-        text += f" · {rows['test']:,} test locked"
+        text += f" · {rows['test']:,} test {'revealed' if revealed else 'locked'}"
     return text
 
 
@@ -153,12 +165,14 @@ def view_of_chain(chain: Chain, cache: ImportanceCache) -> ChainView:
     table = stage_rows(chain)
     names = chain.schema.names
     infos = []
-    for i, stage in enumerate(chain.stages, start=1):
+    stages = chain.stages
+    for i, stage in enumerate(stages, start=1):
         features = tuple(names[j] for j in stage.feature_index)
+        importance, measured = cache.entry(chain, i)
         infos.append(StageInfo(
             index=i, kind=stage.kind, shrinkage=stage.spec.shrinkage, given=dict(stage.spec.params),
             params=dict(stage.params), features=features, all_features=len(features) == len(names),
-            seconds=stage.fit_seconds, importance=cache.get(chain, i), step=stage.step,
+            seconds=stage.fit_seconds, importance=importance, importance_type=measured, step=stage.step,
             step_rule=stage.step_rule, notes=tuple(stage.notes),
         ))
     described = chain.describe()
@@ -169,28 +183,32 @@ def view_of_chain(chain: Chain, cache: ImportanceCache) -> ChainView:
     return ChainView(
         source=chain.source, target=chain.schema.target, task=chain.task, loss=chain.loss.name,
         metric=table.metric, second=table.second, validation=chain.validation.describe(),
-        sizes=_sizes(described["rows"], kfold), start_value=float(chain.starts[0]),
+        sizes=_sizes(described["rows"], kfold, chain.test_revealed), start_value=float(chain.starts[0]),
         rows=table.rows, stages=tuple(infos), features=tuple(names),
         notes=tuple(chain.notes), classes=tuple(chain.schema.classes), has_test=layout.n_test > 0,
         n_test=layout.n_test,
         test_revealed=chain.test_revealed, reveals=chain.reveal_count, can_undo=chain.can_undo(),
         kfold=layout.is_kfold,
-        residuals=source, data_path=chain.data_path,
+        residuals=source, data_path=chain.data_path, stage_objects=tuple(stages), id_column=chain.schema.id_column,
+        n_rows=int(sum(described["rows"].values())),
     )
 
 
-def _stored_importance(stage: FittedStage, columns: tuple[ColumnInfo, ...]) -> dict[str, float] | None:
+def _stored_importance(stage: FittedStage, columns: tuple[ColumnInfo, ...]) -> tuple[dict[str, float] | None, str]:
+    from stages.understand.importance import importance_type
+
     try:
         values = get_kind(stage.kind).importance(stage.learner, columns)
+        measured = importance_type(stage.kind, stage.learner, columns) if values is not None else ""
     except Exception:  # an importance the learner cannot give is simply not shown
-        return None
+        return None, ""
     if values is None:
-        return None
+        return None, ""
     values = np.asarray(values, dtype=np.float64)
     total = float(values.sum())
     if total > 0:
         values = values / total
-    return {c.name: float(v) for c, v in zip(columns, values, strict=False)}
+    return {c.name: float(v) for c, v in zip(columns, values, strict=False)}, measured
 
 
 def view_of_fitted(fitted: FittedChain, name: str) -> ChainView:
@@ -206,16 +224,22 @@ def view_of_fitted(fitted: FittedChain, name: str) -> ChainView:
     for i, stage in enumerate(fitted.stages, start=1):
         columns = fitted.schema.subset(list(stage.feature_index))
         features = tuple(c.name for c in columns)
+        importance, measured = _stored_importance(stage, columns)
         infos.append(StageInfo(
             index=i, kind=stage.kind, shrinkage=stage.spec.shrinkage, given=dict(stage.spec.params),
             params=dict(stage.params), features=features, all_features=len(features) == len(names),
-            seconds=stage.fit_seconds, importance=_stored_importance(stage, columns), step=stage.step,
+            seconds=stage.fit_seconds, importance=importance, importance_type=measured, step=stage.step,
             step_rule=stage.step_rule, notes=tuple(stage.notes),
         ))
+    # a read-only view shows everything the file holds: the test scores, when it was revealed
+    revealed = bool(meta.get("test_revealed")) or any(r.test is not None for r in table.rows)
     return ChainView(
         source=name, target=fitted.schema.target, task=fitted.task, loss=fitted.loss.name, metric=table.metric,
-        second=table.second, validation=validation, sizes=_sizes(dict(meta.get("rows", {})), "folds" if kfold else ""),
+        second=table.second, validation=validation,
+        sizes=_sizes(dict(meta.get("rows", {})), "folds" if kfold else "", revealed),
         start_value=float(fitted.start), rows=table.rows, stages=tuple(infos),
         features=tuple(names), classes=tuple(fitted.schema.classes), read_only=True, kfold=kfold,
-        extra={"data": meta.get("source", "")},
+        test_revealed=revealed, has_test=bool((meta.get("rows") or {}).get("test")),
+        reveals=int(meta.get("test_reveals") or 0), extra={"data": meta.get("source", "")},
+        id_column=fitted.schema.id_column,
     )

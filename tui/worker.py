@@ -93,6 +93,11 @@ class FitRunner(_App):
         return self._job is not None
 
     @property
+    def job_label(self) -> str:
+        """Return what the running job does ("" when none runs)."""
+        return self._job.label if self._job is not None else ""
+
+    @property
     def job_cancellable(self) -> bool:
         """Return True while a job that can be cancelled runs."""
         return self._job is not None and self._job.cancellable

@@ -7,9 +7,10 @@ pair) are written in one style, chosen from all of them (``style_of``):
   tiny): ``DIGITS`` significant digits each, ``-7.488e-05``;
 - otherwise **fixed**, one number of decimals for the whole column: enough for the largest
   magnitude to show ``DIGITS`` significant digits, more when the two closest distinct values
-  need them to differ or the smallest non-zero value needs them for two significant digits,
-  but never more than ``EXTRA`` beyond what the largest needs (nor more than ``MAX_DECIMALS``).
-  So ``7.480`` never stands beside ``7.506``, and ``-0.004000`` stands beside ``-0.000325``.
+  need them to differ, but never more than ``EXTRA`` beyond what the largest needs (nor more
+  than ``MAX_DECIMALS``). So ``7.480`` never stands beside ``7.506``, ``-0.004000`` stands
+  beside ``-0.000325``, and a value far smaller than the column's largest shows as zero in the
+  column's decimals, keeping its sign (``-0.00`` beside ``-24.67``).
 
 A single number is a column of one. Missing values (None, NaN) are written as ``missing``.
 Whole counts of rows are written with thousands separators (``count_text``); measurements
@@ -91,7 +92,6 @@ def style_of(values: Iterable[Any], digits: int = DIGITS) -> NumberStyle:
         return NumberStyle(None, digits)
     base = max(0, digits - 1 - _exponent(largest))
     wanted = base
-    wanted = max(wanted, 1 - _exponent(min(sizes)))
     distinct = sorted(set(finite))
     gaps = [b - a for a, b in zip(distinct, distinct[1:], strict=False) if b - a > 0]
     if gaps:

@@ -2,7 +2,7 @@
 
 from __future__ import annotations
 
-from typing import TYPE_CHECKING
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
@@ -45,3 +45,26 @@ def _permutation(chain: Chain, row: int, sample: int) -> np.ndarray:
         return scale * np.asarray(learner.predict(rows), dtype=np.float64)
 
     return scoring.permutation_importance(predict, X, y, base, chain.loss, sample=sample, seed=chain.seed)
+
+
+#: what each kind's own importance measures
+NATIVE = {"tree": "impurity", "forest": "impurity", "extra_trees": "impurity",
+          "linear": "|coefficient| standardised", "ridge": "|coefficient| standardised",
+          "lasso": "|coefficient| standardised", "logistic": "|coefficient| standardised",
+          "spline": "|coefficient| of the basis"}
+
+
+def importance_type(kind: str, learner: Any, columns: tuple[Any, ...]) -> str:
+    """Return what a stage's importance (``stage_importance``) measures: ``impurity`` (the fall in
+    squared error at the tree's splits), ``gain`` or ``split count`` (LightGBM), ``|coefficient|
+    standardised`` (linear kinds), or ``permutation`` (the rise in validation loss when the feature
+    is shuffled, for learners without an importance of their own)."""
+    booster = getattr(learner, "importance_type", None)
+    if isinstance(booster, str):
+        return "split count" if booster == "split" else booster
+    if get_kind(kind).importance(learner, columns) is None:
+        return "permutation"
+    if kind in NATIVE:
+        return NATIVE[kind]
+    estimator = getattr(learner, "estimator", None)
+    return "impurity" if getattr(estimator, "feature_importances_", None) is not None else "|coefficient|"

@@ -38,7 +38,9 @@ def test_a_column_keeps_one_number_of_decimals():
 
 def test_a_column_of_mixed_sizes_stays_fixed_and_shows_a_tiny_change_with_its_sign():
     texts = column_text([math.nan, -24.6689, 0.28, -7.488e-05], signed=True)
-    assert texts == ["", "-24.6689", "+0.2800", "-0.0001"]
+    assert texts == ["", "-24.67", "+0.28", "-0.00"]
+    # an R² column whose start row is almost zero keeps the four digits of its largest value
+    assert column_text([-7.5e-05, 0.689126, 0.740569]) == ["-0.0001", "0.6891", "0.7406"]
 
 
 def test_close_values_get_the_decimals_that_tell_them_apart():

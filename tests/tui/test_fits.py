@@ -15,7 +15,7 @@ from tui.screens.add_stage import AddStageScreen
 from tui.screens.failure import FailureScreen
 from tui.screens.workbench import WorkbenchScreen
 from tui.widgets.fit_progress import FitProgress
-from tui.widgets.residual_histogram import ResidualHistogram
+from tui.widgets.residual_pane import ResidualPane
 
 
 class ExplodingKind(StageKind):
@@ -68,7 +68,7 @@ async def test_cancelling_a_long_fit_leaves_the_chain_unchanged(tmp_path):
         shown = {b.binding.action for b in app.active_bindings.values() if b.binding.show}
         assert "cancel_fit" in shown and "add_stage" not in shown and "step_back" not in shown
         # the panes read a snapshot, so moving through the chain never waits for the fit
-        histogram = screen.query_one(ResidualHistogram)
+        histogram = screen.query_one(ResidualPane)
         await pilot.press("up")
         await pilot.pause()
         assert app.fitting and histogram.row == 0
@@ -133,15 +133,29 @@ async def test_the_form_works_by_keyboard_alone(tmp_path):
         await pilot.press("a")
         await pilot.pause()
         form = app.screen
-        assert form.focused is form.query_one("#kind", Select)
-        await pilot.press("enter", "down", "enter")  # open the kind list, take the next kind
+        kinds = form.query_one("#kind", Select)
+        assert form.focused is kinds
+        await pilot.press("down", "down", "enter")  # open the kind list, take the next kind
         await pilot.pause()
-        chosen = form.query_one("#kind", Select).value
-        assert chosen == "ridge"  # the kind after linear
+        await pilot.pause()
+        assert kinds.value == "ridge"  # the kind after linear
+        assert form.focused is not kinds  # picking a kind moves on, so the next enter fits
         assert [i.name for i in form.query(".param").results(Input)] == ["alpha"]
-        await pilot.press("tab", "enter")  # to the shrinkage field, then fit
+        await pilot.press("enter")
         await settle(pilot)
         assert [r.kind for r in app.screen.view.rows] == ["start", "ridge"]
+
+
+async def test_enter_on_the_closed_kind_list_fits_instead_of_opening_it(tmp_path):
+    app = setup_app(diabetes_csv(tmp_path))
+    async with app.run_test(size=(80, 24)) as pilot:
+        await start_chain(pilot)
+        await pilot.press("a")
+        await pilot.pause()
+        assert isinstance(app.screen, AddStageScreen) and app.screen.focused.id == "kind"
+        await pilot.press("enter")
+        await settle(pilot)
+        assert [r.kind for r in app.screen.view.rows] == ["start", "linear"]
 
 
 def test_a_newer_progress_report_replaces_one_still_waiting():

@@ -12,9 +12,10 @@ from textual.widgets import Select
 from tui_support import add_stage, diabetes_csv, settle, setup_app, start_chain
 
 from tui.app import RemnantApp
+from tui.figures import sample_rows
 from tui.screens.help import HelpScreen
 from tui.screens.workbench import WorkbenchScreen
-from tui.widgets.residual_histogram import ResidualHistogram, sample_rows
+from tui.widgets.residual_pane import ResidualPane
 
 
 def cancer_csv(folder):
@@ -57,12 +58,12 @@ async def test_binary_chain_shows_pseudo_residuals_and_probabilities_by_class(tm
     path = cancer_csv(tmp_path)
     app = setup_app(path, target="malignant")
     async with app.run_test(size=(80, 24)) as pilot:
-        await pilot.pause()
+        await settle(pilot)
         options = {v for _, v in app.screen.query_one("#loss", Select)._options if v != Select.NULL}
         assert options == {"logloss"}
         await start_chain(pilot)
         await add_stage(pilot, "logistic")
-        histogram = app.screen.query_one(ResidualHistogram)
+        histogram = app.screen.query_one(ResidualPane)
         assert histogram.border_title.startswith("pseudo-residuals y-p")
         residuals = app.screen.view.residuals.residuals("valid", 1)
         assert residuals.min() > -1 and residuals.max() < 1
@@ -72,10 +73,11 @@ async def test_binary_chain_shows_pseudo_residuals_and_probabilities_by_class(tm
         chain = app.screen.chain
         # reference: the validation rows' classes counted by pandas from the CSV itself
         classes = pd.read_csv(path)["malignant"].iloc[chain.split.valid].value_counts()
-        assert int(histogram.counts["1"].sum()) == classes[1]
-        assert int(histogram.counts["0"].sum()) == classes[0]
-        await pilot.press("v")
-        assert histogram.mode == "histogram"
+        assert int(histogram.plot.counts["1"].sum()) == classes[1]
+        assert int(histogram.plot.counts["0"].sum()) == classes[0]
+        for mode in ("feature", "largest", "calibration", "histogram"):  # the binary chain's other views
+            await pilot.press("v")
+            assert histogram.mode == mode
 
 
 async def test_residuals_against_fitted_plot_a_bounded_sample(tmp_path):
@@ -85,9 +87,9 @@ async def test_residuals_against_fitted_plot_a_bounded_sample(tmp_path):
         await add_stage(pilot, "linear")
         await pilot.press("v")
         await pilot.pause()
-        histogram = app.screen.query_one(ResidualHistogram)
+        histogram = app.screen.query_one(ResidualPane)
         assert histogram.mode == "fitted"
-        assert len(histogram._points[0]) == app.screen.view.residuals.targets("valid").size
+        assert len(histogram.plot.figure.x) == app.screen.view.residuals.targets("valid").size
     rows = sample_rows(1_000_000)
     assert len(rows) == 2000 and np.all(np.diff(rows) > 0)
     assert np.array_equal(rows, sample_rows(1_000_000))
@@ -125,7 +127,7 @@ async def test_reveal_needs_a_yes_and_adds_the_test_column(tmp_path):
         await settle(pilot)
         view = app.screen.view
         assert view.test_revealed and all(r.test is not None for r in view.rows)
-        assert "r" not in {b.binding.key for b in app.active_bindings.values() if b.enabled}
+        assert "reveal_test" not in {b.binding.action for b in app.active_bindings.values() if b.enabled}
         await add_stage(pilot, "tree", 0.5)
         assert not app.screen.view.test_revealed  # any change locks the test part again
 

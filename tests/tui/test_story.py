@@ -20,7 +20,7 @@ from tui.screens.setup import SetupScreen
 from tui.screens.workbench import WorkbenchScreen
 from tui.widgets.chain_table import ChainTable
 from tui.widgets.column_roles import ColumnRoles
-from tui.widgets.residual_histogram import ResidualHistogram
+from tui.widgets.residual_pane import ResidualPane
 
 
 def kinds(screen: WorkbenchScreen) -> list[str]:
@@ -45,14 +45,14 @@ async def three_stages(pilot) -> WorkbenchScreen:
 async def test_setup_screen_shows_roles_and_preselects_the_target(tmp_path):
     app = setup_app(diabetes_csv(tmp_path))
     async with app.run_test(size=(80, 24)) as pilot:
-        await pilot.pause()
+        await settle(pilot)
         screen = app.screen
         assert isinstance(screen, SetupScreen)
         assert screen.query_one("#target", Select).value == "progression"
         assert screen.chain_task == "regression"
         roles = screen.query_one(ColumnRoles)
         uses = {r.name: str(roles.get_cell(r.name, "use")) for r in roles.reports}
-        assert uses["patient"] == "skipped"  # every value unique: an id
+        assert uses["patient"] == "id"  # every value unique: it names the rows, it is no feature
         assert uses["progression"] == "target" and uses["bmi"] == "numeric"
         # only the losses of a regression are offered
         assert {v for _, v in screen.query_one("#loss", Select)._options if v != Select.NULL} == {
@@ -80,14 +80,14 @@ async def test_three_stages_change_the_table_and_the_histogram(tmp_path):
     app = setup_app(diabetes_csv(tmp_path))
     async with app.run_test(size=(80, 24)) as pilot:
         await start_chain(pilot)
-        histogram = app.screen.query_one(ResidualHistogram)
-        seen = [histogram.counts["valid"].copy()]
+        histogram = app.screen.query_one(ResidualPane)
+        seen = [histogram.plot.counts["valid"].copy()]
         for kind, shrinkage, params in [("linear", 1.0, {}), ("tree", 0.5, {"max_depth": "2"}),
                                         ("lightgbm", 0.5, {"n_estimators": "20", "num_leaves": "7"})]:
             await add_stage(pilot, kind, shrinkage, params)
             assert kinds(app.screen)[-1] == kind
             assert histogram.row == len(kinds(app.screen)) - 1  # the new stage is selected
-            seen.append(histogram.counts["valid"].copy())
+            seen.append(histogram.plot.counts["valid"].copy())
             assert not np.array_equal(seen[-1], seen[-2])
         assert kinds(app.screen) == ["start", "linear", "tree", "lightgbm"]
         assert app.screen.query_one(ChainTable).row_count == 4
@@ -108,10 +108,10 @@ async def test_linear_stage_residuals_match_scikit_learn(tmp_path):
         expected = frame.iloc[valid]["progression"].to_numpy() - model.predict(frame.iloc[valid][features])
         source = app.screen.view.residuals
         np.testing.assert_allclose(source.residuals("valid", 1), expected, rtol=1e-7, atol=1e-7)
-        histogram = app.screen.query_one(ResidualHistogram)
-        shown = np.clip(source.residuals("valid", 1), histogram.edges[0], histogram.edges[-1])
+        histogram = app.screen.query_one(ResidualPane)
+        shown = np.clip(source.residuals("valid", 1), histogram.plot.edges[0], histogram.plot.edges[-1])
         # reference: numpy's histogram over the widget's own edges
-        np.testing.assert_array_equal(histogram.counts["valid"], np.histogram(shown, histogram.edges)[0])
+        np.testing.assert_array_equal(histogram.plot.counts["valid"], np.histogram(shown, histogram.plot.edges)[0])
 
 
 async def test_step_back_drop_trim_and_undo(tmp_path):
@@ -149,7 +149,8 @@ async def test_step_back_drop_trim_and_undo(tmp_path):
         assert screen.view.n_stages == best and "trim" not in bindings_shown(app)
 
 
-async def test_save_export_and_reopen_read_only(tmp_path):
+async def test_save_export_and_reopen_read_only(tmp_path, monkeypatch):
+    monkeypatch.chdir(tmp_path)  # files are offered in the current folder, as an absolute path
     app = setup_app(diabetes_csv(tmp_path))
     async with app.run_test(size=(80, 24)) as pilot:
         screen = await three_stages(pilot)
@@ -176,7 +177,8 @@ async def test_save_export_and_reopen_read_only(tmp_path):
         assert app.screen is screen
 
 
-async def test_saving_over_a_file_asks_first(tmp_path):
+async def test_saving_over_a_file_asks_first(tmp_path, monkeypatch):
+    monkeypatch.chdir(tmp_path)
     app = setup_app(diabetes_csv(tmp_path))
     (tmp_path / "diabetes.chain").write_text("keep me")
     async with app.run_test(size=(80, 24)) as pilot:

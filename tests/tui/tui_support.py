@@ -48,15 +48,19 @@ def setup_app(path: Path, target: str = "progression") -> Any:
 
 
 async def settle(pilot: Pilot) -> None:
-    """Wait until the fit worker is done and every message it caused has been handled."""
-    await pilot.pause()
-    await pilot.app.workers.wait_for_complete()
-    for _ in range(3):
+    """Wait until the fit worker and the panes' questions are done and every message they caused has been handled."""
+    for _ in range(200):  # a generous bound that only catches a hang
         await pilot.pause()
+        await pilot.app.workers.wait_for_complete()
+        for _ in range(3):
+            await pilot.pause()
+        if not pilot.app.fitting and not pilot.app.answering:
+            return
 
 
 async def start_chain(pilot: Pilot) -> None:
-    """Press start on the setup screen and wait for the workbench."""
+    """Wait for the setup screen to read the columns, press start and wait for the workbench."""
+    await settle(pilot)
     await pilot.press("s")
     await settle(pilot)
 

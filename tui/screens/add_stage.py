@@ -20,6 +20,7 @@ from stages.parsing import STAGE_KEYS, stage_entry
 from stages.schema import Task
 
 from ..format import parse_value, value
+from ..widgets.kind_select import KindSelect, kind_label
 from .form import FormError, FormScreen, engine_error
 
 #: the option that stands for any scikit-learn regressor, named by its import path
@@ -44,9 +45,16 @@ def parse_pairs(text: str) -> dict[str, Any]:
     return params
 
 
+#: the order the kind list offers kinds in: the task's own linear start first, a constant shift last
+ORDER = ("logistic", "linear", "ridge", "lasso", "tree", "hist_tree", "forest", "extra_trees", "lightgbm", "spline",
+         "knn", "mean")
+
+
 def kinds_for(task: Task) -> list[str]:
-    """Return the kinds offered for a chain of ``task``."""
-    return [k for k in kind_names() if ONLY_FOR.get(k, task) == task]
+    """Return the kinds offered for a chain of ``task``, in ``ORDER`` (a binary chain's ``logistic``
+    first; kinds registered later after them)."""
+    kinds = [k for k in kind_names() if ONLY_FOR.get(k, task) == task]
+    return sorted(kinds, key=lambda k: (ORDER.index(k) if k in ORDER else len(ORDER), k))
 
 
 class AddStageScreen(FormScreen):
@@ -56,23 +64,25 @@ class AddStageScreen(FormScreen):
     SUBMIT_ID = "add-fit"
 
 
-    def __init__(self, task: Task, features: tuple[str, ...], kind: str = "linear") -> None:
+    def __init__(self, task: Task, features: tuple[str, ...], kind: str | None = None) -> None:
         super().__init__()
         self.chain_task = task
         self.features = features
         self.kinds = kinds_for(task)
+        kind = kind or self.kinds[0]
         self.kind = kind if kind in self.kinds or kind.startswith(SKLEARN) else self.kinds[0]
 
     def compose(self) -> ComposeResult:
         """Return the form's fields and buttons."""
-        options = [(k, k) for k in self.kinds] + [("sklearn:<module.Class>", SKLEARN)]
+        options = [(kind_label(k, self.chain_task), k) for k in self.kinds] + [
+            ("sklearn:<module.Class> — any scikit-learn regressor", SKLEARN)]
         start = SKLEARN if self.kind.startswith(SKLEARN) else self.kind
         with Vertical(id="add-stage", classes="dialog") as box:
             box.border_title = "add a stage"
             with VerticalScroll(id="add-fields"):
                 with Horizontal(classes="field"):
                     yield Label("kind", classes="name")
-                    yield Select(options, value=start, allow_blank=False, id="kind", compact=True)
+                    yield KindSelect(options, value=start, allow_blank=False, id="kind", compact=True)
                 yield Label("", id="kind-summary", classes="dim", markup=False)
                 with Horizontal(classes="field", id="estimator-row"):
                     yield Label("estimator", classes="name")
@@ -120,9 +130,16 @@ class AddStageScreen(FormScreen):
         defaults = get_kind(kind).task_defaults(self.chain_task)
         rows = []
         for name in get_kind(kind).main_params:
-            rows.append(Horizontal(Label(name, classes="name"),
-                                   Input(value(defaults.get(name)), name=name, compact=True, classes="param"), classes="field"))
+            label = Label(name, classes="name")
+            label.styles.width = max(14, len(name) + 1)  # the whole name: min_samples_leaf, not min_samples_le
+            rows.append(Horizontal(label, Input(value(defaults.get(name)), name=name, compact=True, classes="param"),
+                                   classes="field"))
         box.mount_all(rows)
+
+    def on_kind_select_submitted(self, event: KindSelect.Submitted) -> None:
+        """Enter on the closed kind list fits, as enter in any other field does."""
+        event.stop()
+        self._submit()
 
     def _kind_name(self) -> str:
         if not self.kind.startswith(SKLEARN):

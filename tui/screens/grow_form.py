@@ -19,6 +19,7 @@ from stages.parsing import stage_spec
 from stages.schema import Task
 
 from ..format import value
+from ..widgets.kind_select import KindSelect, kind_label
 from .add_stage import kinds_for, parse_pairs
 from .form import FormError, FormScreen, engine_error
 
@@ -51,8 +52,8 @@ class GrowForm(FormScreen):
             box.border_title = "grow: stages of one kind"
             with Horizontal(classes="field"):
                 yield Label("kind", classes="name")
-                yield Select([(k, k) for k in self.kinds], value=kind, allow_blank=False, id="grow-kind",
-                             compact=True)
+                yield KindSelect([(kind_label(k, self.chain_task), k) for k in self.kinds], value=kind,
+                                 allow_blank=False, id="grow-kind", compact=True)
             with Horizontal(classes="field"):
                 yield Label("shrinkage", classes="name")
                 yield Input(value(last["shrinkage"]), id="grow-shrinkage", type="number", compact=True)
@@ -81,6 +82,11 @@ class GrowForm(FormScreen):
     def on_select_changed(self, event: Select.Changed) -> None:
         """Show the new kind's main params at their defaults."""
         self._show_defaults()
+
+    def on_kind_select_submitted(self, event: KindSelect.Submitted) -> None:
+        """Enter on the closed kind list grows, as enter in any other field does."""
+        event.stop()
+        self._submit()
 
     def _show_defaults(self) -> None:
         kind = str(self.query_one("#grow-kind", Select).value)

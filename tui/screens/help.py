@@ -44,7 +44,7 @@ class HelpScreen(ModalScreen[None]):
     """Lists every key, section by section; escape, q or ? closes it."""
 
     BINDINGS = [
-        Binding("escape,q,question_mark", "close", "close"),
+        Binding("escape,question_mark", "close", "close"),
     ]
 
     def __init__(self, sections: list[tuple[str, list[tuple[str, str]]]], log_file: Path | None = None) -> None:

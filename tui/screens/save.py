@@ -11,13 +11,23 @@ from textual.screen import ModalScreen
 from textual.widgets import Footer, Input, Label
 
 
-def default_path(data_path: str | None, source: str, suffix: str) -> Path:
-    """Return ``<data stem><suffix>`` next to the data file (in the current folder when there is none)."""
-    if data_path:
-        data = Path(data_path)
-        return data.with_name(data.name.split(".")[0] + suffix)
+def default_path(source: str, suffix: str) -> Path:
+    """Return ``<data stem><suffix>`` in the current folder, as an absolute path; the home folder
+    instead when the current folder is inside remnant's own installation (the demo's data is there)."""
     stem = Path(source).name.split(".")[0] or "chain"
-    return Path(stem + suffix)
+    folder = Path.cwd().resolve()
+    if _inside_installation(folder):
+        folder = Path.home().resolve()
+    return folder / (stem + suffix)
+
+
+def _inside_installation(folder: Path) -> bool:
+    import stages
+    import tui
+
+    own = [Path(tui.__file__).resolve().parent, Path(stages.__file__).resolve().parent,
+           Path(tui.__file__).resolve().parent.parent / "demo"]
+    return any(folder == place or place in folder.parents for place in own)
 
 
 def path_problem(path: Path, must_exist: bool) -> str:

@@ -1,8 +1,11 @@
 """The setup screen: columns and their roles, the target, exclusions, the loss and the validation scheme.
 
-Start builds the chain in the fit worker; a choice the engine refuses comes back as a
-one-line reason in a modal, and the screen stays as it was. When the data file has a saved
-session, the app offers it over this screen; resuming loads it in the worker too.
+Nothing heavy runs on the event loop: the columns' roles (every distinct value of every
+column) and the target's task are worked out in a worker while the screen says so. Start
+(``ctrl+s`` from any field, ``s`` elsewhere) builds the chain in the fit worker; when it cannot
+start yet the state line says why. A choice the engine refuses comes back as a one-line reason
+in a modal, and the screen stays as it was. When the data file has a saved session, the app
+offers it over this screen; resuming loads it in the worker too.
 """
 
 from __future__ import annotations
@@ -19,18 +22,20 @@ from textual.screen import Screen
 from textual.widgets import Button, Footer, Input, Label, Select, Static
 
 from stages.data import describe_columns, infer_task
-from stages.errors import RemnantError, ValidationSpecError
+from stages.errors import ValidationSpecError
 from stages.losses import LOSSES, default_loss
 from stages.parsing import validation_spec
 from stages.schema import DATETIME, Task
 from stages.validation import SCHEMES, ValidationSpec
 
+from ..background import Answered, Question
 from ..caution import CAUTION
 from ..jobs import SetupChoices, new_chain
 from ..messages import ChainReady, FitFailed, FitStarted
 from ..sessions import resume_job
 from ..view import ImportanceCache
 from ..widgets.column_roles import ColumnRoles
+from .date_parts import DatePartsScreen
 from .form import FormError, engine_error
 
 if TYPE_CHECKING:
@@ -60,7 +65,10 @@ def losses_for(task: Task) -> list[str]:
 class SetupScreen(Screen):
     """Choose what to predict and how to validate, then start the chain."""
 
-    BINDINGS = [Binding("s", "start", "start", tooltip="start: build the chain with these choices")]
+    BINDINGS = [
+        Binding("ctrl+s", "start", "start", tooltip="start: build the chain with these choices (from any field)"),
+        Binding("s", "start", "start", show=False, tooltip="start, when no text field has the cursor"),
+    ]
     if TYPE_CHECKING:
         app = getters.app(RemnantApp)
 
@@ -69,21 +77,24 @@ class SetupScreen(Screen):
         self.frame = frame
         self.source = source
         self.data_path = data_path
-        self.reports = describe_columns(frame)
-        self.names = [r.name for r in self.reports]
+        self.reports: list[Any] | None = None  # read in a worker: every distinct value of every column
+        self.names = [str(c) for c in frame.columns]
         self.target = target if target in self.names else None
         self.excluded: set[str] = set()
+        self.dates: dict[str, tuple[str, ...]] = {}
         self.chain_task: Task | None = None
+        self.task_problem = ""
         self.cache = ImportanceCache()
+        self.wanted: dict[str, Any] = {}
 
     def compose(self) -> ComposeResult:
         """Return the column list, the choices form, the caution line and the footer."""
         rows, cols = self.frame.shape
         yield Static(f"new chain · {self.source} · {rows:,} rows × {cols:,} columns", id="title", markup=False)
         with Horizontal(id="setup-panes"):
-            roles = ColumnRoles(self.reports, id="columns")
+            roles = ColumnRoles(id="columns")
             roles.border_title = "columns"
-            roles.border_subtitle = "t target · x exclude"
+            roles.border_subtitle = "t target · x exclude · f date features"
             yield roles
             with Vertical(id="choices") as form:
                 form.border_title = "choices"
@@ -100,7 +111,7 @@ class SetupScreen(Screen):
                                                         prompt="pick a column", compact=True))
                 yield self._field("locked test", Input("0", id="test", type="number", compact=True), "test")
                 yield self._field("seed", Input("0", id="seed", type="integer", compact=True))
-                yield Button("start (s)", id="start", variant="primary", compact=True)
+                yield Button("start (ctrl+s)", id="start", variant="primary", compact=True)
                 yield Label("", id="setup-state", markup=False)
         yield Static(CAUTION, id="setup-caution", markup=False)
         yield Footer(compact=True, show_command_palette=False)
@@ -109,33 +120,83 @@ class SetupScreen(Screen):
         return Horizontal(Label(label, classes="name"), widget, classes="field", id=f"row-{key or label.split()[0]}")
 
     def on_mount(self) -> None:
-        """Show the preselected target and the fields of the default scheme."""
+        """Show the preselected target and the fields of the default scheme; read the columns in a worker."""
         if self.target is not None:
             self.query_one("#target", Select).value = self.target
+        self._say(f"reading the columns of {len(self.frame):,} rows …")
+        frame = self.frame
+        self._ask("columns", ("columns", id(frame)), lambda: describe_columns(frame))
         self._target_changed()
         self._scheme_changed()
         self.query_one("#columns", ColumnRoles).focus()
+
+    def _say(self, text: str) -> None:
+        self.query_one("#setup-state", Label).update(text)
+
+    def _ask(self, what: str, key: Any, compute: Any) -> None:
+        self.wanted[what] = key
+        known, answer = self.app.ask(Question(key, compute, self, "setup"))
+        if known:
+            self._answered(what, answer, "")
+
+    def on_answered(self, event: Answered) -> None:
+        """Take the columns' roles or the target's task, worked out in the worker."""
+        event.stop()
+        what = next((w for w, key in self.wanted.items() if key == event.key), None)
+        if what is not None:
+            self._answered(what, event.answer, event.error)
+
+    def _answered(self, what: str, answer: Any, error: str) -> None:
+        if what == "columns":
+            self.reports = answer or []
+            roles = self.query_one("#columns", ColumnRoles)
+            roles.take(self.reports)
+            roles.show(self.target, self.excluded, self.dates)
+            self._say(error or self._readiness())
+            return
+        task_label, loss = self.query_one("#task", Label), self.query_one("#loss", Select)
+        if error:
+            self.chain_task, self.task_problem = None, error.split(": ", 1)[-1]
+            task_label.update("-")
+            loss.set_options([])
+            self._say(f"cannot use {self.target!r} as the target: {self.task_problem}")
+            return
+        self.chain_task, self.task_problem = answer, ""
+        task_label.update(answer)
+        loss.set_options([(name, name) for name in losses_for(answer)])
+        loss.value = default_loss(answer)
+        self._say(self._readiness())
+
+    def _readiness(self) -> str:
+        """Return why start is not possible yet, or how to start."""
+        if self.reports is None:
+            return f"reading the columns of {len(self.frame):,} rows …"
+        if self.target is None:
+            return "pick the target (t on a column, or the target list), then ctrl+s starts"
+        if self.task_problem:
+            return f"cannot use {self.target!r} as the target: {self.task_problem}"
+        if self.chain_task is None:
+            return f"working out what {self.target!r} holds …"
+        return "ready: ctrl+s starts"
 
     # ----- choices ---------------------------------------------------------------------
     def _target_changed(self) -> None:
         roles = self.query_one("#columns", ColumnRoles)
         self.excluded.discard(self.target or "")
-        roles.show(self.target, self.excluded)
+        self.dates.pop(self.target or "", None)
+        roles.show(self.target, self.excluded, self.dates)
         task_label, loss = self.query_one("#task", Label), self.query_one("#loss", Select)
-        self.chain_task = None
+        self.chain_task, self.task_problem = None, ""
+        loss.set_options([])
         if self.target is None:
             task_label.update("-")
-            loss.set_options([])
+            self._say(self._readiness())
             return
-        try:
-            self.chain_task = infer_task(self.frame[self.target], source=self.source, target=self.target)
-        except RemnantError as err:
-            task_label.update(str(err).split(": ", 1)[-1])
-            loss.set_options([])
-            return
-        task_label.update(self.chain_task)
-        loss.set_options([(name, name) for name in losses_for(self.chain_task)])
-        loss.value = default_loss(self.chain_task)
+        task_label.update("…")
+        values, source, target = self.frame[self.target], self.source, self.target
+        self._ask("task", ("task", id(self.frame), target),
+                  lambda: infer_task(values, source=source, target=target))
+        self._say(self._readiness())
 
     @on(Select.Changed, "#target")
     def _target_picked(self, event: Select.Changed) -> None:
@@ -159,7 +220,7 @@ class SetupScreen(Screen):
     def _column_for(self, scheme: str) -> str | None:
         """Return the likely column for a scheme: the first dates column for time order, one called split."""
         if scheme == "time":
-            return next((r.name for r in self.reports if r.role == DATETIME), None)
+            return next((r.name for r in self.reports or () if r.role == DATETIME), None)
         if scheme == "column":
             return next((n for n in self.names if n.lower() == "split"), None)
         return None
@@ -172,6 +233,26 @@ class SetupScreen(Screen):
         """Exclude the column, or include it again."""
         self.excluded ^= {event.name}
         self.query_one("#columns", ColumnRoles).show(self.target, self.excluded)
+
+    def on_column_roles_dates_asked(self, event: ColumnRoles.DatesAsked) -> None:
+        """Ask which parts of a dates column become features (or say why a column gives none)."""
+        report = next((r for r in self.reports or () if r.name == event.name), None)
+        if report is None or report.role != DATETIME:
+            self._say(f"{event.name!r} holds no dates: only a dates column gives date features")
+            return
+
+        def picked(parts: tuple[str, ...] | None) -> None:
+            if parts is None:
+                return
+            if parts:
+                self.dates[event.name] = parts
+            else:
+                self.dates.pop(event.name, None)
+            self.query_one("#columns", ColumnRoles).show(self.target, self.excluded, self.dates)
+            shown = ", ".join(parts) if parts else "none (it only orders rows)"
+            self._say(f"date features of {event.name!r}: {shown}")
+
+        self.app.push_screen(DatePartsScreen(event.name, self.dates.get(event.name, ())), picked)
 
     # ----- starting --------------------------------------------------------------------
     def _number(self, field: str, whole: bool) -> Any:
@@ -209,15 +290,21 @@ class SetupScreen(Screen):
             frame=self.frame, source=self.source, data_path=self.data_path, target=self.target,
             ignore=tuple(sorted(self.excluded)), loss=None if loss is Select.NULL else str(loss),
             validation=self.validation(), seed=self._number("seed", True),
+            dates={k: v for k, v in self.dates.items() if k not in self.excluded},
         )
 
     def action_start(self) -> None:
-        """Build the chain in the fit worker."""
+        """Build the chain in the fit worker; say why not when it cannot start yet."""
         if self.app.fitting:
+            self._say(f"{self.app.job_label} is running: wait for it")
+            return
+        if self.target is not None and (self.reports is None or (self.chain_task is None and not self.task_problem)):
+            self._say(f"cannot start yet: {self._readiness()}")
             return
         try:
             choices = self.choices()
         except FormError as err:
+            self._say(f"cannot start: {err}")
             if err.field is not None:
                 self.query_one(f"#{err.field}").focus()
             self.app.show_failure("cannot start", str(err), "change the choice and start again")
@@ -241,7 +328,7 @@ class SetupScreen(Screen):
         """Open the workbench on the new (or resumed) chain, letting go of the data read for this form
         (the chain holds its own copy; this screen is not shown again)."""
         self.frame = None
-        self.app.open_workbench(event.chain, event.view, self.cache, event.summary, event.session_error)
+        self.app.open_workbench(event.chain, event.view, self.cache, event.summary, event.session_error, event.ids)
 
     def resume_answered(self, choice: str | None) -> None:
         """Resume the offered session in the fit worker, or stay here to start fresh."""
@@ -249,4 +336,4 @@ class SetupScreen(Screen):
         if choice == "resume" and offer is not None:
             self.app.start_job(resume_job(self, offer, self.cache))
         else:
-            self.query_one("#setup-state", Label).update("starting fresh: s replaces the saved session")
+            self._say("starting fresh: ctrl+s starts, and replaces the saved session")

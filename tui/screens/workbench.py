@@ -9,7 +9,7 @@ from __future__ import annotations
 
 from collections.abc import Callable
 from pathlib import Path
-from typing import TYPE_CHECKING
+from typing import TYPE_CHECKING, Any
 
 from textual.app import ComposeResult
 from textual.binding import Binding
@@ -37,11 +37,12 @@ from ..widgets.chain_table import ChainTable
 from ..widgets.error_curve import ErrorCurve
 from ..widgets.fit_progress import FitProgress
 from ..widgets.reference_pane import ReferencePane
-from ..widgets.residual_histogram import ResidualHistogram
+from ..widgets.residual_pane import ResidualPane
 from ..widgets.stage_details import StageDetails, loss_name
 from .add_stage import AddStageScreen
 from .confirm import ConfirmScreen
 from .next_stage import NextStageActions
+from .reasons import EXPLAINED, why_not
 from .save import PathPrompt, default_path
 
 if TYPE_CHECKING:
@@ -54,12 +55,26 @@ if TYPE_CHECKING:
 #: actions that change the chain or write files: none of them while a job runs
 CHANGES = {"add_stage", "step_back", "drop_stage", "trim", "undo", "reveal_test", "save_chain",
            "export_recipe", "open_chain", "audition", "grow"}
+#: below this width or height the panes beside the table are shown one at a time (p cycles them)
+SMALL_WIDTH, SMALL_HEIGHT = 100, 30
+#: the panes p cycles through in a small terminal
+SIDE_PANES = ("curve", "residuals", "details")
 
 
-def title_line(view: ChainView) -> str:
-    """Return the one-line summary of a chain's data, loss and validation."""
-    return (f"{view.source} → {view.target} · {view.task} · {loss_name(view.loss)} · {view.validation} · "
-            f"{view.sizes}")
+def title_parts(view: ChainView) -> list[str]:
+    """Return the parts of the title line, most important first."""
+    return [f"{view.source} → {view.target}", view.task, loss_name(view.loss), view.validation, view.sizes]
+
+
+def title_line(view: ChainView, width: int | None = None) -> str:
+    """Return the one-line summary of a chain's data, loss and validation; within ``width`` cells the
+    last parts are left out whole (the start row's details and the title's tooltip show them all)."""
+    parts = title_parts(view)
+    text = " · ".join(parts)
+    while width is not None and len(text) > width - 2 and len(parts) > 1:
+        parts = parts[:-1]
+        text = " · ".join(parts) + " · …"
+    return text
 
 
 class WorkbenchScreen(NextStageActions, Screen):
@@ -80,16 +95,21 @@ class WorkbenchScreen(NextStageActions, Screen):
         Binding("r", "reveal_test", "reveal", tooltip="reveal the locked test part (the chain and the references)"),
         Binding("s", "save_chain", "save", show=False, tooltip="save the chain file"),
         Binding("v", "switch_view", "view", show=False,
-                tooltip="residual histogram / against fitted (probabilities by class)"),
+                tooltip="residual pane: histogram, against fitted (probabilities by class), against a feature "
+                        "ranked by the scan, largest residuals, calibration (binary)"),
+        Binding("p", "next_pane", "pane", tooltip="small terminal: show the next pane beside the table"),
+        Binding("z", "zoom", "zoom", show=False, tooltip="error curve: zoom onto the last stages, or show them all"),
         Binding("e", "export_recipe", "recipe", show=False, tooltip="export the recipe (TOML)"),
         Binding("o", "open_chain", "open", show=False, tooltip="open a saved chain file read-only"),
         Binding("c,escape", "cancel_fit", "cancel", tooltip="cancel the running fit (the chain stays as it was)"),
+        # when a key above cannot act, its twin below says why in the status line (help leaves them out)
+        *[Binding(key, f"why('{action}')", "", show=False) for key, action in EXPLAINED.items()],
     ]
 
     def __init__(self, chain: Chain | None = None, view: ChainView | None = None, *, recipe: Recipe | None = None,
                  recipe_data: str | None = None, resume: ResumeOffer | None = None,
                  cache: ImportanceCache | None = None, summary: str = "", session_error: str = "",
-                 timings: bool = True) -> None:
+                 timings: bool = True, ids: Any = None) -> None:
         super().__init__()
         self.chain = chain
         self.view = view
@@ -101,6 +121,11 @@ class WorkbenchScreen(NextStageActions, Screen):
         self.session_error = session_error
         self.timings = timings
         self.last_kind = ""
+        #: the pane shown beside the table in a small terminal
+        self.side = "residuals"
+        #: the frame's id column, indexed by the frame's rows (read from the data file when first needed)
+        self.row_ids: Any = ids
+        self.small = False
 
     def compose(self) -> ComposeResult:
         """Return the title, the four panes, the status lines and the footer."""
@@ -108,7 +133,7 @@ class WorkbenchScreen(NextStageActions, Screen):
         with Container(id="panes"):
             yield ChainTable(timings=self.timings, id="chain", classes="pane")
             yield ErrorCurve(id="curve", classes="pane")
-            yield ResidualHistogram(id="residuals", classes="pane")
+            yield ResidualPane(id="residuals", classes="pane")
             yield StageDetails(timings=self.timings, id="details", classes="pane")
             yield ReferencePane(id="references", classes="pane")
         with Vertical(id="status"):
@@ -121,6 +146,8 @@ class WorkbenchScreen(NextStageActions, Screen):
         """Show the chain, or start resuming the session, or fitting the recipe."""
         self.query_one(FitProgress).display = False
         self.query_one(ReferencePane).display = False
+        self.query_one(ResidualPane).ids = self._ids
+        self._layout()
         self.query_one(ChainTable).focus()
         if self.view is not None:
             self.chain_changed(self.view, self.summary, select=self.view.n_stages)
@@ -147,7 +174,9 @@ class WorkbenchScreen(NextStageActions, Screen):
     def chain_changed(self, view: ChainView, summary: str, select: int | None = None) -> None:
         """Show ``view`` in every pane; called after every completed action."""
         self.view = view
-        self.query_one("#title", Static).update(title_line(view))
+        self._title()
+        for pane in (self.query_one(ResidualPane), self.query_one(StageDetails)):
+            pane.chain = self.chain
         self.query_one(ChainTable).show(view, select)
         self._show_selection()
         if summary:
@@ -164,13 +193,79 @@ class WorkbenchScreen(NextStageActions, Screen):
             return
         row = self.selected
         self.query_one(ErrorCurve).show(self.view, row)
-        self.query_one(ResidualHistogram).show(self.view, row)
+        self.query_one(ResidualPane).show(self.view, row)
         self.query_one(StageDetails).show(self.view, row)
 
     def on_chain_table_stage_selected(self, event: ChainTable.StageSelected) -> None:
         """Show the newly selected stage in the other panes."""
         self._show_selection()
         self.refresh_bindings()
+
+    def on_residual_pane_feature_picked(self, event: ResidualPane.FeaturePicked) -> None:
+        """Show the partial dependence of the selected stage on the feature highlighted in the scan."""
+        details = self.query_one(StageDetails)
+        details.feature = event.feature
+        if self.view is not None:
+            details.show(self.view, self.selected)
+
+    def _ids(self) -> Any:
+        """Return the frame's id column (read from the data file the first time; in the worker)."""
+        view = self.view
+        if self.row_ids is None and view is not None and view.id_column and view.data_path:
+            from ..answers import read_ids
+
+            self.row_ids = read_ids(view.data_path, view.id_column)
+        return self.row_ids
+
+    # ----- layout -----------------------------------------------------------------------
+    def on_resize(self) -> None:
+        """Show the panes beside the table one at a time when the terminal is small."""
+        self._layout()
+        if self.view is not None:
+            self._title()
+
+    def _title(self) -> None:
+        title = self.query_one("#title", Static)
+        title.update(title_line(self.view, self.size.width))
+        title.tooltip = " · ".join(title_parts(self.view))
+
+    def _layout(self) -> None:
+        self.small = self.size.width < SMALL_WIDTH or self.size.height < SMALL_HEIGHT
+        self.set_class(self.small, "-small")
+        references = self.query_one(ReferencePane).display
+        for name in SIDE_PANES:
+            pane = self.query_one(f"#{name}")
+            shown = not self.small or self.side == name
+            if name == "details":
+                pane.display = shown and not references
+            else:
+                pane.display = shown
+        if self.small and references and self.side != "details":
+            self.query_one(ReferencePane).display = False
+
+    def curve_shown(self) -> bool:
+        """Return True when the error curve is on screen."""
+        return not self.small or self.side == "curve"
+
+    def action_next_pane(self) -> None:
+        """Show the next pane beside the table (small terminals)."""
+        self.side = SIDE_PANES[(SIDE_PANES.index(self.side) + 1) % len(SIDE_PANES)]
+        self._layout()
+        names = {"curve": "the error curve", "residuals": "the residuals", "details": "the stage's details"}
+        self.query_one("#result", Static).update(f"beside the table: {names[self.side]} (p shows the next pane)")
+        self.refresh_bindings()
+
+    def action_zoom(self) -> None:
+        """Zoom the error curve onto the last stages, or show every stage again."""
+        curve = self.query_one(ErrorCurve)
+        zoomed = curve.toggle_zoom()
+        self.query_one("#result", Static).update(
+            f"error curve: {'zoomed onto the last stages' if zoomed else 'every stage'} (z switches)")
+
+    def action_why(self, action: str) -> None:
+        """Say in the status line why ``action`` cannot act now."""
+        self.query_one("#result", Static).display = True
+        self.query_one("#result", Static).update(why_not(action, self))
 
     # ----- messages from the fit worker ------------------------------------------------
     def on_chain_ready(self, event: ChainReady) -> None:
@@ -250,11 +345,15 @@ class WorkbenchScreen(NextStageActions, Screen):
 
     # ----- what can be done now --------------------------------------------------------
     def check_action(self, action: str, parameters: tuple[object, ...]) -> bool | None:
-        """Return whether ``action`` makes sense now; False hides it from the footer."""
+        """Return whether ``action`` makes sense now; False hides it from the footer (its twin says why)."""
         if action == "cancel_fit":
             return self.app.job_cancellable
         if action == "references":
             return self._references_apply()
+        if action == "next_pane":
+            return self.small
+        if action == "zoom":
+            return self.curve_shown() and self.view is not None and self.view.n_stages >= 3
         if action not in CHANGES and action != "switch_view":
             return True
         if self.app.fitting and action in CHANGES:
@@ -283,7 +382,7 @@ class WorkbenchScreen(NextStageActions, Screen):
     # ----- actions ---------------------------------------------------------------------
     def action_add_stage(self) -> None:
         """Open the add-stage form (on the kind last added); fit what it returns."""
-        kind = self.last_kind or (self.shown.rows[-1].kind if self.shown.n_stages else "linear")
+        kind = self.last_kind or (self.shown.rows[-1].kind if self.shown.n_stages else None)
         form = AddStageScreen(self.shown.task, self.shown.features, kind)
         self.app.push_screen(form, self._stage_requested)
 
@@ -321,13 +420,19 @@ class WorkbenchScreen(NextStageActions, Screen):
         self._start(jobs.quick_change(self, self.live, self.cache, self.shown, "undo"))
 
     def action_switch_view(self) -> None:
-        """Switch the residual pane to its next view."""
-        mode = self.query_one(ResidualHistogram).next_mode()
-        self.query_one("#result", Static).update(f"residual pane: {mode}")
+        """Switch the residual pane to its next view (showing the pane in a small terminal)."""
+        pane = self.query_one(ResidualPane)
+        if self.small and self.side != "residuals":
+            self.side = "residuals"
+            self._layout()
+        mode = pane.next_mode()
+        hint = " · tab to the pane, then up/down move through the features, w ranks by spread" if \
+            pane.mode == "feature" else ""
+        self.query_one("#result", Static).update(f"residual pane: {mode} (v for the next view){hint}")
 
     def _ask_path(self, title: str, suffix: str, then: Callable[[Path], None], must_exist: bool = False) -> None:
         view = self.view
-        default = default_path(view.data_path if view else None, view.source if view else "chain", suffix)
+        default = default_path(view.source if view else "chain", suffix)
 
         def answered(path: Path | None) -> None:
             if path is not None:

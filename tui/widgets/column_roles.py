@@ -8,18 +8,21 @@ from textual.binding import Binding
 from textual.message import Message
 from textual.widgets import DataTable
 
-from stages.data import EXCLUDED, ColumnReport
+from stages.data import EXCLUDED, ID, ColumnReport
 from stages.schema import DATETIME
 
 from ..format import number
 
 #: the width of the "use" column: the longest word it shows is "categorical"
 USE_WIDTH = 11
+#: the longest column name shown before it is cut with an ellipsis
+NAME_WIDTH = 18
 
 
 def column_use(report: ColumnReport, target: str | None, excluded: set[str]) -> str:
     """Return what the chain does with a column: target, excluded (by the user), skipped (by the
-    engine), dates (only to order rows), or its role as a feature (numeric, categorical, boolean)."""
+    engine), id (names the rows), dates (orders rows, or gives date features), or its role as a
+    feature (numeric, categorical, boolean)."""
     if report.name == target:
         return "target"
     if report.name in excluded:
@@ -36,16 +39,19 @@ def short(example: str) -> str:
     try:
         value = float(example)
     except ValueError:
-        return example[:16]
+        return example if len(example) <= 16 else example[:15] + "…"
     return example if len(example) <= 6 else number(value)
 
 
 class ColumnRoles(DataTable):
-    """One row per data column with what the chain does with it; ``t`` makes the row the target, ``x`` excludes or includes it."""
+    """One row per data column with what the chain does with it; ``t`` makes the row the target,
+    ``x`` excludes or includes it, ``f`` picks the date features of a dates column."""
 
     BINDINGS = [
         Binding("t", "pick_target", "target", tooltip="make the highlighted column the target"),
         Binding("x", "toggle_exclude", "exclude", tooltip="exclude the highlighted column (x again includes it)"),
+        Binding("f", "date_features", "date features",
+                tooltip="dates column: pick the parts that become features (year, month, day of week, hour, day of year)"),
     ]
 
     class TargetPicked(Message):
@@ -62,16 +68,29 @@ class ColumnRoles(DataTable):
             self.name = name
             super().__init__()
 
-    def __init__(self, reports: list[ColumnReport], *, id: str | None = None) -> None:
+    class DatesAsked(Message):
+        """The user asked to pick the date features of the dates column ``name``."""
+
+        def __init__(self, name: str) -> None:
+            self.name = name
+            super().__init__()
+
+    def __init__(self, reports: list[ColumnReport] | None = None, *, id: str | None = None) -> None:
         super().__init__(cursor_type="row", id=id)
-        self.reports = reports
+        self.reports = reports or []
         self.target: str | None = None
         self.excluded: set[str] = set()
+        self.dates: dict[str, tuple[str, ...]] = {}
         self._width = 0
         self._values_width = 20
 
     def on_mount(self) -> None:
         """Lay out the columns and one row per data column."""
+        self._layout(self.size.width)
+
+    def take(self, reports: list[ColumnReport]) -> None:
+        """Show ``reports`` (read in a worker) in place of the placeholder."""
+        self.reports = reports
         self._layout(self.size.width)
 
     def on_resize(self, event: events.Resize) -> None:
@@ -81,7 +100,7 @@ class ColumnRoles(DataTable):
 
     def _layout(self, width: int) -> None:
         self._width = width
-        name = min(18, max(6, *(len(r.name) for r in self.reports)))
+        name = min(NAME_WIDTH, max(6, *(len(r.name) for r in self.reports))) if self.reports else NAME_WIDTH
         self._values_width = max(8, width - name - USE_WIDTH - 8)
         row = self.cursor_row
         self.clear(columns=True)
@@ -89,40 +108,59 @@ class ColumnRoles(DataTable):
         self.add_column("use", key="use", width=USE_WIDTH)
         self.add_column("values", key="values", width=self._values_width)
         for report in self.reports:
-            self.add_row(*self._cells(report), key=report.name)
+            self.add_row(*self._cells(report, name), key=report.name)
         self.move_cursor(row=max(0, row), animate=False)
 
-    def _cells(self, report: ColumnReport) -> list[Text]:
+    def _cells(self, report: ColumnReport, name_width: int = NAME_WIDTH) -> list[Text]:
         use = column_use(report, self.target, self.excluded)
-        style = {"target": "bold reverse", "excluded": "dim strike", "skipped": "dim"}.get(use, "")
-        values = report.note if report.role == EXCLUDED and report.note else ", ".join(map(short, report.examples))
+        style = {"target": "bold reverse", "excluded": "dim strike", "skipped": "dim", ID: "dim"}.get(use, "")
+        if report.role in (EXCLUDED, ID) and report.note:
+            values = report.note
+        elif report.name in self.dates:
+            values = "features: " + ", ".join(self.dates[report.name])
+        else:
+            values = ", ".join(map(short, report.examples))
+            if report.role == DATETIME:
+                values += " · f: date features"
         if report.n_missing:
             values += f" ({report.n_missing:,} missing)"
         cells = [Text(report.name, style=style), Text(use, style=style), Text(values)]
-        for cell, width in zip(cells, (18, USE_WIDTH, self._values_width), strict=True):
+        for cell, width in zip(cells, (name_width, USE_WIDTH, self._values_width), strict=True):
             cell.truncate(width, overflow="ellipsis")
         return cells
 
-    def show(self, target: str | None, excluded: set[str]) -> None:
-        """Show ``target`` and the ``excluded`` columns."""
+    def show(self, target: str | None, excluded: set[str], dates: dict[str, tuple[str, ...]] | None = None) -> None:
+        """Show ``target``, the ``excluded`` columns and the chosen date features."""
         self.target, self.excluded = target, set(excluded)
+        if dates is not None:
+            self.dates = dict(dates)
+        if not self.reports:
+            return
+        width = self.columns["name"].width if "name" in self.columns else NAME_WIDTH
         for report in self.reports:
-            for key, cell in zip(("name", "use", "values"), self._cells(report), strict=True):
+            for key, cell in zip(("name", "use", "values"), self._cells(report, width), strict=True):
                 self.update_cell(report.name, key, cell)
 
-    def _current(self) -> str | None:
+    def current(self) -> ColumnReport | None:
+        """Return the report of the highlighted column, or None."""
         if not self.reports or self.cursor_row < 0:
             return None
-        return self.reports[self.cursor_row].name
+        return self.reports[self.cursor_row]
 
     def action_pick_target(self) -> None:
         """Make the highlighted column the target."""
-        name = self._current()
-        if name is not None:
-            self.post_message(self.TargetPicked(name))
+        report = self.current()
+        if report is not None:
+            self.post_message(self.TargetPicked(report.name))
 
     def action_toggle_exclude(self) -> None:
         """Exclude the highlighted column, or include it again."""
-        name = self._current()
-        if name is not None and name != self.target:
-            self.post_message(self.ExclusionToggled(name))
+        report = self.current()
+        if report is not None and report.name != self.target:
+            self.post_message(self.ExclusionToggled(report.name))
+
+    def action_date_features(self) -> None:
+        """Ask to pick the date features of the highlighted dates column."""
+        report = self.current()
+        if report is not None:
+            self.post_message(self.DatesAsked(report.name))

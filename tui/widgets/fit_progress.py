@@ -1,4 +1,10 @@
-"""The progress of the running fit: what it does, a bar, the elapsed time and how to cancel."""
+"""The progress of the running fit: what it does, a bar, the elapsed time and how to cancel.
+
+A learner that fits in parts (boosting rounds, batches of trees) moves the bar. One that
+reports nothing while it fits (k-NN, a spline, most scikit-learn regressors) would leave it
+standing at the same place: after ``STALE`` seconds without a move the bar turns indeterminate
+(it sweeps instead of standing still), while the elapsed time keeps counting.
+"""
 
 from __future__ import annotations
 
@@ -9,6 +15,9 @@ from textual.containers import Horizontal
 from textual.widgets import Label, ProgressBar
 
 from ..format import seconds
+
+#: seconds without progress after which the bar sweeps instead of standing still
+STALE = 1.0
 
 
 class FitProgress(Horizontal):
@@ -23,6 +32,9 @@ class FitProgress(Horizontal):
         self.elapsed = Label("", id="fit-elapsed")
         self.hint = Label("", id="fit-hint")
         self.detail = ""
+        self.fraction = 0.0
+        self.moved = 0.0
+        self.clock = time.monotonic
 
     def compose(self) -> ComposeResult:
         """Return the label, the bar, the elapsed time and the cancel hint."""
@@ -37,21 +49,30 @@ class FitProgress(Horizontal):
 
     def begin(self, label: str, cancellable: bool) -> None:
         """Show the line for a new job called ``label``."""
-        self.started = time.monotonic()
+        self.started = self.moved = self.clock()
         self.detail = ""
+        self.fraction = 0.0
         self.label.update(label)
-        self.bar.update(progress=0.0)
+        self.bar.update(total=1.0, progress=0.0)
         self.hint.update("c cancels" if cancellable else "")
         self.elapsed.update("")
         self.display = True
-        if self.timings:
-            self._clock.resume()
+        self._clock.resume()
 
     def advance(self, fraction: float, detail: str) -> None:
         """Move the bar to ``fraction`` (0 to 1) and show ``detail``."""
         self.detail = detail
-        self.bar.update(progress=min(max(fraction, 0.0), 1.0))
+        fraction = min(max(fraction, 0.0), 1.0)
+        if fraction != self.fraction or self.bar.total is None:
+            self.moved = self.clock()
+        self.fraction = fraction
+        self.bar.update(total=1.0, progress=fraction)
         self._tick()
+
+    @property
+    def sweeping(self) -> bool:
+        """Return True while the bar is indeterminate (no progress for STALE seconds)."""
+        return self.bar.total is None
 
     def end(self) -> None:
         """Hide the line."""
@@ -59,6 +80,9 @@ class FitProgress(Horizontal):
         self.display = False
 
     def _tick(self) -> None:
-        shown = seconds(time.monotonic() - self.started) if self.timings else ""
+        now = self.clock()
+        if self.display and self.bar.total is not None and now - self.moved >= STALE:
+            self.bar.update(total=None)
+        shown = seconds(now - self.started) if self.timings else ""
         detail = self.detail.split(": ")[-1] if self.detail else ""
         self.elapsed.update(" · ".join(part for part in (detail, shown) if part))
