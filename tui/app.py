@@ -24,6 +24,7 @@ from .logs import log_to_file, logger, stop_logging
 from .screens.add_stage import AddStageScreen
 from .screens.audition_form import AuditionForm
 from .screens.audition_result import AuditionResultScreen
+from .screens.date_parts import DatePartsScreen
 from .screens.failure import FailureScreen
 from .screens.grow_form import GrowForm
 from .screens.help import HelpScreen, describe
@@ -34,6 +35,7 @@ from .screens.workbench import WorkbenchScreen
 from .sessions import ResumeOffer, resume_offer
 from .view import ChainView, ImportanceCache, view_of_chain, view_of_fitted
 from .widgets.column_roles import ColumnRoles
+from .widgets.residual_pane import ResidualPane
 from .worker import FitRunner
 
 if TYPE_CHECKING:
@@ -131,8 +133,14 @@ class RemnantApp(BackgroundRunner, FitRunner, App):
         """Return every key of the app, grouped by where it works."""
         return [
             ("main screen", describe(WorkbenchScreen.BINDINGS)),
+            ("residual pane (tab to it)", [("up / down", "scan view: move through the ranked features (the "
+                                                         "stage's details show the partial dependence on it)"),
+                                           *describe(ResidualPane.BINDINGS)]),
             ("setup screen", describe(SetupScreen.BINDINGS + ColumnRoles.BINDINGS)),
-            ("add-stage form", [("enter", "fit the stage"), *describe(AddStageScreen.BINDINGS)]),
+            ("date features", [("space", "tick a part"), *describe(DatePartsScreen.BINDINGS)]),
+            ("add-stage form", [("enter", "fit the stage (on the kind list too)"),
+                                ("down / up", "open the kind list; enter picks a kind and moves on"),
+                                *describe(AddStageScreen.BINDINGS)]),
             ("audition form", [("tab", "from the text to the buttons"), *describe(AuditionForm.BINDINGS)]),
             ("audition result", [("arrows / tab", "move between the candidates"),
                                  *describe([b for b in AuditionResultScreen.BINDINGS

@@ -58,7 +58,7 @@ def fit_neighbours(matrix: np.ndarray, target: np.ndarray, params: dict[str, Any
     if isinstance(k, bool) or not isinstance(k, int) or k < 1:
         raise StageSpecError(f"kind {kind!r}: n_neighbors must be a whole number of at least 1, not {k!r}")
     if k > matrix.shape[0]:
-        raise StageSpecError(f"kind {kind!r}: n_neighbors={k} is more than the {matrix.shape[0]} fitting rows")
+        raise StageSpecError(f"kind {kind!r}: n_neighbors={k} is more than the {matrix.shape[0]} train rows")
     if weights not in ("uniform", "distance"):
         raise StageSpecError(f"kind {kind!r}: weights must be 'uniform' or 'distance', not {weights!r}")
     if isinstance(p, bool) or not isinstance(p, int | float) or not p >= 1:
@@ -83,7 +83,7 @@ class KnnKind(StageKind):
         design = LinearDesign.fit(request.X, request.columns)
         matrix = design.transform(request.X)
         if matrix.shape[1] == 0:
-            raise StageSpecError(f"kind {self.name!r}: its features have no value in the fitting rows")
+            raise StageSpecError(f"kind {self.name!r}: its features have no value in the train rows")
         target = np.asarray(request.residual, dtype=np.float64).copy()
         estimator = fit_neighbours(matrix, target, params, self.name)
         return NeighboursModel(design, estimator, matrix, target, dict(params))

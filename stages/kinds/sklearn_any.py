@@ -106,7 +106,7 @@ class SklearnKind(StageKind):
         design = LinearDesign.fit(request.X, request.columns)
         matrix = design.transform(request.X)
         if matrix.shape[1] == 0:
-            raise StageSpecError(f"kind {self.name!r}: its features have no value in the fitting rows")
+            raise StageSpecError(f"kind {self.name!r}: its features have no value in the train rows")
         estimator = self.cls()
         from_stream = "random_state" in self._accepted and "random_state" not in params
         settings = {**params, "random_state": request.random_state} if from_stream else dict(params)

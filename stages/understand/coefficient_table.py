@@ -100,13 +100,13 @@ def coefficients(chain: Chain, stage: int, *, reference: dict[str, str] | None =
 
 def fitted_coefficients(fitted: FittedChain, stage: int, *, reference: dict[str, str] | None = None) -> pd.DataFrame:
     """Return the terms of stage ``stage`` of a loaded chain (as ``coefficients``, without standard
-    errors: they need the fitting rows, which a chain file does not hold)."""
+    errors: they need the train rows, which a chain file does not hold)."""
     k = check_stage(len(fitted.stages), stage)
     fitted_stage = fitted.stages[k - 1]
     _check_kind(fitted_stage.kind, k)
     terms = stage_terms(fitted_stage.learner, fitted.schema.subset(list(fitted_stage.feature_index)), reference)
     values = fitted_stage.scale * (terms.matrix() @ np.asarray(terms.theta))
-    note = "no standard errors: they need the fitting rows, and a chain file holds none"
+    note = "no standard errors: they need the train rows, and a chain file holds none"
     return _frame(terms, values, None, note)
 
 
@@ -183,7 +183,7 @@ def _categorical_terms(terms: Terms, column: ColumnInfo, codes: tuple[int, ...],
         seen = [levels[c] for c in codes]
         if str(chosen) not in seen:
             raise StageSpecError(f"reference level {chosen!r} of {column.name!r} does not occur in the stage's "
-                                 f"fitting rows (levels: {', '.join(seen)})")
+                                 f"train rows (levels: {', '.join(seen)})")
         ref = seen.index(str(chosen))
     ref_name, ref_coef = levels[codes[ref]], float(coef[ref])
     for i, code in enumerate(codes):
@@ -226,10 +226,10 @@ def _standard_errors(chain: Chain, k: int, terms: Terms,
         gram, n, rss = _gram_and_rss(learner, terms, X, target)
         cov, rank = _inverse(gram)
         if cov is None or n <= rank:
-            return None, "no standard errors: the stage has as many terms as fitting rows"
+            return None, "no standard errors: the stage has as many terms as train rows"
         scale2, quantile = rss / (n - rank), float(stats.t.ppf(0.5 + CONFIDENCE / 2, n - rank))
     if cov is None:
-        return None, "no standard errors: the stage's design is rank-deficient on its fitting rows"
+        return None, "no standard errors: the stage's design is rank-deficient on its train rows"
     T = terms.matrix()
     active = cov[1]
     errors = np.full(len(terms.names), np.nan)

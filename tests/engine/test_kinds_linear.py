@@ -293,7 +293,7 @@ def test_knn_equals_sklearn_pipeline(diabetes, params):
 
 def test_knn_refuses_more_neighbours_than_rows():
     X = np.arange(6.0)[:, None]
-    with pytest.raises(StageSpecError, match="n_neighbors=10 is more than the 6 fitting rows"):
+    with pytest.raises(StageSpecError, match="n_neighbors=10 is more than the 6 train rows"):
         fit(KNN, make_request(X, numeric_columns(1), y=X[:, 0]))
 
 

@@ -129,7 +129,7 @@ def test_a_loaded_chain_has_the_same_coefficients_without_errors(tmp_path):
     loaded = stages.load(tmp_path / "g.chain").coefficients(1)
     live = chain.coefficients(1)
     np.testing.assert_allclose(loaded["coefficient"], live["coefficient"], rtol=1e-12)
-    assert loaded["std_error"].isna().all() and "fitting rows" in loaded.attrs["note"]
+    assert loaded["std_error"].isna().all() and "train rows" in loaded.attrs["note"]
 
 
 def test_coefficients_are_for_linear_kinds_and_splines_have_curves(mixed_frame):

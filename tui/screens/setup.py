@@ -67,7 +67,7 @@ class SetupScreen(Screen):
 
     BINDINGS = [
         Binding("ctrl+s", "start", "start", tooltip="start: build the chain with these choices (from any field)"),
-        Binding("s", "start", "start", show=False, tooltip="start, when no text field has the cursor"),
+        Binding("s", "start_key", "start", show=False, tooltip="start, when no text field has the cursor"),
     ]
     if TYPE_CHECKING:
         app = getters.app(RemnantApp)
@@ -293,12 +293,22 @@ class SetupScreen(Screen):
             dates={k: v for k, v in self.dates.items() if k not in self.excluded},
         )
 
+    def check_action(self, action: str, parameters: tuple[object, ...]) -> bool | None:
+        """Leave ``s`` to a text field that has the cursor (ctrl+s starts from there)."""
+        if action == "start_key":
+            return not isinstance(self.focused, Input)
+        return True
+
+    def action_start_key(self) -> None:
+        """Start (``s``, when no text field has the cursor)."""
+        self.action_start()
+
     def action_start(self) -> None:
         """Build the chain in the fit worker; say why not when it cannot start yet."""
         if self.app.fitting:
             self._say(f"{self.app.job_label} is running: wait for it")
             return
-        if self.target is not None and (self.reports is None or (self.chain_task is None and not self.task_problem)):
+        if self.target is None or self.reports is None or (self.chain_task is None and not self.task_problem):
             self._say(f"cannot start yet: {self._readiness()}")
             return
         try:

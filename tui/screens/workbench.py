@@ -208,6 +208,10 @@ class WorkbenchScreen(NextStageActions, Screen):
         if self.view is not None:
             details.show(self.view, self.selected)
 
+    def on_residual_pane_told(self, event: ResidualPane.Told) -> None:
+        """Say what the residual pane did."""
+        self.query_one("#result", Static).update(event.text)
+
     def _ids(self) -> Any:
         """Return the frame's id column (read from the data file the first time; in the worker)."""
         view = self.view

@@ -57,7 +57,8 @@ class CandidateCard(Vertical, can_focus=True):
         self.marks = marks
         self.timings = timings
         spec = candidate.spec
-        self.border_title = f"{number} · {spec.kind} × {spec.shrinkage:g}"
+        # the marks on the top border too: a card cut off at the bottom of a small terminal still shows them
+        self.border_title = f"{number} · {spec.kind} × {spec.shrinkage:g}" + "".join(f" · {m}" for m in marks)
         self.border_subtitle = " ".join(marks)
         if not candidate.ok:
             self.add_class("-failed")

@@ -69,7 +69,7 @@ class ChainTable(DataTable):
         self.selected = max(0, min(target, len(view.rows) - 1))
         self._rebuild()
         self.border_title = f"chain · {view.metric}" + (" · read-only" if view.read_only else "")
-        spread = "  ± fold s.e." if "spread" in self.shown else ""
+        spread = "  ± fold std. error" if "spread" in self.shown else ""
         self.border_subtitle = f"{BEST} best  {OVERFIT} overfit{spread}"
 
     def _headers(self) -> dict[str, str]:

@@ -71,6 +71,13 @@ class ResidualPane(Vertical, can_focus=True):
             self.feature = feature
             super().__init__()
 
+    class Told(Message):
+        """Something for the status line: ``text``."""
+
+        def __init__(self, text: str) -> None:
+            self.text = text
+            super().__init__()
+
     def __init__(self, *, id: str | None = None, classes: str | None = None) -> None:
         super().__init__(id=id, classes=classes)
         self.view: ChainView | None = None
@@ -121,13 +128,17 @@ class ResidualPane(Vertical, can_focus=True):
         return MODE_NAMES[self.mode]
 
     def _arrange(self) -> None:
-        self.ranking.display = self.mode == "feature" and self.size.width >= RANKING_WIDTH + 24
+        # beside the plot when both fit, else above it (a small terminal)
+        self.set_class(self.size.width < RANKING_WIDTH + 30, "-stacked")
+        self.ranking.display = self.mode == "feature"
         self.query_one("#residual-body").display = self.mode != "largest"
         self.query_one("#rows-scroll").display = self.mode == "largest"
 
     def on_resize(self) -> None:
-        """Show the ranking beside the plot only when both fit."""
+        """Show the ranking beside the plot when both fit, above it otherwise."""
         self._arrange()
+        if self.mode == "feature" and self.scan is not None:
+            self.call_after_refresh(self._show_ranking)
 
     def _where(self) -> str:
         return "start" if self.row == 0 else f"stage {self.row}"
@@ -243,13 +254,19 @@ class ResidualPane(Vertical, can_focus=True):
         column = "spread_score" if self.by_spread else "score"
         text = Text(no_wrap=True, overflow="ellipsis")
         text.append("by spread\n" if self.by_spread else "by mean\n", style="bold")
-        for name in self._ranked():
+        name_width = max(8, (self.ranking.size.width or RANKING_WIDTH) - 9)
+        ranked = self._ranked()
+        room = max(1, (self.ranking.size.height or len(ranked) + 1) - 1)
+        at = ranked.index(self.feature) if self.feature in ranked else 0
+        first = max(0, min(at - room // 2, len(ranked) - room))  # the highlighted feature stays in view
+        for name in ranked[first:first + room]:
             row = scan.loc[name]
             mark = ("*" if row["stands_out"] else " ") + ("~" if row["spread_stands_out"] else " ")
             chosen = name == self.feature
             value = row[column] if self.by_spread else row["share"]
             shown = f"{value * 100:4.0f}%" if np.isfinite(value) else "   -"
-            line = f"{'▸' if chosen else ' '}{name[:RANKING_WIDTH - 9]:<{RANKING_WIDTH - 9}}{shown}{mark}"
+            shortened = name if len(name) <= name_width else name[: name_width - 1] + "…"
+            line = f"{'▸' if chosen else ' '}{shortened:<{name_width}}{shown}{mark}"
             text.append(line + "\n", style="reverse" if chosen else "")
         self.ranking.update(text)
 
@@ -320,5 +337,6 @@ class ResidualPane(Vertical, can_focus=True):
         """Rank the features by the residual's spread, or by its mean again."""
         self.by_spread = not self.by_spread
         self._show_ranking()
-        self.app.query_one("#result", Static).update(
-            "scan ranked by " + ("where the residual's spread widens" if self.by_spread else "the residual signal left"))
+        self.post_message(self.Told(
+            "scan ranked by " + ("where the residual's spread widens" if self.by_spread else "the residual signal left")))
+        self._ask()

@@ -205,8 +205,8 @@ def dependence_text(table: pd.DataFrame, feature: str, rows: int, task: str, wid
         table["feature"], digits=3, trim=True)
     average = table["average"].to_numpy(dtype=float)
     shown = column_text(average, signed=True)
-    spread = [f"{a}..{b}" for a, b in zip(column_text(table["ice_low"], digits=3), column_text(table["ice_high"], digits=3),
-                                         strict=True)]
+    ends = column_text([*table["ice_low"], *table["ice_high"]], digits=3)  # both ends in one style
+    spread = [f"{a}..{b}" for a, b in zip(ends[: len(table)], ends[len(table):], strict=True)]
     grid_width = min(12, max(len(g) for g in grid))
     value_width = max(len(s) for s in shown)
     bar_width = max(4, min(20, width - grid_width - value_width - max(len(s) for s in spread) - 4))
