@@ -11,6 +11,7 @@ import math
 from typing import Any
 
 from .. import limits
+from ..dates import DATE_PARTS
 from ..errors import DAMAGED_FILE_ERRORS, ChainFileError, ValidationSpecError
 from ..kinds.base import Artifact
 from ..manifest_schema import (
@@ -35,9 +36,10 @@ SCORES = table({}, {"train": _SCORE_TABLE, "valid": _SCORE_TABLE, "test": _SCORE
                     "fold_valid": items(nullable(number()), limits.MAX_FOLDS)})
 COLUMN = table({"name": _NAME, "role": text(32, choices=FEATURE_ROLES), "dtype": text(64)},
                {"levels": items(text(4096), limits.MAX_LEVELS), "order": text(16, choices=LEVEL_ORDERS),
-                "fill": number()})
+                "fill": number(), "date_column": _NAME, "date_part": text(32, choices=DATE_PARTS)})
 SCHEMA = table({"target": _NAME, "columns": items(COLUMN, limits.MAX_COLUMNS, min_items=1)},
-               {"task": text(32, choices=TASKS), "classes": items(text(4096), limits.MAX_CLASSES)})
+               {"task": text(32, choices=TASKS), "classes": items(text(4096), limits.MAX_CLASSES),
+                "id_column": _NAME})
 PARAMS = mapping(json_value(limits.MAX_NESTING, 1_000_000), max_items=1_000)
 SPEC = table({"kind": text(512)}, {"shrinkage": number(0, 1), "features": items(_NAME, limits.MAX_COLUMNS),
                                    "params": PARAMS})
