@@ -1,12 +1,20 @@
-"""Responsiveness of the workbench while a LightGBM stage fits in the worker (a benchmark, not a test).
+"""Responsiveness of the workbench (a benchmark, not a test): on the setup screen, moving through the
+chain table, and while a LightGBM stage fits in the worker.
 
-The app runs headless (``App.run_test``) over a chain on generated data. A timer asks to tick
-every 20 ms and records the largest gap between ticks; simulated key presses record how long
-each waited before the app took it up. Both are measured while idle, then while a LightGBM
-stage fits in the fit worker. Target: during the fit, ticks and keys within 100 ms.
+The app runs headless (``App.run_test``) on generated data. A timer asks to tick every 20 ms
+and records the largest gap between ticks; simulated key presses record how long each waited
+before the app took it up and how long the app then took to handle it (the key's response).
 
-    python bench/ui_latency.py               # 1,000,000 rows
-    python bench/ui_latency.py --rows 200000
+- ``--screen setup``: the setup screen opens on the frame (its columns' roles and the target's
+  task are worked out in a worker meanwhile) and ``down`` moves through the column list;
+- ``--screen table``: a chain with a linear and three ``hist_tree`` stages; ``up`` and ``down``
+  move through the table, each move asking for that stage's residual histogram (in a worker);
+- ``--screen fit`` (the default): idle, then while a LightGBM stage fits.
+
+Target: keys answered within 100 ms, the timer's ticks within 100 ms of each other.
+
+    python bench/ui_latency.py                          # fit, 1,000,000 rows
+    python bench/ui_latency.py --screen all --rows 10000000
 """
 
 from __future__ import annotations
@@ -47,7 +55,8 @@ def make_frame(rows: int, seed: int = 0) -> pd.DataFrame:
 
 
 class ProbedApp(RemnantApp):
-    """The workbench, noting when each key event reaches the app and when each tick fires."""
+    """The workbench, noting when each key event reaches the app, when the app is done with it, and
+    when each tick fires."""
 
     CSS_PATH = str(Path(tui.app.__file__).with_name("app.tcss"))
 
@@ -55,6 +64,7 @@ class ProbedApp(RemnantApp):
         super().__init__(**kwargs)
         self.ticks: list[float] = []
         self.key_seen: list[float] = []
+        self.key_done: list[float] = []
         self.worker_done = 0.0
 
     def on_worker_state_changed(self, event) -> None:
@@ -69,9 +79,12 @@ class ProbedApp(RemnantApp):
         self.set_interval(TICK, lambda: self.ticks.append(time.perf_counter()))
 
     async def on_event(self, event: events.Event) -> None:
-        """Note the moment a key is taken up, then handle it as usual."""
+        """Note the moment a key is taken up and the moment it was handled."""
         if isinstance(event, events.Key):
             self.key_seen.append(time.perf_counter())
+            await super().on_event(event)
+            self.call_after_refresh(lambda: self.key_done.append(time.perf_counter()))
+            return
         await super().on_event(event)
 
 
@@ -81,22 +94,68 @@ def largest_gap(ticks: list[float], start: float, end: float) -> float:
     return max((b - a for a, b in zip(inside, inside[1:], strict=False)), default=float("nan"))
 
 
-async def press_keys(app: ProbedApp, until) -> list[float]:
-    """Send a harmless key (down, in the chain table) every 100 ms until ``until()``, as a terminal's
-    driver would; return how long each waited before the app took it up."""
+async def press_keys(app: ProbedApp, until, keys: tuple[str, ...] = ("down",),
+                     responses: list[float] | None = None) -> list[float]:
+    """Send harmless keys (``keys`` in turn) every 100 ms until ``until()``, as a terminal's driver
+    would; return how long each waited before the app took it up. ``responses`` gets, for each key,
+    how long from sending it until the app had handled it and refreshed the screen."""
     delays = []
+    count = 0
     while not until():
-        before = len(app.key_seen)
-        key = events.Key("down", None)
+        before, done = len(app.key_seen), len(app.key_done)
+        key = events.Key(keys[count % len(keys)], None)
+        count += 1
         key.set_sender(app)
         sent = time.perf_counter()
         app._driver.send_message(key)
-        while len(app.key_seen) == before and time.perf_counter() - sent < 5:
+        while len(app.key_done) == done and time.perf_counter() - sent < 10:
             await asyncio.sleep(0.001)
         if len(app.key_seen) > before:
             delays.append(app.key_seen[before] - sent)
+        if responses is not None and len(app.key_done) > done:
+            responses.append(app.key_done[done] - sent)
         await asyncio.sleep(0.1)
     return delays
+
+
+async def measure_setup(rows: int) -> dict[str, float]:
+    """Return the key responses and tick gaps on the setup screen while it reads a frame of ``rows`` rows."""
+    frame = make_frame(rows)
+    app = ProbedApp(frame=frame, source="bench.csv", target="y", sessions=False)
+    responses: list[float] = []
+    async with app.run_test(size=(100, 30)) as pilot:
+        start = time.perf_counter()
+        await pilot.pause()
+        deadline = start + 3.0
+        keys = await press_keys(app, lambda: time.perf_counter() > deadline and not app.answering,
+                                responses=responses)
+        end = time.perf_counter()
+        ready = app.screen.chain_task is not None
+    return {"key": max(keys), "response": max(responses), "median": statistics.median(responses),
+            "gap": largest_gap(app.ticks, start, end), "keys": len(keys), "busy": end - start, "ready": ready}
+
+
+async def measure_table(rows: int) -> dict[str, float]:
+    """Return the key responses and tick gaps while moving through a four-stage chain's table."""
+    chain = stages.Chain(make_frame(rows), "y", stages.Holdout(fraction=0.2, seed=0), "squared")
+    chain.add("linear")
+    chain.add("hist_tree", 0.3, params={"max_depth": 4}, repeat=3)
+    app = ProbedApp(chain=chain, sessions=False)
+    responses: list[float] = []
+    async with app.run_test(size=(100, 30)) as pilot:
+        await pilot.pause(0.5)
+        while app.answering:
+            await pilot.pause(0.1)
+        start = time.perf_counter()
+        deadline = start + 5.0
+        keys = await press_keys(app, lambda: time.perf_counter() > deadline, keys=("up", "up", "up", "down", "down",
+                                                                                  "down"), responses=responses)
+        end = time.perf_counter()
+        while app.answering:
+            await pilot.pause(0.1)
+        shown = app.screen.query_one("#residual-plot").figure is not None
+    return {"key": max(keys), "response": max(responses), "median": statistics.median(responses),
+            "gap": largest_gap(app.ticks, start, end), "keys": len(keys), "shown": shown}
 
 
 async def measure(rows: int, rounds: int, threads: int = 0) -> dict[str, float]:
@@ -135,13 +194,40 @@ async def measure(rows: int, rounds: int, threads: int = 0) -> dict[str, float]:
     }
 
 
+def print_keys(title: str, r: dict[str, float]) -> None:
+    """Print the key figures of one screen."""
+    ms = 1000
+    target = f"within {TARGET * ms:.0f} ms"
+    common.print_table(title, [
+        ("longest response to a key (taken up, handled, screen refreshed)", f"{r['response'] * ms:.0f} ms", "",
+         target),
+        (f"median response to a key ({r['keys']} keys)", f"{r['median'] * ms:.0f} ms", "", ""),
+        ("longest wait of a key before the app took it up", f"{r['key'] * ms:.1f} ms", "", target),
+        (f"largest gap between {TICK * ms:.0f} ms timer ticks", f"{r['gap'] * ms:.0f} ms", "", target),
+    ])
+
+
 def main() -> None:
     """Run the benchmark and print its figures."""
     parser = common.parser(__doc__.splitlines()[0], 1_000_000)
+    parser.add_argument("--screen", choices=("fit", "setup", "table", "all"), default="fit",
+                        help="what to measure (default fit)")
     parser.add_argument("--rounds", type=int, default=100, help="LightGBM boosting rounds (default 100)")
     parser.add_argument("--threads", type=int, default=0,
                         help="LightGBM threads for the stage (default 0: LightGBM's own choice, all cores)")
     args = parser.parse_args()
+    if args.screen in ("setup", "all"):
+        r = asyncio.run(measure_setup(args.rows))
+        print_keys(f"the setup screen on {args.rows:,} rows, reading the columns for {r['busy']:.1f} s", r)
+    if args.screen in ("table", "all"):
+        r = asyncio.run(measure_table(args.rows))
+        print_keys(f"moving through a 4-stage chain's table on {args.rows:,} rows (histograms in a worker)", r)
+    if args.screen in ("fit", "all"):
+        fit_figures(args)
+
+
+def fit_figures(args) -> None:
+    """Measure and print the figures while a LightGBM stage fits."""
     r = asyncio.run(measure(args.rows, args.rounds, args.threads))
     ms = 1000
     threads = f", {args.threads} threads" if args.threads else ""

@@ -43,6 +43,11 @@ async def start_on(app) -> dict:
     async with app.run_test(size=(100, 30)) as pilot:
         await pilot.pause()
         assert isinstance(app.screen, SetupScreen)
+        for _ in range(500):  # the screen reads the columns and the target's task in a worker first
+            await app.workers.wait_for_complete()
+            await pilot.pause()
+            if not app.answering:
+                break
         await pilot.press("s")
         await pilot.pause()
         await app.workers.wait_for_complete()

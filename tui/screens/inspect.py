@@ -13,7 +13,7 @@ from ..view import ChainView
 from ..widgets.chain_table import ChainTable
 from ..widgets.error_curve import ErrorCurve
 from ..widgets.stage_details import StageDetails
-from .workbench import title_line
+from .panes import title_line
 
 NOTE = ("read-only: the scores are the ones stored in the file. Residuals need the data: open the "
         "data file to build on this chain.")

@@ -128,11 +128,16 @@ class ResidualPane(Vertical, can_focus=True):
         return MODE_NAMES[self.mode]
 
     def _arrange(self) -> None:
-        # beside the plot when both fit, else above it (a small terminal)
-        self.set_class(self.size.width < RANKING_WIDTH + 30, "-stacked")
-        self.ranking.display = self.mode == "feature"
-        self.query_one("#residual-body").display = self.mode != "largest"
-        self.query_one("#rows-scroll").display = self.mode == "largest"
+        # beside the plot when both fit, else above it (a small terminal); only changes are set,
+        # since each one lays the screen out again
+        stacked = self.size.width < RANKING_WIDTH + 30
+        if self.has_class("-stacked") != stacked:
+            self.set_class(stacked, "-stacked")
+        for widget, shown in ((self.ranking, self.mode == "feature"),
+                              (self.query_one("#residual-body"), self.mode != "largest"),
+                              (self.query_one("#rows-scroll"), self.mode == "largest")):
+            if widget.display != shown:
+                widget.display = shown
 
     def on_resize(self) -> None:
         """Show the ranking beside the plot when both fit, above it otherwise."""
@@ -182,8 +187,10 @@ class ResidualPane(Vertical, can_focus=True):
             what = f"binning the residuals by {self._current_feature()}"
         if self.app.fitting and self.mode in ("feature", "largest", "calibration"):
             what += " (after the fit)"
-        self.plot.draw(None, f"… {what}")
-        self.rows_text.update(Text(f"… {what}", style="dim"))
+        if self.mode == "largest":
+            self.rows_text.update(Text(f"… {what}", style="dim"))
+        else:
+            self.plot.draw(None, f"… {what}")
 
     def on_answered(self, event: Answered) -> None:
         """Take an answer the worker computed, when it is the one this pane waits for."""

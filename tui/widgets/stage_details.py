@@ -245,9 +245,9 @@ class StageDetails(VerticalScroll):
         stage = view.stage(row)
         self.border_title = "start value" if stage is None else f"stage {row} · {stage.kind}"
         self.body.update(start_text(view) if stage is None else stage_text(view, stage, width, self.timings))
-        self.learned_body.update("")
         self.wanted = None
         if stage is None or self.chain is None or view.read_only or not view.stage_objects:
+            self.learned_body.update("")
             return
         question = answers.learned_question(self, self.chain, view, row, self._feature(stage))
         self.wanted = question.key
