@@ -24,7 +24,7 @@ from textual.widgets import Button, Footer, Static
 from stages.metrics import HIGHER_IS_BETTER
 
 from ..format import number, pair_text
-from ..widgets.candidate_card import BEST, PICK, CandidateCard
+from ..widgets.candidate_card import BEST, PICK, CandidateCard, shared_texts
 from ..widgets.candidate_histogram import fold_tails
 from .confirm import ConfirmScreen
 
@@ -88,11 +88,12 @@ class AuditionResultScreen(Screen[int | None]):
         if fitted:
             folded, shared = fold_tails([c.histogram for c in fitted], fitted[0].edges)
         counts = iter(folded)
+        texts = shared_texts(self.candidates)
         with VerticalScroll(id="cards"):
             for i, candidate in enumerate(self.candidates):
                 marks = tuple(m for m, on in ((BEST, i == self.best), (PICK, i == self.choice)) if on)
                 yield CandidateCard(i + 1, candidate, self.metric, next(counts) if candidate.ok else {},
-                                    shared, marks=marks, timings=self.timings)
+                                    shared, marks=marks, timings=self.timings, texts=texts[i])
         if not self.any_better:
             yield Static(f"none of the {n} candidates improves validation ({self.metric} now "
                          f"{number(self.current)}): keeping one would make the chain worse; keep none (esc)",

@@ -15,7 +15,7 @@ from rich.text import Text
 from textual.app import RenderResult
 from textual.widget import Widget
 
-from ..format import number
+from ..format import pair_text
 
 #: one-eighth steps of a column, bottom up
 _LEVELS = " ▁▂▃▄▅▆▇█"
@@ -111,7 +111,7 @@ class CandidateHistogram(Widget):
             for i, row in enumerate(bars(shares[name], top, height)):
                 text.append(f"{label if i == height - 1 else '':<{LABEL}}", style="dim")
                 text.append(row + "\n", style=style)
-        low, high = number(float(self.edges[0]), 3), number(float(self.edges[-1]), 3)
+        low, high = pair_text(float(self.edges[0]), float(self.edges[-1]), digits=3)
         cells = len(next(iter(shares.values())))
         text.append(" " * LABEL + low + " " * max(1, cells - len(low) - len(high)) + high, style="dim")
         return text

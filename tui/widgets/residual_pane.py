@@ -271,7 +271,8 @@ class ResidualPane(Vertical, can_focus=True):
             mark = ("*" if row["stands_out"] else " ") + ("~" if row["spread_stands_out"] else " ")
             chosen = name == self.feature
             value = row[column] if self.by_spread else row["share"]
-            shown = f"{value * 100:4.0f}%" if np.isfinite(value) else "   -"
+            percent = round(value * 100) if np.isfinite(value) else None
+            shown = f"{percent or 0:4d}%" if percent is not None else "   -"  # never "-0%"
             shortened = name if len(name) <= name_width else name[: name_width - 1] + "…"
             line = f"{'▸' if chosen else ' '}{shortened:<{name_width}}{shown}{mark}"
             text.append(line + "\n", style="reverse" if chosen else "")
