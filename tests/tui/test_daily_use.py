@@ -466,3 +466,42 @@ async def test_z_zooms_the_error_curve_onto_the_last_stages_and_the_best_value_s
         assert min(int(t) for t in axis.split()) >= 5
         await pilot.press("z")
         assert not curve.zoomed
+
+
+# ----- the README's key table, the help and the footer agree ------------------------------------------
+def readme_keys() -> set[str]:
+    """Return every key the README's key table of the workbench names."""
+    from pathlib import Path
+
+    text = (Path(__file__).resolve().parents[2] / "README.md").read_text(encoding="utf-8")
+    table = text[text.index("| key | does |"):]
+    table = table[: table.index("\n\n")]
+    keys = set()
+    for line in table.splitlines()[2:]:
+        keys |= set(re.findall(r"`([^`]+)`", line.split("|")[1]))
+    return keys
+
+
+async def test_the_readme_key_table_the_help_and_the_footer_agree(tmp_path):
+    from tui.app import RemnantApp
+    from tui.screens.help import key_name
+    from tui.screens.setup import SetupScreen
+    from tui.widgets.column_roles import ColumnRoles
+
+    app = setup_app(diabetes_csv(tmp_path))
+    async with app.run_test(size=(80, 24)) as pilot:
+        await start_chain(pilot)
+        footer = {key_name(b.binding.key) for b in app.screen.active_bindings.values() if b.binding.show}
+        helped = set()
+        for _, keys in app.help_sections():
+            for entry, _ in keys:
+                helped |= {k.strip() for part in entry.split(" / ") for k in part.split(",")}
+    documented = readme_keys()
+    workbench = {key_name(k.strip()) for b in WorkbenchScreen.BINDINGS + RemnantApp.BINDINGS
+                 if b.tooltip or b.description for k in b.key.split(",")}
+    workbench |= {key_name(b.key) for b in SetupScreen.BINDINGS + ColumnRoles.BINDINGS + ResidualPane.BINDINGS}
+    assert footer <= helped, footer - helped            # every key the footer shows is in the help
+    assert footer <= documented | {"esc"}, footer - documented  # and in the README
+    missing = {k for k in workbench if k not in documented and k not in ("f1", "esc", "home", "end")}
+    assert not missing, missing                          # the README names every key of these screens
+    assert {"ctrl+s", "p", "z", "w", "ctrl+q"} <= helped
