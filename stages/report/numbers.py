@@ -81,8 +81,9 @@ class NumberStyle:
         return f"{number:{sign}.{self.decimals}f}"
 
 
-def style_of(values: Iterable[Any], digits: int = DIGITS) -> NumberStyle:
-    """Return the one style that writes every value of ``values`` (see the module's rules)."""
+def style_of(values: Iterable[Any], digits: int = DIGITS, *, distinguish: bool = True) -> NumberStyle:
+    """Return the one style that writes every value of ``values`` (see the module's rules); without
+    ``distinguish``, close values get no extra decimals (a list of rows rather than stages)."""
     finite = _finite(values)
     sizes = [abs(v) for v in finite if v != 0]
     if not sizes:
@@ -92,7 +93,7 @@ def style_of(values: Iterable[Any], digits: int = DIGITS) -> NumberStyle:
         return NumberStyle(None, digits)
     base = max(0, digits - 1 - _exponent(largest))
     wanted = base
-    distinct = sorted(set(finite))
+    distinct = sorted(set(finite)) if distinguish else []
     gaps = [b - a for a, b in zip(distinct, distinct[1:], strict=False) if b - a > 0]
     if gaps:
         wanted = max(wanted, -_exponent(min(gaps)))
@@ -100,12 +101,12 @@ def style_of(values: Iterable[Any], digits: int = DIGITS) -> NumberStyle:
 
 
 def column_text(values: Iterable[Any], *, digits: int = DIGITS, signed: bool = False, missing: str = "",
-                trim: bool = False) -> list[str]:
+                trim: bool = False, distinguish: bool = True) -> list[str]:
     """Return every value of ``values`` as text in their one style. With ``trim``, zeros that end
     every fixed-style value are dropped together (axis ticks: ``0.10, 0.35`` rather than
-    ``0.100, 0.350``)."""
+    ``0.100, 0.350``); ``distinguish`` as ``style_of``."""
     values = list(values)
-    style = style_of(values, digits)
+    style = style_of(values, digits, distinguish=distinguish)
     if trim and style.decimals:
         while style.decimals and all(_ends_in_zero(v, style) for v in _finite(values)):
             style = NumberStyle(style.decimals - 1, digits)

@@ -48,6 +48,8 @@ def test_close_values_get_the_decimals_that_tell_them_apart():
     # at most two decimals more than the largest value needs: a near tie stays a tie
     assert column_text([7.4900001, 7.4900002]) == ["7.49000", "7.49000"]
     assert pair_text(58.234, 58.229) == ("58.234", "58.229")
+    # a list of rows, not of stages: the largest value's digits are enough
+    assert column_text([65.7962, 43.4038], distinguish=False) == ["65.80", "43.40"]
 
 
 def test_huge_or_tiny_columns_are_scientific_throughout():

@@ -301,11 +301,12 @@ class ResidualPane(Vertical, can_focus=True):
         before = f"residual_after_{self.row - 1}" if self.row else None
         cells = {
             name: [str(v) for v in (table["id"] if has_id else table["position"] + 1)],
-            "actual": column_text(table["actual"]), "fitted": column_text(table["fitted"]),
-            "residual": column_text(table["residual"], signed=True),
+            "actual": column_text(table["actual"], distinguish=False),
+            "fitted": column_text(table["fitted"], distinguish=False),
+            "residual": column_text(table["residual"], signed=True, distinguish=False),
         }
         if before is not None:
-            cells["before"] = column_text(table[before], signed=True)
+            cells["before"] = column_text(table[before], signed=True, distinguish=False)
         widths = {k: max(len(k), *(len(v) for v in values)) if values else len(k) for k, values in cells.items()}
         text = Text(no_wrap=True, overflow="ellipsis")
         header = "  ".join(k.ljust(widths[k]) if k == name else k.rjust(widths[k]) for k in cells)
