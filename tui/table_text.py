@@ -217,8 +217,9 @@ def describe_schema(fitted: Any) -> str:
 def describe_steps(fitted: Any) -> str:
     """Return, per stage, its step and how the step was chosen, then each stage's notes."""
     cells = [("stage", "kind", "step", "step chosen by")]
-    for number, stage in enumerate(fitted.stages, start=1):
-        cells.append((str(number), stage.kind, format_number(stage.step), stage.step_rule or "not recorded"))
+    steps = column_text([stage.step for stage in fitted.stages])
+    for number, (stage, step) in enumerate(zip(fitted.stages, steps, strict=True), start=1):
+        cells.append((str(number), stage.kind, step, stage.step_rule or "not recorded"))
     widths = [max(len(row[j]) for row in cells) for j in range(4)]
     lines = ["  ".join((row[0].rjust(widths[0]), row[1].ljust(widths[1]), row[2].rjust(widths[2]), row[3])).rstrip()
              for row in cells]

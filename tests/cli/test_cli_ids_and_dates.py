@@ -9,6 +9,7 @@ with a visit date added, one day apart.
 from __future__ import annotations
 
 import io
+import re
 import tomllib
 
 import numpy as np
@@ -83,3 +84,24 @@ def test_an_exported_recipe_writes_only_the_keys_of_its_task(work):
     binary = stages.Chain.from_file(work / "cancer.csv", "malignant", stages.Holdout(seed=0), threshold=0.3)
     written = tomllib.loads(chain_to_recipe(binary))
     assert written["chain"]["threshold"] == 0.3 and written["validation"]["stratify"] is True
+
+
+def test_every_key_the_recipe_writer_emits_is_documented_in_the_readme(work):
+    from pathlib import Path
+
+    readme = (Path(__file__).resolve().parents[2] / "README.md").read_text(encoding="utf-8")
+    block = readme[readme.index("## Recipes"):]
+    block = block[block.index("```toml"): block.index("```", block.index("```toml") + 7)]
+    documented = set(re.findall(r"^#?\s*([a-z_]+) =", block, re.M))
+    frame = pd.read_csv(work / "cancer.csv")
+    frame["seen"] = pd.date_range("2024-01-01", periods=len(frame), freq="h").strftime("%Y-%m-%d %H:%M")
+    frame.to_csv(work / "seen.csv", index=False)
+    chain = stages.Chain.from_file(work / "seen.csv", "malignant", stages.KFold(folds=3, seed=1, stratify=False),
+                                   threshold=0.4, positive="1", dates={"seen": ["hour"]},
+                                   features=["mean_radius", "mean_texture"])
+    chain.add("logistic")
+    chain.add("tree", 0.3, params={"max_depth": 2}, repeat=2)
+    written = tomllib.loads(chain_to_recipe(chain))
+    emitted = set(written["data"]) | set(written["chain"]) | set(written["validation"])
+    emitted |= {key for entry in written["stage"] for key in entry}
+    assert emitted - documented == set(), emitted - documented
