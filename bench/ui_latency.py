@@ -124,13 +124,17 @@ async def measure_setup(rows: int) -> dict[str, float]:
     app = ProbedApp(frame=frame, source="bench.csv", target="y", sessions=False)
     responses: list[float] = []
     async with app.run_test(size=(100, 30)) as pilot:
+        await pilot.pause()  # the first screen is up; its columns are being read in the worker
         start = time.perf_counter()
-        await pilot.pause()
         deadline = start + 3.0
         keys = await press_keys(app, lambda: time.perf_counter() > deadline and not app.answering,
                                 responses=responses)
         end = time.perf_counter()
         ready = app.screen.chain_task is not None
+    inside = [t for t in app.ticks if start <= t <= end]
+    gaps = sorted(((b - a, a - start) for a, b in zip(inside, inside[1:], strict=False)), reverse=True)[:5]
+    print("largest gaps on the setup screen (gap ms @ s after the first screen):",
+          ", ".join(f"{g * 1000:.0f} @ {at:.1f}" for g, at in gaps))
     return {"key": max(keys), "response": max(responses), "median": statistics.median(responses),
             "gap": largest_gap(app.ticks, start, end), "keys": len(keys), "busy": end - start, "ready": ready}
 

@@ -100,6 +100,10 @@ def describe_columns(frame: pd.DataFrame) -> list[ColumnReport]:
     reports = []
     for j, name in enumerate(frame.columns):
         values = frame.iloc[:, j]
+        text = _plain_numeric_report(values) or _arrow_text_report(values)
+        if text is not None:
+            reports.append(ColumnReport(str(name), text[0], str(values.dtype), *text[2:], text[1]))
+            continue
         try:
             non_missing, uniques = _distinct(values)
             role, note = _role(values.dtype, non_missing, uniques, len(values))
@@ -110,6 +114,66 @@ def describe_columns(frame: pd.DataFrame) -> list[ColumnReport]:
         n_missing = len(values) - len(non_missing)
         reports.append(ColumnReport(str(name), role, str(values.dtype), n_missing, len(uniques), examples, note))
     return reports
+
+
+def _plain_numeric_report(values: pd.Series) -> tuple[str, str, int, int, tuple[str, ...]] | None:
+    """Return (role, note, missing, distinct, examples) of a plain numeric column, or None for any
+    other: the rules above, with the distinct values counted by sorting (numpy lets go of the
+    interpreter while it sorts; a hash of ten million numbers would hold it)."""
+    if not _plain_numeric(values.dtype):
+        return None
+    array = values.to_numpy()
+    non_missing = array[~np.isnan(array)] if array.dtype.kind == "f" else array
+    n, missing = len(non_missing), len(array) - len(non_missing)
+    if n == 0:
+        return EXCLUDED, "every value is missing", missing, 0, ()
+    n_unique = len(np.unique(non_missing))
+    first = pd.unique(non_missing[:10_000])
+    if len(first) < min(3, n_unique):
+        first = pd.unique(non_missing)
+    examples = tuple(str(v) for v in first[:3])
+    if n_unique == 1:
+        return EXCLUDED, f"constant (every value is {first[0]!s})", missing, 1, examples
+    role, note = _numbers_role(non_missing, len(array))
+    return role, note, missing, n_unique, examples
+
+
+def _arrow_text_report(values: pd.Series) -> tuple[str, str, int, int, tuple[str, ...]] | None:
+    """Return (role, note, missing, distinct, examples) of a text column Arrow holds, or None for
+    any other column: the same answer as the rules above, computed by Arrow's kernels, which let
+    go of the interpreter while they work (a screen stays live while ten million texts are
+    counted). Only the few values the rules look at become Python objects."""
+    dtype = values.dtype
+    if not (isinstance(dtype, pd.StringDtype) and dtype.storage == "pyarrow"):
+        return None
+    import pyarrow as pa
+    import pyarrow.compute as pc
+
+    present = pc.drop_null(pa.chunked_array(pa.array(values)))
+    n, missing = len(present), len(values) - len(present)
+    uniques = pc.unique(present)
+    n_unique = len(uniques)
+    examples = tuple(str(v) for v in uniques.slice(0, 3).to_pylist())
+    if n == 0:
+        return EXCLUDED, "every value is missing", missing, 0, ()
+    if n_unique == 1:
+        return EXCLUDED, f"constant (every value is {examples[0]!s})", missing, 1, examples
+    if n_unique <= 8:
+        words = {str(v).strip().lower() for v in uniques.to_pylist()}
+        if len(words) == 2 and words & _TRUE_WORDS and words & _FALSE_WORDS:
+            return BOOLEAN, "", missing, n_unique, examples
+    step = max(1, n // DATE_SAMPLE)
+    sample = present.take(pa.array(np.arange(0, n, step)[:DATE_SAMPLE])).to_numpy(zero_copy_only=False)
+    if _looks_like_dates(sample):
+        return DATETIME, "dates: usable to order rows by time", missing, n_unique, examples
+    if _mostly_numbers(present.slice(0, 2000).to_numpy(zero_copy_only=False)):
+        role, note = _text_role(present.to_numpy(zero_copy_only=False), uniques.to_numpy(zero_copy_only=False))
+        return role, note, missing, n_unique, examples
+    if n_unique == n and n > ID_MIN_ROWS:
+        return ID, ID_NOTE, missing, n_unique, examples
+    if n_unique > MAX_LEVELS:
+        return EXCLUDED, f"{n_unique:,} distinct values (more than {MAX_LEVELS:,})", missing, n_unique, examples
+    return CATEGORICAL, "", missing, n_unique, examples
 
 
 _NOT_PLAIN = "holds lists or other values that are not plain"

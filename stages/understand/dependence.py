@@ -347,5 +347,7 @@ def _positive(value: int, name: str) -> int:
 
 def _chain_rows(chain: Chain, part: Part, sample: int | None, seed: int) -> Rows:
     positions = part_positions(chain, part)
-    rows = Rows(chain.matrix, positions, frame_positions(chain, positions))
-    return rows.subset(sample_rows(len(positions), sample, seed))
+    chosen = sample_rows(len(positions), sample, seed)
+    if chosen is not None:  # the frame's row of the sampled rows only, not of every row of the part
+        positions = positions[chosen]
+    return Rows(chain.matrix, positions, frame_positions(chain, positions))

@@ -79,14 +79,19 @@ def frame_positions(chain: Chain, positions: np.ndarray) -> np.ndarray:
 
 
 def sample_rows(n: int, sample: int | None, seed: int) -> np.ndarray | None:
-    """Return sorted positions of at most ``sample`` of ``n`` rows drawn with ``seed``, or None for all."""
+    """Return sorted positions of at most ``sample`` of ``n`` rows drawn with ``seed``, or None for all.
+
+    The draw costs in proportion to the sample, not to ``n`` (numpy's Generator draws a few rows
+    of many without shuffling them all), so a bounded question about ten million rows stays quick
+    and never holds the interpreter for the length of a shuffle.
+    """
     if sample is None:
         return None
     if isinstance(sample, bool) or not isinstance(sample, int | np.integer) or sample < 1:
         raise StageSpecError(f"sample must be a whole number of at least 1, not {sample!r}")
     if sample >= n:
         return None
-    return np.sort(np.random.RandomState(seed).choice(n, size=int(sample), replace=False))
+    return np.sort(np.random.default_rng(seed).choice(n, size=int(sample), replace=False, shuffle=False))
 
 
 def feature_index(schema: Any, feature: str) -> int:

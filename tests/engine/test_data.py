@@ -619,3 +619,36 @@ def test_a_frame_with_10000_columns_and_5_rows_describes_and_prepares():
     frame["y"] = rng.normal(size=5)
     assert len(describe_columns(frame)) == 10_001
     assert prepare(frame, "y").matrix.shape == (5, 10_000)
+
+
+def test_text_columns_arrow_holds_are_described_as_the_rules_describe_them():
+    n = 2500
+    rng = np.random.RandomState(0)
+    frame = pd.DataFrame({
+        "depot": rng.choice(["north", "east", "south"], size=n),
+        "flag": rng.choice(["Yes", "no "], size=n),
+        "order": [f"o{i}" for i in range(n)],
+        "when": pd.date_range("2024-01-01", periods=n, freq="h").strftime("%Y-%m-%d %H:%M"),
+        "mostly": ["n/a", "?", "x"] + [str(i) for i in range(n - 3)],
+        "same": ["a"] * n,
+        "empty": pd.array([None] * n, dtype="string[pyarrow]"),
+        "levels": [f"l{i % 1500}" for i in range(n)],
+    }).astype("string[pyarrow]")
+    frame.loc[::7, "depot"] = None
+    frame["km"] = rng.normal(size=n).round(1)
+    frame.loc[::5, "km"] = np.nan
+    frame["row"] = np.arange(n)
+    frame["one"] = 3.0
+    fast = describe_columns(frame)
+    # reference: the rules over each column's values as numpy gives them (pandas' hash of every value)
+    from stages import data
+
+    for report in fast:
+        values = frame[report.name]
+        non_missing, uniques = data._distinct(values)
+        role, note = data._role(values.dtype, non_missing, uniques, len(values))
+        expected = (role, note, len(values) - len(non_missing), len(uniques), tuple(str(v) for v in uniques[:3]))
+        assert (report.role, report.note, report.n_missing, report.n_unique, report.examples) == expected, report.name
+    roles = {r.name: r.role for r in fast}
+    assert (roles["order"], roles["when"], roles["flag"], roles["mostly"], roles["levels"]) == (
+        ID, DATETIME, BOOLEAN, NUMERIC, "excluded")
