@@ -17,61 +17,15 @@ from typing import TYPE_CHECKING, Any
 
 import pandas as pd
 
+from stages.report.numbers import column_text, number_text
 from stages.report.table import StageTable, fitted_rows
 
 if TYPE_CHECKING:
     from stages.predictor import FittedChain
 
-SIGNIFICANT = 4
 #: headers shorter than the column names
 HEADERS = {"valid_accuracy_at": "valid acc"}
 FEATURES_WIDTH = 24
-
-
-def format_number(value: Any, digits: int = SIGNIFICANT, *, signed: bool = False) -> str:
-    """Return ``value`` with ``digits`` significant digits (never fewer integer digits); "" for NaN."""
-    if value is None or (isinstance(value, float) and math.isnan(value)):
-        return ""
-    number = float(value)
-    if math.isinf(number):
-        return ("+" if signed and number > 0 else "") + ("inf" if number > 0 else "-inf")
-    sign = "+" if signed else ""
-    size = abs(number)
-    if size != 0 and (size >= 1e7 or size < 1e-4):
-        return f"{number:{sign}.{digits - 1}e}"
-    if size == 0:
-        decimals = digits - 1
-    elif size >= 1:
-        decimals = max(0, digits - (math.floor(math.log10(size)) + 1))
-    else:  # leading zeros after the point do not count as significant
-        decimals = digits - math.floor(math.log10(size)) - 1
-    return f"{number:{sign}.{decimals}f}"
-
-
-def _needed_decimals(value: float, digits: int) -> int:
-    size = abs(value)
-    if size >= 1:
-        return max(0, digits - (math.floor(math.log10(size)) + 1))
-    return digits - math.floor(math.log10(size)) - 1
-
-
-def column_decimals(values: list[Any], digits: int = SIGNIFICANT) -> int:
-    """Return the decimals that show every value of a column (from 1e-4 up) with ``digits`` significant digits."""
-    finite = [abs(float(v)) for v in values if v is not None and math.isfinite(float(v))]
-    needed = [_needed_decimals(v, digits) for v in finite if 1e-4 <= v < 1e7]
-    return min(6, max(needed, default=digits - 1))
-
-
-def format_fixed(value: Any, decimals: int, *, signed: bool = False) -> str:
-    """Return ``value`` with ``decimals`` decimals, or in scientific notation when that would
-    show fewer than two significant digits (or the value is 1e7 or more); "" for NaN."""
-    if value is None or math.isnan(float(value)):
-        return ""
-    number, sign = float(value), "+" if signed else ""
-    size = abs(number)
-    if math.isinf(number) or (size != 0 and (size >= 1e7 or size < 10 ** (1 - decimals))):
-        return format_number(number, signed=signed)
-    return f"{number:{sign}.{decimals}f}"
 
 
 def _frame(table: StageTable | pd.DataFrame) -> pd.DataFrame:
@@ -104,7 +58,7 @@ def _columns(table: pd.DataFrame) -> list[tuple[str, str, str]]:
     return shown
 
 
-def _cell(value: Any, style: str, decimals: int) -> str:
+def _cell(value: Any, style: str) -> str:
     if style == "text":
         text = "" if value is None or (isinstance(value, float) and math.isnan(value)) else str(value)
         return text if len(text) <= FEATURES_WIDTH else text[: FEATURES_WIDTH - 3] + "..."
@@ -116,7 +70,7 @@ def _cell(value: Any, style: str, decimals: int) -> str:
         return f"{float(value):g}"
     if style == "seconds":
         return f"{float(value):.2f}"
-    return format_fixed(value, decimals, signed=style == "change")
+    return str(value)
 
 
 def flags_of(row: pd.Series) -> str:
@@ -136,11 +90,13 @@ def format_table(table: StageTable | pd.DataFrame) -> str:
     if "seconds" in table.columns:  # the start value takes no fit time: leave its cell empty
         table["seconds"] = table["seconds"].where(table["kind"] != "start")
     columns = _columns(table)
-    decimals = {column: column_decimals(list(table[column])) for column, _, style in columns
-                if style in ("number", "change")}
+    # each column of numbers in one style (the engine's formatter): the digits that tell the stages apart
+    numbers = {column: column_text(table[column], signed=style == "change") for column, _, style in columns
+               if style in ("number", "change")}
     cells = [[header for _, header, _ in columns]]
-    for _, row in table.iterrows():
-        cells.append([_cell(row.get(column), style, decimals.get(column, 0)) for column, _, style in columns])
+    for i, (_, row) in enumerate(table.iterrows()):
+        cells.append([numbers[column][i] if column in numbers else _cell(row.get(column), style)
+                      for column, _, style in columns])
     widths = [max(len(line[j]) for line in cells) for j in range(len(columns))]
     lines = []
     for line in cells:
@@ -173,7 +129,7 @@ def describe_chain(path: str, fitted: Any) -> str:
     task = schema.task + (f" (positive class {schema.positive_class!r})" if schema.positive_class else "")
     rows = meta.get("rows") or {}
     lines = [("chain file", path), ("target", f"{schema.target!r}, {task}"), ("loss", fitted.loss.name),
-             ("start value", f"{fitted.start:.6g}"), ("validation", _validation_text(meta.get("validation"))),
+             ("start value", number_text(fitted.start)), ("validation", _validation_text(meta.get("validation"))),
              ("seed", str(meta.get("seed"))), ("data", str(meta.get("source") or "")),
              ("rows", ", ".join(f"{rows[k]:,} {k}" for k in ("train", "valid", "test") if k in rows))]
     versions = meta.get("versions") or {}
@@ -241,8 +197,8 @@ def describe_coefficients(fitted: Any) -> str:
         scale = "log-odds" if fitted.task == "binary" else f"{fitted.schema.target!r}"
         lines = [f"stage {k} ({stage.kind}): coefficients, per unit of each feature, in {scale}"]
         cells = [("term", "coefficient", "against")]
-        for _, row in table.iterrows():
-            cells.append((str(row["term"]), format_number(row["coefficient"]), str(row["reference"])))
+        for (_, row), text in zip(table.iterrows(), column_text(table["coefficient"]), strict=True):
+            cells.append((str(row["term"]), text, str(row["reference"])))
         widths = [max(len(cell[j]) for cell in cells) for j in range(3)]
         for cell in cells:
             lines.append(f"{cell[0].ljust(widths[0])}  {cell[1].rjust(widths[1])}  {cell[2]}".rstrip())
