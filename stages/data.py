@@ -33,7 +33,7 @@ from __future__ import annotations
 import difflib
 import warnings
 from collections import Counter
-from collections.abc import Sequence
+from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
 from typing import get_args
 
@@ -365,7 +365,7 @@ def prepare(
     positive: str | None = None,
     source: str = "frame",
     encode: bool = True,
-    dates: dict[str, Sequence[str]] | None = None,
+    dates: Mapping[str, Sequence[str]] | None = None,
 ) -> Prepared:
     """Return the Prepared data for fitting a chain on ``frame`` to predict ``target``.
 
@@ -586,7 +586,7 @@ def _listed_features(kept: pd.DataFrame, target: str, ignore: set[str], features
     return columns
 
 
-def _date_features(kept: pd.DataFrame, dates: dict[str, Sequence[str]], target: str, source: str,
+def _date_features(kept: pd.DataFrame, dates: Mapping[str, Sequence[str]], target: str, source: str,
                    notes: list[str]) -> list[ColumnInfo]:
     """Return the features derived from date columns; DataError for a column that is not a date
     column, an unknown or repeated part, or a name the data already uses."""

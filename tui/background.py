@@ -18,13 +18,18 @@ from __future__ import annotations
 from collections import OrderedDict
 from collections.abc import Callable, Hashable, Sequence
 from dataclasses import dataclass
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 from textual.message import Message
 from textual.message_pump import MessagePump
 from textual.worker import Worker, WorkerState
 
 from .worker import one_line
+
+if TYPE_CHECKING:
+    from textual.app import App as _App
+else:
+    _App = object  # a mixin at run time; mypy checks it as the App it is mixed into
 
 #: answers kept for asking again (a few kilobytes each: bins, tables of a few dozen rows)
 KEEP = 256
@@ -80,21 +85,30 @@ def on_state(chain: Any, stages: Sequence[Any], compute: Callable[[], Any]) -> A
     return answer
 
 
-class BackgroundRunner:
+class _Lanes:
+    """The answers kept, the question each lane is answering, and the questions waiting per lane and channel."""
+
+    def __init__(self) -> None:
+        self.answers: OrderedDict[Hashable, Any] = OrderedDict()
+        self.asking: dict[str, Question] = {}
+        self.waiting: dict[str, dict[str, Question]] = {"view": {}, "chain": {}}
+
+
+class BackgroundRunner(_App):
     """Mixin for the App: answers the panes' questions in thread workers, one per lane at a time."""
 
-    _answers: OrderedDict | None = None
-    _asking: dict[str, Question] | None = None
-    _waiting: dict[str, dict[str, Question]] | None = None
+    _lanes: _Lanes | None = None
 
-    def _answer_store(self) -> OrderedDict:
-        if self._answers is None:
-            self._answers, self._asking, self._waiting = OrderedDict(), {}, {"view": {}, "chain": {}}
-        return self._answers
+    @property
+    def lanes(self) -> _Lanes:
+        """Return the answers and the questions in hand (made on first use)."""
+        if self._lanes is None:
+            self._lanes = _Lanes()
+        return self._lanes
 
     def known(self, key: Hashable) -> tuple[bool, Any]:
         """Return (True, answer) when ``key`` was answered before, else (False, None)."""
-        answers = self._answer_store()
+        answers = self.lanes.answers
         if key in answers:
             answers.move_to_end(key)
             return True, answers[key]
@@ -105,13 +119,12 @@ class BackgroundRunner:
         found = self.known(question.key)
         if found[0]:
             return found
-        assert self._asking is not None and self._waiting is not None
-        running = self._asking.get(question.lane)
-        waiting = self._waiting[question.lane]
-        if running is not None and running.key == question.key:
-            waiting.pop(question.channel, None)  # what is asked now is already being answered
-            return False, None
+        lanes = self.lanes
+        running = lanes.asking.get(question.lane)
+        waiting = lanes.waiting[question.lane]
         waiting.pop(question.channel, None)
+        if running is not None and running.key == question.key:
+            return False, None  # what is asked now is already being answered
         waiting[question.channel] = question
         if running is None:
             self._next_question(question.lane)
@@ -120,19 +133,17 @@ class BackgroundRunner:
     @property
     def answering(self) -> bool:
         """Return True while a question is being answered or waits."""
-        self._answer_store()
-        return bool(self._asking) or any(self._waiting.values())
+        lanes = self.lanes
+        return bool(lanes.asking) or any(lanes.waiting.values())
 
     def _next_question(self, lane: str) -> None:
-        waiting = self._waiting[lane]
+        lanes = self.lanes
+        waiting = lanes.waiting[lane]
         if not waiting:
-            self._asking.pop(lane, None)
+            lanes.asking.pop(lane, None)
             return
         question = waiting.pop(next(iter(waiting)))
-        self._asking[lane] = question
-        self._answer(question)
-
-    def _answer(self, question: Question) -> None:
+        lanes.asking[lane] = question
         self.run_worker(question.compute, name=_name(question), group="answers", thread=True, exit_on_error=False)
 
     def answer_finished(self, event: Worker.StateChanged) -> bool:
@@ -141,16 +152,16 @@ class BackgroundRunner:
             return False
         if event.state not in (WorkerState.SUCCESS, WorkerState.ERROR, WorkerState.CANCELLED):
             return True
-        question = next((q for q in self._asking.values() if event.worker.name == _name(q)), None)
+        lanes = self.lanes
+        question = next((q for q in lanes.asking.values() if event.worker.name == _name(q)), None)
         if question is None:
             return True
-        del self._asking[question.lane]
+        del lanes.asking[question.lane]
         if event.state == WorkerState.SUCCESS:
-            answers = self._answer_store()
             answer = event.worker.result
-            answers[question.key] = answer
-            while len(answers) > KEEP:
-                answers.popitem(last=False)
+            lanes.answers[question.key] = answer
+            while len(lanes.answers) > KEEP:
+                lanes.answers.popitem(last=False)
             question.owner.post_message(Answered(question.key, answer))
         elif not isinstance(event.worker.error, Stale):
             error = event.worker.error

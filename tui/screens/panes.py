@@ -8,7 +8,7 @@ time (``p`` cycles them); above it all four panes are on screen.
 
 from __future__ import annotations
 
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 from textual.widgets import Static
 
@@ -18,6 +18,16 @@ from ..widgets.reference_pane import ReferencePane
 from ..widgets.residual_pane import ResidualPane
 from ..widgets.stage_details import StageDetails, loss_name
 from .reasons import why_not
+
+if TYPE_CHECKING:
+    from textual import getters
+    from textual.screen import Screen as _Screen
+
+    from stages.chain import Chain
+
+    from ..app import RemnantApp
+else:
+    _Screen = object  # a mixin at run time; mypy checks it as the screen it is mixed into
 
 #: below this width or height the panes beside the table are shown one at a time (p cycles them)
 SMALL_WIDTH, SMALL_HEIGHT = 100, 30
@@ -41,12 +51,19 @@ def title_line(view: ChainView, width: int | None = None) -> str:
     return text
 
 
-class PaneActions:
+class PaneActions(_Screen):
     """Layout, pane keys and the residual pane's messages for the workbench screen."""
 
     side = "residuals"
     small = False
     row_ids: Any = None
+    if TYPE_CHECKING:  # what the workbench screen provides
+        chain: Chain | None
+        view: ChainView | None
+        app = getters.app(RemnantApp)
+
+        @property
+        def selected(self) -> int: ...
 
     def on_residual_pane_feature_picked(self, event: ResidualPane.FeaturePicked) -> None:
         """Show the partial dependence of the selected stage on the feature highlighted in the scan."""
@@ -76,6 +93,8 @@ class PaneActions:
             self._title()
 
     def _title(self) -> None:
+        if self.view is None:
+            return
         title = self.query_one("#title", Static)
         title.update(title_line(self.view, self.size.width))
         title.tooltip = " · ".join(title_parts(self.view))

@@ -74,12 +74,14 @@ class ChainTable(DataTable):
 
     def _headers(self) -> dict[str, str]:
         view = self.view
+        assert view is not None
         return {"index": "#", "mark": "", "kind": "kind", "train": "train", "valid": "valid", "change": "change",
                 "test": "test", "spread": "±", "shrinkage": "shrink", "second": f"valid {view.second}",
                 "seconds": "secs"}
 
     def _available(self) -> list[str]:
         view = self.view
+        assert view is not None
         keys = list(KEY)
         for key in OPTIONAL:
             if key == "test" and not view.test_revealed:
@@ -110,11 +112,12 @@ class ChainTable(DataTable):
             left = key in ("kind", "mark")
             self.add_column(Text(headers[key] + (" " if left else ""), justify="left" if left else "right"),
                             key=key, width=widths[key])
-        for i, row in enumerate(self.view.rows):
-            self.add_row(*(cells[key][i] for key in shown), key=str(row.index))
+        for i, stage_row in enumerate(self.view.rows):
+            self.add_row(*(cells[key][i] for key in shown), key=str(stage_row.index))
         self.move_cursor(row=self.selected, animate=False)
 
     def _cells(self) -> dict[str, list[Text]]:
+        assert self.view is not None
         rows = self.view.rows
         bold = ["bold" if r.best else "" for r in rows]
 

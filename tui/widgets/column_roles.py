@@ -83,6 +83,7 @@ class ColumnRoles(DataTable):
         self.dates: dict[str, tuple[str, ...]] = {}
         self._width = 0
         self._values_width = 20
+        self._name_width = NAME_WIDTH
 
     def on_mount(self) -> None:
         """Lay out the columns and one row per data column."""
@@ -101,6 +102,7 @@ class ColumnRoles(DataTable):
     def _layout(self, width: int) -> None:
         self._width = width
         name = min(NAME_WIDTH, max(6, *(len(r.name) for r in self.reports))) if self.reports else NAME_WIDTH
+        self._name_width = name
         self._values_width = max(8, width - name - USE_WIDTH - 8)
         row = self.cursor_row
         self.clear(columns=True)
@@ -136,7 +138,7 @@ class ColumnRoles(DataTable):
             self.dates = dict(dates)
         if not self.reports:
             return
-        width = self.columns["name"].width if "name" in self.columns else NAME_WIDTH
+        width = self._name_width
         for report in self.reports:
             for key, cell in zip(("name", "use", "values"), self._cells(report, width), strict=True):
                 self.update_cell(report.name, key, cell)

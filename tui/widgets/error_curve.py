@@ -84,7 +84,7 @@ class ErrorCurve(PlotextPlot):
         parts: dict[str, list[float | None]] = {"train": [r.train for r in rows], "valid": [r.valid for r in rows]}
         if view.test_revealed:
             parts["test"] = [r.test for r in rows]
-        drawn, values = False, []
+        drawn, values = False, list[float]()
         for part, ys in parts.items():
             x, y = _finite(xs, ys)
             if y:

@@ -16,7 +16,7 @@ arrives the pane says what it is computing.
 
 from __future__ import annotations
 
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
 import pandas as pd
@@ -33,6 +33,11 @@ from ..figures import Binned, Calibration, Histogram, Points
 from ..format import column_text
 from ..view import ChainView
 from .residual_plot import ResidualPlot
+
+if TYPE_CHECKING:
+    from textual import getters
+
+    from ..app import RemnantApp
 
 #: the views one key cycles through, per task
 MODES = {"regression": ("histogram", "fitted", "feature", "largest"),
@@ -57,6 +62,9 @@ def stats_text(stats: dict[str, tuple[float, float]]) -> str:
 
 class ResidualPane(Vertical, can_focus=True):
     """The views of where the error lives; the screen sets ``chain``, ``ids`` and calls ``show``."""
+
+    if TYPE_CHECKING:
+        app = getters.app(RemnantApp)
 
     BINDINGS = [
         Binding("up", "move(-1)", "previous feature", show=False),
@@ -167,6 +175,8 @@ class ResidualPane(Vertical, can_focus=True):
 
     def _question(self) -> Question | None:
         view, chain, row = self.view, self.chain, self.row
+        if view is None:
+            return None
         if self.mode in ("histogram", "fitted", "classes"):
             return answers.view_question(self, view, row, self.mode)
         if chain is None:
@@ -204,6 +214,8 @@ class ResidualPane(Vertical, can_focus=True):
         self._take(event.answer)
 
     def _take(self, answer: Any) -> None:
+        if self.view is None:
+            return
         if isinstance(answer, pd.DataFrame) and "score" in answer.columns:
             answer.attrs["state"] = answers.stage_key(self.view.stage_objects[:self.row])
             self.scan = answer
@@ -229,6 +241,7 @@ class ResidualPane(Vertical, can_focus=True):
 
     # ----- the views ------------------------------------------------------------------
     def _histogram(self, figure: Histogram) -> None:
+        assert self.view is not None
         where = self._where()
         if self.mode == "classes":
             negative, positive = list(figure.counts)
@@ -257,6 +270,8 @@ class ResidualPane(Vertical, can_focus=True):
         return self.feature
 
     def _show_ranking(self) -> None:
+        if self.scan is None:
+            return
         scan = self.scan.set_index("feature")
         column = "spread_score" if self.by_spread else "score"
         text = Text(no_wrap=True, overflow="ellipsis")
@@ -296,6 +311,7 @@ class ResidualPane(Vertical, can_focus=True):
         self.plot.draw(figure)
 
     def _largest(self, table: pd.DataFrame) -> None:
+        assert self.view is not None
         has_id = "id" in table.columns
         name = (self.view.id_column or "id") if has_id else "row"
         before = f"residual_after_{self.row - 1}" if self.row else None

@@ -75,6 +75,7 @@ class ResidualPlot(PlotextPlot):
 
     def _bins(self) -> None:
         plt, edges = self.plt, self.edges
+        assert edges is not None
         centers = (edges[1:] + edges[:-1]) / 2
         (_, under), (_, over) = list(self.counts.items())
         shares = [c / max(1, c.sum()) for c in (under, over)]

@@ -11,7 +11,7 @@ they arrive. Drawn as text with block characters, so it reads without colour.
 from __future__ import annotations
 
 import math
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
 import pandas as pd
@@ -28,6 +28,11 @@ from .. import answers
 from ..background import Answered
 from ..format import bar, column_text, number, seconds, value
 from ..view import ChainView, StageInfo
+
+if TYPE_CHECKING:
+    from textual import getters
+
+    from ..app import RemnantApp
 
 #: how the start value is chosen, per loss
 START_RULE = {
@@ -222,6 +227,9 @@ def dependence_text(table: pd.DataFrame, feature: str, rows: int, task: str, wid
 class StageDetails(VerticalScroll):
     """A scrolling pane with the details of the selected row; the screen sets ``chain`` and ``feature``."""
 
+    if TYPE_CHECKING:
+        app = getters.app(RemnantApp)
+
     def __init__(self, *, timings: bool = True, id: str | None = None, classes: str | None = None) -> None:
         super().__init__(id=id, classes=classes)
         self.timings = timings
@@ -285,9 +293,10 @@ class StageDetails(VerticalScroll):
             text.append("\n")
             text.append_text(curves_text(learned["curves"], width))
         table = learned.get("dependence")
-        if table is not None and len(table):
+        stage = self.view.stage(self.row) if self.view is not None else None
+        feature = self._feature(stage) if stage is not None else None
+        if table is not None and len(table) and feature is not None and self.view is not None:
             text.append("\n")
-            feature = self._feature(self.view.stage(self.row))
             text.append_text(dependence_text(table, feature, learned.get("dependence_rows", 0), self.view.task, width))
         self.learned_body.update(text)
 
