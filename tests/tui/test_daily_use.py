@@ -215,7 +215,6 @@ async def test_long_names_end_in_an_ellipsis_and_show_whole_in_the_details(tmp_p
         await add_stage(pilot, "sklearn:", 1.0, wait=False)
         await pilot.pause()
         app.screen.query_one("#estimator", Input).value = "sklearn.linear_model.HuberRegressor"
-        await pilot.press("a")  # a stays in the form: typing a key here is not a workbench key
         app.screen.query_one("#shrinkage", Input).focus()
         await pilot.press("enter")
         await settle(pilot)
