@@ -16,7 +16,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from . import scoring
+from . import parts, scoring
 from .chain_state import ChainState, Removal, StreamState, same_stream, seeded_streams, stream_state
 from .data import Prepared, Task, load_frame, prepare
 from .errors import ChainStateError, RemnantError, StageSpecError
@@ -25,11 +25,12 @@ from .kinds import get_kind
 from .kinds.base import ProgressFn
 from .limits import MAX_REPEAT, MAX_STAGES
 from .losses import Loss, default_loss, get_loss
+from .outputs import start_block
 from .parsing import whole_value
 from .predictor import FittedChain, FittedStage
 from .scoring import Scores
 from .spec import StageSpec
-from .tracks import build_layout
+from .tracks import build_layout, check_classes_fit
 from .validation import Holdout, Part, TimeOrder, ValidationSpec
 
 log = logging.getLogger(f"remnant.{__name__}")
@@ -47,7 +48,8 @@ class Chain:
     validation : ValidationSpec
         Holdout, KFold, TimeOrder, GroupHoldout or SplitColumn.
     loss : str, optional
-        squared, absolute, huber or logloss; defaults to squared, or logloss for binary targets.
+        squared, absolute, huber or logloss; defaults to squared, or logloss for binary and
+        multiclass targets (for multiclass, the multinomial log loss).
     seed : int
         Seeds the chain's one random stream.
     data_path : str or path, optional
@@ -88,12 +90,20 @@ class Chain:
         self.prepared: Prepared = prepare(frame, target, ignore=ignore, features=features, task=task,
                                           positive=positive, source=source, encode=False, dates=dates)
         self.schema = self.prepared.schema
-        self.loss: Loss = get_loss(loss or default_loss(self.schema.task), self.schema.task)
-        self.split = self.validation.split(self.prepared.frame, self.prepared.y, self.schema.task)
+        self.loss: Loss = get_loss(loss or default_loss(self.schema.task), self.schema.task,
+                                   n_classes=len(self.schema.classes))
+        self.split = self.validation.split(self.prepared.frame, self.prepared.y, self.schema.task,
+                                           classes=self.schema.classes)
         self.layout = build_layout(self.split)
         # the one copy of the features, its rows gathered into chain order as it is filled
         self.matrix = self.prepared.encode(self.layout.order)
         self.y = self.prepared.y[self.layout.order]
+        if self.schema.task == "multiclass":
+            check_classes_fit(self.layout, self.y, self.schema, source)
+        # row weights and the offset on the raw scale, in chain order: None (every row counts once,
+        # no offset) until a chain takes weight and exposure columns
+        self.weight: np.ndarray | None = None
+        self.offset: np.ndarray | None = None
         # a missing value the fitting rows never had takes their median, here as in predict
         self.schema = self.schema.with_fills(self.matrix[: self.layout.n_train])
         self.prepared.schema = self.schema
@@ -111,12 +121,15 @@ class Chain:
         self._rngs = seeded_streams(self.seed, len(self.layout.tracks))
         self._lock = threading.RLock()
         self.starts = tuple(
-            self.loss.start(self.y[: track.n_rows][track.fit]) for track in self.layout.tracks
+            self.loss.start(self.y[: track.n_rows][track.fit], _rows(self.weight, track.n_rows, track.fit),
+                            _rows(self.offset, track.n_rows, track.fit))
+            for track in self.layout.tracks
         )
         self._start_outputs = tuple(
-            np.full(track.n_rows, start, dtype=np.float64) for track, start in zip(self.layout.tracks, self.starts, strict=True)
+            start_block(start, track.n_rows, _rows(self.offset, track.n_rows))
+            for track, start in zip(self.layout.tracks, self.starts, strict=True)
         )
-        self._start_scores = scoring.score_state(self.loss, self.layout, self.y, self._start_outputs, self.threshold)
+        self._start_scores = self._score(self._start_outputs)
         self.test_revealed = False
         self.reveal_count = 0
         self._test: dict[int, dict[str, float]] = {}
@@ -134,8 +147,13 @@ class Chain:
     # ----- reading ----------------------------------------------------------------------
     @property
     def task(self) -> Task:
-        """Return "regression" or "binary"."""
+        """Return "regression", "binary" or "multiclass"."""
         return self.schema.task
+
+    @property
+    def classes(self) -> tuple[str, ...]:
+        """Return the classes of a binary (negative, positive) or multiclass (stored order) chain, as text."""
+        return self.schema.classes
 
     @property
     def metric(self) -> str:
@@ -192,49 +210,42 @@ class Chain:
         with self._lock:  # the stages and their scores read together
             return stage_table(self)
 
-    def residuals(self, part: Part = "valid", row: int | None = None) -> np.ndarray:
-        """Return target minus prediction (y - p for binary) on ``part`` after row ``row``."""
-        outputs = self.outputs(row)
-        layout = self.layout
-        if part == "train":
-            y, raw = self.y[layout.train], outputs[0][layout.train]
-        elif part == "valid":
-            y, raw = scoring.validation_y(layout, self.y), scoring.validation_raw(layout, outputs)
-        elif part == "test":
-            if not self.test_revealed:
-                raise ChainStateError("the test part is locked; reveal it first")
-            y, raw = self.y[layout.test], outputs[0][layout.test]
-        else:
-            raise StageSpecError(f"unknown part {part!r} (train, valid or test)")
-        return self.loss.display_residual(y, raw)
+    def residuals(self, part: Part = "valid", row: int | None = None, of_class: object = None) -> np.ndarray:
+        """Return target minus prediction (y - p for binary) on ``part`` after row ``row``.
+
+        For a multiclass chain the pseudo-residuals 1[y = k] - p_k: an (n, K) array, one column per
+        class in ``classes`` order, or the column of the class ``of_class`` names.
+        """
+        return parts.residuals(self, part, row, of_class)
 
     def fitted_values(self, part: Part = "valid", row: int | None = None) -> np.ndarray:
-        """Return the predictions (probabilities for binary) on ``part`` after row ``row``."""
-        outputs = self.outputs(row)
-        if part == "train":
-            raw = outputs[0][self.layout.train]
-        elif part == "valid":
-            raw = scoring.validation_raw(self.layout, outputs)
-        else:
-            raise StageSpecError(f"unknown part {part!r} (train or valid)")
-        return self.loss.link(raw)
+        """Return the predictions (probabilities for binary, (n, K) class probabilities for multiclass)
+        on ``part`` after row ``row``."""
+        return parts.fitted_values(self, part, row)
+
+    def class_index(self, of_class: object) -> int:
+        """Return the position of class ``of_class`` in ``classes``; raise StageSpecError when it is not one."""
+        return parts.class_index(self, of_class)
 
     def part_targets(self, part: Part) -> np.ndarray:
         """Return the targets of ``part`` in the order residuals and fitted values use."""
-        if part == "train":
-            return self.y[self.layout.train]
-        if part == "valid":
-            return scoring.validation_y(self.layout, self.y)
-        if part == "test":
-            return self.y[self.layout.test]
-        raise StageSpecError(f"unknown part {part!r} (train, valid or test)")
+        return parts.targets(self, part)
 
     def histogram(self, row: int | None = None, parts: tuple[Part, ...] = ("train", "valid"),
-                  bins: int | str = "auto", max_bins: int = 60) -> tuple[dict[str, np.ndarray], np.ndarray]:
-        """Return residual counts per part over shared bin edges, and the edges."""
-        values = [self.residuals(p, row) for p in parts]
-        counts, edges = scoring.histogram(values, bins=bins, max_bins=max_bins)
-        return dict(zip(parts, counts, strict=True)), edges
+                  bins: int | str = "auto", max_bins: int = 60, of_class: object = None,
+                  ) -> tuple[dict[str, np.ndarray], np.ndarray]:
+        """Return residual counts per part over shared bin edges, and the edges. For a multiclass chain,
+        of the pseudo-residuals of class ``of_class``; without one, of each row's own class (1 - p_y)."""
+        from . import parts as rows
+
+        return rows.histogram(self, row, parts, bins, max_bins, of_class)
+
+    def confusion(self, part: Part = "valid", row: int | None = None) -> pd.DataFrame:
+        """Return the confusion matrix of ``part`` after row ``row`` (see stages.report.confusion):
+        one row per true class, one column per predicted class, counts of rows."""
+        from .report.confusion import confusion_table
+
+        return confusion_table(self, part, row)
 
     def importance(self, row: int) -> dict[str, float]:
         """Return the importance of each feature a stage uses (native, or permutation on validation rows)."""
@@ -251,7 +262,7 @@ class Chain:
                             s.fit_seconds, s.step_rule, s.oob_loss, s.notes)
                 for i, s in enumerate(self._stages)
             ]
-            return FittedChain(self.schema, self.loss, self.starts[0], stages, meta=self.describe(),
+            return FittedChain(self.schema, self.loss, np.array(self.starts[0]), stages, meta=self.describe(),
                                start_scores=scores[0].to_dict())
 
     def describe(self) -> dict[str, Any]:
@@ -268,7 +279,8 @@ class Chain:
         return self.fitted().predict(frame)
 
     def predict_proba(self, frame: pd.DataFrame) -> np.ndarray:
-        """Return an (n, 2) array of class probabilities for a new frame, negative class first (binary chains)."""
+        """Return class probabilities for a new frame: (n, 2), negative class first, for binary chains;
+        (n, K) in ``classes`` order for multiclass chains."""
         return self.fitted().predict_proba(frame)
 
     def specs(self) -> list[StageSpec]:
@@ -277,7 +289,10 @@ class Chain:
 
     # ----- changing -------------------------------------------------------------------------
     def _context(self) -> FitContext:
-        return FitContext(self.matrix, self.y, self.schema, self.layout, self.loss, self._rngs)
+        return FitContext(self.matrix, self.y, self.schema, self.layout, self.loss, self._rngs, self.weight)
+
+    def _score(self, outputs: tuple[np.ndarray, ...]) -> Scores:
+        return scoring.score_state(self.loss, self.layout, self.y, outputs, self.threshold, self.weight)
 
     def _fit_sequence(self, specs: list[StageSpec], previous: tuple[np.ndarray, ...], first_number: int,
                       cancel: threading.Event | None, progress: ProgressFn | None) -> list[Stage]:
@@ -299,7 +314,7 @@ class Chain:
     def _commit(self, stages: list[Stage]) -> None:
         self._stages = (*self._stages, *stages)
         for stage in stages:
-            self._scores.append(scoring.score_state(self.loss, self.layout, self.y, stage.outputs, self.threshold))
+            self._scores.append(self._score(stage.outputs))
         self._relock()
 
     def _truncate(self, keep: int) -> None:
@@ -452,7 +467,7 @@ class Chain:
             if self.layout.n_test == 0:
                 raise ChainStateError("this chain has no locked test part (set test_fraction when choosing validation)")
             rows = [self._start_outputs[0], *(s.outputs[0] for s in self._stages)]
-            self._test = {i: scoring.test_scores(self.loss, self.layout, self.y, out, self.threshold)
+            self._test = {i: scoring.test_scores(self.loss, self.layout, self.y, out, self.threshold, self.weight)
                           for i, out in enumerate(rows)}
             self.test_revealed = True
             self.reveal_count += 1
@@ -558,8 +573,7 @@ class Chain:
 
             def score(stage: Stage) -> Scores:
                 if id(stage) not in scored:
-                    scored[id(stage)] = scoring.score_state(self.loss, self.layout, self.y, stage.outputs,
-                                                            self.threshold)
+                    scored[id(stage)] = self._score(stage.outputs)
                 return scored[id(stage)]
 
             self._stages = tuple(stages)
@@ -578,6 +592,12 @@ def _kinds(stages: list[Stage]) -> str:
     if len(set(kinds)) == 1 and len(kinds) > 1:
         return f"{len(kinds)} × {kinds[0]}"
     return ", ".join(kinds) or "none"
+def _rows(values: np.ndarray | None, n_rows: int, fit: slice | np.ndarray | None = None) -> np.ndarray | None:
+    """Return a per-row array's first ``n_rows`` rows (a track's), or those of them at ``fit``; None stays None."""
+    if values is None:
+        return None
+    rows = values[:n_rows]
+    return rows if fit is None else rows[fit]
 
 
 def _release_arrow_pages() -> None:

@@ -25,7 +25,16 @@ Column roles (``infer_role``), first rule that applies wins
 
 Task (``infer_task``)
     bool dtype, numeric values exactly {0, 1}, or exactly two distinct strings -> binary;
-    other numbers (or text that is mostly numbers) -> regression; 3+ classes -> DataError.
+    other numbers (or text that is mostly numbers) -> regression; text (or a pandas Categorical)
+    with 3 to MAX_CLASSES (100) classes -> multiclass; more classes -> DataError suggesting to
+    group levels. A numeric target with a few values is a regression unless ``task="multiclass"``.
+
+Classes (``class_order``)
+    A binary target's classes are its negative then its positive class. A multiclass target's
+    classes are stored in a fixed order, the order of a categorical column's levels
+    (``schema.py``): an ordered pandas Categorical's own order; classes that all read as numbers
+    sorted by value (so "10" follows "2"); others sorted as text. Whole numbers are written
+    without ".0". The class codes 0 .. K - 1 of ``y`` and the columns of ``predict_proba`` follow it.
 """
 
 from __future__ import annotations
@@ -43,6 +52,7 @@ from pandas.api import types as pdt
 
 from .dates import DATE_PARTS, derived_name
 from .errors import DataError, SchemaError
+from .limits import MAX_CLASSES
 from .reading import check_duplicates, load_frame, read_table, source_name
 from .schema import (
     BOOLEAN,
@@ -291,7 +301,8 @@ def _looks_like_dates(non_missing: np.ndarray) -> bool:
 
 
 def infer_task(values: pd.Series, *, source: str = "data", target: str = "") -> Task:
-    """Return ``"regression"`` or ``"binary"`` for a target column; DataError for multiclass."""
+    """Return ``"regression"``, ``"binary"`` or ``"multiclass"`` for a target column; DataError for a
+    target with more than MAX_CLASSES classes, a single value, or dates."""
     non_missing = values.dropna()
     label = f"target {target!r}" if target else "the target"
     if len(non_missing) == 0:
@@ -299,7 +310,9 @@ def infer_task(values: pd.Series, *, source: str = "data", target: str = "") -> 
     if pdt.is_bool_dtype(values.dtype):
         return "binary"
     if pdt.is_datetime64_any_dtype(values.dtype) or pdt.is_timedelta64_dtype(values.dtype):
-        raise DataError(f"{source}: {label} holds dates or durations; a target must be numbers or two classes")
+        raise DataError(f"{source}: {label} holds dates or durations; a target must be numbers or classes")
+    if isinstance(values.dtype, pd.CategoricalDtype):
+        return _class_task(non_missing.astype("string").nunique(), non_missing, source, label)
     if _plain_numeric(values.dtype):
         array = non_missing.to_numpy()
         zero, one = array == 0, array == 1
@@ -312,14 +325,22 @@ def infer_task(values: pd.Series, *, source: str = "data", target: str = "") -> 
         return "binary"
     if numbers.notna().mean() > 0.5:
         return "regression"
+    return _class_task(n_classes, non_missing, source, label)
+
+
+def _class_task(n_classes: int, non_missing: pd.Series, source: str, label: str) -> Task:
     if n_classes < 2:
         raise DataError(f"{source}: {label} has a single value ({non_missing.iloc[0]!r}); nothing to predict")
-    raise _multiclass_error(source, label, n_classes)
+    if n_classes == 2:
+        return "binary"
+    if n_classes > MAX_CLASSES:
+        raise _too_many_classes(source, label, n_classes)
+    return "multiclass"
 
 
-def _multiclass_error(source: str, label: str, n_classes: int) -> DataError:
-    return DataError(f"{source}: {label} has {n_classes:,} classes; multiclass targets are not supported yet "
-                     "(use a numeric target or one with two classes)")
+def _too_many_classes(source: str, label: str, n_classes: int) -> DataError:
+    return DataError(f"{source}: {label} has {n_classes:,} classes; a multiclass target may have at most "
+                     f"{MAX_CLASSES} (group rare levels into fewer classes, or predict it as a number)")
 
 
 # ----------------------------------------------------------------------------- prepare
@@ -384,10 +405,12 @@ def prepare(
     if task is None:
         task = infer_task(values, source=source, target=target)
     if task not in TASKS:
-        raise DataError(f"{source}: unknown task {task!r} (use 'regression' or 'binary')")
+        raise DataError(f"{source}: unknown task {task!r} (use 'regression', 'binary' or 'multiclass')")
     classes: tuple[str, ...] = ()
     if task == "regression":
         y = _regression_target(values, rows, target, source)
+    elif task == "multiclass":
+        y, classes = _multiclass_target(values, target, source, notes)
     else:
         y, classes = _binary_target(values, target, positive, source, notes)
     derived = _date_features(kept, dates or {}, target, source, notes)
@@ -499,7 +522,8 @@ def _binary_target(values: pd.Series, target: str, positive: str | None, source:
     uniques = list(pd.unique(values.to_numpy()))
     labels = {_class_label(u): u for u in uniques}
     if len(labels) > 2:
-        raise _multiclass_error(source, f"target {target!r}", len(labels))
+        raise DataError(f"{source}: target {target!r} has {len(labels):,} classes; a binary target has two "
+                        "(use task 'multiclass')")
     if len(labels) < 2:
         raise DataError(f"{source}: target {target!r} has one class ({uniques[0]!s}); a binary target needs two")
     try:
@@ -511,6 +535,36 @@ def _binary_target(values: pd.Series, target: str, positive: str | None, source:
     notes.append(f"positive class of {target!r} is {chosen!r} (negative: {negative!r})")
     y = (values == labels[chosen]).to_numpy(dtype=np.float64)
     return y, (negative, chosen)
+
+
+def _multiclass_target(values: pd.Series, target: str, source: str,
+                       notes: list[str]) -> tuple[np.ndarray, tuple[str, ...]]:
+    """Return y (each row's class code, as float64) and the classes in their stored order (``class_order``)."""
+    labels = values.map(_class_label)
+    classes = class_order(values)
+    if len(classes) < 3:
+        raise DataError(f"{source}: target {target!r} has {len(classes)} class{'' if len(classes) == 1 else 'es'}; "
+                        "a multiclass target has 3 or more (use task 'binary' for two)")
+    if len(classes) > MAX_CLASSES:
+        raise _too_many_classes(source, f"target {target!r}", len(classes))
+    codes = pd.Categorical(labels, categories=list(classes)).codes
+    shown = ", ".join(repr(c) for c in classes[:10]) + (f" and {len(classes) - 10:,} more" if len(classes) > 10 else "")
+    notes.append(f"classes of {target!r}, in their stored order: {shown}")
+    return codes.astype(np.float64), classes
+
+
+def class_order(values: pd.Series) -> tuple[str, ...]:
+    """Return the classes of a target column in their stored order: an ordered Categorical's own order,
+    numbers by value, else text (the order of category levels, ``category_levels``), whole numbers
+    written without ".0"."""
+    present = pd.Series(values.map(_class_label).dropna().unique(), dtype="string")
+    dtype = values.dtype
+    if isinstance(dtype, pd.CategoricalDtype) and dtype.ordered:
+        declared = [_class_label(level) for level in dtype.categories]
+        seen = set(present)
+        return tuple(level for level in declared if level in seen)
+    levels, _ = category_levels(present)
+    return levels
 
 
 def _class_label(value: object) -> str:

@@ -19,6 +19,7 @@ from .errors import FitCancelled, RemnantError, StageFitError
 from .kinds import FitRequest, get_kind
 from .kinds.base import ProgressFn, check_subsample
 from .losses import Loss
+from .outputs import block, squeeze
 from .schema import Schema
 from .spec import StageSpec
 from .tracks import Layout
@@ -35,7 +36,7 @@ class Stage:
     feature_index: tuple[int, ...]
     learners: tuple[Any, ...]
     scales: tuple[float, ...]          # shrinkage times line-search step, per track
-    outputs: tuple[np.ndarray, ...]    # cumulative raw output F_k over each track's rows
+    outputs: tuple[np.ndarray, ...]    # cumulative raw output F_k over each track's rows, (n, K) each
     fit_seconds: float
     rng_before: tuple[Any, ...]
     rng_after: tuple[Any, ...]
@@ -67,7 +68,10 @@ class Stage:
 
 @dataclass
 class FitContext:
-    """What a stage fit reads from the chain: data, layout, loss and the current outputs."""
+    """What a stage fit reads from the chain: data, layout, loss, random streams and row weights.
+
+    ``weight`` holds each row's weight in chain order (None: every row counts once).
+    """
 
     matrix: np.ndarray
     y: np.ndarray
@@ -75,6 +79,7 @@ class FitContext:
     layout: Layout
     loss: Loss
     rngs: list[np.random.RandomState]
+    weight: np.ndarray | None = None
 
 
 def resolve_features(spec: StageSpec, schema: Schema) -> tuple[int, ...]:
@@ -204,13 +209,15 @@ def _fit_track(ctx, t, kind, spec, params, features, previous, cancel, progress)
     if cancel is not None and cancel.is_set():
         raise FitCancelled("fit cancelled")
     track = ctx.layout.tracks[t]
-    n_all = len(ctx.schema.columns)
+    n_all, loss = len(ctx.schema.columns), ctx.loss
     fit_raw = previous[track.fit]
     fit_y = ctx.y[: track.n_rows][track.fit]
+    weight = None if ctx.weight is None else ctx.weight[: track.n_rows][track.fit]
+    # a learner of one output per row sees vectors, as it always has; K outputs are (n, K)
     request = FitRequest(
         X=feature_rows(ctx.matrix, track.fit, features, n_all), columns=ctx.schema.subset(list(features)),
-        residual=ctx.loss.residual(fit_y, fit_raw), y=fit_y, raw=fit_raw, loss=ctx.loss,
-        task=ctx.schema.task, random_state=ctx.rngs[t], cancel=cancel, progress=progress,
+        residual=squeeze(loss.residual(fit_y, fit_raw, weight)), y=fit_y, raw=squeeze(fit_raw), loss=loss,
+        task=ctx.schema.task, random_state=ctx.rngs[t], cancel=cancel, progress=progress, weight=weight,
     )
     if kind.subsamples and check_subsample(params.get("subsample", 1.0), spec.kind) < 1.0:
         request.in_bag = draw_in_bag(len(fit_y), float(params["subsample"]), ctx.rngs[t])
@@ -223,17 +230,23 @@ def _fit_track(ctx, t, kind, spec, params, features, previous, cancel, progress)
     if kind.refines_leaves:
         kind.refine(learner, request)
     request.check_cancel()
-    output = np.asarray(learner.predict(feature_rows(ctx.matrix, slice(0, track.n_rows), features, n_all)), dtype=np.float64)
+    rows = feature_rows(ctx.matrix, slice(0, track.n_rows), features, n_all)
+    try:
+        output = block(learner.predict(rows), track.n_rows, loss.outputs)
+    except ValueError as exc:
+        raise StageFitError(str(exc)) from None
     bad = int(np.count_nonzero(~np.isfinite(output)))
     if bad:
-        raise StageFitError(f"{bad:,} of {len(output):,} predictions are not finite (NaN or infinite)")
-    choice = steps.choose_step(kind, params, request, learner, output[track.fit], _scaled(progress, share, 1.0))
+        raise StageFitError(f"{bad:,} of {output.size:,} predictions are not finite (NaN or infinite)")
+    fit_output = output[track.fit]
+    choice = steps.choose_step(kind, params, request, learner, squeeze(fit_output), _scaled(progress, share, 1.0))
     scale = spec.shrinkage * choice.step
     oob = None
     if request.in_bag is not None and not request.in_bag.all():
         left_out = ~request.in_bag
         y_out, raw_out = fit_y[left_out], fit_raw[left_out]
-        oob = (ctx.loss.value(y_out, raw_out), ctx.loss.value(y_out, raw_out + scale * output[track.fit][left_out]))
+        w_out = None if weight is None else weight[left_out]
+        oob = (loss.value(y_out, raw_out, w_out), loss.value(y_out, raw_out + scale * fit_output[left_out], w_out))
     if progress is not None:
         progress(1.0, "done")
     return TrackFit(learner, scale, previous + scale * output, choice.rule, oob, tuple(request.notes))

@@ -7,8 +7,10 @@ sizes an allocation before anything is checked. ``check_model_text`` reads the w
 with the stricter rules below and raises ChainFileError naming the tree and the problem;
 only a text that passes goes to ``lightgbm.Booster``:
 
-* the header holds known keys only, ``num_class`` is at most MAX_CLASSES and the inputs are
-  exactly the stage's (``max_feature_idx``, ``feature_names``, ``feature_infos``);
+* the header holds known keys only, ``num_class`` is at most MAX_CLASSES (and, where the
+  chain's class count is known, equal to it, with one tree per class a round for a multiclass
+  model) and the inputs are exactly the stage's (``max_feature_idx``, ``feature_names``,
+  ``feature_infos``);
 * every tree block is numbered in order, every array has the length its ``num_leaves``
   implies, children form a tree (``tree_structure.check_links``), split features are inputs
   of the stage, thresholds, leaf values and linear-leaf coefficients are finite, categorical
@@ -57,9 +59,10 @@ _TAIL_LINE = re.compile(r"|feature_importances:|parameters:|end of parameters|pa
 _MAX_DECISION = 11
 
 
-def check_model_text(text: str, n_features: int | None, what: str = "the LightGBM model") -> None:
+def check_model_text(text: str, n_features: int | None, what: str = "the LightGBM model",
+                     n_classes: int | None = None) -> None:
     """Raise ChainFileError unless ``text`` is a LightGBM model LightGBM can load safely over ``n_features``
-    inputs (None: as many as its header says)."""
+    inputs (None: as many as its header says) giving ``n_classes`` raw scores a row (None: any count)."""
     if "\x00" in text or "\r" in text:
         raise ChainFileError(f"{what} holds a NUL or carriage-return character")
     lines = text.split("\n")
@@ -71,6 +74,10 @@ def check_model_text(text: str, n_features: int | None, what: str = "the LightGB
         if not 1 <= n_features <= MAX_COLUMNS:
             raise ChainFileError(f"{what} reads {n_features:,} features")
     _check_header(header, n_features, what)
+    if n_classes is not None:
+        found = int(header["num_class"])
+        if found != n_classes or int(header["num_tree_per_iteration"]) != n_classes:
+            raise ChainFileError(f"{what} gives {found:,} raw scores a row; the chain has {n_classes}")
     trees, blocks, at = _read_trees(lines, at, what)
     per_iteration = int(header["num_tree_per_iteration"])
     if not trees or len(trees) % per_iteration:

@@ -20,9 +20,11 @@ MAX_CANDIDATES = 64
 MAX_SEED = 2**32 - 1
 #: feature columns in a chain's schema
 MAX_COLUMNS = 100_000
-#: category levels of one column, and classes of a target
+#: category levels of one column
 MAX_LEVELS = 1_000_000
-MAX_CLASSES = 1_000
+#: classes of a multiclass target (more is refused, with a hint to group rare levels), and of a
+#: chain file's schema or LightGBM model
+MAX_CLASSES = 100
 #: characters in a column name
 MAX_NAME_LENGTH = 4_096
 #: nesting of a parameter value (a list inside a table inside a list ...)

@@ -123,6 +123,16 @@ def nullable(inner: Check) -> Check:
     return check
 
 
+def number_or_numbers(max_items: int) -> Check:
+    """Return a check for one finite number or a list of 2 to ``max_items`` of them (one per raw score)."""
+    one, several = number(), items(number(), max_items, min_items=2)
+
+    def check(value: Any, where: str) -> None:
+        (several if isinstance(value, list) else one)(value, where)
+
+    return check
+
+
 def items(inner: Check, max_items: int, min_items: int = 0) -> Check:
     """Return a check for a list of ``min_items`` to ``max_items`` values, each accepted by ``inner``."""
 

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import re
 import warnings
 from dataclasses import dataclass, field
 from typing import Any
@@ -11,6 +12,8 @@ import pandas as pd
 
 from .errors import UnseenLevelsWarning, UnseenMissingWarning
 from .losses import Loss
+from .metrics import predicted_classes
+from .outputs import block, squeeze, start_block
 from .schema import Schema, Task
 from .spec import StageSpec
 
@@ -56,41 +59,60 @@ class FittedStage:
 
 @dataclass(eq=False)
 class FittedChain:
-    """A chain ready to predict: ``predict`` and, for binary chains, ``predict_proba``."""
+    """A chain ready to predict: ``predict`` and, for binary and multiclass chains, ``predict_proba``.
+
+    ``start`` holds the start value of each of the K raw scores (one for regression and binary).
+    """
 
     schema: Schema
     loss: Loss
-    start: float
+    start: np.ndarray
     stages: list[FittedStage]
     meta: dict[str, Any] = field(default_factory=dict)
     start_scores: dict[str, Any] = field(default_factory=dict)
 
+    def __post_init__(self) -> None:
+        self.start = np.asarray(self.start, dtype=np.float64).reshape(-1)
+
     @property
     def task(self) -> Task:
-        """Return "regression" or "binary"."""
+        """Return "regression", "binary" or "multiclass"."""
         return self.schema.task
 
-    def raw_from_matrix(self, matrix: np.ndarray, upto: int | None = None) -> np.ndarray:
-        """Return the raw output (log-odds for binary) of the first ``upto`` stages on a schema matrix."""
-        raw = np.full(matrix.shape[0], self.start, dtype=np.float64)
+    @property
+    def classes(self) -> tuple[str, ...]:
+        """Return the classes (as text): negative then positive for binary chains, the stored order for
+        multiclass chains (the columns of ``predict_proba``); empty for regression."""
+        return self.schema.classes
+
+    @property
+    def outputs(self) -> int:
+        """Return K, the raw scores per row (the number of classes of a multiclass chain, else 1)."""
+        return self.loss.outputs
+
+    def _stage_output(self, stage: FittedStage, matrix: np.ndarray) -> np.ndarray:
         n_all = len(self.schema.columns)
+        cols = stage.feature_index
+        X = matrix if cols == tuple(range(n_all)) else matrix[:, list(cols)]
+        return block(stage.learner.predict(X), matrix.shape[0], self.outputs)
+
+    def raw_from_matrix(self, matrix: np.ndarray, upto: int | None = None,
+                        offset: np.ndarray | None = None) -> np.ndarray:
+        """Return the (n, K) raw output (log-odds for binary) of the first ``upto`` stages on a schema
+        matrix, from the start value plus each row's ``offset`` (on the raw scale; None: none)."""
+        raw = start_block(self.start, matrix.shape[0], offset)
         for stage in self.stages[:upto]:
-            cols = stage.feature_index
-            X = matrix if cols == tuple(range(n_all)) else matrix[:, list(cols)]
-            raw += stage.scale * np.asarray(stage.learner.predict(X), dtype=np.float64)
+            raw += stage.scale * self._stage_output(stage, matrix)
         return raw
 
-    def raw_after_each_stage(self, matrix: np.ndarray) -> np.ndarray:
-        """Return the raw output after the start value and after each stage on a schema matrix, as
-        columns of an (n, 1 + number of stages) array (the last column is ``raw_from_matrix``'s)."""
-        out = np.empty((matrix.shape[0], len(self.stages) + 1), dtype=np.float64)
-        raw = np.full(matrix.shape[0], self.start, dtype=np.float64)
+    def raw_after_each_stage(self, matrix: np.ndarray, offset: np.ndarray | None = None) -> np.ndarray:
+        """Return the raw output after the start value and after each stage on a schema matrix, as an
+        (n, 1 + number of stages, K) array (the last of axis 1 is ``raw_from_matrix``'s)."""
+        out = np.empty((matrix.shape[0], len(self.stages) + 1, self.outputs), dtype=np.float64)
+        raw = start_block(self.start, matrix.shape[0], offset)
         out[:, 0] = raw
-        n_all = len(self.schema.columns)
         for k, stage in enumerate(self.stages, start=1):
-            cols = stage.feature_index
-            X = matrix if cols == tuple(range(n_all)) else matrix[:, list(cols)]
-            raw += stage.scale * np.asarray(stage.learner.predict(X), dtype=np.float64)
+            raw += stage.scale * self._stage_output(stage, matrix)
             out[:, k] = raw
         return out
 
@@ -111,8 +133,9 @@ class FittedChain:
         return matrix
 
     def predict_raw(self, frame: pd.DataFrame, *, source: str = "data") -> np.ndarray:
-        """Return the raw output for every row of ``frame``, in its order."""
-        return self.raw_from_matrix(self.encode(frame, source=source))
+        """Return the raw output for every row of ``frame``, in its order: n values (one output per
+        row), or an (n, K) array of a multiclass chain's scores."""
+        return squeeze(self.raw_from_matrix(self.encode(frame, source=source)))
 
     @property
     def threshold(self) -> float:
@@ -121,8 +144,11 @@ class FittedChain:
 
     def predict(self, frame: pd.DataFrame, *, threshold: float | None = None, source: str = "data") -> np.ndarray:
         """Return predictions: values for regression, class labels for binary chains (positive at ``threshold``,
-        by default the chain's own)."""
+        by default the chain's own) and multiclass chains (the most probable class)."""
         raw = self.predict_raw(frame, source=source)
+        if self.task == "multiclass":
+            labels = np.array([class_label(c) for c in self.schema.classes], dtype=object)
+            return _plain(labels[predicted_classes(self.loss.link(raw))])
         if self.task != "binary":
             return raw
         threshold = self.threshold if threshold is None else threshold
@@ -130,9 +156,12 @@ class FittedChain:
         return np.where(positive, class_label(self.schema.classes[1]), class_label(self.schema.classes[0]))
 
     def predict_proba(self, frame: pd.DataFrame, *, source: str = "data") -> np.ndarray:
-        """Return an (n, 2) array of class probabilities, negative class first (binary chains only)."""
+        """Return class probabilities: (n, 2), negative class first, for binary chains; (n, K) with the
+        columns in ``classes`` order for multiclass chains."""
+        if self.task == "multiclass":
+            return self.loss.link(self.raw_from_matrix(self.encode(frame, source=source)))
         if self.task != "binary":
-            raise TypeError("predict_proba is for binary chains; this chain is a regression")
+            raise TypeError("predict_proba is for classification chains; this chain is a regression")
         p = self.loss.link(self.predict_raw(frame, source=source))
         return np.column_stack([1.0 - p, p])
 
@@ -194,3 +223,46 @@ def class_label(text: str) -> Any:
     except ValueError:
         return text
     return int(number) if number.is_integer() else number
+
+
+def class_text(value: Any) -> str:
+    """Return a class label as the schema writes it: whole floats lose their ``.0`` (so 1.0 is "1")."""
+    if isinstance(value, float | np.floating) and float(value).is_integer():
+        return str(int(value))
+    if isinstance(value, np.integer | np.bool_):
+        return str(value.item())
+    return str(value)
+
+
+def header_safe(text: str) -> str:
+    """Return ``text`` with every character but ASCII letters, digits and ``_`` made ``_`` (never empty)."""
+    return re.sub(r"[^A-Za-z0-9_]", "_", text) or "_"
+
+
+def probability_columns(classes: tuple[str, ...] | list[str]) -> list[str]:
+    """Return the ``probability_<class>`` column names of a multiclass chain's predictions, in class order.
+
+    Each class is made safe for a CSV header (``header_safe``: "late delivery" gives
+    ``probability_late_delivery``); classes that become the same name get ``_2``, ``_3`` ... after
+    the first, in class order.
+    """
+    names: list[str] = []
+    taken: set[str] = set()
+    for label in classes:
+        base = f"probability_{header_safe(label)}"
+        name, count = base, 1
+        while name in taken:
+            count += 1
+            name = f"{base}_{count}"
+        taken.add(name)
+        names.append(name)
+    return names
+
+
+def _plain(labels: np.ndarray) -> np.ndarray:
+    """Return an object array of labels as numbers when every label is one (else as it is)."""
+    if all(isinstance(v, int) for v in labels.tolist()):
+        return labels.astype(np.int64)
+    if all(isinstance(v, int | float) for v in labels.tolist()):
+        return labels.astype(np.float64)
+    return labels

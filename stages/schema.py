@@ -31,7 +31,7 @@ from .dates import DATE_PARTS, date_part, parse_dates
 from .errors import SchemaError
 
 #: what a chain learns: a number (regression) or one of two classes (binary)
-Task = Literal["regression", "binary"]
+Task = Literal["regression", "binary", "multiclass"]
 
 NUMERIC = "numeric"
 CATEGORICAL = "categorical"

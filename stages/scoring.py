@@ -32,10 +32,10 @@ class Scores:
 
 
 def validation_raw(layout: Layout, outputs: tuple[np.ndarray, ...]) -> np.ndarray:
-    """Return the raw output on the validation rows: holdout rows, or out-of-fold rows in chain order."""
+    """Return the raw output (n, K) on the validation rows: holdout rows, or out-of-fold rows in chain order."""
     if not layout.is_kfold:
         return outputs[0][layout.valid]
-    assembled = np.empty(layout.n_train, dtype=np.float64)
+    assembled = np.empty((layout.n_train, *outputs[0].shape[1:]), dtype=np.float64)
     for track, output in zip(layout.tracks[1:], outputs[1:], strict=True):
         assembled[track.evaluate] = output[track.evaluate]
     return assembled
@@ -46,26 +46,43 @@ def validation_y(layout: Layout, y: np.ndarray) -> np.ndarray:
     return y[: layout.n_train] if layout.is_kfold else y[layout.valid]
 
 
-def score_state(loss: Loss, layout: Layout, y: np.ndarray, outputs: tuple[np.ndarray, ...], threshold: float = 0.5) -> Scores:
-    """Return train, validation and per-fold scores for one set of track outputs."""
-    train = loss.scores(y[layout.train], outputs[0][layout.train], threshold)
+def _part(weight: np.ndarray | None, rows: slice | np.ndarray) -> np.ndarray | None:
+    return None if weight is None else weight[rows]
+
+
+def score_state(loss: Loss, layout: Layout, y: np.ndarray, outputs: tuple[np.ndarray, ...], threshold: float = 0.5,
+                weight: np.ndarray | None = None) -> Scores:
+    """Return train, validation and per-fold scores for one set of track outputs (rows weighted by
+    ``weight``, in chain order, when given)."""
+    train = loss.scores(y[layout.train], outputs[0][layout.train], threshold, _part(weight, layout.train))
     valid_y = validation_y(layout, y)
     if len(valid_y):
-        valid = loss.scores(valid_y, validation_raw(layout, outputs), threshold)
+        valid_weight = None if weight is None else validation_y(layout, weight)
+        valid = loss.scores(valid_y, validation_raw(layout, outputs), threshold, valid_weight)
     else:  # every row fits (no validation part): nothing to score
         valid = {name: float("nan") for name in train}
     folds: tuple[float, ...] = ()
     if layout.is_kfold:
         folds = tuple(
-            loss.scores(y[track.evaluate], output[track.evaluate], threshold)[loss.primary]
+            loss.scores(y[track.evaluate], output[track.evaluate], threshold, _part(weight, track.evaluate))[loss.primary]
             for track, output in zip(layout.tracks[1:], outputs[1:], strict=True)
         )
     return Scores(train, valid, folds)
 
 
-def test_scores(loss: Loss, layout: Layout, y: np.ndarray, output: np.ndarray, threshold: float = 0.5) -> dict[str, float]:
+def test_scores(loss: Loss, layout: Layout, y: np.ndarray, output: np.ndarray, threshold: float = 0.5,
+                weight: np.ndarray | None = None) -> dict[str, float]:
     """Return the scores of the main track on the locked test rows."""
-    return loss.scores(y[layout.test], output[layout.test], threshold)
+    return loss.scores(y[layout.test], output[layout.test], threshold, _part(weight, layout.test))
+
+
+def shown_residual(loss: Loss, y: np.ndarray, raw: np.ndarray) -> np.ndarray:
+    """Return one residual per row to draw: target minus prediction (y - p for binary); for a multiclass
+    chain the pseudo-residual of each row's own class, 1 - p_y (0 when the chain is sure and right)."""
+    shown = loss.display_residual(y, raw)
+    if shown.ndim == 2 and shown.shape[1] > 1:
+        return shown[np.arange(len(y)), np.asarray(y, dtype=np.intp)]
+    return shown.reshape(-1)
 
 
 def fold_spread(values: tuple[float, ...]) -> float:
@@ -118,8 +135,8 @@ def permutation_importance(
 ) -> np.ndarray:
     """Return per feature the mean rise in loss when that feature's column is shuffled.
 
-    ``predict(X)`` is the stage's scaled output; ``base_raw`` the chain's raw output before
-    the stage. At most ``sample`` rows are used, drawn with ``seed``.
+    ``predict(X)`` is the stage's scaled output and ``base_raw`` the chain's raw output before
+    the stage, both (n, K). At most ``sample`` rows are used, drawn with ``seed``.
     """
     rng = np.random.RandomState(seed)
     if len(y) > sample:

@@ -17,8 +17,9 @@ which the kind names (``StageKind.step_source``):
   and the line search runs on these out-of-fold predictions. The stage itself is the learner fit
   on every fitting row.
 
-Every line search is the loss's own (``Loss.line_search``), on arrays of rows, so that row
-weights and several outputs per row can enter there later.
+Every line search is the loss's own (``Loss.line_search``), on arrays of rows with the rows'
+weights. A multiclass stage's K outputs share one step: the loss is searched along all of them
+at once.
 """
 
 from __future__ import annotations
@@ -62,7 +63,7 @@ def cross_fit_predictions(kind: Any, params: dict[str, Any], request: Any, folds
     Raise StageSpecError when a fold is too small for the learner (e.g. fewer rows than k-NN's k).
     """
     assignment = fold_assignment(len(request.y), folds, request.random_state)
-    held = np.empty(len(request.y), dtype=np.float64)
+    held = np.empty(request.residual.shape, dtype=np.float64)
     for fold in range(folds):
         request.check_cancel()
         if progress is not None:
@@ -84,7 +85,7 @@ def cross_fit_step(kind: Any, params: dict[str, Any], request: Any, progress: An
         held = cross_fit_predictions(kind, params, request, folds, progress)
     except StageSpecError:
         return StepChoice(1.0, "none (folds too small for the learner)")
-    return StepChoice(request.loss.line_search(request.y, request.raw, held), f"cross-fit {folds} folds")
+    return StepChoice(request.loss.line_search(request.y, request.raw, held, request.weight), f"cross-fit {folds} folds")
 
 
 def choose_step(kind: Any, params: dict[str, Any], request: Any, learner: Any, fitted_output: np.ndarray,
@@ -103,12 +104,14 @@ def choose_step(kind: Any, params: dict[str, Any], request: Any, learner: Any, f
     if source == IN_SAMPLE:
         if loss.name == "squared":
             return StepChoice(1.0, "none (least squares)")
-        return StepChoice(loss.line_search(request.y, request.raw, fitted_output), "line search on fitting rows")
+        return StepChoice(loss.line_search(request.y, request.raw, fitted_output, request.weight),
+                          "line search on fitting rows")
     if source == OUT_OF_BAG:
         held, has = kind.out_of_bag(learner, request)
         if not has.any():
             return StepChoice(1.0, "none (no out-of-bag rows)")
-        return StepChoice(loss.line_search(request.y[has], request.raw[has], held[has]), "out-of-bag")
+        weight = None if request.weight is None else request.weight[has]
+        return StepChoice(loss.line_search(request.y[has], request.raw[has], held[has], weight), "out-of-bag")
     return cross_fit_step(kind, params, request, progress)
 
 

@@ -10,9 +10,11 @@ contiguous block of the feature matrix (a view, not a copy).
 from __future__ import annotations
 
 from dataclasses import dataclass
+from typing import Any
 
 import numpy as np
 
+from .errors import DataError
 from .validation import Split
 
 
@@ -89,3 +91,28 @@ def build_layout(split: Split) -> Layout:
         mask[held] = False
         tracks.append(Track(n_rows=n_train, fit=np.flatnonzero(mask), evaluate=held))
     return Layout(order, n_train, n_valid, n_test, tuple(tracks))
+
+
+def classes_missing(layout: Layout, y: np.ndarray, n_classes: int) -> list[tuple[int, int]]:
+    """Return (track, class code) for every class that has no row among a track's fitting rows
+    (``y`` holds class codes in chain order); empty when every track's fitting rows hold every class."""
+    missing = []
+    for t, track in enumerate(layout.tracks):
+        counts = np.bincount(np.asarray(y[: track.n_rows][track.fit], dtype=np.intp), minlength=n_classes)
+        missing.extend((t, int(k)) for k in np.flatnonzero(counts == 0))
+    return missing
+
+
+def check_classes_fit(layout: Layout, y: np.ndarray, schema: Any, source: str) -> None:
+    """Raise DataError naming the first class that has no row among a track's fitting rows."""
+    missing = classes_missing(layout, y, len(schema.classes))
+    if not missing:
+        return
+    track, code = missing[0]
+    name = schema.classes[code]
+    rows = int(np.count_nonzero(y == code))
+    its = f"its {rows:,} row is" if rows == 1 else f"its {rows:,} rows are all"
+    where = ("the fitting rows: " + its + " in the validation or test part" if track == 0 else
+             f"the fitting rows of fold {track}: {its} held out in that fold")
+    raise DataError(f"{source}: class {name!r} of target {schema.target!r} has no row among {where}; a class the "
+                    "chain never fits on cannot be predicted (group it with another class, or drop its rows)")

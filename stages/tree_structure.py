@@ -71,8 +71,9 @@ def _reachable(left: np.ndarray, right: np.ndarray, owners: np.ndarray, n_nodes:
 
 
 # ----------------------------------------------------------------------------- scikit-learn trees
-def check_sklearn_tree(tree: Any, n_features: int | None, what: str = "a tree") -> None:
-    """Raise ChainFileError unless a scikit-learn ``Tree`` is a sound one-output regression tree.
+def check_sklearn_tree(tree: Any, n_features: int | None, what: str = "a tree", n_outputs: int = 1) -> None:
+    """Raise ChainFileError unless a scikit-learn ``Tree`` is a sound regression tree of ``n_outputs``
+    outputs (one per row, or one per class of a multiclass chain's multi-output forest).
 
     ``n_features`` is the number of inputs the tree may split on (None: its own ``n_features``).
     """
@@ -80,8 +81,8 @@ def check_sklearn_tree(tree: Any, n_features: int | None, what: str = "a tree") 
     left, right = np.asarray(tree.children_left), np.asarray(tree.children_right)
     if count < 1 or count != capacity or len(left) != count:
         raise ChainFileError(f"{what} says it has {count:,} nodes but holds {capacity:,}")
-    if int(tree.n_outputs) != 1 or int(tree.max_n_classes) != 1:
-        raise ChainFileError(f"{what} has {int(tree.n_outputs)} outputs; a stage's trees have 1")
+    if int(tree.n_outputs) != n_outputs or int(tree.max_n_classes) != 1:
+        raise ChainFileError(f"{what} has {int(tree.n_outputs)} outputs; this stage's trees have {n_outputs}")
     width = int(tree.n_features)
     if n_features is not None and width != n_features:
         raise ChainFileError(f"{what} reads {width:,} features; the stage has {n_features:,}")
@@ -168,9 +169,10 @@ def check_libsvm(model: Any, n_features: int, what: str = "a support-vector mode
         raise ChainFileError(f"{what} has a cache size or degree out of range")
 
 
-def check_fitted_estimator(estimator: Any, n_features: int | None, what: str) -> None:
+def check_fitted_estimator(estimator: Any, n_features: int | None, what: str, n_outputs: int = 1) -> None:
     """Raise ChainFileError unless ``estimator`` reads ``n_features`` inputs and every tree and libsvm
-    model inside it is sound (a tree inside an ensemble may read fewer inputs, never more)."""
+    model inside it is sound (a tree inside an ensemble may read fewer inputs, never more), each tree
+    of ``n_outputs`` outputs."""
     from sklearn.svm import SVR, NuSVR
 
     width = getattr(estimator, "n_features_in_", n_features)
@@ -182,7 +184,7 @@ def check_fitted_estimator(estimator: Any, n_features: int | None, what: str) ->
         if owner is not None and getattr(owner, "n_features_in_", None) != int(tree.n_features):
             raise ChainFileError(f"{where} reads {int(tree.n_features):,} features, but its estimator "
                                  f"says {getattr(owner, 'n_features_in_', None)!r}")
-        check_sklearn_tree(tree, None, where)
+        check_sklearn_tree(tree, None, where, n_outputs)
         if int(tree.n_features) > int(width):
             raise ChainFileError(f"{where} reads {int(tree.n_features):,} features; the stage has {int(width):,}")
     if type(estimator) in (SVR, NuSVR):

@@ -148,11 +148,19 @@ def _sizes(n: int, fraction: float, test_fraction: float, what: str) -> tuple[in
 
 
 def _strata(y: np.ndarray, task: str, stratify: bool) -> list[np.ndarray]:
-    """Return the row positions of each class (binary, stratified) or of all rows."""
+    """Return the row positions of each class (binary or multiclass, stratified) or of all rows."""
     if task == "binary" and stratify:
         classes = [np.flatnonzero(y != 1), np.flatnonzero(y == 1)]
         return [c.astype(np.int64) for c in classes if len(c)]
+    if task == "multiclass" and stratify:
+        codes = y.astype(np.int64)
+        return [np.flatnonzero(codes == k).astype(np.int64) for k in np.unique(codes)]
     return [np.arange(len(y), dtype=np.int64)]
+
+
+def _class_codes(y: np.ndarray, task: str) -> np.ndarray:
+    """Return each row's class code as scikit-learn's stratified folds read it (1 or 0 for binary)."""
+    return (y == 1).astype(np.int64) if task == "binary" else y.astype(np.int64)
 
 
 def _allocate(total: int, counts: list[int]) -> list[int]:
@@ -215,8 +223,8 @@ class Holdout(_Scheme):
             f"holdout {_pct(self.fraction)} (seed {self.seed}){plain}{_locked(self.test_fraction)}"
         )
 
-    def split(self, frame: pd.DataFrame, y: np.ndarray, task: str) -> Split:
-        """Return the split: test drawn first, then validation, stratified for binary."""
+    def split(self, frame: pd.DataFrame, y: np.ndarray, task: str, classes: tuple[str, ...] = ()) -> Split:
+        """Return the split: test drawn first, then validation, stratified by class for binary and multiclass."""
         y = _check_rows(frame, y)
         n_valid, n_test = _sizes(len(y), self.fraction, self.test_fraction, self.describe())
         strata = _strata(y, task, self.stratify)
@@ -239,11 +247,12 @@ class KFold(_Scheme):
         plain = "" if self.stratify else ", not stratified"
         return f"{self.folds}-fold (seed {self.seed}){plain}{_locked(self.test_fraction)}"
 
-    def split(self, frame: pd.DataFrame, y: np.ndarray, task: str) -> Split:
+    def split(self, frame: pd.DataFrame, y: np.ndarray, task: str, classes: tuple[str, ...] = ()) -> Split:
         """Return the split: test drawn first, then ``folds`` disjoint folds covering the rest.
 
-        The folds are scikit-learn's ``StratifiedKFold`` (binary, stratified) or ``KFold``
-        with ``shuffle=True, random_state=seed`` over the rest, each sorted.
+        The folds are scikit-learn's ``StratifiedKFold`` (binary and multiclass, stratified) or
+        ``KFold`` with ``shuffle=True, random_state=seed`` over the rest, each sorted. ``classes``
+        names the classes in messages.
         """
         y = _check_rows(frame, y)
         n = len(y)
@@ -257,15 +266,19 @@ class KFold(_Scheme):
                 f"the data has {len(rest):,}"
             )
         y_rest = y[rest]
-        counts = np.bincount((y_rest == 1).astype(np.int64), minlength=2)
-        if len(strata) > 1 and counts.min() < self.folds:
+        stratified = len(strata) > 1
+        codes = _class_codes(y_rest, task) if stratified else np.zeros(len(y_rest), dtype=np.int64)
+        counts = np.bincount(codes, minlength=max(2, len(classes)))
+        if stratified and counts.min() < self.folds:
+            smallest = int(counts.argmin())
+            name = repr(classes[smallest]) if task == "multiclass" and classes else str(smallest)
             raise ValidationSpecError(
                 f"{self.folds} stratified folds need at least {self.folds} rows of each class"
-                f"{outside}; class {counts.argmin()} has {counts.min()} (or set stratify = false)"
+                f"{outside}; class {name} has {counts.min()} (or set stratify = false)"
             )
-        kind = StratifiedKFold if len(strata) > 1 else SklearnKFold
+        kind = StratifiedKFold if stratified else SklearnKFold
         splitter = kind(self.folds, shuffle=True, random_state=self.seed)
-        chunks = splitter.split(np.zeros((len(rest), 1)), y_rest)
+        chunks = splitter.split(np.zeros((len(rest), 1)), codes)
         folds = tuple(np.sort(rest[held]).astype(np.int64) for _, held in chunks)
         return Split(train=rest, valid=np.empty(0, dtype=np.int64), test=test, folds=folds)
 
@@ -284,7 +297,7 @@ class TimeOrder(_Scheme):
         locked = f", latest {_pct(self.test_fraction)} locked as test" if self.test_fraction else ""
         return f"latest {_pct(self.fraction)} by {self.column!r} as validation{locked}"
 
-    def split(self, frame: pd.DataFrame, y: np.ndarray, task: str) -> Split:
+    def split(self, frame: pd.DataFrame, y: np.ndarray, task: str, classes: tuple[str, ...] = ()) -> Split:
         """Return the split: the latest rows are test, the next latest validation (stable ties)."""
         y = _check_rows(frame, y)
         n_valid, n_test = _sizes(len(y), self.fraction, self.test_fraction, self.describe())
@@ -345,7 +358,7 @@ class GroupHoldout(_Scheme):
             f"{_locked(self.test_fraction)}"
         )
 
-    def split(self, frame: pd.DataFrame, y: np.ndarray, task: str) -> Split:
+    def split(self, frame: pd.DataFrame, y: np.ndarray, task: str, classes: tuple[str, ...] = ()) -> Split:
         """Return the split: random whole groups for test, then validation, as near each fraction."""
         y = _check_rows(frame, y)
         values = _column(frame, self.column)
@@ -408,7 +421,7 @@ class SplitColumn(_Scheme):
         """Return one line such as ``"split column 'split' (train / valid / test)"``."""
         return f"split column {self.column!r} (train / valid / test)"
 
-    def split(self, frame: pd.DataFrame, y: np.ndarray, task: str) -> Split:
+    def split(self, frame: pd.DataFrame, y: np.ndarray, task: str, classes: tuple[str, ...] = ()) -> Split:
         """Return the split the column names; any other value raises, naming it and its row."""
         _check_rows(frame, y)
         values = _column(frame, self.column)
@@ -444,7 +457,7 @@ class AllRows(_Scheme):
         """Return the one line ``"every row fits (no validation)"``."""
         return "every row fits (no validation)"
 
-    def split(self, frame: pd.DataFrame, y: np.ndarray, task: str) -> Split:
+    def split(self, frame: pd.DataFrame, y: np.ndarray, task: str, classes: tuple[str, ...] = ()) -> Split:
         """Return the split with every row in ``train`` and empty ``valid`` and ``test``."""
         y = _check_rows(frame, y)
         if len(y) < 1:

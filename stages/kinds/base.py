@@ -27,7 +27,11 @@ class FitRequest:
 
     ``X`` holds the fitting rows and only the stage's features, as the schema's float64
     matrix (category codes, NaN for missing). ``residual`` is the loss's negative gradient at
-    ``raw``, the chain's current output on those rows (log-odds for binary chains).
+    ``raw``, the chain's current output on those rows (log-odds for binary chains). With one
+    output per row (regression, binary) both are vectors; a multiclass chain's are (n, K), one
+    column per class, and ``y`` holds the class codes. ``weight`` is each fitting row's weight
+    (None: every row counts once). A kind that fits one output at a time fits output k through
+    ``for_output(k)``.
     """
 
     X: np.ndarray
@@ -44,6 +48,13 @@ class FitRequest:
     in_bag: np.ndarray | None = None
     #: what the fit found worth telling the user (e.g. separation), one line each
     notes: list[str] = field(default_factory=list)
+    #: each fitting row's weight, None when every row counts once
+    weight: np.ndarray | None = None
+
+    @property
+    def outputs(self) -> int:
+        """Return K, the number of outputs per row the learner must predict (1 unless multiclass)."""
+        return 1 if self.residual.ndim == 1 else int(self.residual.shape[1])
 
     def check_cancel(self) -> None:
         """Raise FitCancelled when the user asked to stop."""
@@ -65,7 +76,23 @@ class FitRequest:
         return FitRequest(
             X=self.X[rows], columns=self.columns, residual=self.residual[rows], y=self.y[rows],
             raw=self.raw[rows], loss=self.loss, task=self.task, random_state=self.random_state,
-            cancel=self.cancel,
+            cancel=self.cancel, weight=None if self.weight is None else self.weight[rows],
+        )
+
+    def for_output(self, k: int) -> FitRequest:
+        """Return the request of output ``k`` alone (the same request when there is one output).
+
+        Its ``y`` is 1 for class k and 0 otherwise, its residual and raw output class k's, its loss
+        the one class k's leaves take (``Loss.for_output``); it shares the rows drawn, the random
+        stream and the notes.
+        """
+        if self.outputs == 1:
+            return self
+        return FitRequest(
+            X=self.X, columns=self.columns, residual=np.ascontiguousarray(self.residual[:, k]),
+            y=(np.asarray(self.y) == k).astype(np.float64), raw=np.ascontiguousarray(self.raw[:, k]),
+            loss=self.loss.for_output(k), task=self.task, random_state=self.random_state, cancel=self.cancel,
+            progress=None, in_bag=self.in_bag, notes=self.notes, weight=self.weight,
         )
 
 
@@ -74,13 +101,15 @@ class Artifact:
     """A fitted learner in a safe, data-only form: ``fmt`` is one of json, npz, lgb, skops.
 
     ``n_features`` is set when an artifact is read back from a file: the number of feature
-    columns the stage reads, so that ``load`` can refuse a learner built for another width.
+    columns the stage reads, so that ``load`` can refuse a learner built for another width;
+    ``n_outputs`` the number of outputs per row it must predict (the chain's K).
     """
 
     fmt: str
     payload: bytes
     meta: dict[str, Any] = field(default_factory=dict)
     n_features: int | None = field(default=None, compare=False)
+    n_outputs: int = field(default=1, compare=False)
 
     SUFFIX: ClassVar[dict[str, str]] = {"json": ".json", "npz": ".npz", "lgb": ".txt", "skops": ".skops"}
 
@@ -94,7 +123,8 @@ class StageKind(ABC):
     """One kind of stage. Subclasses set the class attributes and implement fit/save/load.
 
     ``fit`` returns a learner: any object with ``predict(X) -> ndarray`` giving the stage's
-    output before shrinkage, on the same feature columns it was fit on.
+    output before shrinkage, on the same feature columns it was fit on: n values for a request
+    with one output, an (n, K) array for K outputs (``FitRequest.outputs``).
     """
 
     name: ClassVar[str]

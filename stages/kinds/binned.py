@@ -35,10 +35,13 @@ class BinnedData:
     dataset: Any
     lock: threading.Lock = field(default_factory=threading.Lock)
 
-    def with_target(self, label: np.ndarray, init_score: np.ndarray) -> Any:
-        """Return the binned dataset with this fit's label and offset set."""
+    def with_target(self, label: np.ndarray, init_score: np.ndarray, weight: np.ndarray | None = None) -> Any:
+        """Return the binned dataset with this fit's label, offset ((n, K) for K raw scores) and row
+        weights set (the rows of one matrix are one chain's, whose weights every stage shares)."""
         self.dataset.set_label(label)
         self.dataset.set_init_score(init_score)
+        if weight is not None:
+            self.dataset.set_weight(weight)
         return self.dataset
 
 

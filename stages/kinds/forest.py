@@ -61,9 +61,10 @@ class ForestKind(StageKind):
     estimator_path: ClassVar[tuple[str, str]]
 
     def task_defaults(self, task: str) -> dict[str, Any]:
-        """Return the defaults for ``task``: mtry p/3 and leaves of 5 rows for regression, sqrt(p) and 1 for binary."""
+        """Return the defaults for ``task``: mtry p/3 and leaves of 5 rows for regression, sqrt(p) and 1 for
+        binary and multiclass chains (classification, as randomForest sets them)."""
         out = dict(self.defaults)
-        if task == "binary":
+        if task in ("binary", "multiclass"):
             out.update(max_features="sqrt", min_samples_leaf=1)
         return out
 
@@ -81,7 +82,8 @@ class ForestKind(StageKind):
         return getattr(importlib.import_module(module), cls)
 
     def fit(self, request: FitRequest, params: dict[str, Any]) -> Any:
-        """Return the forest fit to the residuals, its trees seeded from the chain's stream."""
+        """Return the forest fit to the residuals, its trees seeded from the chain's stream (for a
+        multiclass chain one multi-output forest: each tree predicts the K classes' residuals)."""
         check_has_features(request.X, self.name)
         request.check_cancel()
         forest = self.estimator_class()(random_state=request.random_state, **params)
@@ -98,7 +100,7 @@ class ForestKind(StageKind):
         """Return each fitting row's mean prediction over the trees that left it out, and which rows have one."""
         n = request.X.shape[0]
         X = np.asarray(request.X, dtype=np.float32)  # what the forest's own predict casts to
-        total, count = np.zeros(n), np.zeros(n)
+        total, count = np.zeros(request.residual.shape), np.zeros(n)
         for tree, drawn in zip(learner.estimators_, learner.estimators_samples_, strict=True):
             request.check_cancel()
             left_out = np.ones(n, dtype=bool)
@@ -107,8 +109,8 @@ class ForestKind(StageKind):
                 total[left_out] += tree.predict(X[left_out], check_input=False)
                 count[left_out] += 1
         has = count > 0
-        held = np.zeros(n)
-        held[has] = total[has] / count[has]
+        held = np.zeros(total.shape)
+        held[has] = total[has] / (count[has] if total.ndim == 1 else count[has, None])
         return held, has
 
     def save(self, learner: Any) -> Artifact:
@@ -119,10 +121,14 @@ class ForestKind(StageKind):
 
     def load(self, artifact: Artifact) -> Any:
         """Return the forest stored in ``artifact``; raise ChainFileError for an untrusted payload or an unsound tree."""
-        learner = skops_io.load(artifact.payload, recorded=artifact.meta.get("types"), n_features=artifact.n_features)
+        learner = skops_io.load(artifact.payload, recorded=artifact.meta.get("types"), n_features=artifact.n_features,
+                                n_outputs=artifact.n_outputs)
         if type(learner) is not self.estimator_class():
             raise ChainFileError(f"{self.name} stage artifact holds a {type(learner).__name__}, not a forest")
-        check_fitted_estimator(learner, artifact.n_features, f"{self.name} stage artifact")
+        if int(getattr(learner, "n_outputs_", 1)) != artifact.n_outputs:
+            raise ChainFileError(f"{self.name} stage artifact predicts {getattr(learner, 'n_outputs_', None)!r} "
+                                 f"outputs; the chain has {artifact.n_outputs}")
+        check_fitted_estimator(learner, artifact.n_features, f"{self.name} stage artifact", artifact.n_outputs)
         return learner
 
     def importance(self, learner: Any, columns) -> np.ndarray:
@@ -143,7 +149,7 @@ def grow_in_batches(forest: Any, request: FitRequest) -> None:
     report = request.progress or (lambda fraction, message: None)
     n_trees = forest.n_estimators
     if isinstance(n_trees, bool) or not isinstance(n_trees, int) or n_trees < 1:
-        forest.fit(request.X, request.residual)  # scikit-learn says what is wrong with it
+        forest.fit(request.X, request.residual, sample_weight=request.weight)  # scikit-learn says what is wrong
         return
     warm_start, stream = forest.warm_start, request.random_state
     before = stream.get_state()
@@ -158,7 +164,7 @@ def grow_in_batches(forest: Any, request: FitRequest) -> None:
         batch_stream.set_state(before)
         done = min(n_trees, done + size)
         forest.set_params(n_estimators=done, random_state=batch_stream)
-        forest.fit(X, request.residual)
+        forest.fit(X, request.residual, sample_weight=request.weight)
         report(done / n_trees, f"{done}/{n_trees} trees")
         per_tree = (time.perf_counter() - started) / size
         size = max(1, min(n_trees - done, int(BATCH_SECONDS / max(per_tree, 1e-6))))

@@ -40,7 +40,7 @@ class NeighboursModel:
 
     def predict(self, X: np.ndarray) -> np.ndarray:
         """Return the mean (or distance-weighted) residual of each row's nearest fitting rows."""
-        out = np.empty(X.shape[0], dtype=np.float64)
+        out = np.empty((X.shape[0], *self.target.shape[1:]), dtype=np.float64)
         k, p = int(self.params["n_neighbors"]), float(self.params["p"])
         for start in range(0, X.shape[0], PREDICT_BLOCK):
             queries = self.design.transform(X[start:start + PREDICT_BLOCK])
@@ -107,7 +107,8 @@ class KnnKind(StageKind):
             params = {**self.defaults, **dict(artifact.meta["params"])}
         except (OSError, ValueError, KeyError, TypeError) as exc:
             raise ChainFileError(f"knn stage artifact is not valid ({exc!r})") from None
-        if matrix.ndim != 2 or matrix.shape != (len(target), design.width) or target.ndim != 1:
+        wanted = (len(matrix),) if artifact.n_outputs == 1 else (len(matrix), artifact.n_outputs)
+        if matrix.ndim != 2 or matrix.shape[1] != design.width or target.shape != wanted:
             raise ChainFileError("knn stage artifact: stored rows do not match its design")
         if artifact.n_features is not None and len(design.steps) != artifact.n_features:
             raise ChainFileError(f"knn stage artifact's design does not read the stage's {artifact.n_features} features")

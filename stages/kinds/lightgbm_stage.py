@@ -3,6 +3,8 @@
 The booster is trained on the target itself with the chain's current output as LightGBM's
 ``init_score``, under the objective of the chain's loss; so raw + output is exactly what
 LightGBM would predict had it started from that offset, and the stage needs no line search.
+A multiclass chain's booster uses LightGBM's ``multiclass`` objective (K trees a round) with the
+chain's K raw scores as its (n, K) ``init_score``, and predicts K raw scores a row.
 Categories go in as LightGBM's native categorical features and NaN as its missing values.
 
 Parameters take LightGBM's names: those of its scikit-learn API (``n_estimators``,
@@ -74,7 +76,8 @@ PROGRESS_REPORTS = 50
 
 @dataclass
 class BoosterLearner:
-    """A fitted LightGBM booster; ``predict`` returns its raw scores (log-odds for binary chains).
+    """A fitted LightGBM booster; ``predict`` returns its raw scores (log-odds for binary chains, (n, K)
+    for a multiclass chain).
 
     ``held_out`` (indices into the fitting rows used for early stopping) and ``params`` (what
     was passed to ``lightgbm.train``) describe the fit; neither is saved.
@@ -148,7 +151,9 @@ def booster_params(request: FitRequest, params: dict[str, Any], seed: int) -> di
     out = {k: v for k, v in params.items() if k not in STAGE_NAMES and v is not None}
     out["objective"] = request.loss.lightgbm_objective
     if out["objective"] == "huber":
-        out["alpha"] = request.loss.delta(request.y, request.raw)
+        out["alpha"] = request.loss.delta(request.y, request.raw, request.weight)
+    if request.outputs > 1:
+        out["num_class"] = request.outputs
     if out.get("force_col_wise"):
         out["force_row_wise"] = False
     out["seed"] = seed
@@ -178,6 +183,7 @@ def train_booster(request: FitRequest, params: dict[str, Any], kind: str, *, reu
     def dataset(rows: Any, reference: Any = None) -> Any:
         return lightgbm.Dataset(
             request.X[rows], label=request.y[rows], init_score=request.raw[rows], reference=reference,
+            weight=None if request.weight is None else request.weight[rows],
             categorical_feature=categorical, free_raw_data=True,
         )
 
@@ -190,7 +196,7 @@ def train_booster(request: FitRequest, params: dict[str, Any], kind: str, *, reu
         if shared is None:
             train_set = dataset(fit_rows if request.in_bag is None else np.flatnonzero(request.in_bag))
         else:
-            train_set = shared.with_target(request.y, request.raw)
+            train_set = shared.with_target(request.y, request.raw, request.weight)
             if request.in_bag is not None:  # the drawn rows, binned as every stage bins them
                 train_set = train_set.subset(np.flatnonzero(request.in_bag))
         valid_sets = []
@@ -250,7 +256,7 @@ class BoosterKind(StageKind):
         except UnicodeDecodeError:
             raise ChainFileError(f"{self.name} stage artifact is not a LightGBM model (not UTF-8 text)") from None
         # LightGBM walks the text without bounds checks: every structure is checked first
-        check_model_text(text, artifact.n_features, f"{self.name} stage artifact")
+        check_model_text(text, artifact.n_features, f"{self.name} stage artifact", n_classes=artifact.n_outputs)
         try:
             with quiet_native_log():
                 booster = lightgbm.Booster(model_str=text)

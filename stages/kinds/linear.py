@@ -2,7 +2,9 @@
 
 Each fits scikit-learn's estimator of the same name to the residuals on the imputed,
 standardised, one-hot encoded design (see ``design.py``), then keeps only its coefficients:
-the learner is ``design.transform(X) @ coef + intercept`` and its artifact is JSON.
+the learner is ``design.transform(X) @ coef + intercept`` and its artifact is JSON. A multiclass
+stage regresses the K classes' residuals at once on the one design (least squares of several
+targets is each target's least squares): ``coef`` is then (width, K) and ``intercept`` K values.
 """
 
 from __future__ import annotations
@@ -34,24 +36,30 @@ class Design(Protocol):
 
 
 def row_products(Z: np.ndarray, coef: np.ndarray) -> np.ndarray:
-    """Return Z @ coef, summed column by column in a fixed order.
+    """Return Z @ coef (coef a vector, or (width, K) for K outputs), summed column by column in a fixed order.
 
     A BLAS product rounds differently depending on how many rows it gets at once; this sum
     does not, so predicting in chunks gives the same bits as predicting all rows together.
     """
-    out = np.zeros(Z.shape[0], dtype=np.float64)
+    out = np.zeros((Z.shape[0], *coef.shape[1:]), dtype=np.float64)
     for j, weight in enumerate(coef):
-        out += Z[:, j] * weight
+        out += (Z[:, j] if coef.ndim == 1 else Z[:, j, None]) * weight
     return out
 
 
 @dataclass
 class LinearModel:
-    """A fitted linear stage: its preprocessing, one coefficient per design column, an intercept."""
+    """A fitted linear stage: its preprocessing, one coefficient per design column, an intercept
+    (for K outputs, a (width, K) matrix and K intercepts)."""
 
     design: Design
     coef: np.ndarray
-    intercept: float
+    intercept: float | np.ndarray
+
+    @property
+    def outputs(self) -> int:
+        """Return the number of outputs per row (1 for one coefficient per design column)."""
+        return 1 if self.coef.ndim == 1 else int(self.coef.shape[1])
 
     def predict(self, X: np.ndarray) -> np.ndarray:
         """Return the stage's output on the rows ``X``: ``design.transform(X) @ coef + intercept``.
@@ -59,7 +67,7 @@ class LinearModel:
         Rows go through the design a block at a time (the same bits as all at once, see
         ``row_products``), so the design matrix of a million rows never exists whole.
         """
-        out = np.empty(X.shape[0], dtype=np.float64)
+        out = np.empty((X.shape[0], *self.coef.shape[1:]), dtype=np.float64)
         for start in range(0, X.shape[0], BLOCK_ROWS):
             block = self.design.transform(X[start:start + BLOCK_ROWS])
             out[start:start + BLOCK_ROWS] = row_products(block, self.coef) + self.intercept
@@ -72,41 +80,59 @@ BLOCK_ROWS = 16_384
 
 
 def blocked_least_squares(design: LinearDesign, X: np.ndarray, target: np.ndarray,
-                          fit_intercept: bool = True) -> tuple[np.ndarray, float]:
+                          fit_intercept: bool = True) -> tuple[np.ndarray, float | np.ndarray]:
     """Return the least-squares coefficients and intercept of ``target`` on ``design.transform(X)``.
 
     The solution of scikit-learn's LinearRegression (the minimum-norm one; singular values below
     ``max(shape) * eps`` of the largest are cut), found without holding the design matrix: the
     columns are centred, then the rows are folded a block at a time into the triangular factor R
     of the QR decomposition of ``[design | target]`` (Householder QR, as stable as on the whole
-    matrix), and the small system in R is solved by SVD at the end.
+    matrix), and the small system in R is solved by SVD at the end. A target of K columns (n, K)
+    gives (width, K) coefficients and K intercepts: each column's least squares.
     """
     from scipy import linalg
 
     n, width = X.shape[0], design.width
-    x_mean, y_mean = np.zeros(width), 0.0
+    several = target.ndim == 2
+    targets = target.shape[1] if several else 1
+    x_mean, y_mean = np.zeros(width), np.zeros(targets) if several else 0.0
     if fit_intercept:
         for start in range(0, n, BLOCK_ROWS):
             x_mean += design.transform(X[start:start + BLOCK_ROWS]).sum(axis=0)
-        x_mean, y_mean = x_mean / n, float(np.mean(target))
-    factor = np.zeros((0, width + 1))
+        x_mean = x_mean / n
+        y_mean = np.mean(target, axis=0) if several else float(np.mean(target))
+    factor = np.zeros((0, width + targets))
     for start in range(0, n, BLOCK_ROWS):
         rows = min(BLOCK_ROWS, n - start)
         # R so far on top of the next block of rows, factored in place: one block's memory
-        stacked = np.empty((len(factor) + rows, width + 1), order="F")
+        stacked = np.empty((len(factor) + rows, width + targets), order="F")
         stacked[: len(factor)] = factor
         block = stacked[len(factor):]
         block[:, :width] = design.transform(X[start:start + rows])
         block[:, :width] -= x_mean
-        block[:, width] = target[start:start + rows] - y_mean
-        factor = linalg.qr(stacked, mode="r", overwrite_a=True, check_finite=False)[0][: width + 1]
+        if several:
+            block[:, width:] = target[start:start + rows] - y_mean
+        else:
+            block[:, width] = target[start:start + rows] - y_mean
+        factor = linalg.qr(stacked, mode="r", overwrite_a=True, check_finite=False)[0][: width + targets]
     cond = max(n, width) * np.finfo(np.float64).eps
-    coef = linalg.lstsq(factor[:width, :width], factor[:width, width], cond=cond, check_finite=False)[0]
+    right = factor[:width, width:] if several else factor[:width, width]
+    coef = linalg.lstsq(factor[:width, :width], right, cond=cond, check_finite=False)[0]
+    if several:
+        return coef, y_mean - x_mean @ coef
     return coef, y_mean - float(x_mean @ coef)
 
 
-def checked_coefficients(coef: Any, intercept: Any, kind: str) -> tuple[np.ndarray, float]:
-    """Return the coefficients as a float64 vector and the intercept as a float; raise StageFitError if not finite."""
+def checked_coefficients(coef: Any, intercept: Any, kind: str, outputs: int = 1) -> tuple[np.ndarray, float | np.ndarray]:
+    """Return the coefficients as a float64 vector and the intercept as a float, or for ``outputs`` > 1
+    the (width, K) matrix (as given: scikit-learn's (K, width) ``coef_`` is passed transposed) and K
+    intercepts; raise StageFitError if one is not finite."""
+    if outputs > 1:
+        matrix = np.asarray(coef, dtype=np.float64).reshape(-1, outputs)
+        values = np.broadcast_to(np.asarray(intercept, dtype=np.float64), (outputs,)).copy()
+        if not (np.all(np.isfinite(matrix)) and np.all(np.isfinite(values))):
+            raise StageFitError(f"kind {kind!r} produced coefficients that are not finite numbers")
+        return matrix, values
     coef = np.asarray(coef, dtype=np.float64).ravel()
     intercept = float(np.asarray(intercept, dtype=np.float64).ravel()[0]) if np.size(intercept) else 0.0
     if not (np.all(np.isfinite(coef)) and np.isfinite(intercept)):
@@ -125,46 +151,64 @@ def fit_estimator(estimator: Any, matrix: np.ndarray, target: np.ndarray, kind: 
 
 
 def linear_importance(model: LinearModel, n_columns: int) -> np.ndarray:
-    """Return |coef| per design column summed per input column."""
-    return group_sum(np.abs(model.coef), model.design.feature_groups(), n_columns)
+    """Return |coef| per design column (summed over the outputs) summed per input column."""
+    sizes = np.abs(model.coef) if model.coef.ndim == 1 else np.abs(model.coef).sum(axis=1)
+    return group_sum(sizes, model.design.feature_groups(), n_columns)
 
 
 def dump_linear(model: LinearModel, estimator: str) -> Artifact:
-    """Return a linear learner as a JSON artifact (design, coefficients, intercept, estimator name)."""
+    """Return a linear learner as a JSON artifact (design, coefficients, intercept, estimator name).
+
+    K outputs store ``coef`` as one list of K numbers per design column and ``intercept`` as K numbers.
+    """
+    several = model.coef.ndim == 2
     body = {
         "estimator": estimator,
         "design": model.design.to_dict(),
-        "coef": [float(c) for c in model.coef],
-        "intercept": float(model.intercept),
+        "coef": [[float(c) for c in row] for row in model.coef] if several else [float(c) for c in model.coef],
+        "intercept": [float(v) for v in np.ravel(model.intercept)] if several else float(model.intercept),
     }
     return Artifact("json", json.dumps(body).encode())
 
 
-def read_linear(artifact: Artifact, estimator: str) -> tuple[dict[str, Any], np.ndarray, float]:
-    """Return the design dict, coefficients and intercept of a JSON artifact written for ``estimator``.
+def _numbers(values: Any, what: str) -> list[float]:
+    if not isinstance(values, list) or not all(isinstance(c, int | float) and not isinstance(c, bool) for c in values):
+        raise TypeError(f"{what} must be a list of numbers")
+    return values
+
+
+def read_linear(artifact: Artifact, estimator: str) -> tuple[dict[str, Any], np.ndarray, float | np.ndarray]:
+    """Return the design dict, coefficients and intercept of a JSON artifact written for ``estimator``
+    (for ``artifact.n_outputs`` K > 1: (width, K) coefficients and K intercepts).
 
     Raise ChainFileError when the artifact is not JSON, was written by another kind, or is
     incomplete.
     """
     if artifact.fmt != "json":
         raise ChainFileError(f"{estimator} stage artifact must be json, not {artifact.fmt}")
+    outputs = artifact.n_outputs
     try:
         body = strict_json(artifact.payload)
         found = body["estimator"]
-        values = body["coef"]
-        if not isinstance(values, list) or not all(isinstance(c, int | float) and not isinstance(c, bool) for c in values):
-            raise TypeError("coef must be a list of numbers")
-        coef = np.asarray(values, dtype=np.float64)
-        design, intercept = body["design"], body["intercept"]
-        if isinstance(intercept, bool) or not isinstance(intercept, int | float):
-            raise TypeError("intercept must be a number")
-        intercept = float(intercept)
+        design, values, intercept = body["design"], body["coef"], body["intercept"]
+        if outputs > 1:
+            if not isinstance(values, list) or not all(len(_numbers(row, "each coef row")) == outputs for row in values):
+                raise TypeError(f"coef must be a list of rows of {outputs} numbers")
+            coef = np.asarray(values, dtype=np.float64).reshape(-1, outputs)
+            if len(_numbers(intercept, "intercept")) != outputs:
+                raise TypeError(f"intercept must be {outputs} numbers")
+            intercept = np.asarray(intercept, dtype=np.float64)
+        else:
+            coef = np.asarray(_numbers(values, "coef"), dtype=np.float64)
+            if isinstance(intercept, bool) or not isinstance(intercept, int | float):
+                raise TypeError("intercept must be a number")
+            intercept = float(intercept)
     except (ValueError, KeyError, TypeError, RecursionError) as exc:
         raise ChainFileError(f"{estimator} stage artifact is not valid ({type(exc).__name__}: "
                              f"{' '.join(str(exc).split())[:200]})") from None
     if found != estimator:
         raise ChainFileError(f"{estimator} stage artifact was written by kind {str(found)[:60]!r}")
-    if not np.isfinite(coef).all() or not np.isfinite(intercept):
+    if not np.isfinite(coef).all() or not np.isfinite(intercept).all():
         raise ChainFileError(f"{estimator} stage artifact has a coefficient that is not a finite number")
     if artifact.n_features is not None and (not isinstance(design, dict) or not isinstance(design.get("steps"), list)
                                             or len(design["steps"]) != artifact.n_features):
@@ -179,6 +223,14 @@ def load_linear(artifact: Artifact, estimator: str) -> LinearModel:
     if len(coef) != design.width:
         raise ChainFileError(f"{estimator} stage artifact has {len(coef)} coefficients for {design.width} design columns")
     return LinearModel(design, coef, intercept)
+
+
+def constant_model(design: Design, target: np.ndarray, fit_intercept: bool) -> LinearModel:
+    """Return the model of a design with no column: the mean target (of each output) as its intercept, or 0."""
+    if target.ndim == 2:
+        means = np.mean(target, axis=0) if fit_intercept else np.zeros(target.shape[1])
+        return LinearModel(design, np.zeros((0, target.shape[1])), means)
+    return LinearModel(design, np.zeros(0), float(np.mean(target)) if fit_intercept else 0.0)
 
 
 class LinearFamilyKind(StageKind):
@@ -201,11 +253,11 @@ class LinearFamilyKind(StageKind):
         matrix = design.transform(request.X)
         target = np.asarray(request.residual, dtype=np.float64)
         if matrix.shape[1] == 0:  # e.g. a categorical column with no value in the fitting rows
-            intercept = float(np.mean(target)) if params.get("fit_intercept", True) else 0.0
-            return LinearModel(design, np.zeros(0), intercept)
+            return constant_model(design, target, bool(params.get("fit_intercept", True)))
         estimator = self.make_estimator(params, request)
         fit_estimator(estimator, matrix, target, self.name)
-        coef, intercept = checked_coefficients(estimator.coef_, estimator.intercept_, self.name)
+        coef = estimator.coef_.T if target.ndim == 2 else estimator.coef_
+        coef, intercept = checked_coefficients(coef, estimator.intercept_, self.name, request.outputs)
         return LinearModel(design, coef, intercept)
 
     def save(self, learner: LinearModel) -> Artifact:
@@ -245,9 +297,9 @@ class LinearKind(LinearFamilyKind):
         design = LinearDesign.fit(request.X, request.columns)
         target = np.asarray(request.residual, dtype=np.float64)
         if design.width == 0:  # e.g. a categorical column with no value in the fitting rows
-            return LinearModel(design, np.zeros(0), float(np.mean(target)) if fit_intercept else 0.0)
+            return constant_model(design, target, bool(fit_intercept))
         coef, intercept = blocked_least_squares(design, request.X, target, bool(fit_intercept))
-        coef, intercept = checked_coefficients(coef, intercept, self.name)
+        coef, intercept = checked_coefficients(coef, intercept, self.name, request.outputs)
         return LinearModel(design, coef, intercept)
 
 

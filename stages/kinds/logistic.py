@@ -1,4 +1,4 @@
-"""The ``logistic`` kind: penalised logistic regression on top of the chain's log-odds (binary chains).
+"""The ``logistic`` kind: penalised logistic regression on top of the chain's log-odds (binary and multiclass chains).
 
 The stage fits the log loss itself, with the chain's current output ``raw`` as a fixed
 offset: it minimises
@@ -8,6 +8,11 @@ offset: it minimises
 
 with the intercept ``b`` unpenalised (``penalty=None`` drops the penalty, i.e. C = inf). This
 is scikit-learn's LogisticRegression objective plus the offset. The stage's output is ``z``.
+
+On a multiclass chain the stage is a multinomial logistic regression on the chain's K raw
+scores: it minimises C * sum_i [logsumexp_k(raw_ik + z_ik) - (raw_iy + z_iy)] + 0.5 * ||W||^2
+with z = design @ W + b, W one column per class, as scikit-learn's multinomial
+LogisticRegression (one coefficient vector per class, the L2 penalty on all of them).
 
 Without a penalty, classes that a hyperplane separates have no maximum-likelihood fit: the
 coefficients grow until the fitted probabilities reach 0 or 1 in float64 (Albert & Anderson
@@ -20,10 +25,10 @@ from typing import Any, ClassVar
 
 import numpy as np
 from scipy.optimize import minimize
-from scipy.special import expit
+from scipy.special import expit, logsumexp
 
 from ..errors import StageSpecError
-from ..metrics import PROB_EPS
+from ..metrics import PROB_EPS, one_hot
 from . import register
 from .base import Artifact, FitRequest, StageKind, check_has_features
 from .design import LinearDesign
@@ -130,26 +135,106 @@ def separation_note(logit: np.ndarray) -> str | None:
             "without bound; set penalty='l2' with a finite C")
 
 
+def offset_multinomial_fit(
+    matrix: np.ndarray, y: np.ndarray, offset: np.ndarray, C: float, max_iter: int, tol: float
+) -> tuple[np.ndarray, np.ndarray]:
+    """Return (W, b), W of shape (width, K), minimising C * sum of multinomial log losses at
+    offset + matrix @ W + b, plus 0.5 * ||W||^2 (no penalty with C = inf)."""
+    width, n_classes = matrix.shape[1], offset.shape[1]
+    weight, ridge = (1.0, 0.0) if np.isinf(C) else (C, 1.0)
+    indicator = one_hot(y, n_classes)
+    design = np.c_[matrix, np.ones(len(matrix))]
+
+    def objective(theta: np.ndarray) -> tuple[float, np.ndarray]:
+        coef = theta.reshape(width + 1, n_classes)
+        logits = offset + design @ coef
+        value = weight * float(np.sum(logsumexp(logits, axis=1) - np.sum(indicator * logits, axis=1)))
+        value += 0.5 * ridge * float(np.sum(coef[:width] ** 2))
+        slope = weight * (_softmax(logits) - indicator)
+        gradient = design.T @ slope
+        gradient[:width] += ridge * coef[:width]
+        return value, gradient.ravel()
+
+    options = {"maxiter": max_iter, "gtol": tol, "ftol": 0.0, "maxls": 50}
+    found = minimize(objective, np.zeros((width + 1) * n_classes), jac=True, method="L-BFGS-B", options=options)
+    theta = found.x
+    if (width + 1) * n_classes <= NEWTON_WIDTH:
+        theta = _multinomial_newton(design, indicator, offset, weight, ridge, theta, width)
+    coef = theta.reshape(width + 1, n_classes)
+    return coef[:width], coef[width]
+
+
+def _softmax(logits: np.ndarray) -> np.ndarray:
+    shifted = np.exp(logits - logits.max(axis=1, keepdims=True))
+    return shifted / shifted.sum(axis=1, keepdims=True)
+
+
+def _multinomial_newton(design: np.ndarray, indicator: np.ndarray, offset: np.ndarray, weight: float, ridge: float,
+                        theta: np.ndarray, width: int, steps: int = 4) -> np.ndarray:
+    """Return ``theta`` after up to ``steps`` Newton steps, each kept only when it lowers the gradient's norm
+    (as ``newton_polish`` does for two classes; the full Hessian of the K classes' coefficients)."""
+    n_classes = indicator.shape[1]
+    size = (width + 1) * n_classes
+    penalised = np.zeros((width + 1, n_classes))
+    penalised[:width] = ridge
+
+    def gradient(theta: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        coef = theta.reshape(width + 1, n_classes)
+        p = _softmax(offset + design @ coef)
+        return (design.T @ (weight * (p - indicator)) + penalised * coef).ravel(), p
+
+    g, p = gradient(theta)
+    for _ in range(steps):
+        hessian = np.zeros((width + 1, n_classes, width + 1, n_classes))
+        for a in range(n_classes):
+            for c in range(a, n_classes):
+                curvature = weight * p[:, a] * ((a == c) - p[:, c])
+                block = np.zeros((width + 1, width + 1))
+                for start in range(0, len(design), _BLOCK_ROWS):
+                    rows = design[start:start + _BLOCK_ROWS]
+                    block += (rows * curvature[start:start + _BLOCK_ROWS, None]).T @ rows
+                hessian[:, a, :, c] = block
+                hessian[:, c, :, a] = block.T
+        hessian = hessian.reshape(size, size)
+        hessian[np.arange(size), np.arange(size)] += penalised.ravel()
+        trial = theta - np.linalg.lstsq(hessian, g, rcond=1e-10)[0]
+        g_trial, p_trial = gradient(trial)
+        if not np.linalg.norm(g_trial) < np.linalg.norm(g):
+            break
+        theta, g, p = trial, g_trial, p_trial
+    return theta
+
+
+def margin_note(logits: np.ndarray) -> str | None:
+    """Return the separation note for a multinomial fit where some fitting rows' most probable class
+    gets a probability of 1 in float64 (its score leads the next one by SATURATED_LOGIT), else None."""
+    ordered = np.sort(logits, axis=1)
+    return separation_note(ordered[:, -1] - ordered[:, -2])
+
+
 class LogisticKind(StageKind):
     """Logistic regression with the chain's log-odds as offset; its output adds to the log-odds."""
 
     name: ClassVar[str] = "logistic"
-    summary: ClassVar[str] = "logistic regression on the log-odds so far (binary chains)"
+    summary: ClassVar[str] = "logistic regression on the log-odds so far (binary and multiclass chains)"
     defaults: ClassVar[dict[str, Any]] = {"C": 1.0, "penalty": "l2", "max_iter": 1000, "tol": 1e-10}
     main_params: ClassVar[tuple[str, ...]] = ("C", "penalty")
     fits_loss: ClassVar[bool] = True
 
     def fit(self, request: FitRequest, params: dict[str, Any]) -> LinearModel:
-        """Return the offset logistic model; raise StageSpecError on a regression chain."""
-        if request.task != "binary":
+        """Return the offset logistic model (multinomial on a multiclass chain); raise StageSpecError on a
+        regression chain."""
+        if request.task not in ("binary", "multiclass"):
             raise StageSpecError(
-                f"kind {self.name!r} is for binary chains; this chain is {request.task} "
+                f"kind {self.name!r} is for binary and multiclass chains; this chain is {request.task} "
                 "(use 'linear', 'ridge' or 'lasso')"
             )
         check_has_features(request.X, self.name)
         design = LinearDesign.fit(request.X, request.columns)
         matrix = design.transform(request.X)
         y = np.asarray(request.y, dtype=np.float64)
+        if request.outputs > 1:
+            return self._multinomial(request, params, design, matrix, y)
         w, b = offset_logistic_fit(
             matrix, y, np.asarray(request.raw, dtype=np.float64), inverse_penalty(params, self.name),
             int(params["max_iter"]), float(params["tol"]),
@@ -157,6 +242,18 @@ class LogisticKind(StageKind):
         coef, intercept = checked_coefficients(w, b, self.name)
         if np.isinf(inverse_penalty(params, self.name)):
             note = separation_note(np.asarray(request.raw, dtype=np.float64) + matrix @ coef + intercept)
+            if note:
+                request.note(note)
+        return LinearModel(design, coef, intercept)
+
+    def _multinomial(self, request: FitRequest, params: dict[str, Any], design: LinearDesign, matrix: np.ndarray,
+                     y: np.ndarray) -> LinearModel:
+        offset = np.asarray(request.raw, dtype=np.float64)
+        C = inverse_penalty(params, self.name)
+        W, b = offset_multinomial_fit(matrix, y, offset, C, int(params["max_iter"]), float(params["tol"]))
+        coef, intercept = checked_coefficients(W, b, self.name, request.outputs)
+        if np.isinf(C):
+            note = margin_note(offset + matrix @ coef + intercept)
             if note:
                 request.note(note)
         return LinearModel(design, coef, intercept)

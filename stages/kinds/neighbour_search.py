@@ -103,10 +103,12 @@ def average_of(target: np.ndarray, positions: np.ndarray, distances: np.ndarray,
 
     With ``weights="distance"`` a row with neighbours at distance 0 averages those alone, as
     scikit-learn's KNeighborsRegressor does. Sums run over the neighbours in their (distance,
-    position) order, so every row's value is the same whatever rows are predicted with it.
+    position) order, so every row's value is the same whatever rows are predicted with it. A
+    target of K columns gives each row's K means.
     """
+    shape = (len(positions), *target.shape[1:])
     if weights == "uniform":
-        total = np.zeros(len(positions))
+        total = np.zeros(shape)
         for j in range(positions.shape[1]):
             total += target[positions[:, j]]
         return total / positions.shape[1]
@@ -115,8 +117,9 @@ def average_of(target: np.ndarray, positions: np.ndarray, distances: np.ndarray,
     exact = np.isinf(inverse)
     on_a_row = exact.any(axis=1)
     inverse[on_a_row] = exact[on_a_row]
-    total, weight = np.zeros(len(positions)), np.zeros(len(positions))
+    total, weight = np.zeros(shape), np.zeros(len(positions))
+    several = target.ndim == 2
     for j in range(positions.shape[1]):
-        total += inverse[:, j] * target[positions[:, j]]
+        total += (inverse[:, j, None] if several else inverse[:, j]) * target[positions[:, j]]
         weight += inverse[:, j]
-    return total / weight
+    return total / (weight[:, None] if several else weight)

@@ -1,7 +1,9 @@
 """The ``sklearn:<module>.<Class>`` kinds: any scikit-learn regressor, named by its import path.
 
 The regressor is fit to the residuals on the shared linear design (imputed, standardised,
-one-hot). Its artifact is skops holding exactly the regressor's class and the types listed in
+one-hot); on a multiclass chain K regressors are fit, one to each class's pseudo-residuals (in
+class order, on the chain's stream), and the artifact holds them as one list. Its artifact is
+skops holding exactly the regressor's class and the types listed in
 ``sklearn_types``; the types are recorded when it is saved and checked on load before anything
 is built, and the trees and support vectors inside are checked before anything predicts.
 """
@@ -28,16 +30,21 @@ _SCALARS = (bool, int, float, str, type(None))
 
 @dataclass
 class SklearnModel:
-    """A fitted stage of any scikit-learn regressor: the linear design and the fitted estimator."""
+    """A fitted stage of any scikit-learn regressor: the linear design and the fitted estimator (a list
+    of K estimators, one per class, for a multiclass chain)."""
 
     design: LinearDesign
     estimator: Any
 
     def predict(self, X: np.ndarray) -> np.ndarray:
-        """Return the estimator's prediction on the design of the rows ``X``."""
+        """Return the estimator's prediction on the design of the rows ``X`` ((n, K) for K estimators)."""
+        several = isinstance(self.estimator, list)
         if X.shape[0] == 0:
-            return np.zeros(0)
-        return np.asarray(self.estimator.predict(self.design.transform(X)), dtype=np.float64).ravel()
+            return np.zeros((0, len(self.estimator)) if several else 0)
+        matrix = self.design.transform(X)
+        if several:
+            return np.column_stack([np.asarray(e.predict(matrix), dtype=np.float64).ravel() for e in self.estimator])
+        return np.asarray(self.estimator.predict(matrix), dtype=np.float64).ravel()
 
 
 def import_regressor(path: str) -> type:
@@ -107,6 +114,13 @@ class SklearnKind(StageKind):
         matrix = design.transform(request.X)
         if matrix.shape[1] == 0:
             raise StageSpecError(f"kind {self.name!r}: its features have no value in the train rows")
+        if request.outputs > 1:
+            estimators = [self._fit_one(request.for_output(k), params, matrix) for k in range(request.outputs)]
+            return SklearnModel(design, estimators)
+        return SklearnModel(design, self._fit_one(request, params, matrix))
+
+    def _fit_one(self, request: FitRequest, params: dict[str, Any], matrix: np.ndarray) -> Any:
+        request.check_cancel()
         estimator = self.cls()
         from_stream = "random_state" in self._accepted and "random_state" not in params
         settings = {**params, "random_state": request.random_state} if from_stream else dict(params)
@@ -117,7 +131,7 @@ class SklearnKind(StageKind):
         fit_estimator(estimator, matrix, np.asarray(request.residual, dtype=np.float64), self.name)
         if from_stream:
             estimator.set_params(random_state=None)  # the fitted model must not hold the chain's stream
-        return SklearnModel(design, estimator)
+        return estimator
 
     def save(self, learner: SklearnModel) -> Artifact:
         """Return the estimator as skops, with the design, the class path and the exact types it holds in ``meta``."""
@@ -137,23 +151,33 @@ class SklearnKind(StageKind):
         if artifact.n_features is not None and len(design.steps) != artifact.n_features:
             raise ChainFileError(f"{self.name} stage artifact's design reads {len(design.steps)} features, "
                                  f"not the stage's {artifact.n_features}")
-        estimator = skops_io.load(artifact.payload, allowed_types(self.cls), recorded=artifact.meta.get("types"),
-                                  n_features=design.width)
-        if type(estimator) is not self.cls:
-            raise ChainFileError(f"{self.name} stage artifact holds a {type(estimator).__name__}, not a {self.cls.__name__}")
-        check_fitted_estimator(estimator, design.width, f"{self.name} stage artifact")
-        return SklearnModel(design, estimator)
+        several = artifact.n_outputs > 1
+        found = skops_io.load(artifact.payload, allowed_types(self.cls), recorded=artifact.meta.get("types"),
+                              n_features=design.width, expected=(list,) if several else ())
+        estimators = found if several else [found]
+        if len(estimators) != artifact.n_outputs:
+            raise ChainFileError(f"{self.name} stage artifact holds {len(estimators)} estimators for "
+                                 f"{artifact.n_outputs} classes")
+        for estimator in estimators:
+            if type(estimator) is not self.cls:
+                raise ChainFileError(f"{self.name} stage artifact holds a {type(estimator).__name__}, "
+                                     f"not a {self.cls.__name__}")
+            check_fitted_estimator(estimator, design.width, f"{self.name} stage artifact")
+        return SklearnModel(design, estimators if several else estimators[0])
 
     def importance(self, learner: SklearnModel, columns) -> np.ndarray | None:
-        """Return the estimator's feature_importances_ or |coef_| summed per input column, else None."""
-        estimator = learner.estimator
-        values = getattr(estimator, "feature_importances_", None)
-        if values is None:
-            values = getattr(estimator, "coef_", None)
-        if values is None:
-            return None
-        values = np.abs(np.asarray(values, dtype=np.float64)).ravel()
+        """Return the estimator's feature_importances_ or |coef_| summed per input column (for K
+        estimators, their mean), else None."""
+        found = []
         groups = learner.design.feature_groups()
-        if len(values) != len(groups):
-            return None
-        return group_sum(values, groups, len(columns))
+        for estimator in learner.estimator if isinstance(learner.estimator, list) else [learner.estimator]:
+            values = getattr(estimator, "feature_importances_", None)
+            if values is None:
+                values = getattr(estimator, "coef_", None)
+            if values is None:
+                return None
+            values = np.abs(np.asarray(values, dtype=np.float64)).ravel()
+            if len(values) != len(groups):
+                return None
+            found.append(group_sum(values, groups, len(columns)))
+        return np.mean(found, axis=0)

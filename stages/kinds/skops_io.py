@@ -74,7 +74,7 @@ def dump(obj: Any, allowed: Iterable[str] | None = None) -> tuple[bytes, list[st
     payload = sio.dumps(obj)
     with zipfile.ZipFile(io.BytesIO(payload)) as archive:
         schema = json.loads(archive.read("schema.json"))
-    types = sorted(_schema_types(schema, "the stage"))
+    types = sorted(_schema_types(schema, "the stage", n_outputs=None))
     allowed_set = set(TRUSTED_TYPES if allowed is None else allowed)
     outside = [t for t in types if t not in allowed_set]
     if outside:
@@ -83,7 +83,7 @@ def dump(obj: Any, allowed: Iterable[str] | None = None) -> tuple[bytes, list[st
 
 
 def load(payload: bytes, allowed: Iterable[str] | None = None, expected: tuple[type, ...] = (),
-         recorded: Any = None, n_features: int | None = None) -> Any:
+         recorded: Any = None, n_features: int | None = None, n_outputs: int = 1) -> Any:
     """Return the object in a skops ``payload``; raise ChainFileError for anything not trusted.
 
     ``allowed`` is the exact list of types the artifact may hold (default TRUSTED_TYPES);
@@ -102,7 +102,7 @@ def load(payload: bytes, allowed: Iterable[str] | None = None, expected: tuple[t
             raise ChainFileError(f"stage artifact says it holds {outside[0][:200]}, a type that is not trusted")
         allowed_set &= set(recorded)
     clean, schema = _read_archive(payload)
-    found = _schema_types(schema, "stage artifact", n_features)
+    found = _schema_types(schema, "stage artifact", n_features, n_outputs)
     refused = sorted(found - allowed_set)
     if refused:
         listed = "" if recorded is None or refused[0] not in recorded else " (not allowed for this kind)"
@@ -137,7 +137,8 @@ def _read_archive(payload: bytes) -> tuple[bytes, dict[str, Any]]:
     return buffer.getvalue(), schema
 
 
-def _schema_types(schema: dict[str, Any], where: str, n_features: int | None = None) -> set[str]:
+def _schema_types(schema: dict[str, Any], where: str, n_features: int | None = None,
+                  n_outputs: int | None = 1) -> set[str]:
     """Return every ``module.class`` the schema's nodes name; raise ChainFileError for an unsafe node."""
     found: set[str] = set()
     stack: list[tuple[Any, int]] = [(schema, 0)]
@@ -153,7 +154,7 @@ def _schema_types(schema: dict[str, Any], where: str, n_features: int | None = N
         if "__loader__" in value:
             found.add(_node_type(value, where))
             if value["__loader__"] == "TreeNode":
-                _check_tree_node(value, where, n_features)
+                _check_tree_node(value, where, n_features, n_outputs)
         stack.extend((item, depth + 1) for item in value.values() if isinstance(item, dict | list))
     return found
 
@@ -168,8 +169,8 @@ def _node_type(node: dict[str, Any], where: str) -> str:
     return f"{module}.{name}"
 
 
-def _check_tree_node(node: dict[str, Any], where: str, n_features: int | None) -> None:
-    """Refuse a scikit-learn tree whose constructor arguments do not fit a one-output regression tree."""
+def _check_tree_node(node: dict[str, Any], where: str, n_features: int | None, n_outputs: int | None = 1) -> None:
+    """Refuse a scikit-learn tree whose constructor arguments do not fit a regression tree of ``n_outputs`` outputs."""
     try:
         args = node["__reduce__"]["args"]["content"]
         width = json.loads(args[0]["content"])
@@ -180,8 +181,8 @@ def _check_tree_node(node: dict[str, Any], where: str, n_features: int | None) -
         raise ChainFileError(f"{where} holds a tree over {width!r} features")
     if n_features is not None and width > n_features:
         raise ChainFileError(f"{where} holds a tree over {width:,} features; the stage has {n_features:,}")
-    if outputs != 1:
-        raise ChainFileError(f"{where} holds a tree with {outputs!r} outputs; a stage's trees have 1")
+    if n_outputs is not None and outputs != n_outputs:
+        raise ChainFileError(f"{where} holds a tree with {outputs!r} outputs; this stage's trees have {n_outputs}")
 
 
 def _one_line(exc: BaseException) -> str:

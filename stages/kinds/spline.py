@@ -27,6 +27,7 @@ from .design import ColumnStep, impute_median, one_hot
 from .linear import (
     LinearModel,
     checked_coefficients,
+    constant_model,
     dump_linear,
     fit_estimator,
     linear_importance,
@@ -194,9 +195,10 @@ class SplineKind(StageKind):
         matrix = design.transform(request.X)
         target = np.asarray(request.residual, dtype=np.float64)
         if matrix.shape[1] == 0:
-            return LinearModel(design, np.zeros(0), float(np.mean(target)))
+            return constant_model(design, target, True)
         ridge = fit_estimator(Ridge(alpha=params["alpha"]), matrix, target, self.name)
-        coef, intercept = checked_coefficients(ridge.coef_, ridge.intercept_, self.name)
+        coef = ridge.coef_.T if target.ndim == 2 else ridge.coef_
+        coef, intercept = checked_coefficients(coef, ridge.intercept_, self.name, request.outputs)
         return LinearModel(design, coef, intercept)
 
     def save(self, learner: LinearModel) -> Artifact:

@@ -5,7 +5,9 @@ chain of tree stages reproduces scikit-learn's gradient boosting stage for stage
 ``subsample`` below 1 each stage grows its tree on rows drawn without replacement (stochastic
 gradient boosting, Friedman 2002, Computational Statistics & Data Analysis 38:367-378): the rows
 left out weigh 0, as in GradientBoostingRegressor(subsample=...), and the leaves take their
-values from the rows drawn.
+values from the rows drawn. A multiclass stage grows K trees, one per class, each to its class's
+pseudo-residuals, with the multinomial Newton leaves, as GradientBoostingClassifier grows a round;
+its artifact holds the K trees as one list.
 """
 
 from __future__ import annotations
@@ -15,15 +17,17 @@ from typing import Any, ClassVar
 
 import numpy as np
 
+from ..errors import ChainFileError
 from ..tree_structure import check_fitted_estimator
 from . import register, skops_io
 from .base import Artifact, FitRequest, StageKind, check_has_features, check_subsample
+from .per_class import PerClass, fit_per_class
 
 
 def refine_tree_leaves(tree: Any, X: np.ndarray, request: FitRequest) -> None:
     """Set each leaf of a fitted scikit-learn tree to the loss's optimal value on its rows (those in bag)."""
-    loss = request.loss
-    context = loss.refinement_context(request.y, request.raw)
+    loss, weight = request.loss, request.weight
+    context = loss.refinement_context(request.y, request.raw, weight)
     if loss.leaf_value(request.y[:1], request.raw[:1], request.residual[:1], context) is None:
         return
     leaves = tree.apply(X.astype(np.float32))
@@ -33,7 +37,8 @@ def refine_tree_leaves(tree: Any, X: np.ndarray, request: FitRequest) -> None:
     boundaries = np.flatnonzero(np.diff(leaves[order])) + 1
     for rows in np.split(order, boundaries):
         leaf = leaves[rows[0]]
-        values[leaf, 0, 0] = loss.leaf_value(request.y[rows], request.raw[rows], request.residual[rows], context)
+        values[leaf, 0, 0] = loss.leaf_value(request.y[rows], request.raw[rows], request.residual[rows], context,
+                                             None if weight is None else weight[rows])
 
 
 class TreeKind(StageKind):
@@ -57,40 +62,64 @@ class TreeKind(StageKind):
         return resolved
 
     def fit(self, request: FitRequest, params: dict[str, Any]) -> Any:
-        """Return a DecisionTreeRegressor fit to the residuals of the rows in bag, with leaves refined for the loss."""
+        """Return a DecisionTreeRegressor fit to the residuals of the rows in bag (K of them, one per class,
+        for a multiclass chain); ``refine`` then sets their leaves for the loss."""
+        check_has_features(request.X, self.name)
+        if request.outputs > 1:
+            X = np.asfortranarray(request.X, dtype=np.float32)
+            return fit_per_class(request, lambda one: self._grow(one, params, X))
+        return self._grow(request, params, np.asfortranarray(request.X, dtype=np.float32))
+
+    def _grow(self, request: FitRequest, params: dict[str, Any], X: np.ndarray) -> Any:
         from sklearn.tree import DecisionTreeRegressor
 
-        check_has_features(request.X, self.name)
         settings = {k: v for k, v in params.items() if k != "subsample"}
         tree = DecisionTreeRegressor(splitter="best", random_state=request.random_state, **settings)
-        weight = None if request.in_bag is None else request.in_bag.astype(np.float64)
+        weight = request.weight
+        if request.in_bag is not None:
+            weight = request.in_bag.astype(np.float64) if weight is None else weight * request.in_bag
         # column-major: the exact splitter reads one feature at a time (about 5 % quicker than rows)
-        tree.fit(np.asfortranarray(request.X, dtype=np.float32), request.residual, sample_weight=weight)
+        tree.fit(X, request.residual, sample_weight=weight)
         return tree
 
     def refine(self, learner: Any, request: FitRequest) -> None:
-        """Set each leaf to the loss's optimal value (median for absolute, Newton step for log loss)."""
+        """Set each leaf to the loss's optimal value (median for absolute, Newton step for log loss,
+        the multinomial Newton step for each class's tree)."""
+        if isinstance(learner, PerClass):
+            for k, tree in enumerate(learner.learners):
+                refine_tree_leaves(tree, request.X, request.for_output(k))
+            return
         refine_tree_leaves(learner, request.X, request)
 
     def save(self, learner: Any) -> Artifact:
-        """Return the tree as a skops artifact, the exact types it holds in ``meta``."""
-        stored = copy.copy(learner)
-        stored.random_state = None  # the chain's stream is not part of the fitted model
-        payload, types = skops_io.dump(stored)
+        """Return the tree (a list of K trees for a multiclass stage) as a skops artifact, the exact types
+        it holds in ``meta``."""
+        trees = learner.learners if isinstance(learner, PerClass) else (learner,)
+        stored = [copy.copy(tree) for tree in trees]
+        for tree in stored:
+            tree.random_state = None  # the chain's stream is not part of the fitted model
+        payload, types = skops_io.dump(stored if isinstance(learner, PerClass) else stored[0])
         return Artifact("skops", payload, {"types": types})
 
     def load(self, artifact: Artifact) -> Any:
-        """Return the tree stored in ``artifact``; raise ChainFileError for an untrusted type or an unsound tree."""
+        """Return the tree (K trees for K outputs) stored in ``artifact``; raise ChainFileError for an
+        untrusted type, another number of trees or an unsound tree."""
         from sklearn.tree import DecisionTreeRegressor
 
-        tree = skops_io.load(artifact.payload, expected=(DecisionTreeRegressor,), recorded=artifact.meta.get("types"),
-                             n_features=artifact.n_features)
-        check_fitted_estimator(tree, artifact.n_features, "tree stage artifact")
-        return tree
+        several = artifact.n_outputs > 1
+        found = skops_io.load(artifact.payload, expected=(list,) if several else (DecisionTreeRegressor,),
+                              recorded=artifact.meta.get("types"), n_features=artifact.n_features)
+        trees = found if several else [found]
+        if len(trees) != artifact.n_outputs or any(type(tree) is not DecisionTreeRegressor for tree in trees):
+            raise ChainFileError(f"tree stage artifact holds {len(trees)} items, not {artifact.n_outputs} trees")
+        for k, tree in enumerate(trees):
+            check_fitted_estimator(tree, artifact.n_features, "tree stage artifact" + (f" (class {k + 1})" if several else ""))
+        return PerClass(tuple(trees)) if several else trees[0]
 
     def importance(self, learner: Any, columns) -> np.ndarray:
-        """Return the tree's impurity-based importances."""
-        return np.asarray(learner.feature_importances_, dtype=np.float64)
+        """Return the tree's impurity-based importances (for K trees, their mean)."""
+        trees = learner.learners if isinstance(learner, PerClass) else (learner,)
+        return np.mean([np.asarray(t.feature_importances_, dtype=np.float64) for t in trees], axis=0)
 
 
 register(TreeKind())
