@@ -139,8 +139,8 @@ class _ChainEstimator(BaseEstimator):
         checked = validate_data(self, X, reset=False, dtype=dtype, ensure_all_finite="allow-nan")
         return self._as_frame(X, checked)
 
-    def _fit_chain(self, frame: pd.DataFrame, y: np.ndarray, **chain_options: Any) -> None:
-        """Fit the chain on ``frame`` and ``y``; set ``chain_`` and ``table_``."""
+    def _fit_chain(self, frame: pd.DataFrame, y: np.ndarray, task: str | None = None, **chain_options: Any) -> None:
+        """Fit the chain on ``frame`` and ``y`` (for ``task``, by default the estimator's); set ``chain_`` and ``table_``."""
         validation = AllRows() if self.validation is None else self.validation
         used = set(getattr(validation, "columns_used", ()))
         target = _target_name(list(frame.columns))
@@ -150,7 +150,7 @@ class _ChainEstimator(BaseEstimator):
             specs = stage_specs(self.stages, self._first_kind)
             chain = Chain(
                 data, target, validation, self.loss, seed=resolve_seed(self.random_state),
-                features=[c for c in frame.columns if c not in used], task=self._task,
+                features=[c for c in frame.columns if c not in used], task=task or self._task,
                 source=type(self).__name__, **chain_options,
             )
             chain.add_specs(specs)
@@ -216,7 +216,8 @@ class ChainRegressor(RegressorMixin, _ChainEstimator):
 
 
 class ChainClassifier(ClassifierMixin, _ChainEstimator):
-    """A binary residual chain (log loss on the log-odds scale) as a scikit-learn classifier.
+    """A residual chain as a scikit-learn classifier: binary (log loss on the log-odds scale) for two
+    classes, multiclass (multinomial log loss on K raw scores, softmax) for 3 to 100.
 
     Parameters
     ----------
@@ -230,12 +231,14 @@ class ChainClassifier(ClassifierMixin, _ChainEstimator):
     random_state : int, RandomState or None
         An int is the chain's seed; None (or a RandomState) draws a seed at each fit.
     threshold : float
-        ``predict`` says ``classes_[1]`` where its probability is at least this.
+        With two classes, ``predict`` says ``classes_[1]`` where its probability is at least this
+        (with more, it says the most probable class).
 
     Attributes
     ----------
     classes_ : ndarray
-        The two labels: the sorted labels of ``y`` in ``fit``; ``classes_[1]`` is the positive class.
+        The sorted labels of ``y`` in ``fit``, the columns of ``predict_proba``; with two,
+        ``classes_[1]`` is the positive class.
     chain_ : FittedChain
         The fitted chain.
     table_ : pandas.DataFrame
@@ -262,43 +265,41 @@ class ChainClassifier(ClassifierMixin, _ChainEstimator):
         self.random_state = random_state
         self.threshold = threshold
 
-    def __sklearn_tags__(self):
-        """Return scikit-learn's tags: NaN allowed in X, binary targets only."""
-        tags = super().__sklearn_tags__()
-        tags.classifier_tags.multi_class = False
-        return tags
-
     def fit(self, X: Any, y: Any) -> ChainClassifier:
-        """Fit the chain to ``X`` and the two-class labels ``y`` and return ``self``."""
+        """Fit the chain to ``X`` and the labels ``y`` (two classes: binary; 3 to 100: multiclass) and return ``self``."""
         frame, y = self._check_fit_data(X, y)
         check_classification_targets(y)
         classes, codes = np.unique(y, return_inverse=True)
         if len(classes) < 2:
             raise ValueError(f"ChainClassifier needs two classes in y; it has one class ({classes[0]!r})")
         kind = type_of_target(y, input_name="y", raise_unknown=True)
-        if kind != "binary":
-            raise ValueError(
-                f"Only binary classification is supported. The type of the target is {kind} "
-                f"({len(classes)} classes); multiclass chains are not supported yet."
-            )
-        self._fit_chain(frame, codes.astype(np.float64), positive="1", threshold=self.threshold)
+        if kind not in ("binary", "multiclass"):
+            raise ValueError(f"ChainClassifier fits one label per row; the type of the target is {kind}")
+        if len(classes) == 2:
+            self._fit_chain(frame, codes.astype(np.float64), positive="1", threshold=self.threshold)
+        else:  # the codes 0 .. K - 1 sort by value, so the chain's class order is classes_'s
+            self._fit_chain(frame, codes.astype(np.float64), task="multiclass")
         self.classes_ = classes
         return self
 
     def decision_function(self, X: Any) -> np.ndarray:
-        """Return the chain's log-odds of ``classes_[1]`` for every row of ``X``."""
+        """Return the chain's log-odds of ``classes_[1]`` for every row of ``X`` (two classes), or its
+        (n, K) raw scores, one column per class of ``classes_``."""
         frame = self._check_predict_data(X)
         return self.chain_.predict_raw(frame)
 
     def predict_proba(self, X: Any) -> np.ndarray:
-        """Return an (n, 2) array of probabilities of ``classes_[0]`` and ``classes_[1]``."""
+        """Return an (n, K) array of the probabilities of each class of ``classes_`` (K = 2 for two classes)."""
         frame = self._check_predict_data(X)
         return self.chain_.predict_proba(frame)
 
     def predict(self, X: Any) -> np.ndarray:
-        """Return ``classes_[1]`` where its probability is at least ``threshold``, else ``classes_[0]``."""
-        positive = self.predict_proba(X)[:, 1] >= self.threshold
-        return self.classes_[positive.astype(np.intp)]
+        """Return ``classes_[1]`` where its probability is at least ``threshold``, else ``classes_[0]``;
+        with more than two classes, the most probable class."""
+        probability = self.predict_proba(X)
+        if len(self.classes_) == 2:
+            return self.classes_[(probability[:, 1] >= self.threshold).astype(np.intp)]
+        return self.classes_[np.argmax(probability, axis=1)]
 
 
 def wrap_fitted(fitted: FittedChain) -> ChainRegressor | ChainClassifier:
@@ -317,7 +318,7 @@ def wrap_fitted(fitted: FittedChain) -> ChainRegressor | ChainClassifier:
         "random_state": meta.get("seed"),
     }
     estimator: ChainRegressor | ChainClassifier
-    if fitted.task == "binary":
+    if fitted.task in ("binary", "multiclass"):
         estimator = ChainClassifier(**settings, threshold=meta.get("threshold", 0.5))
         estimator.classes_ = np.array([class_label(c) for c in fitted.schema.classes])
     else:

@@ -126,7 +126,7 @@ def _fit_candidate(chain: Chain, spec: StageSpec, state: ChainState, workers: in
                    progress: ProgressFn | None) -> Stage | str:
     """Return ``spec`` fit from copies of the random streams of ``state``, or its one-line error;
     FitCancelled propagates."""
-    ctx = FitContext(chain.matrix, chain.y, chain.schema, chain.layout, chain.loss, state.new_streams())
+    ctx = FitContext(chain.matrix, chain.y, chain.schema, chain.layout, chain.loss, state.new_streams(), chain.weight)
     try:
         stage = fit_stage(ctx, _with_thread_share(spec, chain.task, workers), state.outputs,
                           number=len(state.stages) + 1, cancel=cancel, progress=progress)
@@ -176,7 +176,7 @@ def _candidates(chain: Chain, specs: list[StageSpec], outcomes: list[Any], base:
                 origin: tuple[Stage, ...]) -> list[Candidate]:
     """Return the candidates with their scores and residual histograms over shared edges."""
     metric = chain.metric
-    scored = {i: scoring.score_state(chain.loss, chain.layout, chain.y, o.outputs, chain.threshold)
+    scored = {i: scoring.score_state(chain.loss, chain.layout, chain.y, o.outputs, chain.threshold, chain.weight)
               for i, o in enumerate(outcomes) if isinstance(o, Stage)}
     residuals = {i: _residuals(chain, outcomes[i].outputs) for i in scored}
     pooled = [r for i in scored for r in residuals[i].values()]
@@ -197,12 +197,12 @@ def _candidates(chain: Chain, specs: list[StageSpec], outcomes: list[Any], base:
 
 
 def _residuals(chain: Chain, outputs: tuple[np.ndarray, ...]) -> dict[str, np.ndarray]:
-    """Return the displayed train and validation residuals of a state with ``outputs``."""
+    """Return the displayed train and validation residuals of a state with ``outputs`` (``scoring.shown_residual``)."""
     layout, y = chain.layout, chain.y
-    out = {"train": chain.loss.display_residual(y[layout.train], outputs[0][layout.train])}
+    out = {"train": scoring.shown_residual(chain.loss, y[layout.train], outputs[0][layout.train])}
     valid_y = scoring.validation_y(layout, y)
     if len(valid_y):
-        out["valid"] = chain.loss.display_residual(valid_y, scoring.validation_raw(layout, outputs))
+        out["valid"] = scoring.shown_residual(chain.loss, valid_y, scoring.validation_raw(layout, outputs))
     return out
 
 

@@ -1,7 +1,7 @@
 """Reference models on the chain's own split, so a user can see whether the chain is competitive.
 
 Two references: the linear model alone (the chain's start value plus one ``linear`` stage,
-``logistic`` for binary chains), and LightGBM with its default parameters, trained with
+``logistic`` for binary and multiclass chains), and LightGBM with its default parameters, trained with
 ``lightgbm.train`` under the objective of the chain's loss and early-stopped on the chain's
 validation part. With k-fold validation LightGBM is fit on each fold track, early-stopped on
 that fold and scored out of fold; the full fit then runs the mean best iteration.
@@ -22,6 +22,7 @@ from ..errors import FitCancelled, StageFitError
 from ..fitting import FitContext, fit_stage
 from ..kinds.base import ProgressFn
 from ..losses import HuberLoss
+from ..outputs import block
 from ..scoring import fold_spread
 from ..spec import StageSpec
 
@@ -54,11 +55,11 @@ def reference_scores(chain: Chain, *, lightgbm_params: dict[str, Any] | None = N
 
 def _row(chain: Chain, model: str, outputs: tuple[np.ndarray, ...], best: float, seconds: float) -> dict[str, Any]:
     metric = chain.metric
-    scores = scoring.score_state(chain.loss, chain.layout, chain.y, outputs, chain.threshold)
+    scores = scoring.score_state(chain.loss, chain.layout, chain.y, outputs, chain.threshold, chain.weight)
     row = {"model": model, f"train_{metric}": scores.train[metric], f"valid_{metric}": scores.valid[metric],
            "fold_spread": fold_spread(scores.fold_valid)}
     if chain.test_revealed:
-        test = scoring.test_scores(chain.loss, chain.layout, chain.y, outputs[0], chain.threshold)
+        test = scoring.test_scores(chain.loss, chain.layout, chain.y, outputs[0], chain.threshold, chain.weight)
         row[f"test_{metric}"] = test[metric]
     row["best_iteration"] = best
     row["seconds"] = seconds
@@ -67,9 +68,9 @@ def _row(chain: Chain, model: str, outputs: tuple[np.ndarray, ...], best: float,
 
 def linear_reference(chain: Chain) -> dict[str, Any]:
     """Return the row of the linear model alone: the chain's start plus one linear (logistic) stage."""
-    kind = "logistic" if chain.task == "binary" else "linear"
+    kind = "logistic" if chain.task in ("binary", "multiclass") else "linear"
     rngs = seeded_streams(chain.seed, len(chain.layout.tracks))
-    ctx = FitContext(chain.matrix, chain.y, chain.schema, chain.layout, chain.loss, rngs)
+    ctx = FitContext(chain.matrix, chain.y, chain.schema, chain.layout, chain.loss, rngs, chain.weight)
     stage = fit_stage(ctx, StageSpec(kind), chain.outputs(0), number=1)
     return _row(chain, "linear alone", stage.outputs, float("nan"), stage.fit_seconds)
 
@@ -82,6 +83,8 @@ def lightgbm_defaults(chain: Chain, user: dict[str, Any] | None = None) -> dict[
     if isinstance(chain.loss, HuberLoss):  # LightGBM's huber objective: its alpha is our delta
         fit = chain.layout.train
         params["alpha"] = chain.loss.delta(chain.y[fit], chain.outputs(0)[0][fit])
+    if chain.loss.outputs > 1:
+        params["num_class"] = chain.loss.outputs
     params.update(user or {})
     return params
 
@@ -157,4 +160,5 @@ class _Fitter:
     def predict(self, booster: Any, rows: Any) -> np.ndarray:
         """Return the booster's raw score at its best iteration on ``rows`` of the chain's matrix."""
         best = booster.best_iteration or None
-        return np.asarray(booster.predict(self.chain.matrix[rows], num_iteration=best, raw_score=True), dtype=np.float64)
+        matrix = self.chain.matrix[rows]
+        return block(booster.predict(matrix, num_iteration=best, raw_score=True), len(matrix), self.chain.loss.outputs)

@@ -22,6 +22,7 @@ from ..manifest_schema import (
     mapping,
     nullable,
     number,
+    number_or_numbers,
     table,
     text,
     whole,
@@ -60,7 +61,8 @@ PROBE = table({"member": MEMBER, "rows": whole(1, 100_000), "sha256": _SHA256},
 _COUNT = whole(0, 2**53)
 MANIFEST = table(
     {"format": text(64), "format_version": whole(1, 2**31), "task": text(32, choices=TASKS), "loss": text(64),
-     "start": number(), "schema": SCHEMA, "stages": items(STAGE, limits.MAX_STAGES)},
+     # one start value, or one per class of a multiclass chain (in the schema's class order)
+     "start": number_or_numbers(limits.MAX_CLASSES), "schema": SCHEMA, "stages": items(STAGE, limits.MAX_STAGES)},
     {"created": nullable(text(64)), "versions": nullable(mapping(nullable(text(128)), 64)),
      "threshold": nullable(number(0, 1)), "validation": nullable(mapping(json_value(2, 64), 16)),
      "seed": nullable(whole(0, limits.MAX_SEED)), "rows": nullable(table({}, {"train": _COUNT, "valid": _COUNT,
@@ -86,6 +88,11 @@ def check_manifest(manifest: Any, path: str) -> None:
     expected = {"regression": (0,), "binary": (2,)}.get(task)
     if (expected is not None and classes not in expected) or (task == "multiclass" and classes < 3):
         raise ChainFileError(f"{path}: manifest schema of a {task} chain lists {classes} classes")
+    if len(set(schema.get("classes", ()))) != classes:
+        raise ChainFileError(f"{path}: manifest schema names a class twice")
+    starts = len(manifest["start"]) if isinstance(manifest["start"], list) else 1
+    if starts != (classes if task == "multiclass" else 1):
+        raise ChainFileError(f"{path}: manifest start holds {starts} values for a {task} chain of {classes} classes")
     names = [column["name"] for column in schema["columns"]]
     if len(set(names)) != len(names):
         raise ChainFileError(f"{path}: manifest schema names a feature twice")

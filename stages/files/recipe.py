@@ -212,7 +212,7 @@ class _Reader:
         with self.at("data"):
             task = parsing.text_value(data, "task")
         if task is not None and task not in TASKS:
-            raise self.fail(f"task must be 'regression' or 'binary', not {task!r}", "data", 0, "task")
+            raise self.fail(f"task must be 'regression', 'binary' or 'multiclass', not {task!r}", "data", 0, "task")
         positive = data.get("positive")
         if positive is not None and (isinstance(positive, dict | list) or not isinstance(positive, str | int | bool)):
             raise self.fail(f"positive must be a class label, not {shown(positive)}", "data", 0, "positive")

@@ -30,6 +30,7 @@ from ..errors import VersionDriftWarning
 from ..fitting import Stage, feature_rows, resolve_features
 from ..kinds import get_kind
 from ..kinds.base import Artifact
+from ..outputs import block
 from ..reading import source_name
 from ..spec import StageSpec
 from ..tracks import Layout
@@ -208,13 +209,17 @@ def _restore_stage(chain: Chain, entry: dict[str, Any], before: tuple[np.ndarray
     for t, (item, scale) in enumerate(zip(items, scales, strict=True)):
         if item["fmt"] not in Artifact.SUFFIX:
             raise ValueError(f"artifact format {item['fmt']!r} is not one remnant writes")
+        outputs_per_row = chain.loss.outputs
         artifact = Artifact(item["fmt"], read(item["member"], item["sha256"], item.get("size")),
-                            dict(item.get("meta") or {}), n_features=len(features))
+                            dict(item.get("meta") or {}), n_features=len(features), n_outputs=outputs_per_row)
         learner = kind.load(artifact)
         rows = feature_rows(chain.matrix, slice(0, tracks[t].n_rows), features, len(chain.schema.columns))
-        output = np.asarray(learner.predict(rows), dtype=np.float64)
-        if output.shape != (tracks[t].n_rows,) or not np.isfinite(output).all():
-            raise ValueError(f"stage {spec.kind!r} does not predict one finite value per row")
+        try:
+            output = block(learner.predict(rows), tracks[t].n_rows, outputs_per_row)
+        except ValueError:
+            output = np.full((1, 1), np.nan)
+        if output.shape != (tracks[t].n_rows, outputs_per_row) or not np.isfinite(output).all():
+            raise ValueError(f"stage {spec.kind!r} does not predict {outputs_per_row} finite value(s) per row")
         learners.append(learner)
         artifacts.append(artifact)
         outputs.append(before[t] + scale * output)

@@ -49,6 +49,7 @@ from ..kinds import get_kind
 from ..kinds.base import Artifact
 from ..losses import get_loss
 from ..manifest_schema import strict_json
+from ..outputs import squeeze
 from ..predictor import FittedChain, FittedStage
 from ..schema import Schema
 from ..spec import StageSpec
@@ -137,7 +138,7 @@ def _write_archive(handle: IO[bytes], fitted: FittedChain, probe: np.ndarray | N
         probe_entry = None
         if probe is not None and len(probe):
             buffer = io.BytesIO()
-            np.savez(buffer, matrix=probe, raw=fitted.raw_from_matrix(probe))
+            np.savez(buffer, matrix=probe, raw=squeeze(fitted.raw_from_matrix(probe)))
             probe_entry = {**archive.add(PROBE, buffer.getvalue()), "rows": int(len(probe))}
         manifest = build_manifest(fitted, entries, probe_entry, fingerprint)
         archive.add(MANIFEST, json.dumps(manifest, indent=1, allow_nan=False).encode("utf-8"))
@@ -162,13 +163,20 @@ def build_manifest(fitted: FittedChain, stages: list[dict[str, Any]], probe: dic
     head = {
         "format": FORMAT_NAME, "format_version": FORMAT_VERSION,
         "created": datetime.now(UTC).isoformat(timespec="seconds"), "versions": library_versions(),
-        "task": fitted.task, "loss": fitted.loss.name, "start": float(fitted.start),
+        "task": fitted.task, "loss": fitted.loss.name, "start": start_entry(fitted.start),
         "threshold": float(meta.get("threshold", 0.5)),
     }
     chain = {key: meta.get(key) for key in _CHAIN_KEYS}
     tail = {"data": fingerprint, "schema": fitted.schema.to_dict(), "start_scores": fitted.start_scores,
             "stages": stages, "probe": probe}
     return json_ready({**head, **chain, **tail})
+
+
+def start_entry(start: np.ndarray) -> float | list[float]:
+    """Return the manifest's ``start``: a number for one raw score per row, a list of the K start
+    values (in the schema's class order) for a multiclass chain."""
+    values = [float(v) for v in np.ravel(start)]
+    return values[0] if len(values) == 1 else values
 
 
 def library_versions() -> dict[str, str | None]:
@@ -224,13 +232,14 @@ def _load(path: str, key: bytes | str | None) -> tuple[FittedChain, dict[str, An
         manifest = read_manifest(archive, path, key)
         schema = Schema.from_dict(manifest["schema"])
         try:
-            loss = get_loss(manifest["loss"], schema.task)
+            loss = get_loss(manifest["loss"], schema.task, n_classes=len(schema.classes))
         except RemnantError as exc:
             raise ChainFileError(f"{path}: {_one_line(exc)}") from None
-        loaded = [_load_stage(archive, entry, number, schema, path)
+        start = _start(manifest["start"], loss.outputs, path)
+        loaded = [_load_stage(archive, entry, number, schema, path, loss.outputs)
                   for number, entry in enumerate(manifest["stages"], 1)]
-        probe = _read_probe(archive, manifest.get("probe"), schema, path)
-    fitted = FittedChain(schema, loss, _number(manifest["start"]), loaded, meta=_meta(manifest),
+        probe = _read_probe(archive, manifest.get("probe"), schema, path, loss.outputs)
+    fitted = FittedChain(schema, loss, start, loaded, meta=_meta(manifest),
                          start_scores=_scores(manifest.get("start_scores") or {}))
     for scores in (fitted.start_scores, *(stage.scores for stage in fitted.stages)):
         for part in ("train", "valid"):  # what the stage table reads, even from a file that left it out
@@ -274,7 +283,18 @@ def _check_format(manifest: dict[str, Any], path: str) -> None:
         raise ChainFileError(f"{path}: written by a newer remnant (format {version}; this one reads {FORMAT_VERSION})")
 
 
-def _load_stage(archive: ArchiveReader, entry: dict[str, Any], number: int, schema: Schema, path: str) -> FittedStage:
+def _start(entry: Any, outputs: int, path: str) -> np.ndarray:
+    """Return the manifest's start value as K numbers; raise ChainFileError when it holds another count."""
+    values = np.asarray([entry] if not isinstance(entry, list) else entry, dtype=np.float64)
+    if len(values) != outputs or (outputs > 1 and not isinstance(entry, list)):
+        raise ChainFileError(f"{path}: manifest start holds {len(values)} values; the chain has {outputs} raw scores a row")
+    if not np.isfinite(values).all():
+        raise ChainFileError(f"{path}: manifest start is not a finite number")
+    return values
+
+
+def _load_stage(archive: ArchiveReader, entry: dict[str, Any], number: int, schema: Schema, path: str,
+                outputs: int = 1) -> FittedStage:
     kind_name = entry["kind"]
     try:
         kind = get_kind(kind_name)
@@ -292,7 +312,7 @@ def _load_stage(archive: ArchiveReader, entry: dict[str, Any], number: int, sche
         raise ChainFileError(f"{path}: stage {number} names features that do not match the schema")
     archive.claim(entry["member"], f"stage {number}")
     payload = archive.read(entry["member"], entry["sha256"], entry.get("size"), limit=MAX_MEMBER_BYTES)
-    artifact = Artifact(entry["fmt"], payload, dict(entry.get("meta") or {}), n_features=len(index))
+    artifact = Artifact(entry["fmt"], payload, dict(entry.get("meta") or {}), n_features=len(index), n_outputs=outputs)
     try:
         learner = kind.load(artifact)
     except ChainFileError as exc:
@@ -306,8 +326,11 @@ def _load_stage(archive: ArchiveReader, entry: dict[str, Any], number: int, sche
                        tuple(entry.get("notes") or ()))
 
 
-def _read_probe(archive: ArchiveReader, entry: Any, schema: Schema, path: str) -> Probe | None:
-    """Return the stored probe rows and raw outputs, or None when the file has none."""
+def _read_probe(archive: ArchiveReader, entry: Any, schema: Schema, path: str, outputs: int = 1) -> Probe | None:
+    """Return the stored probe rows and their (n, K) raw outputs, or None when the file has none.
+
+    The probe stores a one-output chain's raw output as a vector, a multiclass chain's as (n, K).
+    """
     if entry is None:
         return None
     archive.claim(entry["member"], "the probe")
@@ -318,9 +341,10 @@ def _read_probe(archive: ArchiveReader, entry: Any, schema: Schema, path: str) -
             raw = np.asarray(stored["raw"], dtype=np.float64)
     except (OSError, ValueError, KeyError, TypeError, zipfile.BadZipFile, EOFError) as exc:
         raise ChainFileError(f"{path}: member {entry['member']!r} is not a valid probe ({_one_line(exc)})") from None
-    if matrix.ndim != 2 or matrix.shape != (entry["rows"], len(schema.columns)) or raw.shape != (len(matrix),):
+    wanted = (len(matrix),) if outputs == 1 else (len(matrix), outputs)
+    if matrix.ndim != 2 or matrix.shape != (entry["rows"], len(schema.columns)) or raw.shape != wanted:
         raise ChainFileError(f"{path}: member {entry['member']!r} does not match the schema")
-    return matrix, raw
+    return matrix, raw.reshape(len(matrix), outputs)
 
 
 def _check_stages_predict(fitted: FittedChain, probe: Probe | None, path: str) -> None:
@@ -336,9 +360,10 @@ def _check_stages_predict(fitted: FittedChain, probe: Probe | None, path: str) -
         except Exception as exc:  # a learner from a file may raise anything its library raises
             raise ChainFileError(f"{path}: stage {number} ({stage.kind}) cannot predict "
                                  f"({type(exc).__name__}: {_one_line(exc)})") from exc
-        if output.ndim not in (1, 2) or output.shape[0] != len(rows) or not np.isfinite(output).all():
-            raise ChainFileError(f"{path}: stage {number} ({stage.kind}) does not predict finite values, one row "
-                                 "per row")
+        wanted = (len(rows),) if fitted.outputs == 1 else (len(rows), fitted.outputs)
+        if output.shape not in (wanted, (len(rows), fitted.outputs)) or not np.isfinite(output).all():
+            raise ChainFileError(f"{path}: stage {number} ({stage.kind}) does not predict finite values, "
+                                 f"{fitted.outputs} per row")
 
 
 def _meta(manifest: dict[str, Any]) -> dict[str, Any]:

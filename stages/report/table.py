@@ -26,15 +26,17 @@ if TYPE_CHECKING:
     from ..chain import Chain
     from ..predictor import FittedChain
 
-#: the second metric shown beside the one the chain is judged by
-SECONDARY = {"regression": "r2", "binary": "auc"}
+#: the second metric shown beside the one the chain is judged by (accuracy beside a multiclass log loss)
+SECONDARY = {"regression": "r2", "binary": "auc", "multiclass": "accuracy"}
 #: every validation metric the table shows, in order (the chain's own metric is left out of the extras)
-SHOWN = {"regression": ("rmse", "r2", "mae"), "binary": ("logloss", "auc", "brier", "accuracy_at")}
+SHOWN = {"regression": ("rmse", "r2", "mae"), "binary": ("logloss", "auc", "brier", "accuracy_at"),
+         "multiclass": ("logloss", "accuracy", "auc", "brier")}
 
 
 def extra_metrics(task: str, metric: str) -> list[str]:
     """Return the validation metrics shown after the second one: MAE (or RMSE when the chain is
-    judged by MAE) for regression; Brier score and accuracy at the threshold for binary chains."""
+    judged by MAE) for regression; Brier score and accuracy at the threshold for binary chains;
+    the macro one-vs-rest AUC and the Brier score for multiclass chains."""
     return [name for name in SHOWN[task] if name not in (metric, SECONDARY[task])]
 
 

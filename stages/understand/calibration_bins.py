@@ -28,12 +28,12 @@ def calibration(chain: Chain, part: Part = "valid", bins: int = 10, *, upto: int
     last stage): ``low``, ``high``, ``rows``, ``predicted`` (mean probability) and ``observed``
     (share of positives)."""
     if chain.task != "binary":
-        raise StageSpecError("calibration is for binary chains; this chain is a regression")
+        raise StageSpecError(f"calibration is for binary chains; this chain is {_task(chain.task)}")
     row = check_upto(len(chain.stages), upto)
     check_part(chain, part)
 
     def compute() -> pd.DataFrame:
-        probability = chain.loss.link(part_raw(chain, part, row))
+        probability = chain.loss.link(part_raw(chain, part, row))[:, 0]
         table = calibration_table(chain.part_targets(part), probability, bins, strategy)
         table.attrs.update(part=part, upto=row)
         return table
@@ -45,14 +45,18 @@ def fitted_calibration(fitted: FittedChain, frame: pd.DataFrame, bins: int = 10,
                        strategy: str = "uniform") -> pd.DataFrame:
     """Return the calibration table of a loaded binary chain on the rows of ``frame`` (which holds the target)."""
     if fitted.task != "binary":
-        raise StageSpecError("calibration is for binary chains; this chain is a regression")
+        raise StageSpecError(f"calibration is for binary chains; this chain is {_task(fitted.task)}")
     row = check_upto(len(fitted.stages), upto)
     if fitted.schema.target not in frame.columns:
         raise StageSpecError(f"the frame has no target column {fitted.schema.target!r}")
     y = encode_target(fitted.schema, frame[fitted.schema.target], "frame")
-    probability = fitted.loss.link(fitted.raw_from_matrix(fitted.encode(frame, source="frame"), row))
+    probability = fitted.loss.link(fitted.raw_from_matrix(fitted.encode(frame, source="frame"), row))[:, 0]
     known = ~np.isnan(y)
     return calibration_table(y[known], probability[known], bins, strategy)
+
+
+def _task(task: str) -> str:
+    return "a regression" if task == "regression" else task
 
 
 def calibration_table(y: np.ndarray, probability: np.ndarray, bins: int = 10, strategy: str = "uniform") -> pd.DataFrame:

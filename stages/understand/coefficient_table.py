@@ -36,7 +36,7 @@ from scipy.special import expit
 from ..errors import StageSpecError
 from ..schema import CATEGORICAL, ColumnInfo
 from .cache import remembered
-from .rows import check_stage
+from .rows import check_stage, one_output
 
 if TYPE_CHECKING:
     from ..chain import Chain
@@ -83,6 +83,7 @@ def coefficients(chain: Chain, stage: int, *, reference: dict[str, str] | None =
     """Return one row per term of stage ``stage``: ``term``, ``feature``, ``coefficient``, ``std_error``,
     ``ci_low``, ``ci_high`` (NaN where they do not apply) and ``reference``; ``attrs["note"]`` says
     what the standard errors are conditional on, or why there are none."""
+    one_output(chain.task, "the coefficient table")
     k = check_stage(len(chain.stages), stage)
     fitted_stage = chain.stages[k - 1]
     columns = chain.schema.subset(list(fitted_stage.feature_index))
@@ -101,6 +102,7 @@ def coefficients(chain: Chain, stage: int, *, reference: dict[str, str] | None =
 def fitted_coefficients(fitted: FittedChain, stage: int, *, reference: dict[str, str] | None = None) -> pd.DataFrame:
     """Return the terms of stage ``stage`` of a loaded chain (as ``coefficients``, without standard
     errors: they need the train rows, which a chain file does not hold)."""
+    one_output(fitted.task, "the coefficient table")
     k = check_stage(len(fitted.stages), stage)
     fitted_stage = fitted.stages[k - 1]
     _check_kind(fitted_stage.kind, k)
@@ -214,7 +216,7 @@ def _standard_errors(chain: Chain, k: int, terms: Terms,
         return None, "no standard errors: the stage has no intercept"
     fit = chain.layout.tracks[0].fit_positions()
     X = chain.matrix[fit][:, list(stage.feature_index)]
-    raw = chain.outputs(k - 1)[0][fit]
+    raw = chain.outputs(k - 1)[0][fit, 0]
     y = chain.y[fit]
     learner = stage.learners[0]
     if stage.kind == "logistic":

@@ -51,6 +51,8 @@ def _curves(kind: str, k: int, learner: Any, scale: float, columns: tuple[Column
     if isinstance(points, bool) or not isinstance(points, int) or points < 2:
         raise StageSpecError(f"points must be a whole number of at least 2, not {points!r}")
     design, coef = learner.design, np.asarray(learner.coef, dtype=np.float64)
+    if coef.ndim != 1:
+        raise StageSpecError(f"stage {k} fits one curve per class; fitted curves are for regression and binary chains")
     frames, at = [], 0
     for column, step, width in zip(columns, design.steps, design.widths(), strict=True):
         block = coef[at:at + width]

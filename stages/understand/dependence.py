@@ -41,6 +41,7 @@ from .rows import (
     check_upto,
     feature_index,
     frame_positions,
+    one_output,
     part_positions,
     sample_rows,
 )
@@ -103,6 +104,7 @@ def partial_dependence(chain: Chain, feature: str | Sequence[str], upto: int | N
     stage) or ``stage`` say what predicts. ``sample`` bounds the rows of ``part`` averaged over.
     """
     names = _names(feature)
+    one_output(chain.task, "partial dependence")
     seed = chain.seed if seed is None else int(seed)
     check_part(chain, part)
     row, which = _which(len(chain.stages), upto, stage)
@@ -149,6 +151,7 @@ def dependence_table(fitted: FittedChain, rows: Rows, names: tuple[str, ...], wh
                      grid: Any, ice_rows: int, seed: int) -> tuple[pd.DataFrame, np.ndarray, np.ndarray, list]:
     """Return the partial dependence table, the individual curves (ICE rows x grid points), the
     labels of the ICE rows and the grid points (tuples of matrix values)."""
+    one_output(fitted.task, "partial dependence")
     if len(rows) == 0:
         raise StageSpecError("there are no rows to average over")
     js = [feature_index(fitted.schema, name) for name in names]
@@ -157,7 +160,7 @@ def dependence_table(fitted: FittedChain, rows: Rows, names: tuple[str, ...], wh
     points = list(itertools.product(*grids))
     mode, k = which
     parts = [fitted.stages[k - 1]] if mode == "stage" else list(fitted.stages[:k])
-    offset = 0.0 if mode == "stage" else float(fitted.start)
+    offset = 0.0 if mode == "stage" else float(fitted.start[0])
     link: Callable[[np.ndarray], np.ndarray] = (lambda raw: raw) if mode == "stage" else fitted.loss.link
     varying = [s for s in parts if any(j in s.feature_index for j in js)]
     fixed = [s for s in parts if s not in varying]

@@ -9,6 +9,7 @@ import numpy as np
 from .. import scoring
 from ..errors import StageSpecError
 from ..kinds import get_kind
+from ..outputs import block
 
 if TYPE_CHECKING:
     from ..chain import Chain
@@ -39,10 +40,10 @@ def _permutation(chain: Chain, row: int, sample: int) -> np.ndarray:
     X = chain.matrix[part][:, list(stage.feature_index)]
     y = chain.y[part]
     base = chain.outputs(row - 1)[0][part]
-    learner, scale = stage.learners[0], stage.scale
+    learner, scale, outputs = stage.learners[0], stage.scale, chain.loss.outputs
 
     def predict(rows: np.ndarray) -> np.ndarray:
-        return scale * np.asarray(learner.predict(rows), dtype=np.float64)
+        return scale * block(learner.predict(rows), len(rows), outputs)
 
     return scoring.permutation_importance(predict, X, y, base, chain.loss, sample=sample, seed=chain.seed)
 

@@ -1,7 +1,8 @@
 """The rows a chain gets most wrong: the largest absolute residuals of a part.
 
 The residual is the one users see, target minus prediction (for binary chains y - p, which is
-also the log loss's pseudo-residual). Each row comes with its residual after every stage, so a
+also the log loss's pseudo-residual; for multiclass chains 1 - p of the row's own class, and
+``fitted`` is that probability). Each row comes with its residual after every stage, so a
 reader sees which stage helped it and which made it worse.
 """
 
@@ -13,6 +14,7 @@ import numpy as np
 import pandas as pd
 
 from ..errors import StageSpecError
+from ..scoring import shown_residual
 from ..validation import Part
 from .cache import remembered
 from .rows import check_part, check_upto, encode_target, frame_positions, part_positions, part_raw
@@ -36,8 +38,8 @@ def largest_residuals(chain: Chain, n: int = 20, part: Part = "valid", upto: int
     def compute() -> pd.DataFrame:
         positions = part_positions(chain, part)
         y = chain.part_targets(part)
-        after = np.column_stack([chain.loss.display_residual(y, part_raw(chain, part, r)) for r in range(row + 1)])
-        return _table(frame_positions(chain, positions), y, chain.loss.link(part_raw(chain, part, row)), after, n)
+        after = np.column_stack([shown_residual(chain.loss, y, part_raw(chain, part, r)) for r in range(row + 1)])
+        return _table(frame_positions(chain, positions), y, _fitted(chain.loss, y, part_raw(chain, part, row)), after, n)
 
     table = remembered(chain, list(chain.stages[:row]), ("largest", n, part), compute)
     if ids is not None:
@@ -60,11 +62,19 @@ def fitted_largest_residuals(fitted: FittedChain, frame: pd.DataFrame, n: int = 
     matrix = fitted.encode(frame, source="frame")
     known = np.flatnonzero(~np.isnan(y))
     raws = [fitted.raw_from_matrix(matrix[known], r) for r in range(row + 1)]
-    after = np.column_stack([fitted.loss.display_residual(y[known], raw) for raw in raws])
-    table = _table(known, y[known], fitted.loss.link(raws[-1]), after, n)
+    after = np.column_stack([shown_residual(fitted.loss, y[known], raw) for raw in raws])
+    table = _table(known, y[known], _fitted(fitted.loss, y[known], raws[-1]), after, n)
     if id_column is not None:
         table.insert(1, id_column, frame[id_column].to_numpy()[table["position"].to_numpy()])
     return table
+
+
+def _fitted(loss: Any, y: np.ndarray, raw: np.ndarray) -> np.ndarray:
+    """Return the prediction of each row (for a multiclass chain, the probability of its own class)."""
+    shown = loss.link(raw)
+    if shown.ndim == 2 and shown.shape[1] > 1:
+        return shown[np.arange(len(y)), np.asarray(y, dtype=np.intp)]
+    return shown.reshape(-1)
 
 
 def _table(positions: np.ndarray, y: np.ndarray, fitted: np.ndarray, after: np.ndarray, n: int) -> pd.DataFrame:

@@ -64,8 +64,14 @@ def part_positions(chain: Chain, part: Part) -> np.ndarray:
     return np.arange(chosen.start, chosen.stop)
 
 
+def one_output(task: str, what: str) -> None:
+    """Raise StageSpecError naming ``what`` for a multiclass chain: it reads one raw score per row."""
+    if task == "multiclass":
+        raise StageSpecError(f"{what} is for regression and binary chains; this chain is multiclass")
+
+
 def part_raw(chain: Chain, part: Part, row: int) -> np.ndarray:
-    """Return the chain's raw output on ``part`` after row ``row`` (out of fold for k-fold validation)."""
+    """Return the chain's (n, K) raw output on ``part`` after row ``row`` (out of fold for k-fold validation)."""
     outputs = chain.outputs(row)
     layout = chain.layout
     if part == "valid":
@@ -103,12 +109,23 @@ def feature_index(schema: Any, feature: str) -> int:
 
 def encode_target(schema: Any, values: pd.Series, source: str = "data") -> np.ndarray:
     """Return a frame's target column as the chain's y: numbers for regression, 1.0 for the positive
-    class of a binary chain and 0.0 for the other, NaN where it is missing.
+    class of a binary chain and 0.0 for the other, the class code of a multiclass chain, NaN where
+    it is missing.
 
     Raise DataError naming the first value that is neither a number (regression) nor one of the
-    chain's two classes (binary).
+    chain's classes (a class the chain never saw cannot be scored).
     """
     missing = values.isna().to_numpy(dtype=bool)
+    if schema.task == "multiclass":
+        lookup = {label: float(code) for code, label in enumerate(schema.classes)}
+        codes = values.map(_class_text).map(lookup).to_numpy(dtype=np.float64, na_value=np.nan)
+        bad = np.isnan(codes) & ~missing
+        if bad.any():
+            first = int(np.flatnonzero(bad)[0])
+            shown = ", ".join(repr(c) for c in schema.classes[:8]) + (", ..." if len(schema.classes) > 8 else "")
+            raise DataError(f"{source}: target {schema.target!r} holds {values.iloc[first]!r} (row {first + 1}), "
+                            f"a class the chain never saw (its classes: {shown})")
+        return codes
     if schema.task == "binary":
         text = values.map(_class_text)
         positive = (text == schema.classes[1]).to_numpy(dtype=bool)

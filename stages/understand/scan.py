@@ -40,7 +40,7 @@ from ..errors import StageSpecError
 from ..validation import Part
 from .binning import Bins, bins_of
 from .cache import remembered
-from .rows import check_part, check_upto, feature_index, part_positions, sample_rows
+from .rows import check_part, check_upto, feature_index, one_output, part_positions, sample_rows
 
 if TYPE_CHECKING:
     from ..chain import Chain
@@ -73,6 +73,7 @@ def residual_scan(chain: Chain, upto: int | None = None, part: Part = "valid", *
     is valid or test (the scan never scores rows it fit on). ``sample`` bounds the fitting and
     the scored rows used (a seeded draw); ``fit_rows`` and ``scored_rows`` say how many were.
     """
+    one_output(chain.task, "the residual scan")
     row = check_upto(len(chain.stages), upto)
     if part == "train":
         raise StageSpecError("the scan scores rows it did not fit on: part must be 'valid' or 'test'")
@@ -92,6 +93,7 @@ def binned_residuals(chain: Chain, feature: str, upto: int | None = None, part: 
     (standard deviation of the residual), and ``fit_rows`` and ``fit_mean`` (the fitting rows' count
     and mean residual in the bin, what a binned stage would add). Any part may be shown, train too.
     """
+    one_output(chain.task, "binned residuals")
     row = check_upto(len(chain.stages), upto)
     check_part(chain, part)
     j = feature_index(chain.schema, feature)
@@ -107,7 +109,7 @@ def binned_residuals(chain: Chain, feature: str, upto: int | None = None, part: 
 def scan_blocks(chain: Chain, row: int, part: Part, sample: int | None, seed: int) -> list[Block]:
     """Return the blocks of a scan of ``part`` after chain row ``row`` (one per fold for k-fold)."""
     layout, loss, y = chain.layout, chain.loss, chain.y
-    outputs = chain.outputs(row)
+    outputs = tuple(output[:, 0] for output in chain.outputs(row))  # one raw score per row
     if part == "valid" and layout.is_kfold:
         pairs = [(track.fit_positions(), np.asarray(track.evaluate), output)
                  for track, output in zip(layout.tracks[1:], outputs[1:], strict=True)]
@@ -306,7 +308,7 @@ def _binned(chain: Chain, j: int, row: int, part: Part, n_bins: int, sample: int
                    np.bincount(codes[present], minlength=n).astype(np.float64))
     fit_positions = chain.layout.tracks[0].fit_positions()
     fit_codes = bins.codes(chain.matrix[fit_positions, j])
-    fit_residual = chain.loss.residual(chain.y[fit_positions], chain.outputs(row)[0][fit_positions])
+    fit_residual = chain.loss.residual(chain.y[fit_positions], chain.outputs(row)[0][fit_positions, 0])
     fit_rows = np.bincount(fit_codes, minlength=n).astype(np.float64)
     empty = rows == 0
     table = pd.DataFrame({

@@ -170,7 +170,7 @@ def _first_stage_differing(fitted: FittedChain, rows: pd.DataFrame, float32: boo
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", UnseenLevelsWarning)
         warnings.simplefilter("ignore", UnseenMissingWarning)
-        after = fitted.raw_after_each_stage(fitted.encode(rows, source="probe rows"))
+        after = fitted.raw_after_each_stage(fitted.encode(rows, source="probe rows"))[:, :, 0]
     scale = probe.spread(fitted)
     for k in range(1, len(fitted.stages) + 1):
         want = after[:, k]

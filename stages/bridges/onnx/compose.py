@@ -147,7 +147,7 @@ def chain_graph(fitted: FittedChain, *, each_stage: bool = False) -> ChainGraph:
     builder = GraphBuilder(outputs)
     columns = SchemaColumns(builder, fitted.schema)
     head.add_inputs(builder)
-    raw = head.offset(builder, _start(builder, names[0], fitted.start))
+    raw = head.offset(builder, _start(builder, names[0], float(fitted.start[0])))
     found = []
     for number, stage in enumerate(fitted.stages, start=1):
         graph = convert_stage(stage, StageInputs(builder, columns, number))

@@ -137,7 +137,7 @@ def expected(fitted: FittedChain, rows: pd.DataFrame) -> dict[str, np.ndarray]:
 def spread(fitted: FittedChain) -> float:
     """Return the target's spread the tolerance is measured in (see the module's note)."""
     if fitted.task == "binary":
-        p = 1.0 / (1.0 + math.exp(-fitted.start))
+        p = 1.0 / (1.0 + math.exp(-float(fitted.start[0])))
         return math.sqrt(p * (1.0 - p)) or 1.0
     rmse = (fitted.start_scores.get("train") or {}).get("rmse")
     return float(rmse) if isinstance(rmse, int | float) and math.isfinite(rmse) and rmse > 0 else 1.0
