@@ -19,7 +19,8 @@ import pandas as pd
 
 from stages.atomic import STDOUT, atomic_output
 from stages.errors import DataError, SchemaError, UnseenLevelsWarning, UnseenMissingWarning
-from stages.predictor import FittedChain, unseen_missing_message
+from stages.metrics import predicted_classes
+from stages.predictor import FittedChain, probability_columns, unseen_missing_message
 from stages.reading import (
     check_statistics,
     column_ranges,
@@ -28,6 +29,7 @@ from stages.reading import (
     read_options,
     source_name,
 )
+from stages.scoring import shown_residual
 from stages.understand.rows import encode_target
 
 OUTPUT_COLUMNS = ("prediction", "probability")
@@ -93,9 +95,12 @@ def predict_chunk(fitted: FittedChain, chunk: pd.DataFrame, *, threshold: float,
                   filled: dict[str, int] | None = None) -> tuple[pd.DataFrame, dict[str, int]]:
     """Return the output rows of one chunk (id, prediction, probability) and its unseen levels per column.
 
-    With ``each_stage``, also ``after_1`` .. ``after_N`` (the prediction after each stage, the
-    probability for a binary chain) and, when the chunk holds the target, ``residual`` (target
-    minus the prediction; y - p for binary chains, y being 1 for the positive class).
+    A multiclass chain writes ``prediction`` (the most probable class) and ``probability_<class>`` for
+    each class (``probability_columns``). With ``each_stage``, also ``after_1`` .. ``after_N`` (the
+    prediction after each stage: the probability for a binary chain, the predicted class for a
+    multiclass chain) and, when the chunk holds the target, ``residual`` (target minus the
+    prediction; y - p for binary chains, y being 1 for the positive class; 1 - p of the row's own
+    class for multiclass chains). A target class the chain never saw is an error naming it.
     ``offset`` is the number of rows before the chunk, so that messages name rows of the whole file.
     Missing values the fitting rows never had are given their median; ``filled`` (when given)
     counts them per column.
@@ -117,13 +122,17 @@ def predict_chunk(fitted: FittedChain, chunk: pd.DataFrame, *, threshold: float,
     out: dict[str, Any] = {}
     if id_column is not None:
         out[id_column] = chunk[id_column].to_numpy()
-    if fitted.task == "binary":
+    if fitted.task == "multiclass":
         probability = fitted.loss.link(raw)
+        out["prediction"] = np.asarray(fitted.schema.classes, dtype=object)[predicted_classes(probability)]
+        out.update(zip(probability_columns(fitted.schema.classes), probability.T, strict=True))
+    elif fitted.task == "binary":
+        probability = fitted.loss.link(raw[:, 0])
         negative, positive = fitted.schema.classes
         out["prediction"] = np.where(probability >= threshold, positive, negative)
         out["probability"] = probability
     else:
-        out["prediction"] = raw
+        out["prediction"] = raw[:, 0]
     if after is not None:
         out.update(_each_stage(fitted, chunk, after, source, offset))
     return pd.DataFrame(out), unseen
@@ -132,15 +141,25 @@ def predict_chunk(fitted: FittedChain, chunk: pd.DataFrame, *, threshold: float,
 def _each_stage(fitted: FittedChain, chunk: pd.DataFrame, after: np.ndarray, source: str,
                 offset: int) -> dict[str, np.ndarray]:
     """Return the columns ``after_1`` .. ``after_N`` and, when the chunk has the target, ``residual``."""
-    shown = fitted.loss.link(after)
-    out = {f"after_{k}": shown[:, k] for k in range(1, after.shape[1])}
+    if fitted.task == "multiclass":
+        labels = np.asarray(fitted.schema.classes, dtype=object)
+        out = {f"after_{k}": labels[predicted_classes(fitted.loss.link(after[:, k]))] for k in range(1, after.shape[1])}
+    else:
+        shown = fitted.loss.link(after[:, :, 0])
+        out = {f"after_{k}": shown[:, k] for k in range(1, after.shape[1])}
     target = fitted.schema.target
     if target in chunk.columns:
         try:
             y = encode_target(fitted.schema, chunk[target], source)
         except DataError as err:
             raise DataError(_whole_file_rows(str(err), offset)) from None
-        out["residual"] = y - shown[:, -1]
+        if fitted.task == "multiclass":
+            known = ~np.isnan(y)
+            residual = np.full(len(y), np.nan)
+            residual[known] = shown_residual(fitted.loss, y[known], after[known, -1])
+            out["residual"] = residual
+        else:
+            out["residual"] = y - shown[:, -1]
     return out
 
 
@@ -157,8 +176,8 @@ def write_predictions(fitted: FittedChain, data: str, out: str | None, *, id_col
     ``predict_chunk``). ``out`` is written to a temporary file beside it and renamed only when
     every row is done.
     """
-    clashing = OUTPUT_COLUMNS + ((*(f"after_{k}" for k in range(1, len(fitted.stages) + 1)), "residual")
-                                 if each_stage else ())
+    clashing = OUTPUT_COLUMNS + tuple(probability_columns(fitted.schema.classes) if fitted.task == "multiclass" else ())
+    clashing += ((*(f"after_{k}" for k in range(1, len(fitted.stages) + 1)), "residual") if each_stage else ())
     if id_column in clashing:
         raise DataError(f"--id {id_column!r} would clash with an output column; the id must have another name")
     name = source_name(data)
@@ -168,7 +187,7 @@ def write_predictions(fitted: FittedChain, data: str, out: str | None, *, id_col
         wanted.append(schema.target)  # read when the file has it, for the residual
     columns = schema.frame_columns + [c for c in wanted if c not in schema.frame_columns]
     text = [c.name for c in schema.columns if c.is_categorical] + ([id_column] if id_column else [])
-    if each_stage and schema.task == "binary":
+    if each_stage and schema.task in ("binary", "multiclass"):
         text.append(schema.target)  # class labels compared as the chain wrote them
     threshold = float(fitted.meta.get("threshold", 0.5) or 0.5)
     filled: dict[str, int] = {}

@@ -127,9 +127,14 @@ def describe_chain(path: str, fitted: Any) -> str:
     """Return the settings of a loaded chain file, one ``name  value`` line each."""
     meta, schema = fitted.meta, fitted.schema
     task = schema.task + (f" (positive class {schema.positive_class!r})" if schema.positive_class else "")
+    if schema.task == "multiclass":
+        task += f" ({len(schema.classes)} classes: {', '.join(repr(c) for c in schema.classes)})"
     rows = meta.get("rows") or {}
+    starts = [float(v) for v in fitted.start]
+    start = number_text(starts[0]) if len(starts) == 1 else ", ".join(
+        f"{c} {number_text(v)}" for c, v in zip(schema.classes, starts, strict=True))
     lines = [("chain file", path), ("target", f"{schema.target!r}, {task}"), ("loss", fitted.loss.name),
-             ("start value", number_text(fitted.start)), ("validation", _validation_text(meta.get("validation"))),
+             ("start value", start), ("validation", _validation_text(meta.get("validation"))),
              ("seed", str(meta.get("seed"))), ("data", str(meta.get("source") or "")),
              ("rows", ", ".join(f"{rows[k]:,} {k}" for k in ("train", "valid", "test") if k in rows))]
     versions = meta.get("versions") or {}
@@ -191,7 +196,7 @@ def describe_coefficients(fitted: Any) -> str:
 
     blocks = []
     for k, stage in enumerate(fitted.stages, start=1):
-        if stage.kind not in LINEAR_KINDS:
+        if stage.kind not in LINEAR_KINDS or fitted.task == "multiclass":
             continue
         table = fitted.coefficients(k)
         scale = "log-odds" if fitted.task == "binary" else f"{fitted.schema.target!r}"

@@ -17,6 +17,7 @@ import numpy as np
 from stages import scoring
 from stages.kinds import get_kind
 from stages.losses import Loss
+from stages.outputs import squeeze
 from stages.report.table import StageRow, fitted_rows, stage_rows
 from stages.schema import Task
 from stages.tracks import Layout
@@ -61,12 +62,13 @@ class ResidualSource:
     outputs: tuple[tuple[np.ndarray, ...], ...]
 
     def residuals(self, part: Part, row: int) -> np.ndarray:
-        """Return target minus prediction on ``part`` (train or valid) after row ``row``."""
-        return self.loss.display_residual(self.targets(part), self.raw(part, row))
+        """Return target minus prediction on ``part`` (train or valid) after row ``row`` (for a multiclass
+        chain, 1 - p of each row's own class: ``scoring.shown_residual``)."""
+        return scoring.shown_residual(self.loss, self.targets(part), self.raw(part, row))
 
     def fitted(self, part: Part, row: int) -> np.ndarray:
         """Return the predictions (probabilities for binary chains) on ``part`` after row ``row``."""
-        return self.loss.link(self.raw(part, row))
+        return squeeze(self.loss.link(self.raw(part, row)))
 
     def raw(self, part: Part, row: int) -> np.ndarray:
         """Return the raw output on ``part`` after row ``row``, in the order of ``targets``."""
@@ -183,7 +185,7 @@ def view_of_chain(chain: Chain, cache: ImportanceCache) -> ChainView:
     return ChainView(
         source=chain.source, target=chain.schema.target, task=chain.task, loss=chain.loss.name,
         metric=table.metric, second=table.second, validation=chain.validation.describe(),
-        sizes=_sizes(described["rows"], kfold, chain.test_revealed), start_value=float(chain.starts[0]),
+        sizes=_sizes(described["rows"], kfold, chain.test_revealed), start_value=float(chain.starts[0][0]),
         rows=table.rows, stages=tuple(infos), features=tuple(names),
         notes=tuple(chain.notes), classes=tuple(chain.schema.classes), has_test=layout.n_test > 0,
         n_test=layout.n_test,
@@ -237,7 +239,7 @@ def view_of_fitted(fitted: FittedChain, name: str) -> ChainView:
         source=name, target=fitted.schema.target, task=fitted.task, loss=fitted.loss.name, metric=table.metric,
         second=table.second, validation=validation,
         sizes=_sizes(dict(meta.get("rows", {})), "folds" if kfold else "", revealed),
-        start_value=float(fitted.start), rows=table.rows, stages=tuple(infos),
+        start_value=float(fitted.start[0]), rows=table.rows, stages=tuple(infos),
         features=tuple(names), classes=tuple(fitted.schema.classes), read_only=True, kfold=kfold,
         test_revealed=revealed, has_test=bool((meta.get("rows") or {}).get("test")),
         reveals=int(meta.get("test_reveals") or 0), extra={"data": meta.get("source", "")},

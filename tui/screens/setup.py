@@ -23,7 +23,7 @@ from textual.widgets import Button, Footer, Input, Label, Select, Static
 
 from stages.data import describe_columns, infer_task
 from stages.errors import ValidationSpecError
-from stages.losses import LOSSES, default_loss
+from stages.losses import default_loss, loss_names
 from stages.parsing import validation_spec
 from stages.schema import DATETIME, Task
 from stages.validation import SCHEMES, ValidationSpec
@@ -59,7 +59,7 @@ def fields_of(scheme: str) -> tuple[str, ...]:
 
 def losses_for(task: Task) -> list[str]:
     """Return the loss names that fit ``task``."""
-    return [name for name, cls in LOSSES.items() if cls.task == task]
+    return loss_names(task)
 
 
 class SetupScreen(Screen):

@@ -41,7 +41,8 @@ if TYPE_CHECKING:
 
 #: the views one key cycles through, per task
 MODES = {"regression": ("histogram", "fitted", "feature", "largest"),
-         "binary": ("histogram", "classes", "feature", "largest", "calibration")}
+         "binary": ("histogram", "classes", "feature", "largest", "calibration"),
+         "multiclass": ("histogram", "largest")}
 #: what each view is called in the status line
 MODE_NAMES = {"histogram": "histogram", "fitted": "against fitted values", "classes": "probabilities by class",
               "feature": "against a feature, ranked by the scan", "largest": "largest residuals",
