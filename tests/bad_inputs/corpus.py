@@ -168,6 +168,27 @@ def _three_classes(frame: pd.DataFrame) -> pd.DataFrame:
     return frame
 
 
+def _rare_class(frame: pd.DataFrame) -> pd.DataFrame:
+    """Give the target six classes, one of them ("aa", first in class order) on one row only.
+
+    Class sizes 1, 11, 11, 11, 11 and 15: the stratified holdout of 12 rows gives each class its
+    whole share and the one left over to the first class whose share had the largest remainder,
+    "aa": its only row goes to validation, none is left to fit on.
+    """
+    labels = ["aa"] + ["b"] * 11 + ["c"] * 11 + ["d"] * 11 + ["e"] * 11 + ["f"] * 15
+    frame[TARGET] = np.random.RandomState(5).permutation(labels)
+    return frame
+
+
+def _many_classes(folder: Path) -> Path:
+    """Write 202 rows whose target has 101 classes, two rows each."""
+    frame = good_frame(202)
+    frame[TARGET] = [f"k{i:03d}" for i in range(101)] * 2
+    path = folder / "classes101.csv"
+    frame.to_csv(path, index=False)
+    return path
+
+
 def _dates(n: int) -> list[str]:
     return list(pd.date_range("2025-01-01", periods=n, freq="D").strftime("%Y-%m-%d"))
 
@@ -233,7 +254,15 @@ _ENTRIES = (
           handling="the column stays numeric; the stray text is treated as missing, with a note naming it",
           note=("'x1'", "'abc'"), rows=ROWS, features=3),
     Entry("three_classes", "a target with three classes", _csv("classes.csv", _three_classes),
-          error=("classes.csv", "3 classes", "multiclass targets are not supported")),
+          handling="a multiclass chain (multinomial log loss), with a note listing the classes in their stored order",
+          note=("classes of 'y', in their stored order: 'large', 'medium', 'small'",), rows=ROWS, features=3),
+    Entry("many_classes", "a target with 101 classes", _many_classes,
+          error=("classes101.csv", "target 'y' has 101 classes; a multiclass target may have at most 100",
+                 "group rare levels"), data_rows=202),
+    Entry("class_only_in_validation", "a class whose only row falls in the validation part",
+          _csv("rare_class.csv", _rare_class),
+          error=("rare_class.csv", "class 'aa' of target 'y' has no row among the fitting rows",
+                 "its 1 row is in the validation or test part")),
     Entry("no_features", "no usable feature (every other column constant)",
           _csv("no_features.csv", lambda f: f.assign(x1=1.0, x2=2.0, colour="red")),
           error=("no_features.csv", "no usable feature columns")),

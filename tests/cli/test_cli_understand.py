@@ -26,7 +26,7 @@ def test_each_stage_writes_the_prediction_after_every_stage_and_the_residual(fit
     fitted = stages.load(fitted_files["regression"])
     matrix = fitted.encode(frame)
     for k in (1, 2, 3):  # the chain's own prediction with its first k stages
-        np.testing.assert_allclose(result[f"after_{k}"], fitted.raw_from_matrix(matrix, k), rtol=1e-15, atol=0)
+        np.testing.assert_allclose(result[f"after_{k}"], fitted.raw_from_matrix(matrix, k)[:, 0], rtol=1e-15, atol=0)
     assert np.array_equal(result["after_3"], result["prediction"])
     np.testing.assert_allclose(result["residual"], frame["progression"] - result["prediction"], rtol=0, atol=1e-9)
 

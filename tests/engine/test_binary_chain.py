@@ -48,8 +48,8 @@ def test_lightgbm_after_logistic_equals_lightgbm_with_init_score(cancer_frame):
     chain.add("lightgbm", 1.0, params=params)
     features = [c for c in frame.columns if c not in ("target", "part")]
     fitted = chain.fitted()
-    offset_fit = fitted.raw_from_matrix(fitted.encode(frame.loc[:399]), upto=1)
-    offset_valid = fitted.raw_from_matrix(fitted.encode(frame.loc[400:]), upto=1)
+    offset_fit = fitted.raw_from_matrix(fitted.encode(frame.loc[:399]), upto=1)[:, 0]
+    offset_valid = fitted.raw_from_matrix(fitted.encode(frame.loc[400:]), upto=1)[:, 0]
     native = chain.stages[1].params
     booster = lgb.train(
         {**{k: v for k, v in native.items() if k != "num_boost_round"}, "objective": "binary"},
@@ -90,7 +90,7 @@ def test_a_leaf_that_sees_one_class_gets_a_finite_step():
     frame = pd.DataFrame({"x": np.r_[np.zeros(50), np.ones(50)], "y": np.r_[np.zeros(50), np.ones(50)]})
     chain = stages.Chain(frame, "y", stages.Holdout(fraction=0.2, seed=0), loss="logloss")
     chain.add("tree", 1.0, params={"max_depth": 1}, repeat=5)
-    out = chain.outputs()[0]
+    out = chain.outputs()[0][:, 0]
     assert np.all(np.isfinite(out))
     assert expit(out[chain.y == 1]).min() > 0.99
 
@@ -112,10 +112,11 @@ def test_string_classes_take_the_positive_class_the_user_chose():
     assert np.corrcoef(frame["x"], proba[:, 1])[0, 1] < -0.5
 
 
-def test_three_classes_are_refused_as_multiclass():
+def test_three_classes_make_a_multiclass_chain_and_a_binary_task_refuses_them():
     frame = pd.DataFrame({"x": np.arange(30.0), "y": ["a", "b", "c"] * 10})
-    with pytest.raises(DataError, match="multiclass"):
-        stages.Chain(frame, "y", stages.Holdout(seed=0))
+    assert stages.Chain(frame, "y", stages.Holdout(seed=0)).task == "multiclass"
+    with pytest.raises(DataError, match="has 3 classes; a binary target has two"):
+        stages.Chain(frame, "y", stages.Holdout(seed=0), task="binary")
 
 
 def test_a_regression_loss_on_a_binary_target_is_refused():

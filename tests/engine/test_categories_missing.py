@@ -107,7 +107,7 @@ def test_validation_rows_with_missing_values_score_as_predict_would(fair):
     frame.loc[frame.index[valid[::3]], "yrs_married"] = np.nan  # missing only outside the fitting rows
     chain = stages.Chain(frame, "affairs", stages.Holdout(fraction=0.25, seed=1), seed=7)
     chain.add("hist_tree")
-    cached = chain.outputs()[0][chain.layout.valid]
+    cached = chain.outputs()[0][chain.layout.valid, 0]
     with pytest.warns(UnseenMissingWarning):
         fresh = chain.predict(frame.iloc[chain.layout.order[chain.layout.valid]])
     np.testing.assert_array_equal(cached, fresh)

@@ -52,7 +52,7 @@ def test_prediction_is_start_plus_sum_of_scaled_stage_outputs(mixed_frame):
     assert np.array_equal(total, chain.predict(mixed_frame))
     # and the cached output on the chain's own rows is that same sum, bit for bit
     cached = np.empty(len(mixed_frame))
-    cached[chain.prepared.rows[chain.layout.order]] = chain.outputs()[0]
+    cached[chain.prepared.rows[chain.layout.order]] = chain.outputs()[0][:, 0]
     assert np.array_equal(cached, total)
 
 

@@ -387,9 +387,13 @@ def test_infer_task_follows_the_rules(values, task):
     assert infer_task(values) == task
 
 
-def test_multiclass_target_is_refused_with_the_count():
-    with pytest.raises(DataError, match=r"^d\.csv: target 'species' has 3 classes; multiclass targets are not supported"):
-        infer_task(pd.Series(["a", "b", "c", "a"]), source="d.csv", target="species")
+def test_three_to_a_hundred_text_classes_are_multiclass_and_more_are_refused_with_a_hint():
+    assert infer_task(pd.Series(["a", "b", "c", "a"]), source="d.csv", target="species") == "multiclass"
+    hundred = pd.Series([f"c{i}" for i in range(100)] * 2)
+    assert infer_task(hundred) == "multiclass"
+    with pytest.raises(DataError, match=r"^d\.csv: target 'species' has 101 classes; a multiclass target may "
+                                        r"have at most 100 \(group rare levels"):
+        infer_task(pd.Series([f"c{i}" for i in range(101)] * 2), source="d.csv", target="species")
 
 
 # ----------------------------------------------------------------------------- prepare
@@ -531,9 +535,9 @@ def test_not_numeric_target_names_the_input_row_and_value():
     assert str(caught.value) == "data.csv: target 'price' is not numeric (row 18: 'n/a')"
 
 
-def test_binary_task_with_three_classes_is_the_multiclass_error():
+def test_binary_task_with_three_classes_says_to_use_multiclass():
     frame = pd.DataFrame({"x": [1.0, 2.0, 3.0], "y": ["a", "b", "c"]})
-    with pytest.raises(DataError, match="target 'y' has 3 classes; multiclass"):
+    with pytest.raises(DataError, match="target 'y' has 3 classes; a binary target has two .use task 'multiclass'"):
         prepare(frame, "y", task="binary")
 
 

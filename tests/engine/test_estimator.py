@@ -191,12 +191,12 @@ def test_threshold_moves_the_cut_between_the_classes(breast_cancer) -> None:
     assert 0 < np.sum(p >= 0.9) < np.sum(p >= 0.5)
 
 
-def test_one_class_and_three_classes_are_refused_with_what_is_wrong() -> None:
+def test_one_class_and_several_labels_a_row_are_refused_with_what_is_wrong() -> None:
     X = np.random.RandomState(0).normal(size=(30, 2))
     with pytest.raises(ValueError, match="needs two classes in y; it has one class"):
         ChainClassifier().fit(X, np.ones(30))
-    with pytest.raises(ValueError, match="Only binary classification is supported.*3 classes.*not supported yet"):
-        ChainClassifier().fit(X, np.arange(30) % 3)
+    with pytest.raises(ValueError, match="y should be a 1d array"):
+        ChainClassifier().fit(X, np.c_[np.arange(30) % 2, np.arange(30) % 3 == 0].astype(int))
 
 
 # ----- data handling ---------------------------------------------------------------------

@@ -63,7 +63,7 @@ def test_grow_with_patience_one_stops_where_gradient_boosting_does():
     assert result.stopped == "patience"
     assert result.grown == reference.n_estimators_ == len(seen)
     n_fit = chain.layout.n_train
-    np.testing.assert_allclose(seen[-1][n_fit:], reference.predict(X_val), rtol=0, atol=1e-9)
+    np.testing.assert_allclose(seen[-1][n_fit:, 0], reference.predict(X_val), rtol=0, atol=1e-9)
     # trimmed back to the best stage, which is the one before the stop
     assert result.kept == result.best_row == result.grown - 1 == len(chain)
     staged = list(reference.staged_predict(X_val))

@@ -269,7 +269,7 @@ def test_logistic_uses_the_offset_row_by_row(cancer):
 
 def test_logistic_refuses_regression_chain_and_bad_penalty(cancer):
     X, y = cancer
-    with pytest.raises(StageSpecError, match="kind 'logistic' is for binary chains; "):
+    with pytest.raises(StageSpecError, match="kind 'logistic' is for binary and multiclass chains; "):
         fit(LOGISTIC, make_request(X[:, :2], numeric_columns(2), y=y))
     request = make_request(X[:, :2], numeric_columns(2), y=y, loss=LogLoss(), task="binary")
     with pytest.raises(StageSpecError, match="penalty"):

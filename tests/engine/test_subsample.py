@@ -75,7 +75,7 @@ def test_a_subsampled_hist_tree_is_lightgbms_tree_on_the_rows_drawn():
     binned.set_label(y[:450])
     binned.set_init_score(start)
     booster = lightgbm.train(params, binned.subset(rows), num_boost_round=1)
-    np.testing.assert_allclose(stage.outputs[0][450:] - y[:450].mean(), booster.predict(X[450:], raw_score=True),
+    np.testing.assert_allclose(stage.outputs[0][450:, 0] - y[:450].mean(), booster.predict(X[450:], raw_score=True),
                                rtol=0, atol=1e-12)
     assert stage.oob_loss is not None and stage.oob_loss[1] < stage.oob_loss[0]
 

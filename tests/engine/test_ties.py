@@ -102,7 +102,7 @@ def test_knn_predictions_do_not_depend_on_how_rows_are_batched(fair_knn):
         assert np.array_equal(batched, whole)
     # the cached validation output is what a fresh predict gives
     valid_rows = frame.iloc[chain.layout.order[chain.layout.valid]]
-    assert np.array_equal(fitted.predict(valid_rows), chain.outputs()[0][chain.layout.valid])
+    assert np.array_equal(fitted.predict(valid_rows), chain.outputs()[0][chain.layout.valid, 0])
 
 
 def test_tied_neighbours_are_taken_in_the_order_of_their_row(fair_knn):

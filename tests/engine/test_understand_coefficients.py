@@ -117,7 +117,7 @@ def test_the_terms_rebuild_the_stages_contribution_row_by_row(mixed_frame):
                + table.loc["a is missing", "coefficient"] * rows["a"].isna()
                + table.loc["b", "coefficient"] * rows["b"] + table.loc["flag", "coefficient"] * rows["flag"]
                + sum(table.loc[f"colour = {c}", "coefficient"] * (rows["colour"] == c) for c in ("blue", "green")))
-    contribution = chain.outputs(1)[0][chain.layout.valid] - chain.starts[0]
+    contribution = chain.outputs(1)[0][chain.layout.valid, 0] - chain.starts[0]
     np.testing.assert_allclose(rebuilt, contribution, rtol=0, atol=1e-9)
     assert table.loc["colour = blue", "reference"] == "red"
 

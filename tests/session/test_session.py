@@ -271,3 +271,27 @@ def test_refitting_on_changed_data_reports_progress_and_can_be_cancelled(data_fi
     with pytest.raises(FitCancelled):
         load_session(path, allow_changed=True, cancel=cancel, progress=stop_after_the_first_stage)
     assert path.read_bytes() == before  # the session file is untouched
+
+
+@pytest.mark.parametrize("validation", [stages.Holdout(fraction=0.25, seed=3, test_fraction=0.1), stages.KFold(folds=3)])
+def test_a_multiclass_chain_comes_back_exactly_with_its_undo_stack(tmp_path, validation):
+    # the wine data (Forina et al., UCI, shipped with scikit-learn), its cultivar as text
+    from sklearn.datasets import load_wine
+
+    X, y = load_wine(return_X_y=True, as_frame=True)
+    frame = X.rename(columns=lambda c: c.replace("/", "_"))
+    frame["cultivar"] = np.array(["barolo", "grignolino", "barbera"])[y]
+    path = tmp_path / "wine.csv"
+    frame.to_csv(path, index=False)
+    chain = stages.Chain.from_file(path, "cultivar", validation)
+    for kind, shrinkage, params in [("logistic", 1.0, {"C": 0.1}), *CHEAP_KINDS[2:9]]:
+        chain.add(kind, shrinkage, params=params)
+    chain.step_back()
+    if validation.test_fraction:
+        chain.reveal_test()
+    restored = round_trip(chain)
+    assert restored.task == "multiclass" and restored.outputs()[0].shape == (len(frame), 3)
+    assert_identical(chain_state(chain), chain_state(restored))
+    restored.undo()
+    chain.undo()
+    assert_identical(chain_state(chain), chain_state(restored))
