@@ -14,12 +14,13 @@ import numpy as np
 from . import scoring
 from .errors import ChainStateError, StageSpecError
 from .outputs import squeeze
+from .validation import Part
 
 if TYPE_CHECKING:
     from .chain import Chain
 
 
-def part_rows(chain: Chain, part: str, row: int | None) -> tuple[np.ndarray, np.ndarray]:
+def part_rows(chain: Chain, part: Part, row: int | None) -> tuple[np.ndarray, np.ndarray]:
     """Return the targets and (n, K) raw outputs of ``part`` after row ``row`` (the test part once revealed)."""
     outputs = chain.outputs(row)
     layout = chain.layout
@@ -34,7 +35,7 @@ def part_rows(chain: Chain, part: str, row: int | None) -> tuple[np.ndarray, np.
     raise StageSpecError(f"unknown part {part!r} (train, valid or test)")
 
 
-def targets(chain: Chain, part: str) -> np.ndarray:
+def targets(chain: Chain, part: Part) -> np.ndarray:
     """Return the targets of ``part`` in the order residuals and fitted values use."""
     layout = chain.layout
     if part == "train":
@@ -58,7 +59,7 @@ def class_index(chain: Chain, of_class: object) -> int:
     return classes.index(text)
 
 
-def residuals(chain: Chain, part: str, row: int | None, of_class: object = None) -> np.ndarray:
+def residuals(chain: Chain, part: Part, row: int | None, of_class: object = None) -> np.ndarray:
     """Return target minus prediction on ``part`` (the pseudo-residuals, (n, K), of a multiclass chain;
     the column of ``of_class`` when given)."""
     y, raw = part_rows(chain, part, row)
@@ -70,14 +71,14 @@ def residuals(chain: Chain, part: str, row: int | None, of_class: object = None)
     return values[:, class_index(chain, of_class)]
 
 
-def fitted_values(chain: Chain, part: str, row: int | None) -> np.ndarray:
+def fitted_values(chain: Chain, part: Part, row: int | None) -> np.ndarray:
     """Return the predictions on ``part`` (train or valid): values, probabilities, or (n, K) class probabilities."""
     if part not in ("train", "valid"):
         raise StageSpecError(f"unknown part {part!r} (train or valid)")
     return squeeze(chain.loss.link(part_rows(chain, part, row)[1]))
 
 
-def histogram(chain: Chain, row: int | None, parts: tuple[str, ...], bins: int | str, max_bins: int,
+def histogram(chain: Chain, row: int | None, parts: tuple[Part, ...], bins: int | str, max_bins: int,
               of_class: object = None) -> tuple[dict[str, np.ndarray], np.ndarray]:
     """Return residual counts per part over shared bin edges, and the edges; a multiclass chain without
     ``of_class`` counts each row's own class's pseudo-residual, 1 - p_y (``scoring.shown_residual``)."""

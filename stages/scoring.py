@@ -46,7 +46,7 @@ def validation_y(layout: Layout, y: np.ndarray) -> np.ndarray:
     return y[: layout.n_train] if layout.is_kfold else y[layout.valid]
 
 
-def _part(weight: np.ndarray | None, rows: slice | np.ndarray) -> np.ndarray | None:
+def _part(weight: np.ndarray | None, rows: slice | np.ndarray | None) -> np.ndarray | None:
     return None if weight is None else weight[rows]
 
 

@@ -96,7 +96,7 @@ def build_layout(split: Split) -> Layout:
 def classes_missing(layout: Layout, y: np.ndarray, n_classes: int) -> list[tuple[int, int]]:
     """Return (track, class code) for every class that has no row among a track's fitting rows
     (``y`` holds class codes in chain order); empty when every track's fitting rows hold every class."""
-    missing = []
+    missing: list[tuple[int, int]] = []
     for t, track in enumerate(layout.tracks):
         counts = np.bincount(np.asarray(y[: track.n_rows][track.fit], dtype=np.intp), minlength=n_classes)
         missing.extend((t, int(k)) for k in np.flatnonzero(counts == 0))
@@ -112,7 +112,7 @@ def check_classes_fit(layout: Layout, y: np.ndarray, schema: Any, source: str) -
     name = schema.classes[code]
     rows = int(np.count_nonzero(y == code))
     its = f"its {rows:,} row is" if rows == 1 else f"its {rows:,} rows are all"
-    where = ("the fitting rows: " + its + " in the validation or test part" if track == 0 else
-             f"the fitting rows of fold {track}: {its} held out in that fold")
+    where = ("the train rows: " + its + " in the validation or test part" if track == 0 else
+             f"the train rows of fold {track}: {its} held out in that fold")
     raise DataError(f"{source}: class {name!r} of target {schema.target!r} has no row among {where}; a class the "
                     "chain never fits on cannot be predicted (group it with another class, or drop its rows)")

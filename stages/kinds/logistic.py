@@ -185,7 +185,7 @@ def _multinomial_newton(design: np.ndarray, indicator: np.ndarray, offset: np.nd
 
     g, p = gradient(theta)
     for _ in range(steps):
-        hessian = np.zeros((width + 1, n_classes, width + 1, n_classes))
+        blocks = np.zeros((width + 1, n_classes, width + 1, n_classes))
         for a in range(n_classes):
             for c in range(a, n_classes):
                 curvature = weight * p[:, a] * ((a == c) - p[:, c])
@@ -193,9 +193,9 @@ def _multinomial_newton(design: np.ndarray, indicator: np.ndarray, offset: np.nd
                 for start in range(0, len(design), _BLOCK_ROWS):
                     rows = design[start:start + _BLOCK_ROWS]
                     block += (rows * curvature[start:start + _BLOCK_ROWS, None]).T @ rows
-                hessian[:, a, :, c] = block
-                hessian[:, c, :, a] = block.T
-        hessian = hessian.reshape(size, size)
+                blocks[:, a, :, c] = block
+                blocks[:, c, :, a] = block.T
+        hessian = blocks.reshape(size, size)
         hessian[np.arange(size), np.arange(size)] += penalised.ravel()
         trial = theta - np.linalg.lstsq(hessian, g, rcond=1e-10)[0]
         g_trial, p_trial = gradient(trial)

@@ -53,7 +53,7 @@ class MeanKind(StageKind):
 
     def save(self, learner: Constant) -> Artifact:
         """Return the constant (a list of K values for K outputs) as JSON."""
-        value = [float(v) for v in learner.value] if np.ndim(learner.value) else learner.value
+        value = [float(v) for v in np.ravel(learner.value)] if np.ndim(learner.value) else learner.value
         return Artifact("json", json.dumps({"value": value}, allow_nan=False).encode())
 
     def load(self, artifact: Artifact) -> Constant:

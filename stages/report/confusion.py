@@ -9,12 +9,13 @@ import pandas as pd
 
 from ..errors import StageSpecError
 from ..metrics import confusion_counts, predicted_classes
+from ..validation import Part
 
 if TYPE_CHECKING:
     from ..chain import Chain
 
 
-def confusion_table(chain: Chain, part: str = "valid", row: int | None = None) -> pd.DataFrame:
+def confusion_table(chain: Chain, part: Part = "valid", row: int | None = None) -> pd.DataFrame:
     """Return the confusion matrix of ``part`` (train, valid or a revealed test) after chain row ``row``.
 
     One row per true class and one column per predicted class, both in the chain's class order
@@ -40,7 +41,7 @@ def confusion_table(chain: Chain, part: str = "valid", row: int | None = None) -
     return table
 
 
-def _check_part(chain: Chain, part: str) -> None:
+def _check_part(chain: Chain, part: Part) -> None:
     layout = chain.layout
     if part not in ("train", "valid", "test"):
         raise StageSpecError(f"unknown part {part!r} (train, valid or test)")

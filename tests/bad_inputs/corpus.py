@@ -261,7 +261,7 @@ _ENTRIES = (
                  "group rare levels"), data_rows=202),
     Entry("class_only_in_validation", "a class whose only row falls in the validation part",
           _csv("rare_class.csv", _rare_class),
-          error=("rare_class.csv", "class 'aa' of target 'y' has no row among the fitting rows",
+          error=("rare_class.csv", "class 'aa' of target 'y' has no row among the train rows",
                  "its 1 row is in the validation or test part")),
     Entry("no_features", "no usable feature (every other column constant)",
           _csv("no_features.csv", lambda f: f.assign(x1=1.0, x2=2.0, colour="red")),

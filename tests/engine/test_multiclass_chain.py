@@ -67,14 +67,14 @@ def test_a_class_missing_from_the_fitting_rows_is_an_error_naming_it(wine_frame)
     frame.loc[frame.index[:5], "cultivar"] = "nebbiolo"
     frame.loc[frame.index[:5], "part"] = "valid"
     frame.loc[frame.index[5:40], "part"] = "valid"
-    with pytest.raises(DataError, match="class 'nebbiolo' of target 'cultivar' has no row among the fitting rows: "
+    with pytest.raises(DataError, match="class 'nebbiolo' of target 'cultivar' has no row among the train rows: "
                                         "its 5 rows are all in the validation or test part"):
         _chain(frame.drop(columns=[]), stages.SplitColumn("part"))
     one = wine_frame.copy()
     one.loc[one.index[0], "cultivar"] = "nebbiolo"
     with pytest.raises(ValidationSpecError, match="at least 5 rows of each class; class 'nebbiolo' has 1"):
         _chain(one, stages.KFold(folds=5, seed=0))
-    with pytest.raises(DataError, match="class 'nebbiolo' .* has no row among the fitting rows of fold [1-5]: "
+    with pytest.raises(DataError, match="class 'nebbiolo' .* has no row among the train rows of fold [1-5]: "
                                         "its 1 row is held out in that fold"):
         _chain(one, stages.KFold(folds=5, seed=0, stratify=False))
 
