@@ -23,7 +23,7 @@ from .errors import ChainStateError, RemnantError, StageSpecError
 from .fitting import FitContext, Stage, fit_stage
 from .kinds import get_kind
 from .kinds.base import ProgressFn
-from .limits import MAX_REPEAT, MAX_STAGES
+from .limits import MAX_REPEAT, MAX_SEED, MAX_STAGES
 from .losses import Loss, default_loss, get_loss
 from .outputs import start_block
 from .parsing import whole_value
@@ -83,6 +83,7 @@ class Chain:
         data_path: str | os.PathLike | None = None,
         dates: dict[str, list[str]] | None = None,
     ) -> None:
+        seed = whole_value({"seed": seed}, "seed", 0, minimum=0, maximum=MAX_SEED)
         self.validation = validation if validation is not None else Holdout()
         ignore = tuple(ignore) + tuple(c for c in self.validation.columns_used if c not in ignore)
         if isinstance(self.validation, TimeOrder):

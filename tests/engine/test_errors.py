@@ -83,3 +83,11 @@ def test_a_fault_of_remnant_while_resuming_a_session_is_not_called_damage(tmp_pa
     monkeypatch.setattr(session, "spec_from_dict", broken)
     with pytest.raises(RuntimeError, match="a fault of remnant itself"):
         session.load_session(saved, data=data)
+
+
+@pytest.mark.parametrize("seed", [-1, 2**32, 1.5, "7", True])
+def test_a_seed_numpy_cannot_take_is_a_clear_error_from_python(diabetes_frame, seed):
+    # numpy's RandomState takes 0 to 2**32 - 1 (numpy.random.RandomState docs); outside that it
+    # raises its own ValueError, which would not name the setting
+    with pytest.raises(stages.StageSpecError, match="seed must be"):
+        stages.Chain(diabetes_frame, "target", seed=seed)
