@@ -26,6 +26,39 @@ def unseen_missing_message(source: str, counts: dict[str, int], schema: Schema) 
             f"fitting rows' median ({detail})")
 
 
+class _Inputs:
+    """The schema matrix a prediction runs on, and its float32 copy made once for all the
+    scikit-learn trees and forests among the stages.
+
+    Those learners cast every matrix they are given to float32 before they route a row, so one
+    cast shared by their stages gives the same values as each stage's own cast, without a copy of
+    the matrix per stage.
+    """
+
+    def __init__(self, matrix: np.ndarray) -> None:
+        self.matrix = matrix
+        self._single: np.ndarray | None = None
+
+    def for_learner(self, learner: Any) -> np.ndarray:
+        """Return the matrix as ``learner`` reads it: the shared float32 copy for a scikit-learn tree
+        or forest (or one per class of them), the matrix itself otherwise."""
+        if not _reads_float32(learner):
+            return self.matrix
+        if self._single is None:
+            self._single = self.matrix.astype(np.float32)
+        return self._single
+
+
+def _reads_float32(learner: Any) -> bool:
+    from sklearn.ensemble._forest import BaseForest
+    from sklearn.tree import BaseDecisionTree
+
+    from .kinds.per_class import PerClass
+    if isinstance(learner, PerClass):
+        return all(_reads_float32(one) for one in learner.learners)
+    return isinstance(learner, (BaseDecisionTree, BaseForest))
+
+
 @dataclass(frozen=True, eq=False)
 class FittedStage:
     """One stage of a fitted chain: its learner, the scale of its output, and its columns."""
@@ -90,9 +123,10 @@ class FittedChain:
         """Return K, the raw scores per row (the number of classes of a multiclass chain, else 1)."""
         return self.loss.outputs
 
-    def _stage_output(self, stage: FittedStage, matrix: np.ndarray) -> np.ndarray:
+    def _stage_output(self, stage: FittedStage, inputs: _Inputs) -> np.ndarray:
         n_all = len(self.schema.columns)
         cols = stage.feature_index
+        matrix = inputs.for_learner(stage.learner)
         X = matrix if cols == tuple(range(n_all)) else matrix[:, list(cols)]
         return block(stage.learner.predict(X), matrix.shape[0], self.outputs)
 
@@ -101,8 +135,9 @@ class FittedChain:
         """Return the (n, K) raw output (log-odds for binary) of the first ``upto`` stages on a schema
         matrix, from the start value plus each row's ``offset`` (on the raw scale; None: none)."""
         raw = start_block(self.start, matrix.shape[0], offset)
+        inputs = _Inputs(matrix)
         for stage in self.stages[:upto]:
-            raw += stage.scale * self._stage_output(stage, matrix)
+            raw += stage.scale * self._stage_output(stage, inputs)
         return raw
 
     def raw_after_each_stage(self, matrix: np.ndarray, offset: np.ndarray | None = None) -> np.ndarray:
@@ -111,8 +146,9 @@ class FittedChain:
         out = np.empty((matrix.shape[0], len(self.stages) + 1, self.outputs), dtype=np.float64)
         raw = start_block(self.start, matrix.shape[0], offset)
         out[:, 0] = raw
+        inputs = _Inputs(matrix)
         for k, stage in enumerate(self.stages, start=1):
-            raw += stage.scale * self._stage_output(stage, matrix)
+            raw += stage.scale * self._stage_output(stage, inputs)
             out[:, k] = raw
         return out
 
