@@ -85,7 +85,8 @@ class RemnantApp(BackgroundRunner, FitRunner, App):
         """Open the first screen for what the app was given."""
         s = self.start
         if s["fitted"] is not None:
-            self.push_screen(InspectScreen(view_of_fitted(s["fitted"], s["source"]), timings=self.timings, alone=True))
+            self.push_screen(InspectScreen(view_of_fitted(s["fitted"], s["source"]), timings=self.timings, alone=True,
+                                           fitted=s["fitted"]))
         elif s["recipe"] is not None and self.offer is not None:
             self.push_screen(ResumeScreen(self.offer, "fit the recipe afresh"), self._recipe_or_session)
         elif s["recipe"] is not None:

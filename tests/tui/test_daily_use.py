@@ -283,6 +283,29 @@ async def test_a_chain_file_whose_test_part_was_revealed_shows_the_test_column(t
         np.testing.assert_allclose([r.test for r in app.screen.view.rows], expected, rtol=1e-12)
 
 
+async def test_a_chain_file_shows_a_linear_stage_s_coefficients_without_standard_errors(tmp_path):
+    chain = stages.Chain.from_file(diabetes_csv(tmp_path), "progression", stages.Holdout(seed=0))
+    chain.add("linear")
+    chain.add("tree", 0.5, params={"max_depth": 2})
+    chain.save(tmp_path / "two.chain")
+    app = build_app(chain_path=str(tmp_path / "two.chain"), timings=False)
+    async with app.run_test(size=(120, 40)) as pilot:
+        await pilot.pause()
+        assert isinstance(app.screen, InspectScreen)
+        await pilot.press("up")  # from the tree stage to the linear stage
+        await pilot.pause()
+        learned = str(app.screen.query_one("#learned-body").render())
+        assert "coefficients" in learned
+        # reference: the loaded chain's own table (the engine's coefficients), bmi the strongest term
+        table = stages.load(tmp_path / "two.chain").coefficients(1)
+        assert table["std_error"].isna().all()
+        strongest = table.loc[table["coefficient"].abs().idxmax(), "term"]
+        assert strongest in learned
+        await pilot.press("down")  # a tree stage has no coefficients to show
+        await pilot.pause()
+        assert "coefficients" not in str(app.screen.query_one("#learned-body").render())
+
+
 # ----- 10: one word for the training part ---------------------------------------------------------
 async def test_the_training_part_is_called_train_everywhere_and_the_time_column_secs(tmp_path):
     app = build_app(data_path=str(diabetes_csv(tmp_path)), target="progression")

@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+from typing import TYPE_CHECKING
+
 from textual.app import ComposeResult
 from textual.binding import Binding
 from textual.containers import Container
@@ -15,6 +17,9 @@ from ..widgets.error_curve import ErrorCurve
 from ..widgets.stage_details import StageDetails
 from .panes import title_line
 
+if TYPE_CHECKING:
+    from stages import FittedChain
+
 NOTE = ("read-only: the scores are the ones stored in the file. Residuals need the data: open the "
         "data file to build on this chain.")
 
@@ -26,9 +31,11 @@ class InspectScreen(Screen):
 
     BINDINGS = [Binding("escape,b", "close", "back", tooltip="close the chain file (back to the workbench)")]
 
-    def __init__(self, view: ChainView, *, timings: bool = True, alone: bool = False) -> None:
+    def __init__(self, view: ChainView, *, timings: bool = True, alone: bool = False,
+                 fitted: FittedChain | None = None) -> None:
         super().__init__()
         self.view = view
+        self.fitted = fitted
         self.timings = timings
         self.alone = alone
 
@@ -49,6 +56,7 @@ class InspectScreen(Screen):
 
     def on_mount(self) -> None:
         """Show the stored chain, its last stage selected."""
+        self.query_one(StageDetails).chain = self.fitted
         table = self.query_one(ChainTable)
         table.show(self.view, self.view.n_stages)
         table.focus()

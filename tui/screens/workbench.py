@@ -245,7 +245,8 @@ class WorkbenchScreen(PaneActions, NextStageActions, Screen):
         from .inspect import InspectScreen
 
         self._finish(f"opened {event.path.name} read-only")
-        self.app.push_screen(InspectScreen(view_of_fitted(event.fitted, event.path.name), timings=self.timings))
+        self.app.push_screen(InspectScreen(view_of_fitted(event.fitted, event.path.name), timings=self.timings,
+                                          fitted=event.fitted))
 
     def _finish(self, summary: str) -> None:
         self._job_over().update(summary)

@@ -224,6 +224,24 @@ def dependence_text(table: pd.DataFrame, feature: str, rows: int, task: str, wid
     return text
 
 
+def stored_learned(fitted: Any, row: int, kind: str) -> dict[str, Any]:
+    """Return what stage ``row`` of a chain file learned that the file alone tells: a linear kind's
+    coefficients (without standard errors: they need the train rows) and a spline's curves.
+    These read the stored learner and a grid, not rows, so they are quick enough to ask directly."""
+    from stages.errors import RemnantError
+    from stages.understand.coefficient_table import LINEAR_KINDS
+
+    out: dict[str, Any] = {}
+    try:
+        if kind in LINEAR_KINDS:
+            out["coefficients"] = fitted.coefficients(row)
+        if kind == "spline":
+            out["curves"] = fitted.curves(row, points=24)
+    except RemnantError:  # a task the tables are not for (a multiclass chain): nothing to add
+        return {}
+    return out
+
+
 class StageDetails(VerticalScroll):
     """A scrolling pane with the details of the selected row; the screen sets ``chain`` and ``feature``."""
 
@@ -254,6 +272,9 @@ class StageDetails(VerticalScroll):
         self.border_title = "start value" if stage is None else f"stage {row} · {stage.kind}"
         self.body.update(start_text(view) if stage is None else stage_text(view, stage, width, self.timings))
         self.wanted = None
+        if stage is not None and view.read_only and self.chain is not None:
+            self._take(stored_learned(self.chain, row, stage.kind))
+            return
         if stage is None or self.chain is None or view.read_only or not view.stage_objects:
             self.learned_body.update("")
             return
