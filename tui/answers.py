@@ -36,17 +36,21 @@ def _state(view: ChainView, row: int) -> tuple[int, ...]:
     return stage_key(view.stage_objects[:row])
 
 
-def view_question(owner: MessagePump, view: ChainView, row: int, mode: str) -> Question | None:
-    """Return the question behind a residual view that reads only the snapshot, or None without residuals."""
+def view_question(owner: MessagePump, view: ChainView, row: int, mode: str,
+                  klass: int | None = None) -> Question | None:
+    """Return the question behind a residual view that reads only the snapshot, or None without residuals;
+    ``klass`` picks the class whose pseudo-residuals the histogram shows (multiclass; None: each row's own)."""
     source = view.residuals
     if source is None:
         return None
     compute: dict[str, Callable[[], Any]] = {
-        "histogram": lambda: figures.residual_histogram(source, row, view.task),
+        "histogram": lambda: figures.residual_histogram(source, row, view.task, klass),
         "fitted": lambda: figures.against_fitted(source, row),
         "classes": lambda: figures.by_class(source, row, view.classes),
+        "probabilities": lambda: figures.true_class_histogram(source, row),
     }
-    return Question((mode, id(source), _state(view, row)), compute[mode], owner, "residuals")
+    key = (mode, klass if mode == "histogram" else None, id(source), _state(view, row))
+    return Question(key, compute[mode], owner, "residuals")
 
 
 def _chain_question(owner: MessagePump, chain: Any, view: ChainView, row: int, channel: str, key: tuple,
@@ -99,6 +103,13 @@ def calibration_question(owner: MessagePump, chain: Any, view: ChainView, row: i
         return figures.Calibration.of(table), table
 
     return _chain_question(owner, chain, view, row, "residuals", ("calibration",), compute)
+
+
+def confusion_question(owner: MessagePump, chain: Any, view: ChainView, row: int) -> Question:
+    """Return the question of the confusion matrix of the validation part after ``row`` (true classes
+    as rows, predicted ones as columns, in the chain's class order)."""
+    return _chain_question(owner, chain, view, row, "residuals", ("confusion",),
+                           lambda: chain.confusion(part="valid", row=row))
 
 
 def learned_question(owner: MessagePump, chain: Any, view: ChainView, row: int, feature: str | None) -> Question:

@@ -82,11 +82,16 @@ def _mean_and_spread(values: np.ndarray) -> tuple[float, float]:
     return float(finite.mean()), float(finite.std())
 
 
-def residual_histogram(source: ResidualSource, row: int, task: str) -> Histogram:
+def residual_histogram(source: ResidualSource, row: int, task: str, klass: int | None = None) -> Histogram:
     """Return the train and validation residuals after ``row``, binned on shared edges (tails folded
-    into the end bins for regression)."""
-    train, valid = source.residuals("train", row), source.residuals("valid", row)
-    shown = display_range([train, valid]) if task != "binary" else None
+    into the end bins for regression). For a multiclass chain they are the pseudo-residuals of each
+    row's own class, or with ``klass`` those of class ``klass`` (1[y = k] - p_k) on every row."""
+    if klass is None:
+        train, valid = source.residuals("train", row), source.residuals("valid", row)
+    else:
+        train, valid = source.class_residuals("train", row, klass), source.class_residuals("valid", row, klass)
+    # pseudo-residuals of a classifier lie within [-1, 1]: nothing to fold
+    shown = display_range([train, valid]) if task == "regression" else None
     clipped = [train, valid] if shown is None else [np.clip(v, *shown) for v in (train, valid)]
     # numpy's own bin rule on small parts; on large ones it asks for more bins than fit, so go
     # straight to the most there is room for (same result, no quantiles of a million rows)
@@ -118,6 +123,19 @@ def by_class(source: ResidualSource, row: int, classes: tuple[str, ...]) -> Hist
     negative, positive = classes[:2] if len(classes) == 2 else ("0", "1")
     return Histogram({negative: np.histogram(p[y == 0], edges)[0], positive: np.histogram(p[y == 1], edges)[0]},
                      edges)
+
+
+#: the bins of [0, 1] the probability views use
+PROBABILITY_BINS = 20
+
+
+def true_class_histogram(source: ResidualSource, row: int) -> Histogram:
+    """Return the predicted probability of each row's own class after ``row``, train and validation
+    rows in ``PROBABILITY_BINS`` bins of [0, 1], with each part's mean and spread."""
+    train, valid = source.true_probability("train", row), source.true_probability("valid", row)
+    edges = np.linspace(0.0, 1.0, PROBABILITY_BINS + 1)
+    return Histogram({"train": np.histogram(train, edges)[0], "valid": np.histogram(valid, edges)[0]}, edges,
+                     stats={"train": _mean_and_spread(train), "valid": _mean_and_spread(valid)})
 
 
 def _ticks(plt: Any, axis: str, low: float, high: float, room: int) -> None:

@@ -66,6 +66,20 @@ class ResidualSource:
         chain, 1 - p of each row's own class: ``scoring.shown_residual``)."""
         return scoring.shown_residual(self.loss, self.targets(part), self.raw(part, row))
 
+    def class_residuals(self, part: Part, row: int, k: int) -> np.ndarray:
+        """Return class ``k``'s pseudo-residuals 1[y = k] - p_k on ``part`` after row ``row`` (multiclass)."""
+        return self.loss.display_residual(self.targets(part), self.raw(part, row))[:, k]
+
+    def true_probability(self, part: Part, row: int) -> np.ndarray:
+        """Return the predicted probability of each row's own class on ``part`` after row ``row``
+        (multiclass; for binary chains, of the positive class where y is 1 and the negative where 0)."""
+        y = np.asarray(self.targets(part), dtype=np.intp)
+        p = self.loss.link(self.raw(part, row))
+        if p.ndim == 2 and p.shape[1] > 1:
+            return p[np.arange(len(y)), y]
+        p = p.reshape(-1)
+        return np.where(y == 1, p, 1.0 - p)
+
     def fitted(self, part: Part, row: int) -> np.ndarray:
         """Return the predictions (probabilities for binary chains) on ``part`` after row ``row``."""
         return squeeze(self.loss.link(self.raw(part, row)))

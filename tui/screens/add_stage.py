@@ -26,7 +26,7 @@ from .form import FormError, FormScreen, engine_error
 #: the option that stands for any scikit-learn regressor, named by its import path
 SKLEARN = "sklearn:"
 #: kinds that only fit one task
-ONLY_FOR = {"logistic": "binary"}
+ONLY_FOR = {"logistic": ("binary", "multiclass")}
 #: the field that holds each key of a stage
 FIELDS = {"kind": "kind", "shrinkage": "shrinkage", "features": "features", "params": "more", "repeat": "repeat"}
 #: our starting shrinkage per kind: full steps for kinds fit once, smaller for trees (common practice)
@@ -51,9 +51,9 @@ ORDER = ("logistic", "linear", "ridge", "lasso", "tree", "hist_tree", "forest", 
 
 
 def kinds_for(task: Task) -> list[str]:
-    """Return the kinds offered for a chain of ``task``, in ``ORDER`` (a binary chain's ``logistic``
-    first; kinds registered later after them)."""
-    kinds = [k for k in kind_names() if ONLY_FOR.get(k, task) == task]
+    """Return the kinds offered for a chain of ``task``, in ``ORDER`` (a binary or multiclass chain's
+    ``logistic`` first; kinds registered later after them)."""
+    kinds = [k for k in kind_names() if task in ONLY_FOR.get(k, (task,))]
     return sorted(kinds, key=lambda k: (ORDER.index(k) if k in ORDER else len(ORDER), k))
 
 

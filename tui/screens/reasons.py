@@ -11,7 +11,8 @@ from typing import Any
 #: key -> the action it does, for the hidden bindings that explain a key that cannot act
 EXPLAINED = {"a": "add_stage", "b": "step_back", "d": "drop_stage", "t": "trim", "u": "undo", "n": "audition",
              "g": "grow", "r": "reveal_test", "s": "save_chain", "e": "export_recipe", "o": "open_chain",
-             "v": "switch_view", "m": "references", "p": "next_pane", "z": "zoom", "c": "cancel_fit"}
+             "v": "switch_view", "m": "references", "p": "next_pane", "z": "zoom", "c": "cancel_fit",
+             "k": "next_class"}
 
 
 def why_not(action: str, screen: Any) -> str:
@@ -19,7 +20,7 @@ def why_not(action: str, screen: Any) -> str:
     app, view = screen.app, screen.view
     if action == "cancel_fit":
         return "nothing is running to cancel" if not app.fitting else "this job cannot be cancelled: it is quick"
-    if app.fitting and action not in ("switch_view", "next_pane", "zoom"):
+    if app.fitting and action not in ("switch_view", "next_pane", "zoom", "next_class"):
         return f"{app.job_label} is running: wait for it, or cancel it (c)"
     if view is None or screen.chain is None:
         return "the chain is not ready yet"
@@ -38,5 +39,7 @@ def why_not(action: str, screen: Any) -> str:
         "zoom": lambda: "the error curve is not on screen (p shows it)" if not screen.curve_shown()
         else "nothing to zoom onto yet: the chain needs a few stages",
         "references": lambda: "the references can be fitted once the fit is done",
+        "next_class": lambda: (f"k picks the class of a multiclass chain's residuals; this chain is {view.task}"
+                               if view.task != "multiclass" else "no residuals to view here"),
     }
     return reasons.get(action, lambda: "not now")()

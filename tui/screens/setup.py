@@ -62,6 +62,12 @@ def losses_for(task: Task) -> list[str]:
     return loss_names(task)
 
 
+def task_and_classes(values: pd.Series, source: str, target: str) -> tuple[Task, int]:
+    """Return the task a target column infers and, for a multiclass one, its number of classes (else 0)."""
+    task = infer_task(values, source=source, target=target)
+    return task, int(values.dropna().astype("string").nunique()) if task == "multiclass" else 0
+
+
 class SetupScreen(Screen):
     """Choose what to predict and how to validate, then start the chain."""
 
@@ -83,6 +89,7 @@ class SetupScreen(Screen):
         self.excluded: set[str] = set()
         self.dates: dict[str, tuple[str, ...]] = {}
         self.chain_task: Task | None = None
+        self.n_classes = 0
         self.task_problem = ""
         self.cache = ImportanceCache()
         self.wanted: dict[str, Any] = {}
@@ -161,10 +168,11 @@ class SetupScreen(Screen):
             loss.set_options([])
             self._say(f"cannot use {self.target!r} as the target: {self.task_problem}")
             return
-        self.chain_task, self.task_problem = answer, ""
-        task_label.update(answer)
-        loss.set_options([(name, name) for name in losses_for(answer)])
-        loss.value = default_loss(answer)
+        task, classes = answer
+        self.chain_task, self.task_problem, self.n_classes = task, "", classes
+        task_label.update(f"multiclass · {classes} classes" if task == "multiclass" else task)
+        loss.set_options([(name, name) for name in losses_for(task)])
+        loss.value = default_loss(task)
         self._say(self._readiness())
 
     def _readiness(self) -> str:
@@ -177,6 +185,9 @@ class SetupScreen(Screen):
             return f"cannot use {self.target!r} as the target: {self.task_problem}"
         if self.chain_task is None:
             return f"working out what {self.target!r} holds …"
+        if self.chain_task == "multiclass":
+            return (f"ready: ctrl+s starts · {self.target!r} has {self.n_classes} classes: a multiclass chain "
+                    "(one raw score per class, softmax)")
         return "ready: ctrl+s starts"
 
     # ----- choices ---------------------------------------------------------------------
@@ -194,8 +205,7 @@ class SetupScreen(Screen):
             return
         task_label.update("…")
         values, source, target = self.frame[self.target], self.source, self.target
-        self._ask("task", ("task", id(self.frame), target),
-                  lambda: infer_task(values, source=source, target=target))
+        self._ask("task", ("task", id(self.frame), target), lambda: task_and_classes(values, source, target))
         self._say(self._readiness())
 
     @on(Select.Changed, "#target")

@@ -77,7 +77,11 @@ class WorkbenchScreen(PaneActions, NextStageActions, Screen):
         Binding("s", "save_chain", "save", show=False, tooltip="save the chain file"),
         Binding("v", "switch_view", "view", show=False,
                 tooltip="residual pane: histogram, against fitted (probabilities by class), against a feature "
-                        "ranked by the scan, largest residuals, calibration (binary)"),
+                        "ranked by the scan, largest residuals, calibration (binary); probability of the true "
+                        "class and the confusion matrix (multiclass)"),
+        Binding("k", "next_class", "class",
+                tooltip="multiclass: the class whose pseudo-residuals the histogram shows (after the last, each "
+                        "row's own class again)"),
         Binding("p", "next_pane", "pane", tooltip="small terminal: show the next pane beside the table"),
         Binding("z", "zoom", "zoom", show=False, tooltip="error curve: zoom onto the last stages, or show them all"),
         Binding("e", "export_recipe", "recipe", show=False, tooltip="export the recipe (TOML)"),
@@ -275,6 +279,8 @@ class WorkbenchScreen(PaneActions, NextStageActions, Screen):
             return self.small
         if action == "zoom":
             return self.curve_shown() and self.view is not None and self.view.n_stages >= 3
+        if action == "next_class":
+            return self.view is not None and self.view.task == "multiclass" and self.view.residuals is not None
         if action not in CHANGES and action != "switch_view":
             return True
         if self.app.fitting and action in CHANGES:
@@ -350,6 +356,15 @@ class WorkbenchScreen(PaneActions, NextStageActions, Screen):
         hint = " · tab to the pane, then up/down move through the features, w ranks by spread" if \
             pane.mode == "feature" else ""
         self.query_one("#result", Static).update(f"residual pane: {mode} (v for the next view){hint}")
+
+    def action_next_class(self) -> None:
+        """Show the pseudo-residuals of the next class in the residual pane's histogram (multiclass)."""
+        pane = self.query_one(ResidualPane)
+        if self.small and self.side != "residuals":
+            self.side = "residuals"
+            self._layout()
+        shown = pane.next_class()
+        self.query_one("#result", Static).update(f"residual pane: pseudo-residuals of {shown} (k for the next class)")
 
     def _ask_path(self, title: str, suffix: str, then: Callable[[Path], None], must_exist: bool = False) -> None:
         view = self.view

@@ -12,7 +12,8 @@ from textual.message import Message
 from textual.widgets import Select
 from textual.widgets._select import SelectOverlay
 
-#: what each kind does to a regression chain's residuals, and to a binary chain's log-odds
+#: what each kind does to a regression chain's residuals, to a binary chain's log-odds, and to a
+#: multiclass chain's K raw scores (one per class)
 DOES = {
     "regression": {
         "mean": "shifts every prediction by one value",
@@ -40,6 +41,20 @@ DOES = {
         "lightgbm": "boosted trees on the log loss",
         "knn": "nearest rows' pseudo-residuals",
         "spline": "a smooth curve per feature, on the log-odds",
+    },
+    "multiclass": {
+        "logistic": "multinomial logistic on the K scores",
+        "mean": "shifts each class's score by one value",
+        "linear": "a line per class, on its pseudo-residuals",
+        "ridge": "a shrunk line per class",
+        "lasso": "a sparse line per class",
+        "tree": "one tree per class, Newton leaves",
+        "hist_tree": "one binned tree per class, Newton leaves",
+        "forest": "one forest of all K pseudo-residuals",
+        "extra_trees": "randomised trees of all K pseudo-residuals",
+        "lightgbm": "boosted trees on the multinomial loss",
+        "knn": "nearest rows' pseudo-residuals, per class",
+        "spline": "a smooth curve per feature and class",
     },
 }
 

@@ -8,7 +8,13 @@
   the validation residuals in the bins of the highlighted one; up and down move through the
   ranking, ``w`` ranks by the spread instead of the mean;
 - ``largest``: the validation rows the chain gets most wrong, with their id;
-- ``calibration`` (binary): predicted probability against the observed rate.
+- ``calibration`` (binary): predicted probability against the observed rate;
+- ``probabilities`` (multiclass): the predicted probability of each row's true class, train over
+  validation, and ``confusion``: the confusion matrix of the validation part.
+
+On a multiclass chain the histogram shows one pseudo-residual a row: by default each row's own
+class (1 - p_y); ``k`` (on the main screen) picks a class k instead (1[y = k] - p_k on every
+row). The scan reads one residual a row, so on a multiclass chain its view says so.
 
 Every figure is computed in a worker (``tui.answers``) and cached per chain state; until it
 arrives the pane says what it is computing.
@@ -42,11 +48,16 @@ if TYPE_CHECKING:
 #: the views one key cycles through, per task
 MODES = {"regression": ("histogram", "fitted", "feature", "largest"),
          "binary": ("histogram", "classes", "feature", "largest", "calibration"),
-         "multiclass": ("histogram", "largest")}
+         "multiclass": ("histogram", "probabilities", "confusion", "largest", "feature")}
 #: what each view is called in the status line
 MODE_NAMES = {"histogram": "histogram", "fitted": "against fitted values", "classes": "probabilities by class",
               "feature": "against a feature, ranked by the scan", "largest": "largest residuals",
-              "calibration": "calibration"}
+              "calibration": "calibration", "probabilities": "probability of the true class",
+              "confusion": "confusion matrix of the validation part"}
+#: what the scan view says on a multiclass chain
+SCAN_NOT_MULTICLASS = ("the residual scan ranks the features by one residual a row: it is for regression and "
+                       "binary chains. A multiclass chain has one residual per class; the histogram (k picks "
+                       "the class), the probabilities and the confusion matrix show where its error lives.")
 #: the width of the scan's ranking beside the plot
 RANKING_WIDTH = 22
 
@@ -59,6 +70,37 @@ def stats_text(stats: dict[str, tuple[float, float]]) -> str:
     mean_text = column_text(means, digits=3, signed=True, missing="-")
     spread_text = column_text([stats[n][1] for n in names], digits=3, missing="-")
     return " ".join(f"{n} {m}±{s}" for n, m, s in zip(names, mean_text, spread_text, strict=True))
+
+
+#: the widest a class name is shown in the confusion matrix
+CLASS_WIDTH = 12
+
+
+def _short(name: str, width: int) -> str:
+    return name if len(name) <= width else name[: max(1, width - 1)] + "…"
+
+
+def confusion_text(table: pd.DataFrame, room: int = 80) -> Text:
+    """Return a confusion table (``stages.report.confusion``) as text: one line per true class with its
+    counts under the predicted classes (the diagonal, the rows predicted right, in bold) and the share
+    of its rows predicted right; class names are cut to fit ``room`` cells."""
+    counts = table.to_numpy(dtype=np.int64)
+    names = [str(c) for c in table.columns]
+    label_width = min(CLASS_WIDTH, max(len("true"), *(len(n) for n in names)))
+    share = max(6, (room - label_width - 7) // max(1, len(names)) - 1)
+    width = max(len(str(int(counts.max()))) if counts.size else 1, min(share, max(len(n) for n in names)), 3)
+    totals = counts.sum(axis=1)
+    right = column_text([(counts[i, i] / t) if t else float("nan") for i, t in enumerate(totals)],
+                        digits=3, missing="-")
+    text = Text(no_wrap=True, overflow="ellipsis")
+    header = "true".ljust(label_width) + " " + " ".join(_short(n, width).rjust(width) for n in names)
+    text.append(header + "  right\n", style="bold")
+    for i, name in enumerate(names):
+        text.append(_short(name, label_width).ljust(label_width))
+        for j in range(len(names)):
+            text.append(" " + str(int(counts[i, j])).rjust(width), style="bold" if i == j else "")
+        text.append(f"  {right[i]:>5}\n")
+    return text
 
 
 class ResidualPane(Vertical, can_focus=True):
@@ -96,6 +138,8 @@ class ResidualPane(Vertical, can_focus=True):
         self.mode = "histogram"
         self.feature: str | None = None
         self.by_spread = False
+        #: the class whose pseudo-residuals the histogram shows (multiclass); None: each row's own class
+        self.klass: int | None = None
         self.scan: pd.DataFrame | None = None
         self.wanted: Any = None
         self.plot = ResidualPlot(id="residual-plot")
@@ -125,6 +169,8 @@ class ResidualPane(Vertical, can_focus=True):
         self.view, self.row = view, row
         if self.mode not in self.modes:
             self.mode = "histogram"
+        if view.task != "multiclass" or (self.klass is not None and self.klass >= len(view.classes)):
+            self.klass = None
         self._arrange()
         self._ask()
 
@@ -136,15 +182,35 @@ class ResidualPane(Vertical, can_focus=True):
             self.show(self.view, self.row)
         return MODE_NAMES[self.mode]
 
+    def next_class(self) -> str:
+        """Show the histogram of the next class's pseudo-residuals (after the last class, each row's own
+        class again) and return what it shows."""
+        classes = self.view.classes if self.view is not None else ()
+        if not classes:
+            return "no classes to pick"
+        self.klass = 0 if self.klass is None else (None if self.klass + 1 >= len(classes) else self.klass + 1)
+        self.mode = "histogram"
+        if self.view is not None:
+            self.show(self.view, self.row)
+        return self.class_words()
+
+    def class_words(self, formula: bool = True) -> str:
+        """Return whose pseudo-residuals the histogram shows: a class, or each row's own class (with the
+        formula, unless ``formula`` is False)."""
+        if self.klass is None or self.view is None:
+            return "each row's own class" + (" (1 - p of that class)" if formula else "")
+        return f"class {self.view.classes[self.klass]}" + (" (1[y = k] - p_k on every row)" if formula else "")
+
     def _arrange(self) -> None:
         # beside the plot when both fit, else above it (a small terminal); only changes are set,
         # since each one lays the screen out again
         stacked = self.size.width < RANKING_WIDTH + 30
         if self.has_class("-stacked") != stacked:
             self.set_class(stacked, "-stacked")
-        for widget, shown in ((self.ranking, self.mode == "feature"),
-                              (self.query_one("#residual-body"), self.mode != "largest"),
-                              (self.query_one("#rows-scroll"), self.mode == "largest")):
+        listed = self.mode in ("largest", "confusion")
+        for widget, shown in ((self.ranking, self.mode == "feature" and not self._multiclass),
+                              (self.query_one("#residual-body"), not listed),
+                              (self.query_one("#rows-scroll"), listed)):
             if widget.display != shown:
                 widget.display = shown
 
@@ -153,6 +219,10 @@ class ResidualPane(Vertical, can_focus=True):
         self._arrange()
         if self.mode == "feature" and self.scan is not None:
             self.call_after_refresh(self._show_ranking)
+
+    @property
+    def _multiclass(self) -> bool:
+        return self.view is not None and self.view.task == "multiclass"
 
     def _where(self) -> str:
         return "start" if self.row == 0 else f"stage {self.row}"
@@ -163,6 +233,12 @@ class ResidualPane(Vertical, can_focus=True):
         if view is None or view.residuals is None:
             self.border_title = "residuals"
             self.plot.draw(None, "no residuals to show")
+            return
+        if self.mode == "feature" and self._multiclass:
+            self.wanted = None
+            self.border_title = f"scan · {self._where()} · not for a multiclass chain"
+            self.border_subtitle = "v for the next view"
+            self.plot.draw(None, SCAN_NOT_MULTICLASS)
             return
         question = self._question()
         if question is None:
@@ -178,10 +254,12 @@ class ResidualPane(Vertical, can_focus=True):
         view, chain, row = self.view, self.chain, self.row
         if view is None:
             return None
-        if self.mode in ("histogram", "fitted", "classes"):
-            return answers.view_question(self, view, row, self.mode)
+        if self.mode in ("histogram", "fitted", "classes", "probabilities"):
+            return answers.view_question(self, view, row, self.mode, self.klass)
         if chain is None:
             return None
+        if self.mode == "confusion":
+            return answers.confusion_question(self, chain, view, row)
         if self.mode == "feature":
             if self.scan is None or self.scan.attrs.get("state") != answers.stage_key(view.stage_objects[:row]):
                 return answers.scan_question(self, chain, view, row)
@@ -193,12 +271,13 @@ class ResidualPane(Vertical, can_focus=True):
     def _waiting(self) -> None:
         what = {"histogram": "binning the residuals", "fitted": "sampling the residuals",
                 "classes": "binning the probabilities", "feature": "scanning the features",
-                "largest": "finding the largest residuals", "calibration": "binning the probabilities"}[self.mode]
+                "largest": "finding the largest residuals", "calibration": "binning the probabilities",
+                "probabilities": "binning the probabilities", "confusion": "counting the classes"}[self.mode]
         if self.mode == "feature" and self.scan is not None:
             what = f"binning the residuals by {self._current_feature()}"
-        if self.app.fitting and self.mode in ("feature", "largest", "calibration"):
+        if self.app.fitting and self.mode in ("feature", "largest", "calibration", "confusion"):
             what += " (after the fit)"
-        if self.mode == "largest":
+        if self.mode in ("largest", "confusion"):
             self.rows_text.update(Text(f"… {what}", style="dim"))
         else:
             self.plot.draw(None, f"… {what}")
@@ -237,6 +316,8 @@ class ResidualPane(Vertical, can_focus=True):
             self._binned(answer)
         elif isinstance(answer, tuple) and isinstance(answer[0], Calibration):
             self._calibration(*answer)
+        elif isinstance(answer, pd.DataFrame) and answer.index.name == "true":
+            self._confusion(answer)
         elif isinstance(answer, pd.DataFrame):
             self._largest(answer)
 
@@ -249,6 +330,12 @@ class ResidualPane(Vertical, can_focus=True):
             self.border_title = f"valid probability · {where} · █ class {negative} • class {positive}"
             total = {name: int(c.sum()) for name, c in figure.counts.items()}
             self.border_subtitle = f"rows: {negative} {total[negative]:,} · {positive} {total[positive]:,}"
+        elif self.mode == "probabilities":
+            self.border_title = f"probability of the true class · {where} · █ train • valid"
+            self.border_subtitle = f"mean±sd {stats_text(figure.stats)}" if figure.stats else ""
+        elif self._multiclass:
+            self.border_title = f"pseudo-residuals of {self.class_words(False)} · {where} · █ train • valid"
+            self.border_subtitle = "k picks the class" + (f" · mean±sd {stats_text(figure.stats)}" if figure.stats else "")
         else:
             word = "pseudo-residuals y-p" if self.view.task == "binary" else "residuals"
             self.border_title = f"{word} · {where} · █ train • valid"
@@ -316,10 +403,13 @@ class ResidualPane(Vertical, can_focus=True):
         has_id = "id" in table.columns
         name = (self.view.id_column or "id") if has_id else "row"
         before = f"residual_after_{self.row - 1}" if self.row else None
+        multiclass = self._multiclass
+        classes = self.view.classes
         cells = {
             name: [str(v) for v in (table["id"] if has_id else table["position"] + 1)],
-            "actual": column_text(table["actual"], distinguish=False),
-            "fitted": column_text(table["fitted"], distinguish=False),
+            "actual": ([classes[int(c)] for c in table["actual"]] if multiclass
+                       else column_text(table["actual"], distinguish=False)),
+            ("p of it" if multiclass else "fitted"): column_text(table["fitted"], distinguish=False),
             "residual": column_text(table["residual"], signed=True, distinguish=False),
         }
         if before is not None:
@@ -335,6 +425,15 @@ class ResidualPane(Vertical, can_focus=True):
         self.border_title = f"largest valid residuals · {self._where()}"
         rows = self.view.residuals.targets("valid").size if self.view.residuals is not None else len(table)
         self.border_subtitle = f"{len(table)} of {rows:,} rows" + (" · before: the stage before" if before else "")
+
+    def _confusion(self, table: pd.DataFrame) -> None:
+        self.rows_text.update(confusion_text(table, self.size.width - 2))
+        counts = table.to_numpy()
+        total = int(counts.sum())
+        right = int(np.trace(counts))
+        self.border_title = f"confusion matrix · valid · {self._where()}"
+        share = column_text([right / total], digits=3)[0] if total else "-"
+        self.border_subtitle = f"rows: true class · columns: predicted · accuracy {share} of {total:,} rows"
 
     def _calibration(self, figure: Calibration, table: pd.DataFrame) -> None:
         self.border_title = f"calibration · {self._where()} · ● observed rate ·· perfect"

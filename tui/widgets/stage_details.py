@@ -242,6 +242,11 @@ def stored_learned(fitted: Any, row: int, kind: str) -> dict[str, Any]:
     return out
 
 
+#: what the details say of a multiclass stage in place of what it learned
+LEARNED_NOT_MULTICLASS = ("partial dependence, coefficients and spline curves read one raw score a row: they "
+                          "are for regression and binary chains; this multiclass stage has one per class")
+
+
 class StageDetails(VerticalScroll):
     """A scrolling pane with the details of the selected row; the screen sets ``chain`` and ``feature``."""
 
@@ -272,6 +277,9 @@ class StageDetails(VerticalScroll):
         self.border_title = "start value" if stage is None else f"stage {row} · {stage.kind}"
         self.body.update(start_text(view) if stage is None else stage_text(view, stage, width, self.timings))
         self.wanted = None
+        if stage is not None and self.chain is not None and view.task == "multiclass":
+            self.learned_body.update(Text(f"\n{LEARNED_NOT_MULTICLASS}", style="dim"))
+            return
         if stage is not None and view.read_only and self.chain is not None:
             self._take(stored_learned(self.chain, row, stage.kind))
             return
