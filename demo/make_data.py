@@ -10,6 +10,9 @@ same bytes to ``tui/demo/deliveries.csv`` (the demo data ships with the ``remnan
 The signal is built so that a residual chain has something to find at each step: a broad
 additive trend a linear stage catches, then rush hours, a heat threshold for heavy loads and
 road works scaling with distance that only trees catch. See ``demo/README.md``.
+
+It also writes ``tui/demo/delay_causes.csv``, the multiclass demo: the same deliveries with the
+main cause of each one's delay (none, rush traffic, road works, a cooling stop, a yard queue).
 """
 
 from __future__ import annotations
@@ -45,6 +48,18 @@ HEAVY_LOAD_KG = 1800.0
 SENSOR_GAP = {"door_open_min": 0.06, "compressor_duty": 0.07}
 #: where the demo data lives: package data of the workbench, so it ships with remnant
 DEFAULT_OUT = Path(__file__).resolve().parent.parent / "tui" / "demo" / "deliveries.csv"
+#: the multiclass demo: the main cause of each delivery's delay, beside the deliveries
+CAUSES_OUT = DEFAULT_OUT.with_name("delay_causes.csv")
+#: the causes a dispatcher records, in the order their log-odds are built below
+CAUSES = ("none", "rush_traffic", "road_works", "cooling_stop", "yard_queue")
+# How much each depot's loading yard makes a queue the main cause (log-odds, Saltmarsh 0).
+YARD_QUEUE = {
+    "Saltmarsh": 0.0,
+    "Copperhill": 1.6,
+    "Lindenyard": -1.3,
+    "Brackenfield": 2.6,
+    "Kestrel Point": 0.6,
+}
 
 
 def _dates(rng: np.random.Generator, rows: int) -> np.ndarray:
@@ -199,6 +214,48 @@ def make_deliveries(rows: int = 4000, seed: int = 7) -> pd.DataFrame:
     return frame
 
 
+def _cause_log_odds(frame: pd.DataFrame) -> np.ndarray:
+    """Return one column of log-odds per cause in ``CAUSES``: what makes each the main delay cause."""
+    distance = frame["distance_km"].to_numpy()
+    hour = frame["hour"].to_numpy()
+    workday = frame["weekday"].to_numpy() < 5
+    rush = np.where(workday, 1.0, 0.3) * (((hour >= 7) & (hour <= 9)) | ((hour >= 16) & (hour <= 18)))
+    works = frame["road_works"].to_numpy(dtype=float)
+    heat = _heavy_in_heat(frame)
+    return np.column_stack([
+        3.2 - 0.032 * distance - 0.16 * frame["stops"].to_numpy() + 0.08 * frame["driver_years"].to_numpy(),
+        -1.3 + 4.2 * rush,
+        -4.8 + works * (5.1 + 0.04 * distance),
+        -3.0 + 7.2 * heat + 0.08 * (frame["outside_temp_c"].to_numpy() - 14.0),
+        -2.6 + frame["depot"].map(YARD_QUEUE).to_numpy() + 0.16 * frame["stops"].to_numpy(),
+    ])
+
+
+def make_delay_causes(rows: int = 4000, seed: int = 7) -> pd.DataFrame:
+    """Generate the multiclass demo data: the deliveries' features and the main cause of each delay.
+
+    Parameters
+    ----------
+    rows, seed : int
+        As for ``make_deliveries``: the same deliveries, row for row.
+
+    Returns
+    -------
+    pandas.DataFrame
+        The columns of ``make_deliveries`` without its two targets, and the target ``delay_cause``:
+        one of ``CAUSES``, drawn for each row from the softmax of ``_cause_log_odds`` with a random
+        stream of its own (the deliveries' draws are not changed by it).
+    """
+    frame = make_deliveries(rows=rows, seed=seed).drop(columns=["minutes_late", "cargo_out_of_band"])
+    logits = _cause_log_odds(frame)
+    probability = np.exp(logits - logits.max(axis=1, keepdims=True))
+    probability /= probability.sum(axis=1, keepdims=True)
+    draw = np.random.default_rng([seed, 16]).random(len(frame))[:, None]
+    chosen = (draw > probability.cumsum(axis=1)).sum(axis=1).clip(0, len(CAUSES) - 1)
+    frame["delay_cause"] = np.array(CAUSES)[chosen]
+    return frame
+
+
 def write_csv(frame: pd.DataFrame, path: Path) -> None:
     """Write ``frame`` as CSV: booleans as true/false, missing values as empty cells."""
     out = frame.copy()
@@ -219,10 +276,20 @@ def main(argv: list[str] | None = None) -> int:
         default=DEFAULT_OUT,
         help="CSV file to write (default: deliveries.csv next to this script)",
     )
+    parser.add_argument(
+        "--causes-out",
+        type=Path,
+        default=CAUSES_OUT,
+        help="CSV file for the multiclass demo, the delay causes (default: delay_causes.csv beside it)",
+    )
     args = parser.parse_args(argv)
     frame = make_deliveries(rows=args.rows, seed=args.seed)
     write_csv(frame, args.out)
     print(f"wrote {len(frame)} rows to {args.out.name}")
+    if args.causes_out is not None:
+        causes = make_delay_causes(rows=args.rows, seed=args.seed)
+        write_csv(causes, args.causes_out)
+        print(f"wrote {len(causes)} rows to {args.causes_out.name}")
     return 0
 
 

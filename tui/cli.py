@@ -73,7 +73,8 @@ def _add_format(command: argparse.ArgumentParser) -> None:
 _RAW = argparse.RawDescriptionHelpFormatter
 _DEMO = """Open the workbench on the built-in demo data (refrigerated deliveries) with
 its demo chain started. With --headless, fit the demo recipe without a screen
-and print the stage table."""
+and print the stage table. With --multiclass, the multiclass demo instead: the
+main cause of each delivery's delay (delay_causes.toml)."""
 _EXPLORE = """Open the workbench on a CSV or Parquet file. Given a chain file (.chain),
 open it read-only."""
 _FIT = """Fit a TOML recipe without a screen, print the stage table and write the
@@ -135,6 +136,8 @@ def _add_workbench_commands(commands: Any) -> None:
     demo = commands.add_parser("demo", help="the workbench on the built-in delivery data", description=_DEMO,
                                formatter_class=_RAW)
     demo.add_argument("--headless", action="store_true", help="fit the demo recipe and print the stage table")
+    demo.add_argument("--multiclass", action="store_true",
+                      help="the multiclass demo: which cause delayed each delivery (delay_causes.toml)")
     _add_format(demo)
     demo.set_defaults(run=run_demo)
     explore = commands.add_parser("explore", help="the workbench on a CSV or Parquet file (or a chain file)",
@@ -388,9 +391,10 @@ def run_fit(args: argparse.Namespace) -> int:
 def run_demo(args: argparse.Namespace) -> int:
     """Fit the demo recipe and print its table (--headless), or open the workbench on the demo."""
     folder = demo_folder()
-    recipe_path = folder / "deliveries.toml"
+    name = "delay_causes" if args.multiclass else "deliveries"
+    recipe_path = folder / f"{name}.toml"
     if not args.headless:
-        return _open_app(data_path=str(folder / "deliveries.csv"), recipe_path=str(recipe_path))
+        return _open_app(data_path=str(folder / f"{name}.csv"), recipe_path=str(recipe_path))
     from stages.files.recipe import read_recipe
 
     chain = _fit_with_progress(read_recipe(recipe_path), None)

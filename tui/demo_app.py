@@ -20,13 +20,15 @@ def demo_folder() -> Path:
     return Path(tui.__file__).resolve().parent / "demo"
 
 
-def demo_app(*, timings: bool = True, binary: bool = False, sessions: bool = False) -> RemnantApp:
-    """Return the app on the demo recipe (``binary`` for the spoilage recipe); it starts fitting when run.
+def demo_app(*, timings: bool = True, binary: bool = False, multiclass: bool = False,
+             sessions: bool = False) -> RemnantApp:
+    """Return the app on the demo recipe (``binary`` for the spoilage recipe, ``multiclass`` for the
+    delay causes); it starts fitting when run.
 
     It saves no session unless asked (``sessions``), so a screenshot never replaces the
     user's own session of the demo data; ``remnant demo`` saves one.
     """
     from .app import build_app
 
-    recipe = "deliveries_binary.toml" if binary else "deliveries.toml"
+    recipe = "delay_causes.toml" if multiclass else "deliveries_binary.toml" if binary else "deliveries.toml"
     return build_app(recipe_path=str(demo_folder() / recipe), timings=timings, sessions=sessions)
