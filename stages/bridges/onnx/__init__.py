@@ -170,10 +170,10 @@ def _first_stage_differing(fitted: FittedChain, rows: pd.DataFrame, float32: boo
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", UnseenLevelsWarning)
         warnings.simplefilter("ignore", UnseenMissingWarning)
-        after = fitted.raw_after_each_stage(fitted.encode(rows, source="probe rows"))[:, :, 0]
+        after = fitted.raw_after_each_stage(fitted.encode(rows, source="probe rows"))
     scale = probe.spread(fitted)
     for k in range(1, len(fitted.stages) + 1):
-        want = after[:, k]
+        want = after[:, k] if fitted.outputs > 1 else after[:, k, 0]
         allowed = probe.RTOL_FLOAT32 * scale if float32 else probe.RTOL_FLOAT64 * np.maximum(np.abs(want), scale)
         if np.any(~(np.abs(got[f"after_{k}"] - want) <= allowed)):
             return k

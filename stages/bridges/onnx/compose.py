@@ -6,14 +6,17 @@ the same order). A ``Head`` turns the raw score into the model's outputs:
 
 - ``RegressionHead`` (squared, absolute, huber): ``prediction`` is the raw score;
 - ``BinaryHead`` (logloss): ``probability`` is the logistic of the raw score and ``prediction``
-  the positive class where it is at least the chain's threshold, else the negative class.
+  the positive class where it is at least the chain's threshold, else the negative class;
+- ``MulticlassHead`` (multinomial log loss): the raw score has K columns (the start value is a
+  K-vector on every row, and every stage's converter returns [N, K]); ``probability`` is their
+  ``Softmax`` per row, [N, K] in the chain's stored class order (``fitted.classes``), and
+  ``prediction`` the class at the ``ArgMax`` of the probabilities (the first of tied ones, as
+  numpy's argmax in ``predict``).
 
-Two heads slot in later without changing the rest: a log-link head (poisson, gamma, tweedie, and
-the ``glm`` kind, whose converter returns its linear predictor) declares one more double input,
+A log-link head slots in later without changing the rest (poisson, gamma, tweedie, and the
+``glm`` kind, whose converter returns its linear predictor): it declares one more double input,
 the exposure, adds ``Log(exposure)`` to the raw score as its offset (``offset``) and outputs
-``Exp(raw)``; a softmax head (multiclass) gets raw scores of K columns (the start value is a
-K-vector, and every converter returns [N, K]), outputs ``Softmax`` per row as one
-``probability_<class>`` output per class, and ``prediction`` as the class at the ``ArgMax``.
+``Exp(raw)``.
 """
 
 from __future__ import annotations
@@ -93,6 +96,27 @@ class BinaryHead(Head):
         builder.add_output(probability, "probability", TensorProto.DOUBLE, ["N"])
 
 
+class MulticlassHead(Head):
+    """``probability`` ([N, K], the softmax of the K raw scores) and ``prediction`` (the most probable class)."""
+
+    outputs = (Output("prediction", "the predicted class"),
+               Output("probability", "each class's probability, in the chain's class order"))
+
+    def __init__(self, classes: tuple[str, ...]) -> None:
+        self.classes = classes
+
+    def finish(self, builder: GraphBuilder, raw: str) -> None:
+        """Output ``prediction`` (the class label, typed as ``predict`` returns it) and ``probability``."""
+        from onnx import TensorProto
+
+        probability = builder.op("Softmax", [raw], "probability", axis=1)
+        best = builder.op("ArgMax", [probability], "most_probable", axis=1, keepdims=0)
+        labels, elem_type = label_constants(self.classes)
+        label = builder.op("Gather", [builder.constant(labels, "classes", labels.dtype), best], "label", axis=0)
+        builder.add_output(label, "prediction", elem_type, ["N"])
+        builder.add_output(probability, "probability", TensorProto.DOUBLE, ["N", len(self.classes)])
+
+
 def label_constants(classes: tuple[str, ...]) -> tuple[np.ndarray, int]:
     """Return the class labels as ``predict`` gives them (whole numbers, other numbers, or text),
     as an array, and the ONNX element type that holds them."""
@@ -113,8 +137,11 @@ def head_for(fitted: FittedChain) -> Head:
         return RegressionHead()
     if fitted.task == "binary" and loss in BINARY_LOSSES and len(fitted.schema.classes) == 2:
         return BinaryHead(fitted.schema.classes, fitted.threshold)
+    if fitted.task == "multiclass" and loss in BINARY_LOSSES and fitted.outputs == len(fitted.schema.classes):
+        return MulticlassHead(fitted.schema.classes)
     raise ExportError(f"a {fitted.task} chain with loss {loss!r} cannot be exported to ONNX yet "
-                      f"(exported: regression with {', '.join(REGRESSION_LOSSES)}; binary with logloss)")
+                      f"(exported: regression with {', '.join(REGRESSION_LOSSES)}; binary and multiclass "
+                      "with logloss)")
 
 
 @dataclass
@@ -147,17 +174,19 @@ def chain_graph(fitted: FittedChain, *, each_stage: bool = False) -> ChainGraph:
     builder = GraphBuilder(outputs)
     columns = SchemaColumns(builder, fitted.schema)
     head.add_inputs(builder)
-    raw = head.offset(builder, _start(builder, names[0], float(fitted.start[0])))
+    outputs_per_row = fitted.outputs
+    raw = head.offset(builder, _start(builder, names[0], np.asarray(fitted.start, dtype=np.float64)))
+    shape: list[str | int] = ["N"] if outputs_per_row == 1 else ["N", outputs_per_row]
     found = []
     for number, stage in enumerate(fitted.stages, start=1):
-        graph = convert_stage(stage, StageInputs(builder, columns, number))
+        graph = convert_stage(stage, StageInputs(builder, columns, number, outputs_per_row))
         found.append(graph)
         scaled = builder.op("Mul", [graph.output, builder.constant([stage.scale], "scale")], f"stage_{number}")
         raw = builder.op("Add", [raw, scaled], "raw")
         if each_stage:
             from onnx import TensorProto
 
-            builder.add_output(raw, f"after_{number}", TensorProto.DOUBLE, ["N"])
+            builder.add_output(raw, f"after_{number}", TensorProto.DOUBLE, shape)
     if builder.retired and builder.domains.get(ML, 0) >= ML_OPSET:
         where, operator = builder.retired[0]
         raise ExportError(f"{where}: skl2onnx writes it with {operator}, which ai.onnx.ml opset {ML_OPSET} "
@@ -168,10 +197,17 @@ def chain_graph(fitted: FittedChain, *, each_stage: bool = False) -> ChainGraph:
     return ChainGraph(builder.model("a residual chain exported by remnant", metadata), found)
 
 
-def _start(builder: GraphBuilder, first_input: str, start: float) -> str:
-    """Return the start value on every row, [N] (the row count read from the first input)."""
+def _start(builder: GraphBuilder, first_input: str, start: np.ndarray) -> str:
+    """Return the start value on every row, [N] (the row count read from the first input); with K
+    start values (multiclass), [N, K]: zeros plus the K values, which is each value exactly."""
     from onnx import TensorProto, helper
 
     shape = builder.op("Shape", [first_input], "rows")
-    value = helper.make_tensor("start", TensorProto.DOUBLE, [1], [float(start)])
-    return builder.op("ConstantOfShape", [shape], "start", value=value)
+    if start.size == 1:
+        value = helper.make_tensor("start", TensorProto.DOUBLE, [1], [float(start.reshape(-1)[0])])
+        return builder.op("ConstantOfShape", [shape], "start", value=value)
+    rows_by_classes = builder.op("Concat", [shape, builder.constant([start.size], "classes", np.int64)],
+                                 "start_shape", axis=0)
+    zero = helper.make_tensor("zero", TensorProto.DOUBLE, [1], [0.0])
+    zeros = builder.op("ConstantOfShape", [rows_by_classes], "zeros", value=zero)
+    return builder.op("Add", [zeros, builder.constant(start.reshape(-1), "start")], "start")

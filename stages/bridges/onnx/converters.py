@@ -38,6 +38,8 @@ class StageInputs:
     builder: GraphBuilder
     columns: SchemaColumns
     number: int
+    #: K, the raw scores a row has (the class count of a multiclass chain, else 1)
+    outputs: int = 1
 
     def where(self, stage: FittedStage) -> str:
         """Return the stage as errors name it: ``stage 3 (forest)``."""
@@ -56,6 +58,8 @@ class StageGraph:
 
 Converter = Callable[[FittedStage, StageInputs], StageGraph]
 CONVERTERS: dict[str, Converter] = {}
+#: kinds whose converter returns one output per row only: refused for a multiclass chain
+ONE_OUTPUT_ONLY = {"knn", SKLEARN_PREFIX}
 
 
 def converts(*kinds: str) -> Callable[[Converter], Converter]:
@@ -74,6 +78,10 @@ def convert_stage(stage: FittedStage, inputs: StageInputs) -> StageGraph:
         known = ", ".join(sorted(CONVERTERS))
         raise ExportError(f"{inputs.where(stage)}: kind {stage.kind!r} has no ONNX converter "
                           f"(kinds that convert: {known})")
+    if inputs.outputs > 1 and kind in ONE_OUTPUT_ONLY:
+        raise ExportError(f"{inputs.where(stage)}: a multiclass stage of kind {stage.kind!r} cannot be exported "
+                          f"to ONNX (multiclass kinds that convert: "
+                          f"{', '.join(sorted(set(CONVERTERS) - ONE_OUTPUT_ONLY))})")
     return CONVERTERS[kind](stage, inputs)
 
 
@@ -102,13 +110,25 @@ def _spline(stage: FittedStage, inputs: StageInputs) -> StageGraph:
 @converts("tree")
 def _tree(stage: FittedStage, inputs: StageInputs) -> StageGraph:
     matrix = inputs.columns.matrix(stage.feature_index, float32=True)
+    if inputs.outputs > 1:  # one tree per class (kinds.per_class), class k's leaves adding to output k
+        trees = [sklearn_tree(learner.tree_, target=k) for k, learner in enumerate(stage.learner.learners)]
+        return StageGraph(tree_ensemble(inputs.builder, matrix, trees, n_targets=inputs.outputs))
     return StageGraph(tree_ensemble(inputs.builder, matrix, [sklearn_tree(stage.learner.tree_)]))
 
 
 @converts("forest", "extra_trees")
 def _forest(stage: FittedStage, inputs: StageInputs) -> StageGraph:
     matrix = inputs.columns.matrix(stage.feature_index, float32=True)
-    trees = [sklearn_tree(member.tree_) for member in stage.learner.estimators_]
+    members = stage.learner.estimators_
+    if inputs.outputs > 1:
+        # one multi-output forest: each member once per class; the sum over members, then divided by
+        # their count, as scikit-learn's forest averages
+        trees = [sklearn_tree(member.tree_, output=k, target=k) for member in members
+                 for k in range(inputs.outputs)]
+        summed = tree_ensemble(inputs.builder, matrix, trees, n_targets=inputs.outputs)
+        count = inputs.builder.constant([float(len(members))], "members")
+        return StageGraph(inputs.builder.op("Div", [summed, count], "forest"))
+    trees = [sklearn_tree(member.tree_) for member in members]
     return StageGraph(tree_ensemble(inputs.builder, matrix, trees, aggregate=AVERAGE))
 
 

@@ -73,16 +73,25 @@ def as_double(builder: GraphBuilder, value: str) -> str:
     return builder.op("Cast", [value], "as_double", to=TensorProto.DOUBLE)
 
 
-def linear_output(builder: GraphBuilder, design: str | None, coef: np.ndarray, intercept: float,
+def linear_output(builder: GraphBuilder, design: str | None, coef: np.ndarray, intercept: Any,
                   like: str) -> str:
-    """Return ``design @ coef + intercept`` as [N]; with no design, the intercept on every row of ``like`` ([N])."""
+    """Return ``design @ coef + intercept`` as [N]; with no design, the intercept on every row of ``like`` ([N]).
+    With K intercepts (a multiclass stage: ``coef`` is [width, K]) the output is [N, K]."""
+    intercepts = np.atleast_1d(np.asarray(intercept, dtype=np.float64))
+    several = intercepts.size > 1
     if design is None or not len(coef):
         zero = builder.op("Mul", [like, builder.constant([0.0], "zero")], "zero")
         zero = builder.op("Where", [builder.op("IsNaN", [zero]), builder.constant([0.0], "zero"), zero])
-        return builder.op("Add", [zero, builder.constant([intercept], "intercept")], "linear")
+        if several:
+            zero = builder.op("Unsqueeze", [zero, builder.constant([1], "axis", np.int64)], "zero_column")
+        return builder.op("Add", [zero, builder.constant(intercepts, "intercept")], "linear")
+    if several:
+        product = builder.op("MatMul", [design, builder.constant(np.asarray(coef, dtype=np.float64), "coef")],
+                             "product")
+        return builder.op("Add", [product, builder.constant(intercepts, "intercept")], "linear")
     # coef as a [width, 1] matrix: onnxruntime's float64 MatMul takes a slow path for a vector
     product = builder.flat(builder.op("MatMul", [design, builder.constant(np.asarray(coef)[:, None], "coef")], "product"))
-    return builder.op("Add", [product, builder.constant([intercept], "intercept")], "linear")
+    return builder.op("Add", [product, builder.constant([float(intercepts[0])], "intercept")], "linear")
 
 
 # ----------------------------------------------------------------------------- B-splines

@@ -11,7 +11,9 @@ larger of |predict| and the target's spread; where an operator forces float32, a
 times the spread. The spread is the start value's RMSE on the fitting rows (the target's standard
 deviation for squared loss) for regression, and sqrt(p (1 - p)) at the base rate p for binary
 chains, whose probabilities are compared (a class label may differ only where the probability
-is within the tolerance of the threshold).
+is within the tolerance of the threshold). A multiclass chain's K probabilities are compared
+each, the spread being sqrt(mean of p_k (1 - p_k)) at the classes' start probabilities, and a
+class label may differ only where the two most probable classes are within the tolerance.
 """
 
 from __future__ import annotations
@@ -24,7 +26,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from ...predictor import FittedChain, UnseenLevelsWarning, UnseenMissingWarning
+from ...predictor import FittedChain, UnseenLevelsWarning, UnseenMissingWarning, probability_columns
 from ...schema import BOOLEAN, CATEGORICAL, Schema
 from .columns import MISSING_TEXT
 
@@ -131,6 +133,8 @@ def expected(fitted: FittedChain, rows: pd.DataFrame) -> dict[str, np.ndarray]:
         out = {"prediction": np.asarray(fitted.predict(rows, source="probe rows"))}
         if fitted.task == "binary":
             out["probability"] = fitted.predict_proba(rows, source="probe rows")[:, 1]
+        elif fitted.task == "multiclass":
+            out["probability"] = fitted.predict_proba(rows, source="probe rows")
     return out
 
 
@@ -139,6 +143,11 @@ def spread(fitted: FittedChain) -> float:
     if fitted.task == "binary":
         p = 1.0 / (1.0 + math.exp(-float(fitted.start[0])))
         return math.sqrt(p * (1.0 - p)) or 1.0
+    if fitted.task == "multiclass":
+        start = np.asarray(fitted.start, dtype=np.float64)
+        p = np.exp(start - start.max())
+        p /= p.sum()
+        return math.sqrt(float(np.mean(p * (1.0 - p)))) or 1.0
     rmse = (fitted.start_scores.get("train") or {}).get("rmse")
     return float(rmse) if isinstance(rmse, int | float) and math.isfinite(rmse) and rmse > 0 else 1.0
 
@@ -163,7 +172,7 @@ def compare(fitted: FittedChain, got: dict[str, np.ndarray], want: dict[str, np.
             float32: bool = False) -> Comparison:
     """Return how the model's outputs ``got`` compare with ``predict``'s ``want``, at the float32
     tolerance when an operator of the graph forces float32, else at the float64 one."""
-    name = "probability" if fitted.task == "binary" else "prediction"
+    name = "probability" if fitted.task in ("binary", "multiclass") else "prediction"
     scale = spread(fitted)
     ours, theirs = np.asarray(got[name], dtype=np.float64), np.asarray(want[name], dtype=np.float64)
     gap = np.abs(ours - theirs)
@@ -171,9 +180,15 @@ def compare(fitted: FittedChain, got: dict[str, np.ndarray], want: dict[str, np.
     gap[np.isnan(ours) & np.isnan(theirs)] = 0.0
     allowed = RTOL_FLOAT32 * scale if float32 else RTOL_FLOAT64 * np.maximum(np.abs(theirs), scale)
     share = gap / allowed
-    worst = int(np.argmax(share)) if len(share) else 0
+    worst = int(np.unravel_index(np.argmax(share), share.shape)[0]) if share.size else 0
     differ = 0
-    if fitted.task == "binary":
+    if fitted.task == "multiclass":
+        labels_differ = np.asarray(got["prediction"]).astype(str) != np.asarray(want["prediction"]).astype(str)
+        top = np.sort(theirs, axis=1)[:, -2:] if theirs.shape[1] > 1 else np.zeros((len(theirs), 2))
+        near_tie = top[:, 1] - top[:, 0] <= 2 * RTOL_FLOAT64 * np.maximum(top[:, 1], scale) if not float32 \
+            else top[:, 1] - top[:, 0] <= 2 * RTOL_FLOAT32 * scale
+        differ = int((labels_differ & ~near_tie).sum())
+    elif fitted.task == "binary":
         labels_differ = np.asarray(got["prediction"]).astype(str) != np.asarray(want["prediction"]).astype(str)
         at_threshold = np.abs(theirs - fitted.threshold) <= allowed
         differ = int((labels_differ & ~at_threshold).sum())
@@ -185,5 +200,9 @@ def probe_table(schema: Schema, rows: pd.DataFrame, want: dict[str, np.ndarray])
     expected outputs."""
     table = pd.DataFrame({name: values for name, values in feeds(schema, rows).items()})
     for name, values in want.items():
-        table[name] = values
+        if np.ndim(values) == 2:  # a multiclass chain's probabilities: one column per class, in class order
+            for column, part in zip(probability_columns(schema.classes), np.asarray(values).T, strict=True):
+                table[column] = part
+        else:
+            table[name] = values
     return table

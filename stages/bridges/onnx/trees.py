@@ -67,17 +67,19 @@ class Tree:
 
 
 # ----------------------------------------------------------------------------- readers
-def sklearn_tree(structure: Any, scale: float = 1.0) -> Tree:
-    """Return a fitted scikit-learn ``tree_`` (a regression tree) as a Tree, leaf values times ``scale``."""
+def sklearn_tree(structure: Any, scale: float = 1.0, *, output: int = 0, target: int = 0) -> Tree:
+    """Return a fitted scikit-learn ``tree_`` (a regression tree) as a Tree, leaf values times ``scale``;
+    ``output`` picks the output of a multi-output tree, ``target`` the TreeEnsemble target its leaves add to."""
     left, right = structure.children_left, structure.children_right
     missing = getattr(structure, "missing_go_to_left", np.zeros(structure.node_count, dtype=np.uint8))
-    values = np.asarray(structure.value, dtype=np.float64)[:, 0, 0]
+    values = np.asarray(structure.value, dtype=np.float64)[:, output, 0]
     tree = Tree()
     for node in range(structure.node_count):
         leaf = left[node] == -1
         tree.add(feature=-1 if leaf else int(structure.feature[node]),
                  threshold=0.0 if leaf else float(structure.threshold[node]),
-                 missing_left=bool(missing[node]), value=float(values[node]) * scale if leaf else 0.0)
+                 missing_left=bool(missing[node]), value=float(values[node]) * scale if leaf else 0.0,
+                 target=target)
     for node in range(structure.node_count):
         if left[node] != -1:
             tree.left[node], tree.right[node] = int(left[node]), int(right[node])
