@@ -19,13 +19,20 @@ from .base import FitRequest
 
 @dataclass
 class PerClass:
-    """One learner per class; ``predict`` returns their outputs as the columns of an (n, K) array."""
+    """One learner per class; ``predict`` returns their outputs as the columns of an (n, K) array.
+
+    ``cast`` is the dtype every learner reads its rows in, when they all convert them to it
+    first (scikit-learn's trees read float32): the rows are then converted once, not K times.
+    """
 
     learners: tuple[Any, ...]
+    cast: Any = None
 
     def predict(self, X: np.ndarray) -> np.ndarray:
         """Return each learner's output on the rows ``X``, one column per class."""
         out = np.empty((X.shape[0], len(self.learners)), dtype=np.float64)
+        if self.cast is not None:
+            X = np.asarray(X, dtype=self.cast)
         for k, learner in enumerate(self.learners):
             out[:, k] = np.asarray(learner.predict(X), dtype=np.float64).reshape(-1)
         return out

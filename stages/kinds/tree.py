@@ -30,7 +30,7 @@ def refine_tree_leaves(tree: Any, X: np.ndarray, request: FitRequest) -> None:
     context = loss.refinement_context(request.y, request.raw, weight)
     if loss.leaf_value(request.y[:1], request.raw[:1], request.residual[:1], context) is None:
         return
-    leaves = tree.apply(X.astype(np.float32))
+    leaves = tree.apply(np.asarray(X, dtype=np.float32))
     values = tree.tree_.value
     drawn = np.arange(len(leaves)) if request.in_bag is None else np.flatnonzero(request.in_bag)
     order = drawn[np.argsort(leaves[drawn], kind="stable")]
@@ -67,7 +67,8 @@ class TreeKind(StageKind):
         check_has_features(request.X, self.name)
         if request.outputs > 1:
             X = np.asfortranarray(request.X, dtype=np.float32)
-            return fit_per_class(request, lambda one: self._grow(one, params, X))
+            grown = fit_per_class(request, lambda one: self._grow(one, params, X))
+            return PerClass(grown.learners, cast=np.float32)  # trees read float32: convert rows once
         return self._grow(request, params, np.asfortranarray(request.X, dtype=np.float32))
 
     def _grow(self, request: FitRequest, params: dict[str, Any], X: np.ndarray) -> Any:
@@ -86,8 +87,9 @@ class TreeKind(StageKind):
         """Set each leaf to the loss's optimal value (median for absolute, Newton step for log loss,
         the multinomial Newton step for each class's tree)."""
         if isinstance(learner, PerClass):
+            rows = np.asarray(request.X, dtype=np.float32)  # once for the K trees
             for k, tree in enumerate(learner.learners):
-                refine_tree_leaves(tree, request.X, request.for_output(k))
+                refine_tree_leaves(tree, rows, request.for_output(k))
             return
         refine_tree_leaves(learner, request.X, request)
 
@@ -114,7 +116,7 @@ class TreeKind(StageKind):
             raise ChainFileError(f"tree stage artifact holds {len(trees)} items, not {artifact.n_outputs} trees")
         for k, tree in enumerate(trees):
             check_fitted_estimator(tree, artifact.n_features, "tree stage artifact" + (f" (class {k + 1})" if several else ""))
-        return PerClass(tuple(trees)) if several else trees[0]
+        return PerClass(tuple(trees), cast=np.float32) if several else trees[0]
 
     def importance(self, learner: Any, columns) -> np.ndarray:
         """Return the tree's impurity-based importances (for K trees, their mean)."""

@@ -1,6 +1,6 @@
 """Snapshots of the main screens at 80x24 and 120x40: the setup screen, the main screen with the
-demo's four stages, the add-stage form, the audition's result (candidates side by side) and the
-scan's view of the demo after its linear start.
+demo's four stages, the add-stage form, the audition's result (candidates side by side), the
+scan's view of the demo after its linear start and the confusion matrix of the multiclass demo.
 
 Timings are hidden (``timings=False``) and the cursor does not blink, so each picture is the
 same on every run. Review a changed picture before accepting it with ``--snapshot-update``.
@@ -65,6 +65,17 @@ def test_the_scan_after_the_demo_linear_start(snap_compare, size):
             await still(pilot)
 
     assert snap_compare(demo_app(timings=False), terminal_size=size, run_before=scan)
+
+
+@pytest.mark.parametrize("size", SIZES, ids=lambda s: f"{s[0]}x{s[1]}")
+def test_the_confusion_matrix_of_the_multiclass_demo(snap_compare, size):
+    async def confusion(pilot) -> None:
+        await still(pilot)
+        for key in ("v", "v"):
+            await pilot.press(key)
+            await still(pilot)
+
+    assert snap_compare(demo_app(timings=False, multiclass=True), terminal_size=size, run_before=confusion)
 
 
 CANDIDATES = """\
