@@ -86,9 +86,13 @@ def confusion_text(table: pd.DataFrame, room: int = 80) -> Text:
     of its rows predicted right; class names are cut to fit ``room`` cells."""
     counts = table.to_numpy(dtype=np.int64)
     names = [str(c) for c in table.columns]
+    k = max(1, len(names))
     label_width = min(CLASS_WIDTH, max(len("true"), *(len(n) for n in names)))
-    share = max(6, (room - label_width - 7) // max(1, len(names)) - 1)
-    width = max(len(str(int(counts.max()))) if counts.size else 1, min(share, max(len(n) for n in names)), 3)
+    narrowest = max(len(str(int(counts.max()))) if counts.size else 1, 3)
+    # the class columns first: at least their counts; then the labels, cut to what is left
+    label_width = max(4, min(label_width, room - k * (narrowest + 1) - 7))
+    share = (room - label_width - 7) // k - 1
+    width = max(narrowest, min(share, max(len(n) for n in names)))
     totals = counts.sum(axis=1)
     right = column_text([(counts[i, i] / t) if t else float("nan") for i, t in enumerate(totals)],
                         digits=3, missing="-")
@@ -427,13 +431,14 @@ class ResidualPane(Vertical, can_focus=True):
         self.border_subtitle = f"{len(table)} of {rows:,} rows" + (" · before: the stage before" if before else "")
 
     def _confusion(self, table: pd.DataFrame) -> None:
-        self.rows_text.update(confusion_text(table, self.size.width - 2))
+        room = (self.query_one("#rows-scroll").size.width or self.size.width - 2) - 3  # padding and scrollbar
+        self.rows_text.update(confusion_text(table, room))
         counts = table.to_numpy()
         total = int(counts.sum())
         right = int(np.trace(counts))
         self.border_title = f"confusion matrix · valid · {self._where()}"
         share = column_text([right / total], digits=3)[0] if total else "-"
-        self.border_subtitle = f"rows: true class · columns: predicted · accuracy {share} of {total:,} rows"
+        self.border_subtitle = f"accuracy {share} of {total:,} rows · rows: true class, columns: predicted"
 
     def _calibration(self, figure: Calibration, table: pd.DataFrame) -> None:
         self.border_title = f"calibration · {self._where()} · ● observed rate ·· perfect"
