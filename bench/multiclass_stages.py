@@ -7,13 +7,15 @@ starts from the log of each class's prior as the reference does, and fits one tr
 stage as the reference fits K trees a round; its probabilities must agree with the reference's
 to 1e-6.
 
-    python bench/multiclass_stages.py [--rows N] [--stages N]
+    python bench/multiclass_stages.py [--rows N] [--stages N] [--repeats N]
 """
 
 from __future__ import annotations
 
+import functools
 import sys
 import time
+from collections.abc import Callable
 from pathlib import Path
 
 import numpy as np
@@ -39,17 +41,26 @@ def frame_of(rows: int) -> pd.DataFrame:
     return frame
 
 
-def figures(rows: int, n_stages: int) -> tuple[float, float, float]:
-    """Return (chain seconds, reference seconds), each measured once in turn, and the largest
-    difference between their probabilities."""
+def timed(fn: Callable[[], object]) -> tuple[float, float]:
+    """Return the wall and the process CPU seconds of one call of ``fn``."""
+    wall, cpu = time.perf_counter(), time.process_time()
+    fn()
+    return time.perf_counter() - wall, time.process_time() - cpu
+
+
+def figures(rows: int, n_stages: int, repeats: int) -> tuple[tuple[float, float], tuple[float, float], float]:
+    """Return the best-of (wall, CPU) seconds of the chain and of the reference, measured in turn, and
+    the largest difference between their probabilities. Both fit on one core, so on a shared
+    machine the CPU seconds show what the wall clock loses to other processes."""
     frame = frame_of(rows)
     X, y = frame.drop(columns="y").to_numpy(), frame["y"].to_numpy()
     reference = GradientBoostingClassifier(n_estimators=n_stages, max_depth=3, learning_rate=0.1, random_state=0)
-    theirs = common.best_of(lambda: reference.fit(X, y))
-    chain = stages.Chain(frame, "y", stages.AllRows(), task="multiclass", seed=0)
-    started = time.perf_counter()
-    chain.add("tree", 0.1, params={"max_depth": 3}, repeat=n_stages)
-    ours = time.perf_counter() - started
+    ours = theirs = (float("inf"), float("inf"))
+    chain = None
+    for _ in range(repeats):
+        theirs = min(theirs, timed(lambda: reference.fit(X, y)))
+        chain = stages.Chain(frame, "y", stages.AllRows(), task="multiclass", seed=0)
+        ours = min(ours, timed(functools.partial(chain.add, "tree", 0.1, params={"max_depth": 3}, repeat=n_stages)))
     gap = float(np.max(np.abs(chain.predict_proba(frame) - reference.predict_proba(X))))
     assert gap <= 1e-6, f"chain and GradientBoostingClassifier disagree by {gap:.3g}"
     return ours, theirs, gap
@@ -57,13 +68,15 @@ def figures(rows: int, n_stages: int) -> tuple[float, float, float]:
 
 def main() -> None:
     """Print the figure."""
-    parse = common.parser(__doc__.splitlines()[0], 20_000)
+    parse = common.parser(__doc__.splitlines()[0], 10_000)
     parse.add_argument("--stages", type=int, default=100)
+    parse.add_argument("--repeats", type=int, default=1, help="measure each side this many times, keep the best")
     args = parse.parse_args()
-    ours, theirs, gap = figures(args.rows, args.stages)
+    ours, theirs, gap = figures(args.rows, args.stages, args.repeats)
     common.print_table("multiclass tree stages", [
-        (f"{args.stages} tree stages, {CLASSES} classes, {args.rows:,} x {FEATURES}", f"{ours:.2f} s",
-         f"{theirs:.2f} s (GradientBoostingClassifier)", f"{ours / theirs:.3f} (<= 1.05)"),
+        (f"{args.stages} tree stages, {CLASSES} classes, {args.rows:,} x {FEATURES}", f"{ours[0]:.2f} s",
+         f"{theirs[0]:.2f} s (GradientBoostingClassifier)", f"{ours[0] / theirs[0]:.3f} (<= 1.05)"),
+        ("the same, process CPU time", f"{ours[1]:.2f} s", f"{theirs[1]:.2f} s", f"{ours[1] / theirs[1]:.3f}"),
         ("largest probability difference", f"{gap:.1e}", "0", "(<= 1e-6)"),
     ])
 

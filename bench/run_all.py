@@ -25,6 +25,7 @@ HERE = Path(__file__).resolve().parent
 #: script -> (full-size arguments, quick arguments)
 SUITE: dict[str, tuple[list[str], list[str]]] = {
     "tree_stages": ([], ["--rows", "10000", "--repeats", "2"]),
+    "multiclass_stages": ([], ["--rows", "2000", "--stages", "20", "--repeats", "2"]),
     "lightgbm_stage": ([], ["--rows", "100000"]),
     "chain_overhead": ([], ["--rows", "10000", "--wide-rows", "200000", "--repeats", "1"]),
     "predict": ([], ["--rows", "200000", "--fit-rows", "20000", "--repeats", "3"]),
