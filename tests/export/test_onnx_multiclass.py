@@ -102,8 +102,9 @@ def test_whole_number_classes_come_out_as_integers(wine, new_rows, tmp_path):
     assert got["prediction"].dtype == np.int64
 
 
-def test_the_probe_file_has_one_probability_column_per_class(wine, tmp_path):
-    fit_and_export(wine, [("logistic", 1.0, {})], tmp_path)
+def test_a_logistic_stage_alone_and_its_probe_file_with_one_probability_column_per_class(wine, new_rows, tmp_path):
+    chain, _ = fit_and_export(wine, [("logistic", 1.0, {})], tmp_path)
+    check_same(chain, tmp_path, new_rows)
     probe = pd.read_csv(tmp_path / "wine.probe.csv")
     assert [c for c in probe.columns if c.startswith("probability")] == [
         "probability_barbera", "probability_barolo", "probability_grignolino"]
