@@ -20,14 +20,16 @@ from . import parts, scoring
 from .chain_state import ChainState, Removal, StreamState, same_stream, seeded_streams, stream_state
 from .data import Prepared, Task, load_frame, prepare
 from .errors import ChainStateError, RemnantError, StageSpecError
-from .fitting import FitContext, Stage, fit_stage
+from .fitting import FitContext, Stage, check_weights_taken, fit_stage
 from .kinds import get_kind
 from .kinds.base import ProgressFn
 from .limits import MAX_REPEAT, MAX_SEED, MAX_STAGES
-from .losses import Loss, default_loss, get_loss
+from .loglink import LogLinkLoss, is_log_link
+from .losses import LOG_LINK_NAMES, Loss, default_loss, get_loss
 from .outputs import start_block
 from .parsing import whole_value
 from .predictor import FittedChain, FittedStage
+from .row_weights import check_exposure, check_weights, column_name, exposure_offset, read_values
 from .scoring import Scores
 from .spec import StageSpec
 from .tracks import build_layout, check_classes_fit
@@ -48,8 +50,9 @@ class Chain:
     validation : ValidationSpec
         Holdout, KFold, TimeOrder, GroupHoldout or SplitColumn.
     loss : str, optional
-        squared, absolute, huber or logloss; defaults to squared, or logloss for binary and
-        multiclass targets (for multiclass, the multinomial log loss).
+        squared, absolute, huber or logloss; poisson, gamma or tweedie (on the log link, for counts
+        and positive amounts); defaults to squared, or logloss for binary and multiclass targets
+        (for multiclass, the multinomial log loss).
     seed : int
         Seeds the chain's one random stream.
     data_path : str or path, optional
@@ -57,6 +60,14 @@ class Chain:
     dates : dict, optional
         Date columns and the parts of them that become features, such as ``{"placed_at": ["hour"]}``
         (parts: year, month, day_of_week, hour, day_of_year).
+    weight : str or array-like, optional
+        A column of row weights (or one weight per row): every loss, start value, leaf, step, metric
+        and histogram counts each row in proportion to it. Zero or more, not all zero.
+    exposure : str or array-like, optional
+        A column of exposures (or one per row), positive, for the log-link losses: log(exposure)
+        enters each row's raw score, so the chain models the target per unit of exposure.
+    power : float, optional
+        The tweedie loss's power, strictly between 1 and 2 (default 1.5).
 
     State
     -----
@@ -82,17 +93,26 @@ class Chain:
         source: str = "frame",
         data_path: str | os.PathLike | None = None,
         dates: dict[str, list[str]] | None = None,
+        weight: Any = None,
+        exposure: Any = None,
+        power: float | None = None,
     ) -> None:
         seed = whole_value({"seed": seed}, "seed", 0, minimum=0, maximum=MAX_SEED)
         self.validation = validation if validation is not None else Holdout()
         ignore = tuple(ignore) + tuple(c for c in self.validation.columns_used if c not in ignore)
+        ignore = ignore + tuple(c for c in (column_name(weight), column_name(exposure)) if c and c not in ignore)
+        if task is None and loss in LOG_LINK_NAMES:
+            task = "regression"  # a count of 0/1 values is still a count
         if isinstance(self.validation, TimeOrder):
             ignore = tuple(c for c in ignore if c != self.validation.column)
         self.prepared: Prepared = prepare(frame, target, ignore=ignore, features=features, task=task,
                                           positive=positive, source=source, encode=False, dates=dates)
         self.schema = self.prepared.schema
         self.loss: Loss = get_loss(loss or default_loss(self.schema.task), self.schema.task,
-                                   n_classes=len(self.schema.classes))
+                                   n_classes=len(self.schema.classes), power=power)
+        if isinstance(self.loss, LogLinkLoss):
+            self.loss.check_target(self.prepared.y, target, source)
+        kept_weight, kept_offset = self._row_values(frame, weight, exposure, source)
         self.split = self.validation.split(self.prepared.frame, self.prepared.y, self.schema.task,
                                            classes=self.schema.classes)
         self.layout = build_layout(self.split)
@@ -101,10 +121,10 @@ class Chain:
         self.y = self.prepared.y[self.layout.order]
         if self.schema.task == "multiclass":
             check_classes_fit(self.layout, self.y, self.schema, source)
-        # row weights and the offset on the raw scale, in chain order: None (every row counts once,
-        # no offset) until a chain takes weight and exposure columns
-        self.weight: np.ndarray | None = None
-        self.offset: np.ndarray | None = None
+        # row weights and the offset on the raw scale (log(exposure)), in chain order: None when every
+        # row counts once and there is no exposure
+        self.weight: np.ndarray | None = None if kept_weight is None else kept_weight[self.layout.order]
+        self.offset: np.ndarray | None = None if kept_offset is None else kept_offset[self.layout.order]
         # a missing value the fitting rows never had takes their median, here as in predict
         self.schema = self.schema.with_fills(self.matrix[: self.layout.n_train])
         self.prepared.schema = self.schema
@@ -134,6 +154,24 @@ class Chain:
         self.test_revealed = False
         self.reveal_count = 0
         self._test: dict[int, dict[str, float]] = {}
+
+    def _row_values(self, frame: pd.DataFrame, weight: Any, exposure: Any,
+                    source: str) -> tuple[np.ndarray | None, np.ndarray | None]:
+        """Return the kept rows' weights and offsets (None when not given), checked; set the column names."""
+        rows = self.prepared.rows
+        self.weight_column: str | None = None
+        self.exposure_column: str | None = None
+        kept_weight = kept_offset = None
+        if weight is not None:
+            values, self.weight_column = read_values(frame, weight, "weight", source)
+            kept_weight = check_weights(values[rows], self.weight_column, source, rows)
+        if exposure is not None:
+            if not is_log_link(self.loss):
+                raise StageSpecError(f"an exposure is for the log-link losses ({', '.join(LOG_LINK_NAMES)}); "
+                                     f"loss {self.loss.name!r} takes none")
+            values, self.exposure_column = read_values(frame, exposure, "exposure", source)
+            kept_offset = exposure_offset(check_exposure(values[rows], self.exposure_column, source, rows))
+        return kept_weight, kept_offset
 
     @classmethod
     def from_file(cls, path: str | os.PathLike, target: str, validation: ValidationSpec | None = None,
@@ -273,7 +311,20 @@ class Chain:
             "threshold": self.threshold, "rows": {"train": self.layout.n_train, "valid": self.layout.n_valid,
                                                   "test": self.layout.n_test},
             "test_revealed": self.test_revealed, "test_reveals": self.reveal_count, "source": self.source, "ignore": list(self.ignore),
+            **self.row_settings(),
         }
+
+    def row_settings(self) -> dict[str, Any]:
+        """Return the weight and exposure columns and the tweedie power, each only when the chain has it."""
+        out: dict[str, Any] = {}
+        if self.weight_column is not None:
+            out["weight"] = self.weight_column
+        if self.exposure_column is not None:
+            out["exposure"] = self.exposure_column
+        power = getattr(self.loss, "power", None)
+        if self.loss.name == "tweedie" and power is not None:
+            out["power"] = float(power)
+        return out
 
     def predict(self, frame: pd.DataFrame) -> np.ndarray:
         """Return predictions of the chain as it stands for a new frame."""
@@ -357,7 +408,7 @@ class Chain:
     def check_spec(self, spec: StageSpec) -> None:
         """Raise StageSpecError when ``spec`` names an unknown kind, parameter or feature."""
         kind = get_kind(spec.kind)
-        kind.resolve_params(spec.params, self.task)
+        check_weights_taken(kind, kind.resolve_params(spec.params, self.task), spec, self.weight is not None)
         if spec.features:
             try:
                 self.schema.index_of(spec.features)

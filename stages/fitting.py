@@ -15,7 +15,7 @@ from typing import Any
 import numpy as np
 
 from . import steps
-from .errors import FitCancelled, RemnantError, StageFitError
+from .errors import FitCancelled, RemnantError, StageFitError, StageSpecError
 from .kinds import FitRequest, get_kind
 from .kinds.base import ProgressFn, check_subsample
 from .losses import Loss
@@ -100,6 +100,13 @@ def feature_rows(matrix: np.ndarray, rows: np.ndarray | slice, features: tuple[i
     return block[:, list(features)]
 
 
+def check_weights_taken(kind: Any, params: dict[str, Any], spec: StageSpec, weighted: bool) -> None:
+    """Raise StageSpecError when the chain has row weights and the kind's learner cannot count them."""
+    if weighted and not kind.accepts_weights(params):
+        raise StageSpecError(f"kind {spec.kind!r} cannot count rows by their weights, and this chain has "
+                             "row weights (choose a kind that takes them, or fit without weights)")
+
+
 def fit_stage(
     ctx: FitContext,
     spec: StageSpec,
@@ -116,6 +123,7 @@ def fit_stage(
     """
     kind = get_kind(spec.kind)
     params = kind.resolve_params(spec.params, ctx.schema.task)
+    check_weights_taken(kind, params, spec, ctx.weight is not None)
     features = resolve_features(spec, ctx.schema)
     before = tuple(rng.get_state() for rng in ctx.rngs)
     started = time.perf_counter()

@@ -144,6 +144,10 @@ class Loss:
         return bracketed_step(self.step_objective(y, raw, output, weight),
                               step_scale(self.display_residual(y, raw), output))
 
+    def lightgbm_params(self) -> dict[str, float]:
+        """Return the parameters LightGBM's objective of this loss takes besides its name (none here)."""
+        return {}
+
     def link(self, raw: np.ndarray) -> np.ndarray:
         """Return predictions on the target's scale from raw outputs, value by value (in their shape)."""
         return self._link(np.asarray(raw))
@@ -388,7 +392,12 @@ class LogLoss(Loss):
         """The log-odds of the (weighted) base rate, the rate kept away from 0 and 1; with an offset,
         the constant c solving sum w (y - expit(offset + c)) = 0 by Newton steps from there."""
         eps = np.finfo(np.float32).eps
-        rate = np.clip(metrics.average(y, weight), eps, 1 - eps)
+        if weight is None:
+            share = metrics.average(y, weight)
+        else:  # each class's summed weight over their total, as scikit-learn's weighted class prior
+            totals = np.bincount((y == 1).astype(np.intp), weights=weight, minlength=2)
+            share = float(totals[1] / totals.sum())
+        rate = np.clip(share, eps, 1 - eps)
         start = float(logit(rate))
         if offset is None:
             return start
@@ -455,21 +464,37 @@ def newton_step(numerator: float, denominator: float) -> float:
 
 
 LOSSES: dict[str, type[Loss]] = {cls.name: cls for cls in (SquaredLoss, AbsoluteLoss, HuberLoss, LogLoss)}
+#: the losses on the log link (``stages.loglink``), for counts and positive amounts
+LOG_LINK_NAMES = ("poisson", "gamma", "tweedie")
 TASKS = ("regression", "binary", "multiclass")
+
+
+def all_loss_names() -> list[str]:
+    """Return the name of every loss."""
+    return [*LOSSES, *LOG_LINK_NAMES]
 
 
 def loss_names(task: str) -> list[str]:
     """Return the names of the losses that fit ``task``."""
     if task == "multiclass":
         return ["logloss"]
-    return [name for name, cls in LOSSES.items() if cls.task == task]
+    names = [name for name, cls in LOSSES.items() if cls.task == task]
+    return [*names, *LOG_LINK_NAMES] if task == "regression" else names
 
 
-def get_loss(name: str, task: str, n_classes: int | None = None) -> Loss:
-    """Return the loss called ``name`` for ``task`` (a multiclass loss over ``n_classes`` classes);
-    raise StageSpecError when it is unknown or does not fit ``task``."""
+def get_loss(name: str, task: str, n_classes: int | None = None, power: float | None = None) -> Loss:
+    """Return the loss called ``name`` for ``task`` (a multiclass loss over ``n_classes`` classes; a
+    tweedie loss of ``power``); raise StageSpecError when it is unknown or does not fit ``task``."""
+    if name in LOG_LINK_NAMES:
+        if task != "regression":
+            raise StageSpecError(f"loss {name!r} is for counts and amounts (regression targets); this target is {task}")
+        from .loglink import log_link_loss
+
+        return log_link_loss(name, power)
+    if power is not None:
+        raise StageSpecError(f"power is for the tweedie loss only, not {name!r}")
     if name not in LOSSES:
-        raise StageSpecError(f"unknown loss {name!r} (choose one of: {', '.join(LOSSES)})")
+        raise StageSpecError(f"unknown loss {name!r} (choose one of: {', '.join(all_loss_names())})")
     if task == "multiclass":
         if name != "logloss":
             raise StageSpecError(f"loss {name!r} is for {LOSSES[name].task} targets; this target is "

@@ -16,7 +16,8 @@ PROB_EPS = float(np.finfo(np.float64).eps)
 
 #: metric name -> True when higher is better
 HIGHER_IS_BETTER = {"rmse": False, "mae": False, "r2": True, "loss": False, "logloss": False,
-                    "auc": True, "accuracy": True, "accuracy_at": True, "brier": False}
+                    "auc": True, "accuracy": True, "accuracy_at": True, "brier": False,
+                    "deviance": False}
 
 
 def average(values: np.ndarray, weight: np.ndarray | None = None) -> float:

@@ -11,9 +11,11 @@ import numpy as np
 import pandas as pd
 
 from .errors import UnseenLevelsWarning, UnseenMissingWarning
+from .loglink import is_log_link
 from .losses import Loss
 from .metrics import predicted_classes
 from .outputs import block, squeeze, start_block
+from .row_weights import check_exposure, read_values
 from .schema import Schema, Task
 from .spec import StageSpec
 
@@ -178,10 +180,33 @@ class FittedChain:
         """Return the probability at or above which a binary chain predicts the positive class."""
         return float(self.meta.get("threshold", 0.5))
 
-    def predict(self, frame: pd.DataFrame, *, threshold: float | None = None, source: str = "data") -> np.ndarray:
+    @property
+    def exposure_column(self) -> str | None:
+        """Return the exposure column the chain was fit with (log-link losses), or None."""
+        return self.meta.get("exposure")
+
+    @property
+    def weight_column(self) -> str | None:
+        """Return the weight column the chain was fit with, or None."""
+        return self.meta.get("weight")
+
+    def predict(self, frame: pd.DataFrame, *, threshold: float | None = None, source: str = "data",
+                exposure: Any = None) -> np.ndarray:
         """Return predictions: values for regression, class labels for binary chains (positive at ``threshold``,
-        by default the chain's own) and multiclass chains (the most probable class)."""
+        by default the chain's own) and multiclass chains (the most probable class).
+
+        A log-link chain predicts the mean per unit of exposure, exp(raw); ``exposure`` (a column of
+        ``frame``, or one positive value per row) multiplies it back to each row's expected total.
+        """
         raw = self.predict_raw(frame, source=source)
+        if is_log_link(self.loss):
+            mean = self.loss.link(raw)
+            if exposure is None:
+                return mean
+            values, name = read_values(frame, exposure, "exposure", source)
+            return mean * check_exposure(values, name, source)
+        if exposure is not None:
+            raise TypeError(f"exposure is for log-link chains (poisson, gamma, tweedie); this chain's loss is {self.loss.name}")
         if self.task == "multiclass":
             labels = np.array([class_label(c) for c in self.schema.classes], dtype=object)
             return _plain(labels[predicted_classes(self.loss.link(raw))])

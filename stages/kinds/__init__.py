@@ -9,7 +9,7 @@ from .base import Artifact, FitRequest, StageKind
 
 _REGISTRY: dict[str, StageKind] = {}
 _BUILTIN_MODULES = (
-    "mean", "linear", "logistic", "tree", "forest", "lightgbm_stage", "hist_tree", "knn", "spline",
+    "mean", "linear", "logistic", "glm", "tree", "forest", "lightgbm_stage", "hist_tree", "knn", "spline",
 )
 _loaded = False
 

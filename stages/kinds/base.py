@@ -141,6 +141,12 @@ class StageKind(ABC):
     #: True when the kind takes ``subsample``: each stage fits a fraction of the fitting rows,
     #: drawn without replacement from the chain's stream (``FitRequest.in_bag``)
     subsamples: ClassVar[bool] = False
+    #: True when the kind's learner counts each row by its weight (scikit-learn's sample_weight)
+    takes_weights: ClassVar[bool] = True
+
+    def accepts_weights(self, params: dict[str, Any]) -> bool:
+        """Return True when the learner counts fitting rows by their weights (else a weighted chain refuses it)."""
+        return self.takes_weights
 
     def step_source(self, params: dict[str, Any]) -> str:
         """Return where the stage's step comes from: one of the sources in ``stages.steps``.

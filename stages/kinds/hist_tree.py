@@ -61,6 +61,10 @@ class HistTreeKind(BoosterKind):
         native.update(num_boost_round=1, learning_rate=1.0)
         if native.get("num_leaves") is None:
             native["num_leaves"] = default_leaves(native.get("max_depth"))
+        if request.loss.lightgbm_objective == "poisson":
+            # LightGBM damps Poisson leaves (curvature taken at exp(F + 0.7)); it needs a step above 0,
+            # and 1e-12 gives Newton leaves to a relative 1e-12
+            native.setdefault("poisson_max_delta_step", 1e-12)
         return train_booster(request, native, self.name, reuse_bins=True)
 
 

@@ -76,6 +76,8 @@ class KnnKind(StageKind):
         "n_neighbors": 10, "weights": "uniform", "p": 2, "algorithm": "auto", "leaf_size": 30,
     }
     main_params: ClassVar[tuple[str, ...]] = ("n_neighbors", "weights")
+    #: a neighbour average has no row weights (its ``weights`` weigh neighbours by distance)
+    takes_weights: ClassVar[bool] = False
 
     def fit(self, request: FitRequest, params: dict[str, Any]) -> NeighboursModel:
         """Return the k-NN model fit to the residuals on the standardised design."""

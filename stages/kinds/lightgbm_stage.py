@@ -150,6 +150,7 @@ def booster_params(request: FitRequest, params: dict[str, Any], seed: int) -> di
     """Return the parameters for ``lightgbm.train``: the stage's, the loss's objective and the seed."""
     out = {k: v for k, v in params.items() if k not in STAGE_NAMES and v is not None}
     out["objective"] = request.loss.lightgbm_objective
+    out.update(request.loss.lightgbm_params())
     if out["objective"] == "huber":
         out["alpha"] = request.loss.delta(request.y, request.raw, request.weight)
     if request.outputs > 1:

@@ -80,7 +80,8 @@ BLOCK_ROWS = 16_384
 
 
 def blocked_least_squares(design: LinearDesign, X: np.ndarray, target: np.ndarray,
-                          fit_intercept: bool = True) -> tuple[np.ndarray, float | np.ndarray]:
+                          fit_intercept: bool = True, weight: np.ndarray | None = None,
+                          ) -> tuple[np.ndarray, float | np.ndarray]:
     """Return the least-squares coefficients and intercept of ``target`` on ``design.transform(X)``.
 
     The solution of scikit-learn's LinearRegression (the minimum-norm one; singular values below
@@ -89,6 +90,9 @@ def blocked_least_squares(design: LinearDesign, X: np.ndarray, target: np.ndarra
     of the QR decomposition of ``[design | target]`` (Householder QR, as stable as on the whole
     matrix), and the small system in R is solved by SVD at the end. A target of K columns (n, K)
     gives (width, K) coefficients and K intercepts: each column's least squares.
+
+    With row weights, the weighted least squares (LinearRegression with ``sample_weight``): the
+    weighted means are taken out, and each centred row is multiplied by the root of its weight.
     """
     from scipy import linalg
 
@@ -96,11 +100,18 @@ def blocked_least_squares(design: LinearDesign, X: np.ndarray, target: np.ndarra
     several = target.ndim == 2
     targets = target.shape[1] if several else 1
     x_mean, y_mean = np.zeros(width), np.zeros(targets) if several else 0.0
-    if fit_intercept:
+    if fit_intercept and weight is None:
         for start in range(0, n, BLOCK_ROWS):
             x_mean += design.transform(X[start:start + BLOCK_ROWS]).sum(axis=0)
         x_mean = x_mean / n
         y_mean = np.mean(target, axis=0) if several else float(np.mean(target))
+    elif fit_intercept and weight is not None:
+        total = float(np.sum(weight))
+        for start in range(0, n, BLOCK_ROWS):
+            x_mean += weight[start:start + BLOCK_ROWS] @ design.transform(X[start:start + BLOCK_ROWS])
+        x_mean = x_mean / total
+        y_mean = np.average(target, axis=0, weights=weight) if several else float(np.average(target, weights=weight))
+    root = None if weight is None else np.sqrt(weight)
     factor = np.zeros((0, width + targets))
     for start in range(0, n, BLOCK_ROWS):
         rows = min(BLOCK_ROWS, n - start)
@@ -114,6 +125,8 @@ def blocked_least_squares(design: LinearDesign, X: np.ndarray, target: np.ndarra
             block[:, width:] = target[start:start + rows] - y_mean
         else:
             block[:, width] = target[start:start + rows] - y_mean
+        if root is not None:
+            block *= root[start:start + rows, None]
         factor = linalg.qr(stacked, mode="r", overwrite_a=True, check_finite=False)[0][: width + targets]
     cond = max(n, width) * np.finfo(np.float64).eps
     right = factor[:width, width:] if several else factor[:width, width]
@@ -140,11 +153,15 @@ def checked_coefficients(coef: Any, intercept: Any, kind: str, outputs: int = 1)
     return coef, intercept
 
 
-def fit_estimator(estimator: Any, matrix: np.ndarray, target: np.ndarray, kind: str) -> Any:
-    """Return ``estimator`` fit to ``matrix`` and ``target``; a rejected parameter value raises StageSpecError."""
+def fit_estimator(estimator: Any, matrix: np.ndarray, target: np.ndarray, kind: str,
+                  sample_weight: np.ndarray | None = None) -> Any:
+    """Return ``estimator`` fit to ``matrix`` and ``target`` (rows weighted by ``sample_weight`` when
+    given); a rejected parameter value raises StageSpecError."""
     from sklearn.utils._param_validation import InvalidParameterError
 
     try:
+        if sample_weight is not None:
+            return estimator.fit(matrix, target, sample_weight=sample_weight)
         return estimator.fit(matrix, target)
     except InvalidParameterError as exc:
         raise StageSpecError(f"kind {kind!r}: {str(exc).splitlines()[0]}") from None
@@ -255,7 +272,7 @@ class LinearFamilyKind(StageKind):
         if matrix.shape[1] == 0:  # e.g. a categorical column with no value in the fitting rows
             return constant_model(design, target, bool(params.get("fit_intercept", True)))
         estimator = self.make_estimator(params, request)
-        fit_estimator(estimator, matrix, target, self.name)
+        fit_estimator(estimator, matrix, target, self.name, sample_weight=request.weight)
         coef = estimator.coef_.T if target.ndim == 2 else estimator.coef_
         coef, intercept = checked_coefficients(coef, estimator.intercept_, self.name, request.outputs)
         return LinearModel(design, coef, intercept)
@@ -298,7 +315,7 @@ class LinearKind(LinearFamilyKind):
         target = np.asarray(request.residual, dtype=np.float64)
         if design.width == 0:  # e.g. a categorical column with no value in the fitting rows
             return constant_model(design, target, bool(fit_intercept))
-        coef, intercept = blocked_least_squares(design, request.X, target, bool(fit_intercept))
+        coef, intercept = blocked_least_squares(design, request.X, target, bool(fit_intercept), request.weight)
         coef, intercept = checked_coefficients(coef, intercept, self.name, request.outputs)
         return LinearModel(design, coef, intercept)
 

@@ -51,15 +51,22 @@ def inverse_penalty(params: dict[str, Any], kind: str) -> float:
     return float(C)
 
 
+def _row_weight(C: float, sample_weight: np.ndarray | None) -> tuple[Any, float]:
+    """Return the weight of each row's log loss (C, or C times the row's weight) and the penalty's factor."""
+    weight, ridge = (1.0, 0.0) if np.isinf(C) else (C, 1.0)
+    return (weight if sample_weight is None else weight * sample_weight), ridge
+
+
 def offset_logistic_fit(
-    matrix: np.ndarray, y: np.ndarray, offset: np.ndarray, C: float, max_iter: int, tol: float
+    matrix: np.ndarray, y: np.ndarray, offset: np.ndarray, C: float, max_iter: int, tol: float,
+    sample_weight: np.ndarray | None = None,
 ) -> tuple[np.ndarray, float]:
-    """Return (w, b) minimising C * sum of log losses at offset + matrix @ w + b, plus 0.5 * ||w||^2.
+    """Return (w, b) minimising C * sum of (row-weighted) log losses at offset + matrix @ w + b, plus 0.5 * ||w||^2.
 
     With C = inf the penalty is dropped and the plain sum of log losses is minimised.
     """
     width = matrix.shape[1]
-    weight, ridge = (1.0, 0.0) if np.isinf(C) else (C, 1.0)
+    weight, ridge = _row_weight(C, sample_weight)
 
     def objective(theta: np.ndarray) -> tuple[float, np.ndarray]:
         w, b = theta[:width], theta[width]
@@ -77,7 +84,7 @@ def offset_logistic_fit(
     found = minimize(objective, np.zeros(width + 1), jac=True, method="L-BFGS-B", options=options)
     if width > NEWTON_WIDTH:
         return found.x[:width], float(found.x[width])
-    return newton_polish(matrix, y, offset, C, found.x)
+    return newton_polish(matrix, y, offset, C, found.x, sample_weight=sample_weight)
 
 
 #: designs up to this many columns get Newton steps after the quasi-Newton search
@@ -87,7 +94,7 @@ _BLOCK_ROWS = 65_536
 
 
 def newton_polish(matrix: np.ndarray, y: np.ndarray, offset: np.ndarray, C: float, theta: np.ndarray,
-                  steps: int = 4) -> tuple[np.ndarray, float]:
+                  steps: int = 4, sample_weight: np.ndarray | None = None) -> tuple[np.ndarray, float]:
     """Return (w, b) after up to ``steps`` Newton steps from ``theta`` (w then b), each kept only when
     it lowers the gradient's norm.
 
@@ -97,7 +104,7 @@ def newton_polish(matrix: np.ndarray, y: np.ndarray, offset: np.ndarray, C: floa
     intercept, when there is no penalty) gets no step: it is cut by the least-squares solve.
     """
     width = matrix.shape[1]
-    weight, ridge = (1.0, 0.0) if np.isinf(C) else (C, 1.0)
+    weight, ridge = _row_weight(C, sample_weight)
 
     def gradient(theta: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
         p = expit(offset + matrix @ theta[:width] + theta[width])
@@ -136,19 +143,23 @@ def separation_note(logit: np.ndarray) -> str | None:
 
 
 def offset_multinomial_fit(
-    matrix: np.ndarray, y: np.ndarray, offset: np.ndarray, C: float, max_iter: int, tol: float
+    matrix: np.ndarray, y: np.ndarray, offset: np.ndarray, C: float, max_iter: int, tol: float,
+    sample_weight: np.ndarray | None = None,
 ) -> tuple[np.ndarray, np.ndarray]:
     """Return (W, b), W of shape (width, K), minimising C * sum of multinomial log losses at
     offset + matrix @ W + b, plus 0.5 * ||W||^2 (no penalty with C = inf)."""
     width, n_classes = matrix.shape[1], offset.shape[1]
-    weight, ridge = (1.0, 0.0) if np.isinf(C) else (C, 1.0)
+    weight, ridge = _row_weight(C, sample_weight)
+    if sample_weight is not None:
+        weight = weight[:, None]  # one weight per row, over its K classes
     indicator = one_hot(y, n_classes)
     design = np.c_[matrix, np.ones(len(matrix))]
 
     def objective(theta: np.ndarray) -> tuple[float, np.ndarray]:
         coef = theta.reshape(width + 1, n_classes)
         logits = offset + design @ coef
-        value = weight * float(np.sum(logsumexp(logits, axis=1) - np.sum(indicator * logits, axis=1)))
+        per_row = logsumexp(logits, axis=1) - np.sum(indicator * logits, axis=1)
+        value = float(np.sum(weight[:, 0] * per_row)) if sample_weight is not None else weight * float(np.sum(per_row))
         value += 0.5 * ridge * float(np.sum(coef[:width] ** 2))
         slope = weight * (_softmax(logits) - indicator)
         gradient = design.T @ slope
@@ -169,12 +180,13 @@ def _softmax(logits: np.ndarray) -> np.ndarray:
     return shifted / shifted.sum(axis=1, keepdims=True)
 
 
-def _multinomial_newton(design: np.ndarray, indicator: np.ndarray, offset: np.ndarray, weight: float, ridge: float,
+def _multinomial_newton(design: np.ndarray, indicator: np.ndarray, offset: np.ndarray, weight: Any, ridge: float,
                         theta: np.ndarray, width: int, steps: int = 4) -> np.ndarray:
     """Return ``theta`` after up to ``steps`` Newton steps, each kept only when it lowers the gradient's norm
     (as ``newton_polish`` does for two classes; the full Hessian of the K classes' coefficients)."""
     n_classes = indicator.shape[1]
     size = (width + 1) * n_classes
+    row_weight = weight[:, 0] if np.ndim(weight) else weight  # weights arrive as an (n, 1) column
     penalised = np.zeros((width + 1, n_classes))
     penalised[:width] = ridge
 
@@ -188,7 +200,7 @@ def _multinomial_newton(design: np.ndarray, indicator: np.ndarray, offset: np.nd
         blocks = np.zeros((width + 1, n_classes, width + 1, n_classes))
         for a in range(n_classes):
             for c in range(a, n_classes):
-                curvature = weight * p[:, a] * ((a == c) - p[:, c])
+                curvature = row_weight * p[:, a] * ((a == c) - p[:, c])
                 block = np.zeros((width + 1, width + 1))
                 for start in range(0, len(design), _BLOCK_ROWS):
                     rows = design[start:start + _BLOCK_ROWS]
@@ -237,7 +249,7 @@ class LogisticKind(StageKind):
             return self._multinomial(request, params, design, matrix, y)
         w, b = offset_logistic_fit(
             matrix, y, np.asarray(request.raw, dtype=np.float64), inverse_penalty(params, self.name),
-            int(params["max_iter"]), float(params["tol"]),
+            int(params["max_iter"]), float(params["tol"]), sample_weight=request.weight,
         )
         coef, intercept = checked_coefficients(w, b, self.name)
         if np.isinf(inverse_penalty(params, self.name)):
@@ -250,7 +262,8 @@ class LogisticKind(StageKind):
                      y: np.ndarray) -> LinearModel:
         offset = np.asarray(request.raw, dtype=np.float64)
         C = inverse_penalty(params, self.name)
-        W, b = offset_multinomial_fit(matrix, y, offset, C, int(params["max_iter"]), float(params["tol"]))
+        W, b = offset_multinomial_fit(matrix, y, offset, C, int(params["max_iter"]), float(params["tol"]),
+                                      sample_weight=request.weight)
         coef, intercept = checked_coefficients(W, b, self.name, request.outputs)
         if np.isinf(C):
             note = margin_note(offset + matrix @ coef + intercept)

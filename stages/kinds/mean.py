@@ -9,6 +9,7 @@ from typing import Any, ClassVar
 
 import numpy as np
 
+from .. import metrics
 from ..errors import ChainFileError
 from . import register
 from .base import Artifact, FitRequest, StageKind
@@ -41,8 +42,8 @@ class MeanKind(StageKind):
     def fit(self, request: FitRequest, params: dict[str, Any]) -> Constant:
         """Return the mean of the residuals (of each output) as a constant learner."""
         if request.outputs > 1:
-            return Constant(np.mean(request.residual, axis=0))
-        return Constant(float(np.mean(request.residual)))
+            return Constant(np.average(request.residual, axis=0, weights=request.weight))
+        return Constant(metrics.average(request.residual, request.weight))
 
     def refine(self, learner: Constant, request: FitRequest) -> None:
         """Replace the mean with the loss's optimal constant where it has one (exactly 0 right after the start)."""

@@ -107,6 +107,12 @@ class SklearnKind(StageKind):
         """Return the estimator's own parameter names (nested ones included, as set_params takes them)."""
         return set(self._accepted)
 
+    def accepts_weights(self, params: dict[str, Any]) -> bool:
+        """Return True when the estimator's ``fit`` takes ``sample_weight``."""
+        from sklearn.utils.validation import has_fit_parameter
+
+        return bool(has_fit_parameter(self.cls, "sample_weight"))
+
     def fit(self, request: FitRequest, params: dict[str, Any]) -> SklearnModel:
         """Return the regressor fit to the residuals on the linear design."""
         check_has_features(request.X, self.name)
@@ -128,7 +134,8 @@ class SklearnKind(StageKind):
             estimator.set_params(**settings)
         except ValueError as exc:
             raise StageSpecError(f"kind {self.name!r}: {str(exc).splitlines()[0]}") from None
-        fit_estimator(estimator, matrix, np.asarray(request.residual, dtype=np.float64), self.name)
+        fit_estimator(estimator, matrix, np.asarray(request.residual, dtype=np.float64), self.name,
+                      sample_weight=request.weight)
         if from_stream:
             estimator.set_params(random_state=None)  # the fitted model must not hold the chain's stream
         return estimator

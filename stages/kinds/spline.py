@@ -196,7 +196,7 @@ class SplineKind(StageKind):
         target = np.asarray(request.residual, dtype=np.float64)
         if matrix.shape[1] == 0:
             return constant_model(design, target, True)
-        ridge = fit_estimator(Ridge(alpha=params["alpha"]), matrix, target, self.name)
+        ridge = fit_estimator(Ridge(alpha=params["alpha"]), matrix, target, self.name, sample_weight=request.weight)
         coef = ridge.coef_.T if target.ndim == 2 else ridge.coef_
         coef, intercept = checked_coefficients(coef, ridge.intercept_, self.name, request.outputs)
         return LinearModel(design, coef, intercept)

@@ -42,7 +42,7 @@ if TYPE_CHECKING:
     from ..chain import Chain
     from ..predictor import FittedChain
 
-LINEAR_KINDS = ("linear", "ridge", "lasso", "logistic")
+LINEAR_KINDS = ("linear", "ridge", "lasso", "logistic", "glm")
 BLOCK_ROWS = 65_536
 CONFIDENCE = 0.95
 COLUMNS = ["term", "feature", "coefficient", "std_error", "ci_low", "ci_high", "reference"]
@@ -116,8 +116,8 @@ def _check_kind(kind: str, k: int) -> None:
     if kind == "spline":
         raise StageSpecError(f"stage {k} is a spline stage: its fitted curves are chain.curves({k})")
     if kind not in LINEAR_KINDS:
-        raise StageSpecError(f"stage {k} is a {kind} stage; coefficients are for linear, ridge, lasso "
-                             "and logistic stages")
+        raise StageSpecError(f"stage {k} is a {kind} stage; coefficients are for linear, ridge, lasso, "
+                             "logistic and glm stages")
 
 
 def _frame(terms: Terms, values: np.ndarray, errors: tuple[np.ndarray, float] | None, note: str) -> pd.DataFrame:
@@ -210,6 +210,10 @@ def _standard_errors(chain: Chain, k: int, terms: Terms,
         return None, "no standard errors: the stage is penalised (set penalty = \"none\" for them)"
     if stage.kind in ("ridge", "lasso"):
         return None, f"no standard errors: a {stage.kind} stage is penalised"
+    if stage.kind == "glm":
+        return None, "no standard errors: not computed for glm stages"
+    if chain.weight is not None:
+        return None, "no standard errors: not computed for chains with row weights"
     if stage.kind == "linear" and chain.loss.name != "squared":
         return None, f"no standard errors: a linear stage regresses the {chain.loss.name} loss's residuals"
     if stage.kind == "linear" and not stage.params.get("fit_intercept", True):

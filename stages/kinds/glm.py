@@ -1,0 +1,136 @@
+"""The ``glm`` kind: a generalised linear model with the chain's loss and link, on top of the chain so far.
+
+The stage fits the loss itself with the chain's raw output as a fixed offset (for a first stage
+that is the start value plus log(exposure)), on the design ``linear`` uses (imputed,
+standardised, one-hot). It minimises
+
+    (1 / sum w) * sum_i w_i * l(y_i, raw_i + z_i),   z = design @ b + b0,
+    plus alpha / 2 * ||b||^2 (the intercept b0 unpenalised),
+
+l being the loss per row: half the squared error, the binomial log loss, or half the Tweedie
+deviance (poisson, gamma, tweedie). This is scikit-learn's objective for PoissonRegressor,
+GammaRegressor and TweedieRegressor(link="log") (its ``alpha`` on the standardised design here),
+and with alpha = 0 the maximum-likelihood GLM statsmodels fits with an offset. With squared loss
+the fit is least squares (``linear``), with log loss an unpenalised ``logistic``.
+
+The fit is Newton's method with a backtracking line search (Armijo's rule), from b = 0.
+"""
+
+from __future__ import annotations
+
+from typing import Any, ClassVar
+
+import numpy as np
+from scipy.special import expit
+
+from ..errors import StageSpecError
+from . import register
+from .base import Artifact, FitRequest, StageKind, check_has_features
+from .design import LinearDesign
+from .linear import LinearModel, checked_coefficients, dump_linear, linear_importance, load_linear
+
+#: halvings of a Newton step before the search gives up (the objective no longer falls in float64)
+MAX_HALVINGS = 40
+#: Armijo's sufficient decrease: a step must gain this share of what the slope promises
+ARMIJO = 1e-4
+GLM_LOSSES = ("squared", "logloss", "poisson", "gamma", "tweedie")
+
+
+def per_row(loss: Any, y: np.ndarray, raw: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Return each row's loss l, its slope and its curvature in the raw score (for the losses a glm takes)."""
+    if loss.name == "squared":
+        return 0.5 * (y - raw) ** 2, raw - y, np.ones_like(raw)
+    if loss.name == "logloss":
+        p = expit(raw)
+        return np.logaddexp(0.0, raw) - y * raw, p - y, p * (1 - p)
+    from ..loglink import unit_deviance
+
+    mu = loss.link(raw)
+    return 0.5 * unit_deviance(y, mu, loss.power), loss.gradient(y, raw), loss.hessian(y, raw)
+
+
+def fit_glm(matrix: np.ndarray, y: np.ndarray, offset: np.ndarray, loss: Any, weight: np.ndarray | None,
+            alpha: float, max_iter: int, tol: float) -> tuple[np.ndarray, float]:
+    """Return (b, b0) minimising the glm objective above by Newton steps.
+
+    Stops when a step moves no coefficient by more than ``tol`` (relative to its size) or when no
+    step lowers the objective any more.
+    """
+    n, width = matrix.shape
+    w = np.full(n, 1.0 / n) if weight is None else weight / float(np.sum(weight))
+    design = np.c_[matrix, np.ones(n)]
+    penalty = np.r_[np.full(width, float(alpha)), 0.0]
+    theta = np.zeros(width + 1)
+
+    def objective(theta: np.ndarray) -> tuple[float, np.ndarray, np.ndarray]:
+        value, slope, curvature = per_row(loss, y, offset + design @ theta)
+        return float(w @ value) + 0.5 * float(penalty @ theta**2), slope, curvature
+
+    value, slope, curvature = objective(theta)
+    for _ in range(max_iter):
+        gradient = design.T @ (w * slope) + penalty * theta
+        hessian = (design * (w * curvature)[:, None]).T @ design
+        hessian[np.diag_indices_from(hessian)] += penalty
+        step = np.linalg.lstsq(hessian, gradient, rcond=1e-12)[0]
+        promised = float(gradient @ step)
+        t, moved = 1.0, False
+        for _ in range(MAX_HALVINGS):
+            trial = theta - t * step
+            trial_value, trial_slope, trial_curvature = objective(trial)
+            if np.isfinite(trial_value) and trial_value <= value - ARMIJO * t * promised:
+                moved = True
+                break
+            t /= 2
+        if not moved:
+            break
+        theta, value, slope, curvature = trial, trial_value, trial_slope, trial_curvature
+        if np.max(np.abs(t * step)) <= tol * max(1.0, float(np.max(np.abs(theta)))):
+            break
+    return theta[:width], float(theta[width])
+
+
+class GlmKind(StageKind):
+    """A GLM with the chain's loss and link (unpenalised, or ridge with ``alpha``), offset by the chain so far."""
+
+    name: ClassVar[str] = "glm"
+    summary: ClassVar[str] = "a GLM with the chain's loss and link on all features (imputed, standardised, one-hot)"
+    defaults: ClassVar[dict[str, Any]] = {"alpha": 0.0, "max_iter": 100, "tol": 1e-12}
+    main_params: ClassVar[tuple[str, ...]] = ("alpha",)
+    fits_loss: ClassVar[bool] = True
+
+    def fit(self, request: FitRequest, params: dict[str, Any]) -> LinearModel:
+        """Return the GLM fit from the chain's raw output; raise StageSpecError for a loss it does not take."""
+        loss = request.loss
+        if loss.name not in GLM_LOSSES or request.outputs > 1:
+            raise StageSpecError(f"kind {self.name!r} takes the losses {', '.join(GLM_LOSSES)}; this chain's is "
+                                 f"{'the multinomial log loss (use logistic)' if request.outputs > 1 else repr(loss.name)}")
+        alpha, max_iter, tol = params["alpha"], params["max_iter"], params["tol"]
+        if isinstance(alpha, bool) or not isinstance(alpha, int | float) or not 0 <= alpha < float("inf"):
+            raise StageSpecError(f"kind {self.name!r}: alpha must be a number of zero or more, not {alpha!r}")
+        if isinstance(max_iter, bool) or not isinstance(max_iter, int) or not 1 <= max_iter <= 10_000:
+            raise StageSpecError(f"kind {self.name!r}: max_iter must be a whole number from 1 to 10000, not {max_iter!r}")
+        if isinstance(tol, bool) or not isinstance(tol, int | float) or not 0 <= tol < 1:
+            raise StageSpecError(f"kind {self.name!r}: tol must be a number from 0 to 1, not {tol!r}")
+        check_has_features(request.X, self.name)
+        design = LinearDesign.fit(request.X, request.columns)
+        matrix = design.transform(request.X)
+        y = np.asarray(request.y, dtype=np.float64)
+        b, b0 = fit_glm(matrix, y, np.asarray(request.raw, dtype=np.float64), loss, request.weight,
+                        float(alpha), int(max_iter), float(tol))
+        coef, intercept = checked_coefficients(b, b0, self.name)
+        return LinearModel(design, coef, intercept)
+
+    def save(self, learner: LinearModel) -> Artifact:
+        """Return the model as JSON."""
+        return dump_linear(learner, self.name)
+
+    def load(self, artifact: Artifact) -> LinearModel:
+        """Return the model stored in ``artifact``."""
+        return load_linear(artifact, self.name)
+
+    def importance(self, learner: LinearModel, columns) -> np.ndarray:
+        """Return |coef| on the standardised design, summed per input column."""
+        return linear_importance(learner, len(columns))
+
+
+GLM = register(GlmKind())
