@@ -80,11 +80,23 @@ def fitted_values(chain: Chain, part: Part, row: int | None) -> np.ndarray:
 
 def histogram(chain: Chain, row: int | None, parts: tuple[Part, ...], bins: int | str, max_bins: int,
               of_class: object = None) -> tuple[dict[str, np.ndarray], np.ndarray]:
-    """Return residual counts per part over shared bin edges, and the edges; a multiclass chain without
+    """Return residual counts per part over shared bin edges (summed row weights on a weighted chain), and
+    the edges; a multiclass chain without
     ``of_class`` counts each row's own class's pseudo-residual, 1 - p_y (``scoring.shown_residual``)."""
     if chain.task == "multiclass" and of_class is None:
         values = [scoring.shown_residual(chain.loss, *part_rows(chain, p, row)) for p in parts]
     else:
         values = [residuals(chain, p, row, of_class) for p in parts]
-    counts, edges = scoring.histogram(values, bins=bins, max_bins=max_bins)
+    weights = None if chain.weight is None else [part_weights(chain, p) for p in parts]
+    counts, edges = scoring.histogram(values, bins=bins, max_bins=max_bins, weights=weights)
     return dict(zip(parts, counts, strict=True)), edges
+
+
+def part_weights(chain: Chain, part: Part) -> np.ndarray | None:
+    """Return the row weights of ``part`` in the order residuals use (None when every row counts once)."""
+    if chain.weight is None:
+        return None
+    layout = chain.layout
+    if part == "valid":
+        return scoring.validation_y(layout, chain.weight)
+    return chain.weight[layout.train if part == "train" else layout.test]

@@ -117,8 +117,10 @@ def best_row(metric: str, scores: list[Scores]) -> int:
     return best
 
 
-def histogram(values: list[np.ndarray], bins: int | str | np.ndarray = "auto", max_bins: int = 60) -> tuple[list[np.ndarray], np.ndarray]:
-    """Return counts per array over shared bin edges (numpy's bin rule on all values, at most ``max_bins``)."""
+def histogram(values: list[np.ndarray], bins: int | str | np.ndarray = "auto", max_bins: int = 60,
+              weights: list[np.ndarray] | None = None) -> tuple[list[np.ndarray], np.ndarray]:
+    """Return counts per array over shared bin edges (numpy's bin rule on all values, at most ``max_bins``);
+    with ``weights`` (one array per array of values), the summed weights of each bin's rows."""
     finite = [v[np.isfinite(v)] for v in values]
     pooled = np.concatenate(finite) if finite else np.array([0.0])
     if pooled.size == 0:
@@ -126,7 +128,10 @@ def histogram(values: list[np.ndarray], bins: int | str | np.ndarray = "auto", m
     edges = np.histogram_bin_edges(pooled, bins=bins)
     if len(edges) - 1 > max_bins:
         edges = np.histogram_bin_edges(pooled, bins=max_bins)
-    return [np.histogram(v, bins=edges)[0] for v in finite], edges
+    if weights is None:
+        return [np.histogram(v, bins=edges)[0] for v in finite], edges
+    kept = [w[np.isfinite(v)] for v, w in zip(values, weights, strict=True)]
+    return [np.histogram(v, bins=edges, weights=w)[0] for v, w in zip(finite, kept, strict=True)], edges
 
 
 def permutation_importance(

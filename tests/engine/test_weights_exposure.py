@@ -156,3 +156,23 @@ def test_a_poisson_chain_of_every_kind_that_takes_weights_fits_and_predicts_rate
     table = chain.table()
     assert "deviance" in chain.scores()[-1].valid and np.isfinite(chain.scores()[-1].valid["deviance"])
     assert len(table) == 10
+
+
+def test_the_residual_histogram_of_a_weighted_chain_counts_weights():
+    frame = _counts()
+    chain = stages.Chain(frame, "alarms", loss="poisson", weight="w")
+    chain.add("glm")
+    counts, edges = chain.histogram()
+    assert counts["train"].sum() == pytest.approx(frame["w"].to_numpy()[chain.split.train].sum(), rel=1e-12)
+    assert counts["valid"].sum() == pytest.approx(frame["w"].to_numpy()[chain.split.valid].sum(), rel=1e-12)
+
+
+def test_the_residuals_of_a_count_chain_are_deviance_residuals():
+    # deviance residual: sign(y - mu) * sqrt(unit deviance) (McCullagh & Nelder 1989, section 2.4)
+    frame = _counts()
+    chain = stages.Chain(frame, "alarms", loss="poisson", exposure="months")
+    chain.add("glm")
+    y, mu = chain.part_targets("valid"), chain.fitted_values("valid")
+    deviance = 2 * (np.where(y > 0, y * np.log(np.where(y > 0, y, 1) / mu), 0.0) - y + mu)
+    np.testing.assert_allclose(chain.residuals("valid"), np.sign(y - mu) * np.sqrt(deviance), rtol=1e-10, atol=1e-12)
+    assert chain.loss.residual_name == "deviance residual"
