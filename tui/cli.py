@@ -91,9 +91,14 @@ With --each-stage, also 'after_1' .. 'after_N' (the prediction after each stage;
 the probability for a binary chain) and, when DATA has the target column,
 'residual' (target minus prediction; for a binary chain 1 or 0 minus the
 probability).
+A chain on the log link (loss poisson, gamma or tweedie) predicts the mean per unit
+of exposure; a chain fit with an exposure column needs that column in DATA, and
+--exposure COL multiplies each prediction by COL, giving the expected total of the
+row (its 'residual' is the target minus the expected total on the chain's exposure).
 
 example:
-  remnant predict houses.chain new.parquet --id listing_id --out scores.csv"""
+  remnant predict houses.chain new.parquet --id listing_id --out scores.csv
+  remnant predict alarms.chain months.csv --exposure months_in_service"""
 _EXPORT = """Write a chain file as one ONNX model, with its preprocessing, for any ONNX runtime.
 The model is checked in onnxruntime against the chain's own predictions on probe
 rows before it is written; the probe rows (inputs and expected outputs) are
@@ -170,6 +175,9 @@ def _add_headless_commands(commands: Any) -> None:
                          help=f"rows read at a time (default {DEFAULT_CHUNK_ROWS:,})")
     predict.add_argument("--each-stage", action="store_true",
                          help="also write the prediction after each stage, and the residual when DATA has the target")
+    predict.add_argument("--exposure", metavar="COL",
+                         help="multiply each prediction (per unit of exposure) by COL: expected totals "
+                              "(log-link chains: poisson, gamma, tweedie)")
     predict.set_defaults(run=run_predict)
     export = commands.add_parser("export", help="write a chain file as an ONNX model (and its probe file)",
                                  description=_EXPORT, formatter_class=_RAW)
@@ -470,6 +478,7 @@ def run_show(args: argparse.Namespace) -> int:
 def run_predict(args: argparse.Namespace) -> int:
     """Write predictions of a chain file for every row of a data file; return 0."""
     from stages.files import store
+    from stages.loglink import is_log_link
     from tui.predicting import write_predictions
 
     out = None if args.out in (None, "-") else args.out
@@ -483,8 +492,11 @@ def run_predict(args: argparse.Namespace) -> int:
             if not id_column:
                 raise UsageError(f"--id: {args.chain} names no id column (none had a distinct value on every row); "
                                  "name one: --id COL")
+        if args.exposure is not None and not is_log_link(fitted.loss):
+            raise UsageError(f"--exposure is for chains on the log link (poisson, gamma, tweedie); {args.chain} "
+                             f"has loss {fitted.loss.name!r}")
         write_predictions(fitted, args.data, out, id_column=id_column, chunk_rows=args.chunk_rows,
-                          each_stage=args.each_stage)
+                          each_stage=args.each_stage, exposure=args.exposure)
     return 0
 
 

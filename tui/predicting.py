@@ -29,6 +29,7 @@ from stages.reading import (
     read_options,
     source_name,
 )
+from stages.row_weights import GIVEN, check_exposure, read_values
 from stages.scoring import shown_residual
 from stages.understand.rows import encode_target
 
@@ -90,9 +91,28 @@ def _first_line(err: object) -> str:
     return lines[-1] if lines else type(err).__name__
 
 
+def chain_exposure(fitted: FittedChain) -> str | None:
+    """Return the exposure column a chain was fit with and needs in the data (None without one)."""
+    column = fitted.exposure_column
+    return None if column in (None, GIVEN) else column
+
+
+def exposures(chunk: pd.DataFrame, column: str, source: str, offset: int, *, option: bool = False) -> np.ndarray:
+    """Return the chunk's exposures in ``column``, checked positive; DataError naming the column (and the
+    file's row) when it is missing or holds a value that is not a positive number."""
+    if column not in chunk.columns:
+        if option:
+            raise DataError(f"{source}: --exposure column {column!r} is not a column")
+        raise DataError(f"{source}: the chain was fit with exposure column {column!r}, which is not a column "
+                        "(a log-link chain predicts per unit of exposure and needs it for totals and residuals)")
+    values, _ = read_values(chunk, column, "exposure", source)
+    return check_exposure(values, column, source, rows=np.arange(len(chunk)) + offset)
+
+
 def predict_chunk(fitted: FittedChain, chunk: pd.DataFrame, *, threshold: float, id_column: str | None,
                   source: str, offset: int = 0, each_stage: bool = False,
-                  filled: dict[str, int] | None = None) -> tuple[pd.DataFrame, dict[str, int]]:
+                  filled: dict[str, int] | None = None, exposure: str | None = None,
+                  ) -> tuple[pd.DataFrame, dict[str, int]]:
     """Return the output rows of one chunk (id, prediction, probability) and its unseen levels per column.
 
     A multiclass chain writes ``prediction`` (the most probable class) and ``probability_<class>`` for
@@ -104,6 +124,11 @@ def predict_chunk(fitted: FittedChain, chunk: pd.DataFrame, *, threshold: float,
     ``offset`` is the number of rows before the chunk, so that messages name rows of the whole file.
     Missing values the fitting rows never had are given their median; ``filled`` (when given)
     counts them per column.
+
+    A log-link chain (poisson, gamma, tweedie) predicts the mean per unit of exposure; with
+    ``exposure`` (a column) its predictions are multiplied back to each row's expected total. A
+    chain fit with an exposure needs its exposure column in the data; its ``residual`` is the target
+    minus the expected total on that exposure.
     """
     if id_column is not None and id_column not in chunk.columns:
         raise DataError(f"{source}: id column {id_column!r} is not a column")
@@ -113,6 +138,9 @@ def predict_chunk(fitted: FittedChain, chunk: pd.DataFrame, *, threshold: float,
         raise SchemaError(_whole_file_rows(str(err), offset)) from None
     if len(chunk) == 0:  # a header-only file: the columns were checked, there is nothing to predict
         return pd.DataFrame(), unseen
+    needed = chain_exposure(fitted)
+    fitted_exposure = None if needed is None else exposures(chunk, needed, source, offset)
+    scale = None if exposure is None else exposures(chunk, exposure, source, offset, option=True)
     matrix, found = fitted.schema.fill_missing(matrix)
     if filled is not None:
         for column, count in found.items():
@@ -132,21 +160,25 @@ def predict_chunk(fitted: FittedChain, chunk: pd.DataFrame, *, threshold: float,
         out["prediction"] = np.where(probability >= threshold, positive, negative)
         out["probability"] = probability
     else:
-        out["prediction"] = raw[:, 0]
+        out["prediction"] = fitted.loss.link(raw[:, 0]) if scale is None else fitted.loss.link(raw[:, 0]) * scale
     if after is not None:
-        out.update(_each_stage(fitted, chunk, after, source, offset))
+        out.update(_each_stage(fitted, chunk, after, source, offset, scale, fitted_exposure))
     return pd.DataFrame(out), unseen
 
 
 def _each_stage(fitted: FittedChain, chunk: pd.DataFrame, after: np.ndarray, source: str,
-                offset: int) -> dict[str, np.ndarray]:
+                offset: int, scale: np.ndarray | None = None,
+                fitted_exposure: np.ndarray | None = None) -> dict[str, np.ndarray]:
     """Return the columns ``after_1`` .. ``after_N`` and, when the chunk has the target, ``residual``."""
     if fitted.task == "multiclass":
         labels = np.asarray(fitted.schema.classes, dtype=object)
         out = {f"after_{k}": labels[predicted_classes(fitted.loss.link(after[:, k]))] for k in range(1, after.shape[1])}
     else:
         shown = fitted.loss.link(after[:, :, 0])
-        out = {f"after_{k}": shown[:, k] for k in range(1, after.shape[1])}
+        written = shown if scale is None else shown * scale[:, None]
+        out = {f"after_{k}": written[:, k] for k in range(1, after.shape[1])}
+        if fitted_exposure is not None:
+            shown = shown * fitted_exposure[:, None]  # the residual is against the expected total
     target = fitted.schema.target
     if target in chunk.columns:
         try:
@@ -169,7 +201,7 @@ def _whole_file_rows(text: str, offset: int) -> str:
 
 
 def write_predictions(fitted: FittedChain, data: str, out: str | None, *, id_column: str | None = None,
-                      chunk_rows: int = 100_000, each_stage: bool = False) -> int:
+                      chunk_rows: int = 100_000, each_stage: bool = False, exposure: str | None = None) -> int:
     """Write the predictions of every row of ``data`` as CSV to ``out`` (stdout when None); return the row count.
 
     With ``each_stage``, the prediction after each stage and the residual are written too (see
@@ -185,6 +217,7 @@ def write_predictions(fitted: FittedChain, data: str, out: str | None, *, id_col
     wanted = [id_column] if id_column else []
     if each_stage and schema.target not in wanted:
         wanted.append(schema.target)  # read when the file has it, for the residual
+    wanted += [c for c in (chain_exposure(fitted), exposure) if c is not None and c not in wanted]
     columns = schema.frame_columns + [c for c in wanted if c not in schema.frame_columns]
     text = [c.name for c in schema.columns if c.is_categorical] + ([id_column] if id_column else [])
     if each_stage and schema.task in ("binary", "multiclass"):
@@ -195,7 +228,8 @@ def write_predictions(fitted: FittedChain, data: str, out: str | None, *, id_col
         rows, unseen = 0, dict[str, int]()
         for chunk in iter_chunks(data, columns, text, chunk_rows):
             frame, found = predict_chunk(fitted, chunk, threshold=threshold, id_column=id_column,
-                                         source=name, offset=rows, each_stage=each_stage, filled=filled)
+                                         source=name, offset=rows, each_stage=each_stage, filled=filled,
+                                         exposure=exposure)
             for column, count in found.items():
                 unseen[column] = unseen.get(column, 0) + count
             if len(frame):

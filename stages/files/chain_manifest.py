@@ -70,7 +70,9 @@ MANIFEST = table(
      "test_revealed": nullable(flag()), "test_reveals": nullable(whole(0, 2**31)), "source": nullable(text(4096)),
      "ignore": nullable(items(_NAME, limits.MAX_COLUMNS)),
      "data": nullable(table({"rows": _COUNT, "columns": _COUNT, "sha256": _SHA256})),
-     "start_scores": nullable(SCORES), "probe": nullable(PROBE)},
+     "start_scores": nullable(SCORES), "probe": nullable(PROBE),
+     # the weight and exposure columns the chain was fit with, and the tweedie loss's power
+     "weight": nullable(_NAME), "exposure": nullable(_NAME), "power": nullable(number(1, 2))},
 )
 
 
@@ -98,11 +100,27 @@ def check_manifest(manifest: Any, path: str) -> None:
         raise ChainFileError(f"{path}: manifest schema names a feature twice")
     if manifest.get("validation") is not None:
         _check_validation(manifest["validation"], path)
+    _check_row_settings(manifest, path)
     for number_, entry in enumerate(manifest["stages"], start=1):
         if entry["index"] != number_:
             raise ChainFileError(f"{path}: stage {number_} in the manifest says it is stage {entry['index']}")
         if not math.isfinite(entry["scale"]):
             raise ChainFileError(f"{path}: stage {number_} has no finite scale")
+
+
+#: the losses an exposure enters (on the log link)
+LOG_LINK_LOSSES = ("poisson", "gamma", "tweedie")
+
+
+def _check_row_settings(manifest: dict[str, Any], path: str) -> None:
+    """Raise ChainFileError when a power or an exposure is recorded for a loss that takes none."""
+    loss = manifest["loss"]
+    power = manifest.get("power")
+    if power is not None and (loss != "tweedie" or not 1 < power < 2):
+        raise ChainFileError(f"{path}: manifest power {power!r} does not fit loss {loss[:64]!r} "
+                             "(a tweedie power lies strictly between 1 and 2)")
+    if manifest.get("exposure") is not None and loss not in LOG_LINK_LOSSES:
+        raise ChainFileError(f"{path}: manifest records an exposure column for loss {loss[:64]!r}, which takes none")
 
 
 #: what a stored validation spec the validation module cannot read raises

@@ -29,6 +29,7 @@ from ..errors import RecipeError, RemnantError, StageSpecError, ValidationSpecEr
 from ..kinds.base import ProgressFn
 from ..limits import MAX_NESTING, MAX_SEED, MAX_STAGES
 from ..parsing import ENTRY_KEYS, shown
+from ..row_weights import GIVEN
 from ..spec import StageSpec
 from ..validation import Holdout, ValidationSpec
 from .recipe_steps import Audition, parse_auditions, replay
@@ -40,8 +41,8 @@ if TYPE_CHECKING:
     from ..chain import Chain
 
 TABLES = ("data", "chain", "validation", "stage", "audition")
-DATA_KEYS = ("path", "target", "ignore", "features", "task", "positive", "dates")
-CHAIN_KEYS = ("loss", "seed", "threshold")
+DATA_KEYS = ("path", "target", "ignore", "features", "task", "positive", "dates", "weight", "exposure")
+CHAIN_KEYS = ("loss", "seed", "threshold", "power")
 MAX_RECIPE_BYTES = 16 * 1024**2
 _SHOWN_TABLES = "[data], [chain], [validation], [[stage]], [[audition]]"
 
@@ -67,6 +68,9 @@ class Recipe:
     patience: dict[int, int] = field(default_factory=dict)   # stage entry -> patience (grow)
     auditions: tuple[Audition, ...] = ()
     dates: tuple[tuple[str, tuple[str, ...]], ...] = ()      # date column -> parts that become features
+    weight: str | None = None                                # the column of row weights
+    exposure: str | None = None                              # the column of exposures (log-link losses)
+    power: float | None = None                               # the tweedie loss's power
 
     @property
     def name(self) -> str:
@@ -139,6 +143,7 @@ def parse_recipe(text: str, base_dir: str | os.PathLike = ".", source: str = "re
         threshold = parsing.number_value(chain, "threshold", 0.5)
     if not 0 < threshold < 1:
         raise reader.fail(f"threshold must be between 0 and 1, not {threshold:g}", "chain", 0, "threshold")
+    power = reader.power(chain, loss)
     table = reader.table(doc, "validation")
     with reader.at("validation"):
         validation = parsing.validation_spec(table, seed=seed)
@@ -149,7 +154,7 @@ def parse_recipe(text: str, base_dir: str | os.PathLike = ".", source: str = "re
     auditions = parse_auditions(doc.get("audition"), lambda i, key: probe.where("audition", i, key), len(entries),
                                 settings["task"])
     return Recipe(validation=validation, stages=tuple((e.spec, e.repeat) for e in entries), loss=loss, seed=seed,
-                  threshold=threshold, source=source, lines=probe.lines, auditions=auditions,
+                  threshold=threshold, power=power, source=source, lines=probe.lines, auditions=auditions,
                   patience={i: e.patience for i, e in enumerate(entries) if e.patience is not None}, **settings)
 
 
@@ -221,12 +226,32 @@ class _Reader:
         with self.at("data"):
             ignore = parsing.names_value(data, "ignore") or ()
             features = parsing.names_value(data, "features")
+            weight = parsing.text_value(data, "weight")
+            exposure = parsing.text_value(data, "exposure")
+        for key, column in (("weight", weight), ("exposure", exposure)):
+            if column is not None and column == target:
+                raise self.fail(f"{key} {column!r} is the target; a {key} column is another column", "data", 0, key)
+        if weight is not None and weight == exposure:
+            raise self.fail(f"weight and exposure both name {weight!r}; they are two columns", "data", 0, "exposure")
         return {
+            "weight": weight, "exposure": exposure,
             "data_path": None if path is None else base_dir / path,
             "target": target, "task": task,
             "positive": None if positive is None else str(positive),
             "ignore": ignore, "features": features, "dates": self.dates(data),
         }
+
+    def power(self, chain: dict[str, Any], loss: str | None) -> float | None:
+        """Return ``[chain] power``: a number strictly between 1 and 2, for the tweedie loss only."""
+        if "power" not in chain:
+            return None
+        value = chain["power"]
+        if loss != "tweedie":
+            raise self.fail(f"power is for loss = \"tweedie\" only (this recipe's loss is {shown(loss or 'the default')})",
+                            "chain", 0, "power")
+        if isinstance(value, bool) or not isinstance(value, int | float) or not 1 < value < 2:
+            raise self.fail(f"power must be a number strictly between 1 and 2, not {shown(value)}", "chain", 0, "power")
+        return float(value)
 
     def dates(self, data: dict[str, Any]) -> tuple[tuple[str, tuple[str, ...]], ...]:
         """Return ``[data] dates``: each date column with the parts of it that become features."""
@@ -274,10 +299,12 @@ def recipe_to_toml(recipe: Recipe, base_dir: str | os.PathLike | None = None) ->
     binary = recipe.task == "binary"
     data: dict[str, Any] = {"target": recipe.target, "ignore": list(recipe.ignore), "features": recipe.features,
                             "task": recipe.task, "positive": recipe.positive if binary else None,
-                            "dates": {column: list(parts) for column, parts in recipe.dates} or None}
+                            "dates": {column: list(parts) for column, parts in recipe.dates} or None,
+                            "weight": recipe.weight, "exposure": recipe.exposure}
     out += _pairs({k: v for k, v in data.items() if v is not None and v != []})
     out += ["", "[chain]"]
-    chain = {"loss": recipe.loss, "seed": recipe.seed, "threshold": recipe.threshold if binary else None}
+    chain = {"loss": recipe.loss, "seed": recipe.seed, "threshold": recipe.threshold if binary else None,
+             "power": recipe.power if recipe.loss == "tweedie" else None}
     out += _pairs({k: v for k, v in chain.items() if v is not None})
     validation = recipe.validation.to_dict()
     if not binary and validation.get("stratify") is True:
@@ -319,7 +346,8 @@ def _relative(path: str | os.PathLike, base_dir: str | os.PathLike | None) -> st
 def recipe_of_chain(chain: Chain) -> Recipe:
     """Return the recipe of a live chain, stages added by hand included; consecutive identical
     specs become one entry with ``repeat``."""
-    used = set(chain.validation.columns_used)
+    rows = {key: value for key, value in chain.row_settings().items() if value != GIVEN}
+    used = set(chain.validation.columns_used) | {rows.get("weight"), rows.get("exposure")}
     schema = chain.schema
     folded: list[list[Any]] = []
     for spec in chain.specs():
@@ -333,7 +361,8 @@ def recipe_of_chain(chain: Chain) -> Recipe:
         stages=tuple((spec, n) for spec, n in folded), ignore=tuple(c for c in chain.ignore if c not in used),
         features=None if chain.prepared.features_inferred else tuple(schema.names), task=schema.task,
         positive=schema.positive_class, loss=chain.loss.name, seed=chain.seed, threshold=chain.threshold,
-        dates=tuple(schema.dates().items()),
+        dates=tuple(schema.dates().items()), weight=rows.get("weight"), exposure=rows.get("exposure"),
+        power=rows.get("power"),
     )
 
 
@@ -374,7 +403,8 @@ def build_chain(recipe: Recipe, data: str | os.PathLike | pd.DataFrame | None = 
         chain = Chain(frame, recipe.target, recipe.validation, recipe.loss, seed=recipe.seed,
                       ignore=recipe.ignore, features=None if recipe.features is None else list(recipe.features),
                       task=recipe.task, positive=recipe.positive, threshold=recipe.threshold, source=name,
-                      data_path=data_path, dates={column: list(parts) for column, parts in recipe.dates})
+                      data_path=data_path, dates={column: list(parts) for column, parts in recipe.dates},
+                      weight=recipe.weight, exposure=recipe.exposure, power=recipe.power)
     except ValidationSpecError as err:
         raise RecipeError(f"{recipe.where('validation')}: {err}") from None
     except StageSpecError as err:
@@ -389,6 +419,7 @@ def _check_columns(recipe: Recipe, columns: list[str], data_name: str) -> None:
     named += [("features", c) for c in recipe.features or () if c not in _derived_names(recipe)]
     named += [("dates", c) for c, _ in recipe.dates]
     named += [("column", c) for c in recipe.validation.columns_used]
+    named += [(key, c) for key, c in (("weight", recipe.weight), ("exposure", recipe.exposure)) if c is not None]
     for key, column in named:
         if column in columns:
             continue

@@ -52,6 +52,7 @@ from ..fitting import Stage
 from ..kinds.base import ProgressFn
 from ..manifest_schema import ManifestMismatch, strict_json
 from ..reading import load_frame
+from ..row_weights import GIVEN
 from ..schema import Schema
 from ..validation import spec_from_dict
 from . import store
@@ -222,7 +223,7 @@ def _snapshot(chain: Chain, state: ChainState) -> tuple[dict[str, Any], dict[str
         "test": {"revealed": state.test_revealed, "reveals": state.reveal_count},
         "streams": [state_id(s) for s in state.streams], "current": [ids[id(s)] for s in state.stages],
         "removals": [{"action": r.action, "stages": [ids[id(s)] for s in r.stages]} for r in state.removals],
-        "stages": entries, "states": table,
+        "stages": entries, "states": table, **chain.row_settings(),
     }
     return store.json_ready(manifest), members
 
@@ -298,6 +299,16 @@ def _data_source(manifest: dict[str, Any], data: Any, name: str, allow_changed: 
     return path
 
 
+def _row_settings(manifest: dict[str, Any], name: str) -> dict[str, Any]:
+    """Return the session's weight and exposure columns and tweedie power as Chain arguments."""
+    settings: dict[str, Any] = {key: manifest[key] for key in ("weight", "exposure", "power") if key in manifest}
+    for key in ("weight", "exposure"):
+        if settings.get(key) == GIVEN:
+            raise SessionError(f"{name}: the session's {key}s were given in Python, not as a column; "
+                               "a session restores only a column")
+    return settings
+
+
 def _rebuild(manifest: dict[str, Any], source: Any, name: str) -> Chain:
     """Return a chain without stages over ``source`` with the session's settings."""
     frame, data_name = load_frame(source)
@@ -307,7 +318,8 @@ def _rebuild(manifest: dict[str, Any], source: Any, name: str) -> Chain:
                     "seed": int(manifest["seed"]), "ignore": [str(c) for c in columns["ignore"]],
                     "task": str(columns["task"]), "positive": columns["positive"],
                     "threshold": float(columns["threshold"]), "source": data_name,
-                    "dates": {k: list(v) for k, v in Schema.from_dict(columns["schema"]).dates().items()}}
+                    "dates": {k: list(v) for k, v in Schema.from_dict(columns["schema"]).dates().items()},
+                    **_row_settings(manifest, name)}
         target, features = str(columns["target"]), [str(c) for c in columns["features"]]
     data_path = os.fspath(source) if isinstance(source, str | os.PathLike) else None
     try:

@@ -57,6 +57,9 @@ MANIFEST = table({
     "streams": items(_STATE_ID, _TRACKS, min_items=1), "current": items(_ID, limits.MAX_STAGES),
     "removals": items(table({"action": text(32), "stages": items(_ID, limits.MAX_STAGES)}), limits.MAX_STAGES),
     "stages": items(STAGE, limits.MAX_STAGES * 8), "states": items(STATE, MAX_STATES),
+}, {
+    # the weight and exposure columns and the tweedie power, written only when the chain has them
+    "weight": _NAME, "exposure": _NAME, "power": number(1, 2),
 })
 
 

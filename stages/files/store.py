@@ -71,6 +71,8 @@ PROBE_RTOL = 1e-9
 LIBRARIES = ("scikit-learn", "lightgbm", "numpy", "pandas", "skops")
 #: keys of a chain's description copied into the manifest as they are
 _CHAIN_KEYS = ("validation", "seed", "rows", "test_revealed", "test_reveals", "source", "ignore")
+#: written only when the chain has them, so a chain without weights, exposure or power writes what it always has
+_ROW_KEYS = ("weight", "exposure", "power")
 
 # probe rows of loaded chains, so that saving a loaded chain again keeps its probe
 _PROBES: weakref.WeakKeyDictionary[FittedChain, np.ndarray] = weakref.WeakKeyDictionary()
@@ -167,6 +169,7 @@ def build_manifest(fitted: FittedChain, stages: list[dict[str, Any]], probe: dic
         "threshold": float(meta.get("threshold", 0.5)),
     }
     chain = {key: meta.get(key) for key in _CHAIN_KEYS}
+    chain.update({key: meta[key] for key in _ROW_KEYS if meta.get(key) is not None})
     tail = {"data": fingerprint, "schema": fitted.schema.to_dict(), "start_scores": fitted.start_scores,
             "stages": stages, "probe": probe}
     return json_ready({**head, **chain, **tail})
@@ -232,7 +235,7 @@ def _load(path: str, key: bytes | str | None) -> tuple[FittedChain, dict[str, An
         manifest = read_manifest(archive, path, key)
         schema = Schema.from_dict(manifest["schema"])
         try:
-            loss = get_loss(manifest["loss"], schema.task, n_classes=len(schema.classes))
+            loss = get_loss(manifest["loss"], schema.task, n_classes=len(schema.classes), power=manifest.get("power"))
         except RemnantError as exc:
             raise ChainFileError(f"{path}: {_one_line(exc)}") from None
         start = _start(manifest["start"], loss.outputs, path)
@@ -369,6 +372,7 @@ def _check_stages_predict(fitted: FittedChain, probe: Probe | None, path: str) -
 def _meta(manifest: dict[str, Any]) -> dict[str, Any]:
     keys = ("format_version", "created", "versions", "task", "loss", "threshold", *_CHAIN_KEYS, "data")
     meta = {key: manifest.get(key) for key in keys}
+    meta.update({key: manifest[key] for key in _ROW_KEYS if manifest.get(key) is not None})
     meta["threshold"] = _number(meta["threshold"] if meta["threshold"] is not None else 0.5)
     return meta
 
