@@ -87,9 +87,14 @@ def histogram(chain: Chain, row: int | None, parts: tuple[Part, ...], bins: int 
         values = [scoring.shown_residual(chain.loss, *part_rows(chain, p, row)) for p in parts]
     else:
         values = [residuals(chain, p, row, of_class) for p in parts]
-    weights = None if chain.weight is None else [part_weights(chain, p) for p in parts]
+    weights = None if chain.weight is None else [_weights_of(chain, p) for p in parts]
     counts, edges = scoring.histogram(values, bins=bins, max_bins=max_bins, weights=weights)
     return dict(zip(parts, counts, strict=True)), edges
+
+
+def _weights_of(chain: Chain, part: Part) -> np.ndarray:
+    weights = part_weights(chain, part)
+    return np.ones(len(targets(chain, part))) if weights is None else weights
 
 
 def part_weights(chain: Chain, part: Part) -> np.ndarray | None:
