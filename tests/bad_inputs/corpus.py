@@ -295,6 +295,76 @@ _ENTRIES = (
 )
 
 
+# ----------------------------------------------------------------------------- weights, exposure, count targets
+@dataclass(frozen=True)
+class RowSettingEntry:
+    """A bad weight, exposure or count target: the good table with a ``months`` exposure, an
+    ``alarms`` count and a ``w`` weight column, broken in one way, fitted with ``settings``."""
+
+    name: str
+    input: str
+    build: Callable[[Path], Path]
+    settings: dict
+    error: tuple[str, ...]
+
+
+def count_frame(rows: int = ROWS) -> pd.DataFrame:
+    """Return the good table with a positive ``months`` exposure, a count ``alarms`` and a weight ``w``."""
+    frame = good_frame(rows).drop(columns=TARGET)
+    rng = np.random.RandomState(11)
+    frame["months"] = rng.uniform(1, 12, rows).round(2)
+    frame["alarms"] = rng.poisson(frame["months"] * 0.3)
+    frame["w"] = rng.uniform(0.5, 2.0, rows).round(3)
+    return frame
+
+
+def _counts_csv(name: str, change: Callable[[pd.DataFrame], pd.DataFrame]) -> Callable[[Path], Path]:
+    def build(folder: Path) -> Path:
+        path = folder / name
+        frame = count_frame()
+        change(frame).to_csv(path, index=False)
+        return path
+    return build
+
+
+def _count_set(column: str, rows: list[int], value: object) -> Callable[[pd.DataFrame], pd.DataFrame]:
+    def change(frame: pd.DataFrame) -> pd.DataFrame:
+        frame = frame.astype({column: object})
+        frame.loc[rows, column] = value
+        return frame
+    return change
+
+
+_POISSON = {"loss": "poisson", "target": "alarms"}
+_ROW_SETTING_ENTRIES = (
+    RowSettingEntry("negative_weight", "a negative weight", _counts_csv("neg_weight.csv", _count_set("w", [4], -1.5)),
+                    {**_POISSON, "weight": "w"}, ("neg_weight.csv", "weight column 'w' is negative in row 5 (-1.5)")),
+    RowSettingEntry("missing_weight", "a missing weight", _counts_csv("nan_weight.csv", _count_set("w", [2, 9], None)),
+                    {**_POISSON, "weight": "w"},
+                    ("nan_weight.csv", "weight column 'w' is missing or not a finite number in 2 rows (first: row 3)")),
+    RowSettingEntry("zero_weights", "weights that are all zero", _counts_csv("zero_weights.csv",
+                                                                             _count_set("w", list(range(ROWS)), 0.0)),
+                    {**_POISSON, "weight": "w"}, ("zero_weights.csv", "weight column 'w' is zero in every row")),
+    RowSettingEntry("zero_exposure", "an exposure of zero", _counts_csv("zero_exposure.csv", _count_set("months", [7], 0.0)),
+                    {**_POISSON, "exposure": "months"},
+                    ("zero_exposure.csv", "exposure column 'months' must be a positive number; 1 row is not (first: row 8, 0)")),
+    RowSettingEntry("missing_exposure", "a missing exposure", _counts_csv("nan_exposure.csv",
+                                                                          _count_set("months", [0], None)),
+                    {**_POISSON, "exposure": "months"},
+                    ("nan_exposure.csv", "exposure column 'months' must be a positive number; 1 row is not (first: row 1, missing)")),
+    RowSettingEntry("negative_count", "a negative count (poisson or tweedie)",
+                    _counts_csv("neg_count.csv", _count_set("alarms", [3, 4, 5], -1)), dict(_POISSON),
+                    ("neg_count.csv", "target 'alarms': 3 rows are negative; loss 'poisson' needs counts or amounts of zero or more")),
+    RowSettingEntry("zero_amount", "a zero amount (gamma)", _counts_csv("zero_amount.csv", lambda f: f), {"loss": "gamma", "target": "alarms"},
+                    ("zero_amount.csv", "rows are zero or negative; loss 'gamma' needs positive amounts")),
+)
+
+
+def row_setting_entries() -> list[RowSettingEntry]:
+    """Return the bad weights, exposures and count targets, in the order the documentation lists them."""
+    return list(_ROW_SETTING_ENTRIES)
+
+
 def corpus_entries() -> list[Entry]:
     """Return every entry of the corpus, in the order the documentation lists them."""
     return list(_ENTRIES)
