@@ -256,6 +256,57 @@ def make_delay_causes(rows: int = 4000, seed: int = 7) -> pd.DataFrame:
     return frame
 
 
+# ----------------------------------------------------------------------------- vehicle-months
+#: where the vehicle-month demo data lives, beside the deliveries
+VEHICLE_MONTHS_OUT = DEFAULT_OUT.parent / "vehicle_months.csv"
+#: compressor models of the refrigerated fleet; "FrostLine 2" struggles in heat
+COMPRESSORS = ("Polar 400", "FrostLine 2", "Coldwell C")
+#: the outside temperature (monthly mean, C) above which a FrostLine 2 raises far more alarms
+COMPRESSOR_HEAT_C = 22.0
+
+
+def make_vehicle_months(vehicles: int = 400, seed: int = 11) -> pd.DataFrame:
+    """Generate the vehicle-month demo data: temperature alarms of the refrigerated fleet.
+
+    One row per vehicle and month over a year. ``months_in_service`` is the share of the month the
+    vehicle was on the road (the exposure: part months for vehicles in the workshop, joining or
+    leaving), and ``temperature_alarms`` the count of cargo-temperature alarms it raised, drawn
+    from a Poisson law whose rate per month in service grows on the log scale with the vehicle's
+    age, the month's outside temperature and the doors opened per day (what a poisson GLM
+    catches), times a jump for FrostLine 2 compressors in hot months and a bend for old vehicles
+    on long daily distances (what trees then find).
+
+    Returns
+    -------
+    pandas.DataFrame
+        Columns ``vehicle_id``, ``month``, ``depot``, ``compressor``, ``vehicle_age_years``,
+        ``outside_temp_c``, ``door_openings_per_day``, ``km_per_day``, ``months_in_service``
+        and ``temperature_alarms``.
+    """
+    rng = np.random.default_rng(seed)
+    depot = rng.choice(DEPOTS, size=vehicles, p=DEPOT_SHARE)
+    compressor = rng.choice(COMPRESSORS, size=vehicles, p=(0.45, 0.3, 0.25))
+    age = rng.uniform(0.5, 12.0, vehicles).round(1)
+    rows = vehicles * 12
+    month = np.tile(np.arange(1, 13), vehicles)
+    who = np.repeat(np.arange(vehicles), 12)
+    temp = (11 + 10 * np.sin((month - 4) / 12 * 2 * np.pi) + rng.normal(0, 2.5, rows)).round(1)
+    doors = rng.gamma(6.0, 2.0, rows).round(1)
+    km = rng.gamma(8.0, 22.0, rows).round(0)
+    service = np.where(rng.random(rows) < 0.8, 1.0, rng.uniform(0.05, 1.0, rows)).round(2)
+    log_rate = (-1.6 + 0.07 * age[who] + 0.045 * temp + 0.035 * doors
+                + np.where(depot[who] == "Brackenfield", 0.25, 0.0))
+    hot_frostline = (compressor[who] == "FrostLine 2") & (temp > COMPRESSOR_HEAT_C)
+    log_rate = log_rate + 1.1 * hot_frostline + 0.6 * ((age[who] > 8) & (km > 220))
+    alarms = rng.poisson(service * np.exp(log_rate))
+    return pd.DataFrame({
+        "vehicle_id": [f"V{i + 1:04d}" for i in who], "month": month, "depot": depot[who],
+        "compressor": compressor[who], "vehicle_age_years": age[who], "outside_temp_c": temp,
+        "door_openings_per_day": doors, "km_per_day": km, "months_in_service": service,
+        "temperature_alarms": alarms,
+    })
+
+
 def write_csv(frame: pd.DataFrame, path: Path) -> None:
     """Write ``frame`` as CSV: booleans as true/false, missing values as empty cells."""
     out = frame.copy()
@@ -282,7 +333,15 @@ def main(argv: list[str] | None = None) -> int:
         default=CAUSES_OUT,
         help="CSV file for the multiclass demo, the delay causes (default: delay_causes.csv beside it)",
     )
+    parser.add_argument("--vehicle-months", action="store_true",
+                        help="write the vehicle-month alarm counts instead (vehicle_months.csv beside the deliveries)")
     args = parser.parse_args(argv)
+    if args.vehicle_months:
+        out = VEHICLE_MONTHS_OUT if args.out == DEFAULT_OUT else args.out
+        months = make_vehicle_months()
+        months.to_csv(out, index=False, lineterminator="\n")
+        print(f"wrote {len(months)} rows to {out.name}")
+        return 0
     frame = make_deliveries(rows=args.rows, seed=args.seed)
     write_csv(frame, args.out)
     print(f"wrote {len(frame)} rows to {args.out.name}")

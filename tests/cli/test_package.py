@@ -21,7 +21,8 @@ def test_the_demo_data_and_recipes_are_package_data_of_the_workbench():
     package = Path(tui.__file__).resolve().parent
     assert demo_folder().parent == package
     needed = [demo_folder() / name for name in ("deliveries.csv", "deliveries.toml", "deliveries_binary.toml",
-                                                     "delay_causes.csv", "delay_causes.toml")]
+                                                     "delay_causes.csv", "delay_causes.toml",
+                                                     "vehicle_months.csv", "vehicle_alarms.toml")]
     needed.append(package / "app.tcss")
     for path in needed:
         assert path.is_file()

@@ -21,5 +21,5 @@ def test_the_readme_recipe_example_parses():
 
 
 def test_the_demo_recipes_parse():
-    for name in ("deliveries.toml", "deliveries_binary.toml", "delay_causes.toml"):
+    for name in ("deliveries.toml", "deliveries_binary.toml", "delay_causes.toml", "vehicle_alarms.toml"):
         assert read_recipe(demo_folder() / name).stages
