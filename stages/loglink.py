@@ -157,6 +157,12 @@ class LogLinkLoss(Loss):
         deviance = np.maximum(unit_deviance(y, mu, self.power), 0.0)
         return _shaped(np.sign(y - mu) * np.sqrt(deviance), raw)
 
+    def scan_residuals(self, y: np.ndarray, raw: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        """Return y - mu twice: the residual scan works on the response scale (for poisson it is also
+        the negative gradient)."""
+        response = y - self._link(_flat(raw))
+        return _shaped(response, raw), _shaped(response, raw)
+
     def scores(self, y, raw, threshold=0.5, weight=None) -> dict[str, float]:
         """Return the mean deviance, and RMSE, MAE and R² of the mean against ``y``."""
         mu = _exp(_flat(raw))

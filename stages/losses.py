@@ -152,6 +152,11 @@ class Loss:
         """Return predictions on the target's scale from raw outputs, value by value (in their shape)."""
         return self._link(np.asarray(raw))
 
+    def scan_residuals(self, y: np.ndarray, raw: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        """Return the residual the residual scan scores (the negative gradient, what the next stage
+        is fit to) and the one it shows per bin (``display_residual``)."""
+        return self.residual(y, raw), self.display_residual(y, raw)
+
     def display_residual(self, y: np.ndarray, raw: np.ndarray) -> np.ndarray:
         """Return the residual users look at: target minus prediction (y - p for binary), in ``raw``'s shape."""
         return _shaped(y - self._link(_flat(raw)), raw)

@@ -34,7 +34,8 @@ if TYPE_CHECKING:
 
 @dataclass(frozen=True)
 class SetupChoices:
-    """What the setup screen collected: data, target, excluded columns, loss, validation and seed."""
+    """What the setup screen collected: data, target, excluded columns, loss, validation and seed, and the
+    weight and exposure columns and tweedie power when set."""
 
     frame: pd.DataFrame
     source: str
@@ -45,6 +46,9 @@ class SetupChoices:
     validation: ValidationSpec
     seed: int
     dates: dict[str, tuple[str, ...]] | None = None
+    weight: str | None = None       # the column of row weights
+    exposure: str | None = None     # the column of exposures (log-link losses)
+    power: float | None = None      # the tweedie loss's power
 
 
 #: during a long job (a recipe, a grow) the session is saved after a stage at most this often, in seconds
@@ -92,7 +96,8 @@ def new_chain(owner: MessagePump, choices: SetupChoices, cache: ImportanceCache)
         choices = held.pop()
         chain = stages.Chain(choices.frame, choices.target, choices.validation, choices.loss, seed=choices.seed,
                              ignore=choices.ignore, source=choices.source, data_path=choices.data_path or None,
-                             dates={k: list(v) for k, v in (choices.dates or {}).items()})
+                             dates={k: list(v) for k, v in (choices.dates or {}).items()},
+                             weight=choices.weight, exposure=choices.exposure, power=choices.power)
         id_column = chain.schema.id_column
         ids = compact_ids(choices.frame[id_column]) if id_column else None
         view = view_of_chain(chain, cache)

@@ -8,8 +8,9 @@ squared residual those bin means remove:
     score = mean over scored rows of [r^2 - (r - m_bin)^2]
 
 where r is the loss's residual (its negative gradient, what the next stage is fit to; y - F
-for squared loss, y - p for log loss) and m_bin the fitting rows' mean residual in the row's
-bin. For squared loss this is exactly the fall in validation MSE such a stage would bring. A
+for squared loss, y - p for log loss; on the log link, poisson, gamma and tweedie, the response
+residual y - mu, so the scan works on the response scale) and m_bin the fitting rows' mean
+residual in the row's bin. For squared loss this is exactly the fall in validation MSE such a stage would bring. A
 feature with no signal left scores near zero or below it (bin means of noise add error).
 ``share`` is the score over the mean squared residual of the scored rows.
 
@@ -37,6 +38,7 @@ import numpy as np
 import pandas as pd
 
 from ..errors import StageSpecError
+from ..parts import part_rows
 from ..validation import Part
 from .binning import Bins, bins_of
 from .cache import remembered
@@ -120,9 +122,8 @@ def scan_blocks(chain: Chain, row: int, part: Part, sample: int | None, seed: in
     for b, (fit, scored, output) in enumerate(pairs):
         fit = _bounded(fit, share, seed + 2 * b)
         scored = _bounded(scored, share, seed + 2 * b + 1)
-        blocks.append(Block(fit, loss.residual(y[fit], output[fit]), scored,
-                            loss.residual(y[scored], output[scored]),
-                            loss.display_residual(y[scored], output[scored])))
+        blocks.append(Block(fit, loss.scan_residuals(y[fit], output[fit])[0], scored,
+                            *loss.scan_residuals(y[scored], output[scored])))
     return blocks
 
 
@@ -293,7 +294,8 @@ def _ratio(top: np.ndarray, bottom: np.ndarray) -> np.ndarray:
 def _binned(chain: Chain, j: int, row: int, part: Part, n_bins: int, sample: int | None, seed: int) -> pd.DataFrame:
     bins = feature_bins(chain, j, n_bins)
     positions = part_positions(chain, part)
-    shown = chain.residuals(part, row)
+    y_part, raw_part = part_rows(chain, part, row)
+    shown = chain.loss.scan_residuals(y_part, raw_part[:, 0])[1]  # what the scan shows: y - mu on the log link
     chosen = sample_rows(len(positions), sample, seed)
     if chosen is not None:
         positions, shown = positions[chosen], shown[chosen]
@@ -308,7 +310,7 @@ def _binned(chain: Chain, j: int, row: int, part: Part, n_bins: int, sample: int
                    np.bincount(codes[present], minlength=n).astype(np.float64))
     fit_positions = chain.layout.tracks[0].fit_positions()
     fit_codes = bins.codes(chain.matrix[fit_positions, j])
-    fit_residual = chain.loss.residual(chain.y[fit_positions], chain.outputs(row)[0][fit_positions, 0])
+    fit_residual = chain.loss.scan_residuals(chain.y[fit_positions], chain.outputs(row)[0][fit_positions, 0])[0]
     fit_rows = np.bincount(fit_codes, minlength=n).astype(np.float64)
     empty = rows == 0
     table = pd.DataFrame({

@@ -176,3 +176,20 @@ def test_the_residuals_of_a_count_chain_are_deviance_residuals():
     deviance = 2 * (np.where(y > 0, y * np.log(np.where(y > 0, y, 1) / mu), 0.0) - y + mu)
     np.testing.assert_allclose(chain.residuals("valid"), np.sign(y - mu) * np.sqrt(deviance), rtol=1e-10, atol=1e-12)
     assert chain.loss.residual_name == "deviance residual"
+
+
+def test_the_scan_and_partial_dependence_of_a_count_chain_are_on_the_response_scale():
+    frame = _counts(600)
+    chain = stages.Chain(frame, "alarms", loss="poisson", exposure="months")
+    chain.add("glm")
+    binned = chain.binned_residuals("a")
+    binned = binned[binned["rows"] > 0]
+    y, mu = chain.part_targets("valid"), chain.fitted_values("valid")
+    # the bins' mean residuals are y - mu: their row-weighted mean is the part's mean of y - mu
+    assert np.average(binned["mean_residual"], weights=binned["rows"]) == pytest.approx(np.mean(y - mu), rel=1e-9)
+    assert list(chain.residual_scan()["feature"])  # the scan runs on the response residuals
+    # partial dependence averages the prediction, the mean per unit of exposure
+    dependence = chain.partial_dependence("a", grid=[0.0, 1.0])
+    train = frame.iloc[chain.split.train]
+    for value, average in zip([0.0, 1.0], dependence["average"], strict=True):
+        assert average == pytest.approx(np.mean(chain.predict(train.assign(a=value))), rel=1e-9)

@@ -1,4 +1,5 @@
-"""The setup screen: columns and their roles, the target, exclusions, the loss and the validation scheme.
+"""The setup screen: columns and their roles, the target, exclusions, the loss (with its exposure and
+tweedie power), row weights and the validation scheme.
 
 Nothing heavy runs on the event loop: the columns' roles (every distinct value of every
 column) and the target's task are worked out in a worker while the screen says so. Start
@@ -23,7 +24,7 @@ from textual.widgets import Button, Footer, Input, Label, Select, Static
 
 from stages.data import describe_columns, infer_task
 from stages.errors import ValidationSpecError
-from stages.losses import default_loss, loss_names
+from stages.losses import LOG_LINK_NAMES, default_loss, loss_names
 from stages.parsing import validation_spec
 from stages.schema import DATETIME, Task
 from stages.validation import SCHEMES, ValidationSpec
@@ -109,6 +110,11 @@ class SetupScreen(Screen):
                                                         prompt="pick a column", compact=True))
                 yield self._field("task", Label("-", id="task"))
                 yield self._field("loss", Select([], id="loss", prompt="-", compact=True))
+                yield self._field("power", Input("1.5", id="power", type="number", compact=True))
+                yield self._field("exposure", Select([(n, n) for n in self.names], id="exposure",
+                                                          prompt="none", compact=True))
+                yield self._field("weight", Select([(n, n) for n in self.names], id="weight",
+                                                        prompt="none", compact=True))
                 yield self._field("validation", Select([(label, key) for key, label in LABELS.items()],
                                                             value="holdout", allow_blank=False, id="scheme",
                                                             compact=True))
@@ -135,6 +141,7 @@ class SetupScreen(Screen):
         self._ask("columns", ("columns", id(frame)), lambda: describe_columns(frame))
         self._target_changed()
         self._scheme_changed()
+        self._loss_changed()
         self.query_one("#columns", ColumnRoles).focus()
 
     def _say(self, text: str) -> None:
@@ -214,6 +221,33 @@ class SetupScreen(Screen):
         if picked != self.target:
             self.target = picked
             self._target_changed()
+
+    @on(Select.Changed, "#loss")
+    def _loss_changed(self) -> None:
+        """Show the exposure on the log-link losses and the power on tweedie only."""
+        value = self.query_one("#loss", Select).value
+        loss = None if value is Select.NULL else str(value)
+        self.query_one("#row-exposure").display = loss in LOG_LINK_NAMES
+        self.query_one("#row-power").display = loss == "tweedie"
+
+    def _column_choice(self, field: str) -> str | None:
+        value = self.query_one(f"#{field}", Select).value
+        return None if value is Select.NULL else str(value)
+
+    def row_settings(self, loss: str | None) -> dict[str, Any]:
+        """Return the weight and exposure columns and the tweedie power the form describes; raise
+        FormError at a field that cannot be used."""
+        weight = self._column_choice("weight")
+        exposure = self._column_choice("exposure") if loss in LOG_LINK_NAMES else None
+        for field, column in (("weight", weight), ("exposure", exposure)):
+            if column is not None and column == self.target:
+                raise FormError(f"{field} {column!r} is the target; pick another column", field)
+        if weight is not None and weight == exposure:
+            raise FormError(f"weight and exposure are both {weight!r}; pick two columns", "weight")
+        power = self._number("power", False) if loss == "tweedie" else None
+        if power is not None and not 1 < power < 2:
+            raise FormError(f"power must be strictly between 1 and 2, not {power:g}", "power")
+        return {"weight": weight, "exposure": exposure, "power": power}
 
     @on(Select.Changed, "#scheme")
     def _scheme_changed(self) -> None:
@@ -295,12 +329,13 @@ class SetupScreen(Screen):
         """Return what the form describes; raise FormError for a bad choice."""
         if self.target is None:
             raise FormError("pick the target: t on a column, or the target list", "target")
-        loss = self.query_one("#loss", Select).value
+        value = self.query_one("#loss", Select).value
+        loss = None if value is Select.NULL else str(value)
         return SetupChoices(
             frame=self.frame, source=self.source, data_path=self.data_path, target=self.target,
-            ignore=tuple(sorted(self.excluded)), loss=None if loss is Select.NULL else str(loss),
+            ignore=tuple(sorted(self.excluded)), loss=loss,
             validation=self.validation(), seed=self._number("seed", True),
-            dates={k: v for k, v in self.dates.items() if k not in self.excluded},
+            dates={k: v for k, v in self.dates.items() if k not in self.excluded}, **self.row_settings(loss),
         )
 
     def check_action(self, action: str, parameters: tuple[object, ...]) -> bool | None:

@@ -33,6 +33,8 @@ from textual.containers import Horizontal, Vertical, VerticalScroll
 from textual.message import Message
 from textual.widgets import Static
 
+from stages.losses import LOG_LINK_NAMES
+
 from .. import answers
 from ..background import Answered, Question
 from ..confusion import confusion_text
@@ -61,6 +63,17 @@ SCAN_NOT_MULTICLASS = ("the residual scan ranks the features by one residual a r
                        "the class), the probabilities and the confusion matrix show where its error lives.")
 #: the width of the scan's ranking beside the plot
 RANKING_WIDTH = 22
+
+
+def residual_word(loss: str) -> str:
+    """Return what the histogram, the fitted view and the largest rows call a residual of ``loss``:
+    a deviance residual on the log link (poisson, gamma, tweedie), else a residual."""
+    return "deviance residual" if loss in LOG_LINK_NAMES else "residual"
+
+
+def scan_word(loss: str) -> str:
+    """Return what the scan's binned view calls its residual: y - mu on the log link (the response scale)."""
+    return "residual y-mu" if loss in LOG_LINK_NAMES else "residual"
 
 
 def stats_text(stats: dict[str, tuple[float, float]]) -> str:
@@ -279,7 +292,7 @@ class ResidualPane(Vertical, can_focus=True):
         if isinstance(answer, Histogram):
             self._histogram(answer)
         elif isinstance(answer, Points):
-            self.border_title = f"valid residual against fitted · {self._where()}"
+            self.border_title = f"valid {residual_word(self.view.loss)} against fitted · {self._where()}"
             self.border_subtitle = f"{len(answer.x):,} of {answer.total:,} rows"
             self.plot.draw(answer)
         elif isinstance(answer, Binned):
@@ -307,7 +320,7 @@ class ResidualPane(Vertical, can_focus=True):
             self.border_title = f"pseudo-residuals of {self.class_words(False)} · {where} · █ train • valid"
             self.border_subtitle = "k picks the class" + (f" · mean±sd {stats_text(figure.stats)}" if figure.stats else "")
         else:
-            word = "pseudo-residuals y-p" if self.view.task == "binary" else "residuals"
+            word = "pseudo-residuals y-p" if self.view.task == "binary" else residual_word(self.view.loss) + "s"
             self.border_title = f"{word} · {where} · █ train • valid"
             if figure.folded and len(self.border_title) + 22 < self.size.width:
                 self.border_title += " · 0.5% tails at ends"
@@ -354,7 +367,8 @@ class ResidualPane(Vertical, can_focus=True):
     def _binned(self, figure: Binned) -> None:
         scan = self.scan.set_index("feature") if self.scan is not None else None
         rank = self._ranked().index(figure.feature) + 1 if figure.feature in self._ranked() else 0
-        self.border_title = f"valid residual by {figure.feature} · {self._where()} · █ mean ·· ±sd"
+        word = scan_word(self.view.loss) if self.view is not None else "residual"
+        self.border_title = f"valid {word} by {figure.feature} · {self._where()} · █ mean ·· ±sd"
         used = ""
         if scan is not None and figure.feature in scan.index:
             record = scan.loc[figure.feature]
@@ -392,7 +406,7 @@ class ResidualPane(Vertical, can_focus=True):
             parts = [cells[k][i].ljust(widths[k]) if k == name else cells[k][i].rjust(widths[k]) for k in cells]
             text.append("  ".join(parts) + "\n")
         self.rows_text.update(text)
-        self.border_title = f"largest valid residuals · {self._where()}"
+        self.border_title = f"largest valid {residual_word(self.view.loss)}s · {self._where()}"
         rows = self.view.residuals.targets("valid").size if self.view.residuals is not None else len(table)
         self.border_subtitle = f"{len(table)} of {rows:,} rows" + (" · before: the stage before" if before else "")
 
