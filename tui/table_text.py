@@ -137,6 +137,13 @@ def describe_chain(path: str, fitted: Any) -> str:
              ("start value", start), ("validation", _validation_text(meta.get("validation"))),
              ("seed", str(meta.get("seed"))), ("data", str(meta.get("source") or "")),
              ("rows", ", ".join(f"{rows[k]:,} {k}" for k in ("train", "valid", "test") if k in rows))]
+    power = meta.get("power")
+    if power is not None:
+        lines[2] = ("loss", f"{fitted.loss.name} (power {float(power):g})")
+    for key, what in (("exposure", "log(exposure) in the raw score; predictions per unit of exposure"),
+                      ("weight", "row weights")):
+        if meta.get(key) is not None:
+            lines.insert(3, (key, f"{meta[key]!r} ({what})"))
     versions = meta.get("versions") or {}
     if versions:
         lines.append(("saved with", ", ".join(f"{k} {v}" for k, v in versions.items() if v)))

@@ -160,6 +160,16 @@ class _ChainEstimator(BaseEstimator):
         self.table_ = chain.table()
 
 
+def _weights(sample_weight: Any, frame: pd.DataFrame) -> dict[str, Any]:
+    """Return the chain's ``weight`` option for ``sample_weight`` (nothing when it is None), checked by
+    scikit-learn's own sample-weight check."""
+    if sample_weight is None:
+        return {}
+    from sklearn.utils.validation import _check_sample_weight
+
+    return {"weight": _check_sample_weight(sample_weight, frame, dtype=np.float64)}
+
+
 class ChainRegressor(RegressorMixin, _ChainEstimator):
     """A residual chain as a scikit-learn regressor.
 
@@ -203,10 +213,10 @@ class ChainRegressor(RegressorMixin, _ChainEstimator):
         self.validation = validation
         self.random_state = random_state
 
-    def fit(self, X: Any, y: Any) -> ChainRegressor:
-        """Fit the chain to ``X`` and ``y`` and return ``self``."""
+    def fit(self, X: Any, y: Any, sample_weight: Any = None) -> ChainRegressor:
+        """Fit the chain to ``X`` and ``y`` (rows weighted by ``sample_weight`` when given) and return ``self``."""
         frame, y = self._check_fit_data(X, y)
-        self._fit_chain(frame, np.asarray(y, dtype=np.float64))
+        self._fit_chain(frame, np.asarray(y, dtype=np.float64), **_weights(sample_weight, frame))
         return self
 
     def predict(self, X: Any) -> np.ndarray:
@@ -265,9 +275,11 @@ class ChainClassifier(ClassifierMixin, _ChainEstimator):
         self.random_state = random_state
         self.threshold = threshold
 
-    def fit(self, X: Any, y: Any) -> ChainClassifier:
-        """Fit the chain to ``X`` and the labels ``y`` (two classes: binary; 3 to 100: multiclass) and return ``self``."""
+    def fit(self, X: Any, y: Any, sample_weight: Any = None) -> ChainClassifier:
+        """Fit the chain to ``X`` and the labels ``y`` (two classes: binary; 3 to 100: multiclass; rows
+        weighted by ``sample_weight`` when given) and return ``self``."""
         frame, y = self._check_fit_data(X, y)
+        weights = _weights(sample_weight, frame)
         check_classification_targets(y)
         classes, codes = np.unique(y, return_inverse=True)
         if len(classes) < 2:
@@ -276,9 +288,9 @@ class ChainClassifier(ClassifierMixin, _ChainEstimator):
         if kind not in ("binary", "multiclass"):
             raise ValueError(f"ChainClassifier fits one label per row; the type of the target is {kind}")
         if len(classes) == 2:
-            self._fit_chain(frame, codes.astype(np.float64), positive="1", threshold=self.threshold)
+            self._fit_chain(frame, codes.astype(np.float64), positive="1", threshold=self.threshold, **weights)
         else:  # the codes 0 .. K - 1 sort by value, so the chain's class order is classes_'s
-            self._fit_chain(frame, codes.astype(np.float64), task="multiclass")
+            self._fit_chain(frame, codes.astype(np.float64), task="multiclass", **weights)
         self.classes_ = classes
         return self
 

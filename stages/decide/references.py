@@ -21,6 +21,7 @@ from ..chain_state import seeded_streams
 from ..errors import FitCancelled, StageFitError
 from ..fitting import FitContext, fit_stage
 from ..kinds.base import ProgressFn
+from ..loglink import is_log_link
 from ..losses import HuberLoss
 from ..outputs import block
 from ..scoring import fold_spread
@@ -67,8 +68,9 @@ def _row(chain: Chain, model: str, outputs: tuple[np.ndarray, ...], best: float,
 
 
 def linear_reference(chain: Chain) -> dict[str, Any]:
-    """Return the row of the linear model alone: the chain's start plus one linear (logistic) stage."""
-    kind = "logistic" if chain.task in ("binary", "multiclass") else "linear"
+    """Return the row of the linear model alone: the chain's start plus one linear (logistic) stage, or a
+    glm on the log link (poisson, gamma, tweedie)."""
+    kind = "logistic" if chain.task in ("binary", "multiclass") else "glm" if is_log_link(chain.loss) else "linear"
     rngs = seeded_streams(chain.seed, len(chain.layout.tracks))
     ctx = FitContext(chain.matrix, chain.y, chain.schema, chain.layout, chain.loss, rngs, chain.weight)
     stage = fit_stage(ctx, StageSpec(kind), chain.outputs(0), number=1)
@@ -85,6 +87,7 @@ def lightgbm_defaults(chain: Chain, user: dict[str, Any] | None = None) -> dict[
         params["alpha"] = chain.loss.delta(chain.y[fit], chain.outputs(0)[0][fit])
     if chain.loss.outputs > 1:
         params["num_class"] = chain.loss.outputs
+    params.update(chain.loss.lightgbm_params())
     params.update(user or {})
     return params
 
@@ -131,12 +134,15 @@ class _Fitter:
         import lightgbm
 
         matrix, y = self.chain.matrix, self.chain.y
-        train = lightgbm.Dataset(matrix[rows], label=y[rows], categorical_feature=self.categorical)
+        train = lightgbm.Dataset(matrix[rows], label=y[rows], categorical_feature=self.categorical,
+                                 weight=_at(self.chain.weight, rows), init_score=_at(self.chain.offset, rows))
         valid_sets, callbacks = [], [self._check_cancel]
         if self.progress is not None:
             callbacks.append(self._report)
         if stop_rows is not None:
-            valid_sets.append(lightgbm.Dataset(matrix[stop_rows], label=y[stop_rows], reference=train))
+            valid_sets.append(lightgbm.Dataset(matrix[stop_rows], label=y[stop_rows], reference=train,
+                                               weight=_at(self.chain.weight, stop_rows),
+                                               init_score=_at(self.chain.offset, stop_rows)))
             callbacks.append(lightgbm.early_stopping(patience, first_metric_only=True, verbose=False))
         try:
             return lightgbm.train(dict(self.params), train, num_boost_round=rounds, valid_sets=valid_sets,
@@ -161,4 +167,11 @@ class _Fitter:
         """Return the booster's raw score at its best iteration on ``rows`` of the chain's matrix."""
         best = booster.best_iteration or None
         matrix = self.chain.matrix[rows]
-        return block(booster.predict(matrix, num_iteration=best, raw_score=True), len(matrix), self.chain.loss.outputs)
+        raw = block(booster.predict(matrix, num_iteration=best, raw_score=True), len(matrix), self.chain.loss.outputs)
+        offset = _at(self.chain.offset, rows)
+        return raw if offset is None else raw + offset[:, None]  # log(exposure), as the chain's outputs hold it
+
+
+def _at(values: np.ndarray | None, rows: Any) -> np.ndarray | None:
+    """Return ``values[rows]``, or None when there are no such per-row values (weights, offsets)."""
+    return None if values is None else values[rows]

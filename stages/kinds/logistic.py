@@ -71,7 +71,9 @@ def offset_logistic_fit(
     def objective(theta: np.ndarray) -> tuple[float, np.ndarray]:
         w, b = theta[:width], theta[width]
         logit = offset + matrix @ w + b
-        value = weight * np.sum(np.logaddexp(0.0, logit) - y * logit) + 0.5 * ridge * (w @ w)
+        losses = np.logaddexp(0.0, logit) - y * logit
+        total = weight * np.sum(losses) if sample_weight is None else np.sum(weight * losses)
+        value = total + 0.5 * ridge * (w @ w)
         slope = weight * (expit(logit) - y)
         gradient = np.empty(width + 1)
         gradient[:width] = matrix.T @ slope + ridge * w

@@ -183,6 +183,14 @@ def test_each_stage_residual_of_a_count_chain_is_the_target_minus_the_expected_t
     np.testing.assert_allclose(written["residual"], frame["mdvis"] - written["prediction"] * frame["coins"], rtol=1e-9)
 
 
+def test_show_prints_the_weight_exposure_and_power(visits, run):
+    Path("tw.toml").write_text(textwrap.dedent(RECIPE).replace('loss = "poisson"', 'loss = "tweedie"\npower = 1.3'))
+    assert run("fit", "tw.toml", "--out", "tw.chain")[0] == 0
+    status, out, _ = run("show", "tw.chain")
+    assert status == 0
+    assert "tweedie (power 1.3)" in out and "'coins' (log(exposure)" in out and "'w' (row weights)" in out
+
+
 def test_exposure_on_a_chain_not_on_the_log_link_is_a_usage_error(visits, run):
     text = textwrap.dedent(RECIPE).replace('loss = "poisson"', 'loss = "squared"').replace('exposure = "coins"\n', "")
     Path("sq.toml").write_text(text)

@@ -193,3 +193,50 @@ def test_the_scan_and_partial_dependence_of_a_count_chain_are_on_the_response_sc
     train = frame.iloc[chain.split.train]
     for value, average in zip([0.0, 1.0], dependence["average"], strict=True):
         assert average == pytest.approx(np.mean(chain.predict(train.assign(a=value))), rel=1e-9)
+
+
+def test_the_references_of_a_count_chain_take_its_exposure_and_weights():
+    frame = _counts(600)
+    chain = stages.Chain(frame, "alarms", loss="poisson", exposure="months", weight="w")
+    references = chain.references(rounds=50).set_index("model")
+    chain.add("glm")  # "linear alone" on the log link is the glm
+    assert references.loc["linear alone", "valid_deviance"] == pytest.approx(chain.scores()[1].valid["deviance"], rel=1e-12)
+    # reference: lightgbm.train(objective="poisson") from init_score = log(exposure), with the weights
+    import lightgbm
+
+    train, valid = chain.split.train, chain.split.valid
+    X = frame[["a", "b", "c"]].to_numpy()
+    offset = np.log(frame["months"].to_numpy())
+    data = lightgbm.Dataset(X[train], frame["alarms"].to_numpy()[train], weight=frame["w"].to_numpy()[train],
+                            init_score=offset[train])
+    stop = lightgbm.Dataset(X[valid], frame["alarms"].to_numpy()[valid], weight=frame["w"].to_numpy()[valid],
+                            init_score=offset[valid], reference=data)
+    booster = lightgbm.train({"objective": "poisson", "seed": 0, "verbosity": -1, "deterministic": True,
+                              "force_row_wise": True}, data, num_boost_round=50, valid_sets=[stop],
+                             callbacks=[lightgbm.early_stopping(50, first_metric_only=True, verbose=False)])
+    mu = np.exp(offset[valid] + booster.predict(X[valid], num_iteration=booster.best_iteration, raw_score=True))
+    from sklearn.metrics import mean_poisson_deviance
+
+    expected = mean_poisson_deviance(frame["alarms"].to_numpy()[valid], mu, sample_weight=frame["w"].to_numpy()[valid])
+    assert references.loc["LightGBM, default parameters", "valid_deviance"] == pytest.approx(expected, rel=1e-9)
+
+
+def test_weighted_logistic_stages_equal_logistic_regression_with_sample_weight():
+    # Reference: sklearn.linear_model.LogisticRegression(C=inf).fit(sample_weight=...), unpenalised, on
+    # five features of the breast cancer data and on two of the wine data (three cultivars, not
+    # separable on alcohol and malic acid alone), both shipped with scikit-learn. The chain's
+    # constant start is absorbed by the intercept.
+    from sklearn.datasets import load_wine
+
+    wine = load_wine()
+    for X, y in ((load_breast_cancer().data[:, :5], load_breast_cancer().target), (wine.data[:, :2], wine.target)):
+        frame = pd.DataFrame(X, columns=[f"x{i}" for i in range(X.shape[1])])
+        frame["y"] = y if len(set(y)) == 2 else np.array(["a", "b", "c"])[y]
+        w = np.random.RandomState(3).uniform(0.2, 3.0, size=len(y))
+        frame["w"] = w
+        chain = stages.Chain(frame, "y", stages.Holdout(fraction=0.2, seed=0), weight="w")
+        chain.add("logistic", params={"penalty": "none"})
+        train = chain.split.train
+        reference = LogisticRegression(C=np.inf, tol=1e-12, max_iter=10_000).fit(X[train], y[train], sample_weight=w[train])
+        ours = chain.fitted().predict_proba(frame)
+        np.testing.assert_allclose(ours, reference.predict_proba(X), atol=1e-6)
