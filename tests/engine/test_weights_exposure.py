@@ -240,3 +240,21 @@ def test_weighted_logistic_stages_equal_logistic_regression_with_sample_weight()
         reference = LogisticRegression(C=np.inf, tol=1e-12, max_iter=10_000).fit(X[train], y[train], sample_weight=w[train])
         ours = chain.fitted().predict_proba(frame)
         np.testing.assert_allclose(ours, reference.predict_proba(X), atol=1e-6)
+
+
+def test_hist_tree_leaves_on_a_poisson_chain_are_newton_steps():
+    # each leaf of a one-round LightGBM tree is -sum(w g) / sum(w h) over its rows (no damping, no
+    # penalty): g = mu - y and h = mu of the half Poisson deviance (scikit-learn's HalfPoissonLoss)
+    frame = _counts(500)
+    chain = stages.Chain(frame, "alarms", loss="poisson", exposure="months", weight="w")
+    chain.add("hist_tree", params={"min_child_samples": 20})
+    learner = chain.stages[0].learners[0]
+    fit = chain.layout.tracks[0].fit_positions()
+    X, y, w = chain.matrix[fit], chain.y[fit], chain.weight[fit]
+    mu = np.exp(chain.outputs(0)[0][fit, 0])
+    leaves = learner.booster.predict(X, pred_leaf=True).ravel()
+    values = learner.booster.predict(X, raw_score=True)
+    for leaf in np.unique(leaves):
+        rows = leaves == leaf
+        newton = np.sum(w[rows] * (y[rows] - mu[rows])) / np.sum(w[rows] * mu[rows])
+        assert values[rows][0] == pytest.approx(newton, rel=1e-6)
