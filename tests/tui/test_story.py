@@ -54,9 +54,9 @@ async def test_setup_screen_shows_roles_and_preselects_the_target(tmp_path):
         uses = {r.name: str(roles.get_cell(r.name, "use")) for r in roles.reports}
         assert uses["patient"] == "id"  # every value unique: it names the rows, it is no feature
         assert uses["progression"] == "target" and uses["bmi"] == "numeric"
-        # only the losses of a regression are offered
+        # only the losses of a regression are offered (those for counts and amounts among them)
         assert {v for _, v in screen.query_one("#loss", Select)._options if v != Select.NULL} == {
-            "squared", "absolute", "huber"}
+            "squared", "absolute", "huber", "poisson", "gamma", "tweedie"}
         await pilot.press("down", "down", "x")  # exclude "sex"
         assert screen.excluded == {"sex"}
         await start_chain(pilot)
