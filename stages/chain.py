@@ -24,12 +24,12 @@ from .fitting import FitContext, Stage, check_weights_taken, fit_stage
 from .kinds import get_kind
 from .kinds.base import ProgressFn
 from .limits import MAX_REPEAT, MAX_SEED, MAX_STAGES
-from .loglink import LogLinkLoss, is_log_link
+from .loglink import LogLinkLoss
 from .losses import LOG_LINK_NAMES, Loss, default_loss, get_loss
 from .outputs import start_block
 from .parsing import whole_value
 from .predictor import FittedChain, FittedStage
-from .row_weights import check_exposure, check_weights, column_name, exposure_offset, read_values
+from .row_weights import column_name, read_row_values
 from .scoring import Scores
 from .spec import StageSpec
 from .tracks import build_layout, check_classes_fit
@@ -112,7 +112,8 @@ class Chain:
                                    n_classes=len(self.schema.classes), power=power)
         if isinstance(self.loss, LogLinkLoss):
             self.loss.check_target(self.prepared.y, target, source)
-        kept_weight, kept_offset = self._row_values(frame, weight, exposure, source)
+        rows = read_row_values(frame, self.prepared.rows, weight, exposure, self.loss, source)
+        self.weight_column, self.exposure_column = rows.weight_column, rows.exposure_column
         self.split = self.validation.split(self.prepared.frame, self.prepared.y, self.schema.task,
                                            classes=self.schema.classes)
         self.layout = build_layout(self.split)
@@ -123,8 +124,7 @@ class Chain:
             check_classes_fit(self.layout, self.y, self.schema, source)
         # row weights and the offset on the raw scale (log(exposure)), in chain order: None when every
         # row counts once and there is no exposure
-        self.weight: np.ndarray | None = None if kept_weight is None else kept_weight[self.layout.order]
-        self.offset: np.ndarray | None = None if kept_offset is None else kept_offset[self.layout.order]
+        self.weight, self.offset = rows.in_order(self.layout.order)
         # a missing value the fitting rows never had takes their median, here as in predict
         self.schema = self.schema.with_fills(self.matrix[: self.layout.n_train])
         self.prepared.schema = self.schema
@@ -154,24 +154,6 @@ class Chain:
         self.test_revealed = False
         self.reveal_count = 0
         self._test: dict[int, dict[str, float]] = {}
-
-    def _row_values(self, frame: pd.DataFrame, weight: Any, exposure: Any,
-                    source: str) -> tuple[np.ndarray | None, np.ndarray | None]:
-        """Return the kept rows' weights and offsets (None when not given), checked; set the column names."""
-        rows = self.prepared.rows
-        self.weight_column: str | None = None
-        self.exposure_column: str | None = None
-        kept_weight = kept_offset = None
-        if weight is not None:
-            values, self.weight_column = read_values(frame, weight, "weight", source)
-            kept_weight = check_weights(values[rows], self.weight_column, source, rows)
-        if exposure is not None:
-            if not is_log_link(self.loss):
-                raise StageSpecError(f"an exposure is for the log-link losses ({', '.join(LOG_LINK_NAMES)}); "
-                                     f"loss {self.loss.name!r} takes none")
-            values, self.exposure_column = read_values(frame, exposure, "exposure", source)
-            kept_offset = exposure_offset(check_exposure(values[rows], self.exposure_column, source, rows))
-        return kept_weight, kept_offset
 
     @classmethod
     def from_file(cls, path: str | os.PathLike, target: str, validation: ValidationSpec | None = None,

@@ -9,12 +9,15 @@ the column and the first bad row (counted from 1, as the data file's rows are).
 
 from __future__ import annotations
 
+from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
 import pandas as pd
 
-from .errors import DataError
+from .errors import DataError, StageSpecError
+from .loglink import is_log_link
+from .losses import LOG_LINK_NAMES
 
 #: how a weight or exposure given in Python (not a column) is named in messages and files
 GIVEN = "(given in Python)"
@@ -88,3 +91,37 @@ def check_exposure(values: np.ndarray, name: str, source: str, rows: np.ndarray 
 def exposure_offset(values: np.ndarray) -> np.ndarray:
     """Return the offset an exposure gives a log-link raw score: log(exposure)."""
     return np.log(values)
+
+
+@dataclass(frozen=True)
+class RowValues:
+    """A chain's weights and offsets over the rows it kept (None when not given), and their column names."""
+
+    weight_column: str | None = None
+    exposure_column: str | None = None
+    weight: np.ndarray | None = None
+    offset: np.ndarray | None = None
+
+    def in_order(self, order: np.ndarray) -> tuple[np.ndarray | None, np.ndarray | None]:
+        """Return the weights and offsets gathered into ``order`` (the chain's order of its kept rows)."""
+        return (None if self.weight is None else self.weight[order],
+                None if self.offset is None else self.offset[order])
+
+
+def read_row_values(frame: pd.DataFrame, rows: np.ndarray, weight: Any, exposure: Any, loss: Any,
+                    source: str) -> RowValues:
+    """Return the checked weights and log(exposure) offsets of the rows of ``frame`` at ``rows`` (the
+    rows a chain keeps); raise DataError for a bad value, StageSpecError for an exposure with a loss
+    off the log link."""
+    weight_column = exposure_column = None
+    kept_weight = kept_offset = None
+    if weight is not None:
+        values, weight_column = read_values(frame, weight, "weight", source)
+        kept_weight = check_weights(values[rows], weight_column, source, rows)
+    if exposure is not None:
+        if not is_log_link(loss):
+            raise StageSpecError(f"an exposure is for the log-link losses ({', '.join(LOG_LINK_NAMES)}); "
+                                 f"loss {loss.name!r} takes none")
+        values, exposure_column = read_values(frame, exposure, "exposure", source)
+        kept_offset = exposure_offset(check_exposure(values[rows], exposure_column, source, rows))
+    return RowValues(weight_column, exposure_column, kept_weight, kept_offset)
