@@ -151,7 +151,8 @@ def test_weighted_tree_stages_reproduce_gradient_boosting_regressor_with_sample_
 
 def test_weighted_binary_tree_stages_reproduce_gradient_boosting_classifier_with_sample_weight():
     # Breast cancer data shipped with scikit-learn; reference: GradientBoostingClassifier with
-    # sample_weight (weighted prior, weighted Newton leaves), to the 1e-3 binary chains are held to.
+    # sample_weight (weighted prior, weighted Newton leaves). The issue asks for 1e-3; the chain
+    # takes the same splits and leaves, so it holds to 1e-9 as the unweighted check does.
     data = load_breast_cancer()
     order = np.random.RandomState(0).permutation(len(data.target))
     X, y = data.data[order], data.target[order]
@@ -164,7 +165,7 @@ def test_weighted_binary_tree_stages_reproduce_gradient_boosting_classifier_with
     reference = GradientBoostingClassifier(n_estimators=100, max_depth=3, learning_rate=0.1, random_state=0)
     reference.fit(X[:427], y[:427], sample_weight=w[:427])
     ours = chain.fitted().predict_proba(frame.iloc[427:])[:, 1]
-    np.testing.assert_allclose(ours, reference.predict_proba(X[427:])[:, 1], rtol=0, atol=1e-3)
+    np.testing.assert_allclose(ours, reference.predict_proba(X[427:])[:, 1], rtol=0, atol=1e-9)
 
 
 @pytest.mark.parametrize(("loss", "reference"), [
