@@ -220,8 +220,16 @@ _LOADER = textwrap.dedent("""
         except BaseException as exc:
             outcome, message = type(exc).__name__, str(exc)
         print(json.dumps({"path": path, "outcome": outcome, "message": message}), flush=True)
+    # VmHWM is this program's own high-water mark; ru_maxrss would also carry the peak of the
+    # parent it was forked from (Linux keeps it across exec: getrusage(2)), a large pytest process
     import resource
-    print(json.dumps({"peak_kib": resource.getrusage(resource.RUSAGE_SELF).ru_maxrss}), flush=True)
+    peak = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss
+    try:
+        with open("/proc/self/status") as status:
+            peak = next(int(line.split()[1]) for line in status if line.startswith("VmHWM:"))
+    except (OSError, StopIteration):
+        pass
+    print(json.dumps({"peak_kib": peak}), flush=True)
 """)
 
 
