@@ -165,6 +165,15 @@ class Chain:
         _release_arrow_pages()
         return chain
 
+    @classmethod
+    def from_dask(cls, frame: Any, target: str, validation: ValidationSpec | None = None, loss: str | None = None,
+                  *, client: Any, **kwargs: Any) -> Chain:
+        """Return a chain over the Dask DataFrame ``frame`` whose rows and cached outputs stay on the
+        cluster of ``client`` (see stages.bridges.cluster_chain; Dask is needed only here)."""
+        from .bridges.cluster_chain import ClusterChain
+
+        return ClusterChain(frame, target, validation, loss, client=client, **kwargs)
+
     # ----- reading ----------------------------------------------------------------------
     @property
     def task(self) -> Task:

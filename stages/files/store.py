@@ -94,6 +94,13 @@ def save(chain: Chain | FittedChain, path: str | os.PathLike) -> None:
         fingerprint = data_fingerprint(chain.matrix, chain.y, chain.layout.order)
     else:
         fitted, probe, fingerprint = chain, _PROBES.get(chain), chain.meta.get("data")
+    save_fitted(fitted, path, probe, fingerprint)
+
+
+def save_fitted(fitted: FittedChain, path: str | os.PathLike, probe: np.ndarray | None,
+                fingerprint: dict[str, Any] | None) -> None:
+    """Write ``fitted`` as a chain file at ``path`` with its probe rows (schema matrix rows) and data
+    fingerprint (None when the rows were not all here to hash), atomically; return None."""
     if len(fitted.stages) > limits.MAX_STAGES:
         raise ChainFileError(f"cannot write chain file '{os.fspath(path)}': it has {len(fitted.stages):,} stages; "
                              f"a chain file holds at most {limits.MAX_STAGES:,}")

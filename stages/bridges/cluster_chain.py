@@ -1,0 +1,311 @@
+"""A ``stages.Chain`` whose rows live on a Dask cluster: ``Chain.from_dask`` returns one.
+
+It is the ordinary chain (the same stages, scores, undo stack, random streams, table, recipe and
+chain file); only the rows and the cached outputs sit elsewhere: the rows on the workers
+(``cluster_rows``), each stage's cumulative output as a Dask array persisted there. Stepping
+back, trimming and undoing only drop or put back stages, with no computation; adding and
+dropping fit stages over the cluster (``cluster_fit``); scores are one reduction per stage.
+What needs the rows on this machine (residual scans, partial dependence, auditions, sessions...)
+raises ChainStateError saying a chain on a cluster cannot serve it yet.
+
+For now a chain on a cluster is a regression chain with squared loss over numeric features,
+validated by a holdout or no validation; the parts come from a hash of each row's label.
+"""
+
+from __future__ import annotations
+
+import logging
+import os
+import threading
+from dataclasses import dataclass
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+from ..chain import Chain
+from ..chain_state import seeded_streams
+from ..errors import ChainStateError, DataError, ValidationSpecError
+from ..fitting import Stage
+from ..kinds.base import ProgressFn
+from ..losses import get_loss
+from ..scoring import Scores
+from ..spec import StageSpec
+from ..tracks import Layout, Track
+from ..validation import AllRows, Holdout, Part, ValidationSpec
+from .cluster_fit import CLUSTER_KINDS, ClusterContext, bin_edges, fit_cluster_stage
+from .cluster_rows import (
+    DEFAULT_SAMPLE_ROWS,
+    TEST,
+    TRAIN,
+    VALID,
+    ClusterRows,
+    build_rows,
+    numeric_schema,
+    require_dask,
+)
+
+log = logging.getLogger(f"remnant.{__name__}")
+PART_CODES = {"train": TRAIN, "valid": VALID, "test": TEST}
+
+
+@dataclass
+class ClusterPrepared:
+    """What a chain on a cluster says about its data preparation: the notes and whether the features were inferred."""
+
+    notes: tuple[str, ...]
+    features_inferred: bool
+
+
+def not_served(what: str) -> ChainStateError:
+    """Return the error of a method a chain on a cluster cannot serve yet."""
+    return ChainStateError(f"a chain on a Dask cluster cannot serve {what} yet: save it and load the chain file "
+                           "(stages.load) on one machine, or fit it in memory")
+
+
+class ClusterChain(Chain):
+    """A residual chain over a Dask DataFrame: the rows on the cluster of ``client``, the chain here.
+
+    ``sample_rows`` is the size of the sample pulled here for the kinds with no distributed
+    learner (and for the linear design and the LightGBM bin edges); ``row_id`` names an integer
+    column that labels the rows (default: the frame's integer index when its divisions are
+    known, else each row's position in the data).
+    """
+
+    def __init__(self, frame: Any, target: str, validation: ValidationSpec | None = None, loss: str | None = None,
+                 *, client: Any, seed: int = 0, ignore: tuple[str, ...] | list[str] = (),
+                 features: list[str] | None = None, sample_rows: int = DEFAULT_SAMPLE_ROWS,
+                 row_id: str | None = None, source: str = "frame",
+                 data_path: str | os.PathLike | None = None) -> None:
+        require_dask()
+        self.validation = validation if validation is not None else Holdout()
+        if not isinstance(self.validation, Holdout | AllRows):
+            raise ValidationSpecError(f"a chain on a Dask cluster is validated by a holdout for now, not by "
+                                      f"{self.validation.describe()}")
+        if loss not in (None, "squared"):
+            raise DataError(f"a chain on a Dask cluster fits the squared loss for now, not {loss!r}")
+        self.ignore = tuple(ignore) + ((row_id,) if row_id and row_id not in ignore else ())
+        self.schema = numeric_schema(frame._meta, target, features, self.ignore)
+        self.loss = get_loss("squared", "regression")
+        self.client, self.sample_rows, self.row_id = client, int(sample_rows), row_id
+        fraction = getattr(self.validation, "fraction", 0.0)
+        test_fraction = getattr(self.validation, "test_fraction", 0.0)
+        self.rows: ClusterRows = build_rows(frame, self.schema, fraction=fraction, test_fraction=test_fraction,
+                                            seed=getattr(self.validation, "seed", 0), row_id=row_id)
+        n = sum(self.rows.chunks)
+        counts = [self.rows.n_part(k) for k in (TRAIN, VALID, TEST)]
+        if counts[0] == 0:
+            raise ValidationSpecError(f"{self.validation.describe()}: no row of the {n:,} is left to fit on")
+        self.layout = Layout(np.empty(0, dtype=np.int64), counts[0], counts[1], counts[2],
+                             (Track(n_rows=n, fit=slice(0, counts[0])),))
+        self.seed = int(seed)
+        self.sample = self.rows.sample(self.sample_rows, self.seed)
+        self.schema = self.schema.with_fills(self.sample[0])
+        self.edges = bin_edges(self.sample[0])
+        self.prepared = ClusterPrepared((), features is None)  # type: ignore[assignment]
+        self.threshold, self.source = 0.5, source
+        self.data_path = None if data_path is None else os.fspath(data_path)
+        self.weight = self.offset = None
+        self._stages: tuple[Stage, ...] = ()
+        self._scores: list[Scores] = []
+        self._removals = []
+        self._rngs = seeded_streams(self.seed, 1)
+        self._lock = threading.RLock()
+        start = float(self.rows.part_rows(self.rows.y, TRAIN).mean().compute())
+        self.starts = (np.array([start]),)
+        import dask.array as da
+
+        self._start_outputs = (da.full((n, 1), start, chunks=(self.rows.chunks, 1), dtype=np.float64).persist(),)
+        self._start_scores = self._score(self._start_outputs)
+        self.test_revealed, self.reveal_count = False, 0
+        self._test: dict[int, dict[str, float]] = {}
+        log.info("chain on a cluster: %s rows in %d partitions, %s", f"{n:,}", len(self.rows.chunks),
+                 self.validation.describe())
+
+    # ----- what differs: fitting and scoring over the cluster --------------------------------------
+    def _fit_sequence(self, specs: list[StageSpec], previous: tuple[Any, ...], first_number: int,
+                      cancel: threading.Event | None, progress: ProgressFn | None) -> list[Stage]:
+        ctx = ClusterContext(self.rows, self.schema, self.loss, self._rngs, self.client, self.sample, self.edges)
+        fitted: list[Stage] = []
+        state = [rng.get_state() for rng in self._rngs]
+        try:
+            for i, spec in enumerate(specs):
+                if progress is not None:
+                    progress(i / len(specs), f"stage {first_number + i} ({spec.kind}) on the cluster")
+                stage = fit_cluster_stage(ctx, spec, previous[0], number=first_number + i, cancel=cancel)
+                fitted.append(stage)
+                previous = stage.outputs
+        except BaseException:
+            for rng, saved in zip(self._rngs, state, strict=True):
+                rng.set_state(saved)
+            raise
+        if progress is not None:
+            progress(1.0, "done")
+        return fitted
+
+    def _score(self, outputs: tuple[Any, ...]) -> Scores:
+        stats = part_sums(self.rows, outputs[0], float(self.starts[0][0]) if hasattr(self, "starts") else 0.0)
+        train = regression_scores(stats[TRAIN])
+        valid = regression_scores(stats[VALID])
+        return Scores(train, valid)
+
+    def reveal_test(self) -> list[dict[str, float]]:
+        """Score every row on the locked test part (one reduction per row) and return the scores."""
+        with self._lock:
+            if self.layout.n_test == 0:
+                raise ChainStateError("this chain has no locked test part (set test_fraction when choosing validation)")
+            rows = [self._start_outputs[0], *(s.outputs[0] for s in self._stages)]
+            shift = float(self.starts[0][0])
+            self._test = {i: regression_scores(part_sums(self.rows, out, shift)[TEST]) for i, out in enumerate(rows)}
+            self.test_revealed = True
+            self.reveal_count += 1
+            return [self._test[i] for i in range(len(rows))]
+
+    def table(self) -> pd.DataFrame:
+        """Return the stage table, with ``fit_on``: "every fitting row", or "a sample of N rows"."""
+        frame = super().table()
+        marks = ["", *("every fitting row" if s.kind in CLUSTER_KINDS else _sample_note(s) for s in self.stages)]
+        return frame.assign(fit_on=marks[: len(frame)])
+
+    def histogram(self, row: int | None = None, parts: tuple[Part, ...] = ("train", "valid"),
+                  bins: int | str = "auto", max_bins: int = 60, of_class: object = None,
+                  ) -> tuple[dict[str, np.ndarray], np.ndarray]:
+        """Return residual counts per part over shared bin edges, and the edges: edges from the
+        residuals' range (Sturges' count of bins unless ``bins`` is a number), counts by ``dask.array.histogram``."""
+        import dask
+        import dask.array as da
+
+        output = self.outputs(row)[0]
+        residual = {p: self.rows.part_rows(self.rows.y - output[:, 0], PART_CODES[p]) for p in parts}
+        every = da.concatenate(list(residual.values()))
+        low, high, n = dask.compute(every.min(), every.max(), every.size)
+        count = bins if isinstance(bins, int) else int(np.ceil(np.log2(max(n, 1)) + 1))
+        edges = np.linspace(float(low), float(high) if high > low else float(low) + 1.0, min(count, max_bins) + 1)
+        counts = dask.compute(*(da.histogram(r, bins=edges)[0] for r in residual.values()))
+        return dict(zip(parts, (np.asarray(c) for c in counts), strict=True)), edges
+
+    def save(self, path: str | os.PathLike) -> None:
+        """Write the chain file at ``path`` (atomically): the format of an in-memory fit, read back by
+        ``stages.load`` without Dask; its probe rows are the first fitting rows of the sample."""
+        from ..files.store import PROBE_ROWS, save_fitted
+
+        probe = np.array(self.sample[0][:PROBE_ROWS], dtype=np.float64)
+        save_fitted(self.fitted(), path, probe, None)
+
+    def predict_dask(self, frame: Any) -> Any:
+        """Return the chain's predictions for a Dask DataFrame, a Dask Series over its partitions."""
+        from .cluster_predict import predict_partitions
+
+        return predict_partitions(self.fitted(), frame)
+
+    # ----- what needs the rows on this machine ---------------------------------------------------------
+    def residuals(self, *args: Any, **kwargs: Any) -> np.ndarray:
+        """Raise ChainStateError: residuals of every row would come to this machine."""
+        raise not_served("residuals row by row")
+
+    def fitted_values(self, *args: Any, **kwargs: Any) -> np.ndarray:
+        """Raise ChainStateError: fitted values of every row would come to this machine."""
+        raise not_served("fitted values row by row")
+
+    def part_targets(self, *args: Any, **kwargs: Any) -> np.ndarray:
+        """Raise ChainStateError."""
+        raise not_served("the targets of a part")
+
+    def confusion(self, *args: Any, **kwargs: Any) -> pd.DataFrame:
+        """Raise ChainStateError."""
+        raise not_served("a confusion matrix")
+
+    def importance(self, *args: Any, **kwargs: Any) -> dict[str, float]:
+        """Raise ChainStateError."""
+        raise not_served("feature importance")
+
+    def audition(self, *args: Any, **kwargs: Any) -> list[Any]:
+        """Raise ChainStateError."""
+        raise not_served("auditions")
+
+    def keep(self, *args: Any, **kwargs: Any) -> Stage:
+        """Raise ChainStateError."""
+        raise not_served("keeping an audition's candidate")
+
+    def commit(self, *args: Any, **kwargs: Any) -> None:
+        """Raise ChainStateError."""
+        raise not_served("stages fitted elsewhere")
+
+    def grow(self, *args: Any, **kwargs: Any) -> Any:
+        """Raise ChainStateError."""
+        raise not_served("growing until validation stops improving")
+
+    def references(self, **options: Any) -> pd.DataFrame:
+        """Raise ChainStateError."""
+        raise not_served("reference models")
+
+    def residual_scan(self, *args: Any, **kwargs: Any) -> pd.DataFrame:
+        """Raise ChainStateError."""
+        raise not_served("residual scans")
+
+    def binned_residuals(self, *args: Any, **kwargs: Any) -> pd.DataFrame:
+        """Raise ChainStateError."""
+        raise not_served("binned residuals")
+
+    def partial_dependence(self, *args: Any, **kwargs: Any) -> pd.DataFrame:
+        """Raise ChainStateError."""
+        raise not_served("partial dependence")
+
+    def coefficients(self, *args: Any, **kwargs: Any) -> pd.DataFrame:
+        """Raise ChainStateError."""
+        raise not_served("coefficient tables")
+
+    def curves(self, *args: Any, **kwargs: Any) -> pd.DataFrame:
+        """Raise ChainStateError."""
+        raise not_served("spline curves")
+
+    def largest_residuals(self, *args: Any, **kwargs: Any) -> pd.DataFrame:
+        """Raise ChainStateError."""
+        raise not_served("the largest residuals")
+
+    def calibration(self, *args: Any, **kwargs: Any) -> pd.DataFrame:
+        """Raise ChainStateError."""
+        raise not_served("calibration tables")
+
+    def restore(self, *args: Any, **kwargs: Any) -> None:
+        """Raise ChainStateError."""
+        raise not_served("sessions")
+
+
+def _sample_note(stage: Stage) -> str:
+    for note in stage.notes:
+        if note.startswith("fit on a sample of "):
+            return note[len("fit on "):]
+    return ""
+
+
+def part_sums(rows: ClusterRows, output: Any, shift: float) -> np.ndarray:
+    """Return per part (train, valid, test) the row count, the sums of squared and absolute errors and
+    of y - shift and its square: one reduction over the partitions."""
+    import dask.array as da
+
+    sums = da.map_blocks(_block_sums, rows.y, output[:, 0], rows.part, shift, dtype=np.float64,
+                         chunks=((15,) * len(rows.chunks),))
+    total = np.asarray(sums.compute(), dtype=np.float64).reshape(-1, 3, 5).sum(axis=0)
+    return total
+
+
+def _block_sums(y: np.ndarray, output: np.ndarray, part: np.ndarray, shift: float) -> np.ndarray:
+    out = np.zeros((3, 5))
+    error = y - output
+    for k in range(3):
+        at = part == k
+        e, centred = error[at], y[at] - shift
+        out[k] = (at.sum(), e @ e, np.abs(e).sum(), centred.sum(), centred @ centred)
+    return out.reshape(-1)
+
+
+def regression_scores(sums: np.ndarray) -> dict[str, float]:
+    """Return RMSE, MAE, R² and the loss (MSE) of one part from its ``part_sums`` row (NaN without rows)."""
+    n, squared, absolute, total, total_squared = (float(v) for v in sums)
+    if n == 0:
+        return {"rmse": float("nan"), "mae": float("nan"), "r2": float("nan"), "loss": float("nan")}
+    spread = total_squared - total * total / n
+    mse = squared / n
+    return {"rmse": float(np.sqrt(mse)), "mae": absolute / n, "r2": 1.0 - squared / spread if spread > 0 else float("nan"),
+            "loss": mse}
