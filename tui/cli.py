@@ -160,6 +160,9 @@ def _add_headless_commands(commands: Any) -> None:
     fit.add_argument("--out", metavar="CHAIN", required=True,
                      help="the chain file to write (replaced only when the new one is complete; "
                           "'-' writes it to standard output and the stage table to standard error)")
+    fit.add_argument("--cluster", metavar="ADDRESS",
+                     help="fit on a Dask cluster: tcp://host:port, or local:N to start N local workers "
+                          "(needs pip install 'remnant[dask]')")
     _add_format(fit)
     fit.set_defaults(run=run_fit)
     predict = commands.add_parser("predict", help="write predictions of a chain file as CSV",
@@ -178,6 +181,9 @@ def _add_headless_commands(commands: Any) -> None:
     predict.add_argument("--exposure", metavar="COL",
                          help="multiply each prediction (per unit of exposure) by COL: expected totals "
                               "(log-link chains: poisson, gamma, tweedie)")
+    predict.add_argument("--cluster", metavar="ADDRESS",
+                         help="predict on a Dask cluster (tcp://host:port or local:N); --out is then a new "
+                              "folder of Parquet parts with row_id and prediction")
     predict.set_defaults(run=run_predict)
     export = commands.add_parser("export", help="write a chain file as an ONNX model (and its probe file)",
                                  description=_EXPORT, formatter_class=_RAW)
@@ -383,11 +389,18 @@ def run_fit(args: argparse.Namespace) -> int:
     from stages.files import store
     from stages.files.recipe import read_recipe
 
+    from .cli_cluster import cluster_address, fit_on_cluster
+
     recipe = read_recipe(args.recipe)
-    check_out(args.out, {"recipe": args.recipe, "input data file": args.data or recipe.data_path})
+    address = cluster_address(args, recipe)
+    inputs = {"recipe": args.recipe, "input data file": None if address else args.data or recipe.data_path}
+    check_out(args.out, inputs)
     with _holding(args.out):  # a second `remnant fit` to the same --out is refused before it fits
-        chain = _fit_with_progress(recipe, args.data)
-        store.save(chain, args.out)
+        if address is not None:
+            chain = fit_on_cluster(args, recipe, address)
+        else:
+            chain = _fit_with_progress(recipe, args.data)
+            store.save(chain, args.out)
     to_stdout = args.out == "-"
     print_table(chain.table(), args.format, stream=sys.stderr if to_stdout else sys.stdout)
     print(CAUTION, file=sys.stderr)
@@ -481,6 +494,10 @@ def run_predict(args: argparse.Namespace) -> int:
     from stages.loglink import is_log_link
     from tui.predicting import write_predictions
 
+    if args.cluster:
+        from .cli_cluster import predict_on_cluster
+
+        return predict_on_cluster(args, args.cluster)
     out = None if args.out in (None, "-") else args.out
     if out is not None:
         check_out(out, {"input data file": args.data, "chain file": args.chain})

@@ -88,6 +88,10 @@ class ClusterChain(Chain):
         self.schema = numeric_schema(frame._meta, target, features, self.ignore)
         self.loss = get_loss("squared", "regression")
         self.client, self.sample_rows, self.row_id = client, int(sample_rows), row_id
+        from ..files.recipe_cluster import ClusterSettings
+
+        # the recipe's [cluster] table, written back by to_recipe
+        self.cluster_settings = ClusterSettings(sample_rows=self.sample_rows)
         fraction = getattr(self.validation, "fraction", 0.0)
         test_fraction = getattr(self.validation, "test_fraction", 0.0)
         self.rows: ClusterRows = build_rows(frame, self.schema, fraction=fraction, test_fraction=test_fraction,

@@ -167,7 +167,8 @@ def _fit_linear(ctx: ClusterContext, spec: StageSpec, params: dict[str, Any], pr
     if design.width == 0:
         return constant_model(design, np.array([float(residual.mean().compute())]), fit_intercept), spec.shrinkage, "", ()
     X = rows.part_rows(rows.X, TRAIN)[:, list(features)]
-    Z = X.map_blocks(design.transform, chunks=(X.chunks[0], (design.width,)), dtype=np.float64)
+    Z = X.map_blocks(design.transform, chunks=(X.chunks[0], (design.width,)), dtype=np.float64,
+                     meta=np.empty((0, 0), dtype=np.float64))
     x_mean, y_mean = np.zeros(design.width), 0.0
     if fit_intercept:
         means = da.compute(Z.mean(axis=0), residual.mean())
@@ -191,7 +192,7 @@ def _fit_booster(ctx: ClusterContext, spec: StageSpec, params: dict[str, Any], p
     rows = ctx.rows
     edges = [ctx.edges[j] for j in features]
     X = rows.part_rows(rows.X, TRAIN)[:, list(features)]
-    codes = X.map_blocks(bin_codes, edges, dtype=np.float64)
+    codes = X.map_blocks(bin_codes, edges, dtype=np.float64, meta=np.empty((0, 0), dtype=np.float64))
     y = rows.part_rows(rows.y, TRAIN)
     init = rows.part_rows(previous[:, 0], TRAIN)
     model = lightgbm.DaskLGBMRegressor(client=ctx.client, n_estimators=rounds, **native)
@@ -254,7 +255,8 @@ def _persisted_output(ctx: ClusterContext, previous: Any, learner: Any, scale: f
         rows = x if features == every else x[:, list(features)]
         return before + scale * block(learner.predict(rows), len(rows), 1)
 
-    output = da.map_blocks(add, ctx.rows.X, previous, chunks=previous.chunks, dtype=np.float64).persist()
+    output = da.map_blocks(add, ctx.rows.X, previous, chunks=previous.chunks, dtype=np.float64,
+                           meta=np.empty((0, 1), dtype=np.float64)).persist()
     bad = int((~da.isfinite(output)).sum().compute())
     if bad:
         raise StageFitError(f"{bad:,} predictions are not finite (NaN or infinite)")

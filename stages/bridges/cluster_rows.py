@@ -170,6 +170,8 @@ def build_rows(frame: Any, schema: Schema, *, fraction: float, test_fraction: fl
     import dask
     import dask.array as da
 
+    # persisted first: Dask's planner may otherwise regroup the partitions of each projection differently
+    frame = frame.persist()
     lengths = tuple(int(n) for n in frame.map_partitions(len).compute())
     if sum(lengths) == 0:
         raise DataError("the data has no rows")
@@ -184,6 +186,7 @@ def build_rows(frame: Any, schema: Schema, *, fraction: float, test_fraction: fl
     part = labels.map_blocks(part_codes, fraction, test_fraction, seed, dtype=np.int8)
     fold = labels.map_blocks(fold_codes, folds, seed, dtype=np.int8) if folds else None
     X, y, labels, part = dask.persist(X, y, labels, part)
+    del frame  # the arrays hold the rows now; the frame's partitions can go
     if fold is not None:
         (fold,) = dask.persist(fold)
     counts = np.stack([(part == k).map_blocks(_count, chunks=(1,), dtype=np.int64).compute() for k in range(3)], axis=1)

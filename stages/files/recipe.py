@@ -32,6 +32,7 @@ from ..parsing import ENTRY_KEYS, shown
 from ..row_weights import GIVEN
 from ..spec import StageSpec
 from ..validation import Holdout, ValidationSpec
+from .recipe_cluster import ClusterSettings, parse_cluster
 from .recipe_steps import Audition, parse_auditions, replay
 from .toml_text import KeyLines, toml_key, toml_value
 
@@ -40,11 +41,11 @@ if TYPE_CHECKING:
 
     from ..chain import Chain
 
-TABLES = ("data", "chain", "validation", "stage", "audition")
+TABLES = ("data", "chain", "validation", "stage", "audition", "cluster")
 DATA_KEYS = ("path", "target", "ignore", "features", "task", "positive", "dates", "weight", "exposure")
 CHAIN_KEYS = ("loss", "seed", "threshold", "power")
 MAX_RECIPE_BYTES = 16 * 1024**2
-_SHOWN_TABLES = "[data], [chain], [validation], [[stage]], [[audition]]"
+_SHOWN_TABLES = "[data], [chain], [validation], [[stage]], [[audition]], [cluster]"
 
 
 @dataclass(frozen=True)
@@ -71,6 +72,7 @@ class Recipe:
     weight: str | None = None                                # the column of row weights
     exposure: str | None = None                              # the column of exposures (log-link losses)
     power: float | None = None                               # the tweedie loss's power
+    cluster: ClusterSettings | None = None                    # the [cluster] table: fit on a Dask cluster
 
     @property
     def name(self) -> str:
@@ -153,8 +155,10 @@ def parse_recipe(text: str, base_dir: str | os.PathLike = ".", source: str = "re
         raise reader.fail(f"the recipe asks for {total:,} stages; a chain holds at most {MAX_STAGES:,}", "stage")
     auditions = parse_auditions(doc.get("audition"), lambda i, key: probe.where("audition", i, key), len(entries),
                                 settings["task"])
+    cluster = parse_cluster(doc.get("cluster"), lambda problem, key: reader.fail(problem, "cluster", 0, key))
     return Recipe(validation=validation, stages=tuple((e.spec, e.repeat) for e in entries), loss=loss, seed=seed,
                   threshold=threshold, power=power, source=source, lines=probe.lines, auditions=auditions,
+                  cluster=cluster,
                   patience={i: e.patience for i, e in enumerate(entries) if e.patience is not None}, **settings)
 
 
@@ -310,6 +314,8 @@ def recipe_to_toml(recipe: Recipe, base_dir: str | os.PathLike | None = None) ->
     if not binary and validation.get("stratify") is True:
         del validation["stratify"]  # only a binary target is stratified: the default says nothing here
     out += ["", "[validation]", *_pairs(validation)]
+    if recipe.cluster is not None:
+        out += ["", "[cluster]", *_pairs(recipe.cluster.to_dict())]
     for i, (spec, repeat) in enumerate(recipe.stages):
         entry = spec.to_dict()
         if "params" in entry:
@@ -362,7 +368,7 @@ def recipe_of_chain(chain: Chain) -> Recipe:
         features=None if chain.prepared.features_inferred else tuple(schema.names), task=schema.task,
         positive=schema.positive_class, loss=chain.loss.name, seed=chain.seed, threshold=chain.threshold,
         dates=tuple(schema.dates().items()), weight=rows.get("weight"), exposure=rows.get("exposure"),
-        power=rows.get("power"),
+        power=rows.get("power"), cluster=getattr(chain, "cluster_settings", None),
     )
 
 

@@ -102,7 +102,7 @@ BAD = [
     ("repeat = 2", 'repeat = "two"', 'repeat must be a whole number, not "two"'),
     ("shrinkage = 0.5", "shrinkage = 2", "shrinkage must be in (0, 1]"),
     ('ignore = ["patient"]', 'ignore = "patient"', 'ignore must be a list of column names in quotes, not "patient"'),
-    ("[chain]", "[chian]", "unknown table [chian] (tables: [data], [chain], [validation], [[stage]], [[audition]])"),
+    ("[chain]", "[chian]", "unknown table [chian] (tables: [data], [chain], [validation], [[stage]], [[audition]], [cluster])"),
     ('loss = "squared"', "loss = squared", "not valid TOML"),
     ("[data]", 'colour = "red"\n[data]', "unknown key 'colour' outside any table"),
     ("[validation]", '[[audition]]\nwhen = 1\n[validation]', "unknown key 'when' in [[audition]]"),

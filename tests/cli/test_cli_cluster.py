@@ -1,0 +1,117 @@
+"""``remnant fit --cluster`` and ``remnant predict --cluster``, the recipe's [cluster] table, and the
+clear error without Dask. The data is scikit-learn's diabetes data (Efron et al. 2004) as Parquet parts."""
+
+from __future__ import annotations
+
+import os
+import re
+import subprocess
+import sys
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+import pytest
+from sklearn.datasets import load_diabetes
+
+import stages
+from stages.errors import RecipeError
+from stages.files.recipe import parse_recipe, recipe_to_toml
+
+RECIPE = """
+[data]
+path = "parts"
+target = "target"
+
+[chain]
+seed = 2
+
+[validation]
+fraction = 0.25
+
+[cluster]
+sample_rows = 300
+partition_rows = 1000
+
+[[stage]]
+kind = "linear"
+
+[[stage]]
+kind = "hist_tree"
+params = { max_depth = 2 }
+
+[[stage]]
+kind = "tree"
+params = { max_depth = 2 }
+"""
+
+
+@pytest.fixture
+def parts(tmp_path: Path, monkeypatch: pytest.MonkeyPatch) -> pd.DataFrame:
+    """Write the diabetes data as three Parquet parts in ``parts/`` and the recipe; return the frame."""
+    frame = load_diabetes(as_frame=True).frame
+    (tmp_path / "parts").mkdir()
+    for i, rows in enumerate(np.array_split(np.arange(len(frame)), 3)):
+        frame.iloc[rows].to_parquet(tmp_path / "parts" / f"part{i}.parquet", index=False)
+    (tmp_path / "cluster.toml").write_text(RECIPE)
+    monkeypatch.chdir(tmp_path)
+    return frame
+
+
+def test_fit_and_predict_on_a_local_cluster(parts, run, tmp_path):
+    pytest.importorskip("distributed")
+    status, out, err = run("fit", "cluster.toml", "--cluster", "local:1", "--out", "c.chain")
+    assert status == 0, err
+    assert "fit on a sample of" in err and "hist_tree" in out
+    fitted = stages.load("c.chain")  # an ordinary chain file
+    assert [s.kind for s in fitted.stages] == ["linear", "hist_tree", "tree"]
+    status, _, err = run("predict", "c.chain", "parts/*.parquet", "--cluster", "local:1", "--out", "scores")
+    assert status == 0, err
+    written = pd.read_parquet(tmp_path / "scores").sort_values("row_id")
+    np.testing.assert_array_equal(written["row_id"], np.arange(len(parts)))  # the row's place in the data
+    np.testing.assert_allclose(written["prediction"], fitted.predict(parts), rtol=1e-12)
+    # an existing folder is never replaced
+    status, _, err = run("predict", "c.chain", "parts", "--cluster", "local:1", "--out", "scores")
+    assert status == 2 and "exists" in err
+    assert sorted(os.listdir(tmp_path / "scores")) == [f"part.{i}.parquet" for i in range(3)]
+
+
+@pytest.mark.parametrize(("table", "message"), [
+    ('address = "udp://x:1"', "address must be 'local:N' or 'tcp://host:port'"),
+    ('address = "local:0"', "a local cluster has 1 to 64 workers"),
+    ('address = 7', "address must be"),
+    ("partition_rows = 10", "partition_rows must be at least 1000"),
+    ("sample_rows = 100000000", "sample_rows must be at most 2,000,000"),
+    ("workers = 3", "unknown key 'workers' in [cluster]"),
+])
+def test_bad_cluster_tables_name_the_line(table, message):
+    text = RECIPE.replace("sample_rows = 300\npartition_rows = 1000", table)
+    with pytest.raises(RecipeError, match=r"line \d+: .*" + re.escape(message)):
+        parse_recipe(text)
+
+
+def test_cluster_table_round_trips():
+    recipe = parse_recipe(RECIPE.replace("[cluster]", '[cluster]\naddress = "tcp://10.0.0.5:8786"'))
+    assert recipe.cluster is not None and recipe.cluster.address == "tcp://10.0.0.5:8786"
+    again = parse_recipe(recipe_to_toml(recipe))
+    assert again.cluster == recipe.cluster
+
+
+BLOCKED = """
+import sys
+class Blocker:
+    def find_spec(self, name, path=None, target=None):
+        if name.split('.')[0] in ('dask', 'distributed'):
+            raise ImportError('blocked: ' + name, name=name)
+sys.meta_path.insert(0, Blocker())
+import tui.cli
+sys.exit(tui.cli.main(sys.argv[1:]))
+"""
+
+
+def test_cluster_without_dask_names_the_extra(parts, tmp_path):
+    done = subprocess.run([sys.executable, "-c", BLOCKED, "fit", "cluster.toml", "--cluster", "local:2", "--out",
+                           "c.chain"], capture_output=True, text=True, timeout=120, cwd=tmp_path)
+    assert done.returncode == 2, done.stderr
+    assert done.stderr.startswith("error: ") and "pip install 'remnant[dask]'" in done.stderr
+    assert "Traceback" not in done.stderr and not (tmp_path / "c.chain").exists()
