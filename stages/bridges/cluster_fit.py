@@ -45,7 +45,10 @@ from .cluster_rows import N_BINS, TRAIN, ClusterRows
 CLUSTER_KINDS = ("mean", "linear", "lightgbm", "hist_tree")
 #: LightGBM settings of a cluster fit: one bin per code, the data-parallel learner, no timing choices
 CODE_PARAMS: dict[str, Any] = {"max_bin": 255, "min_data_in_bin": 1, "tree_learner": "data", "deterministic": True,
-                               "force_row_wise": True, "verbosity": -1}
+                               "force_row_wise": True, "verbosity": -1,
+                               # minutes a worker waits on a peer's socket (LightGBM's default is 120):
+                               # a worker lost mid-fit fails the stage instead of holding the others
+                               "time_out": 3}
 _BIG = 1.7976931348623157e308
 
 
