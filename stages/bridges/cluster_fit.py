@@ -55,14 +55,14 @@ _BIG = 1.7976931348623157e308
 @dataclass
 class ClusterContext:
     """What a stage fit over the cluster reads: the rows, schema, loss, random streams, the client,
-    the sample (X, y, positions among the fitting rows) and its bin edges."""
+    the sample (X, y) and its bin edges."""
 
     rows: ClusterRows
     schema: Schema
     loss: Loss
     rngs: list[np.random.RandomState]
     client: Any
-    sample: tuple[np.ndarray, np.ndarray, np.ndarray]
+    sample: tuple[np.ndarray, np.ndarray]
     edges: list[np.ndarray]
 
 
@@ -232,8 +232,8 @@ def cluster_booster_params(kind: str, params: dict[str, Any], rng: np.random.Ran
 
 def _fit_on_sample(ctx: ClusterContext, spec: StageSpec, previous: Any, number: int,
                    cancel: threading.Event | None) -> tuple[Any, float, str, tuple[str, ...]]:
-    X, y, where = ctx.sample
-    raw = np.asarray(ctx.rows.part_rows(previous, TRAIN)[where].compute(), dtype=np.float64).reshape(-1, 1)
+    X, y = ctx.sample
+    raw = np.asarray(ctx.rows.sampled_rows(previous).compute(), dtype=np.float64).reshape(-1, 1)
     stage = fit_on_rows(X, y, raw, ctx.schema, ctx.loss, ctx.rngs, spec, number, cancel)
     return stage.learners[0], stage.scales[0], stage.step_rule, (*stage.notes, f"fit on a sample of {len(y):,} rows")
 

@@ -111,6 +111,8 @@ class ClusterRows:
     counts: np.ndarray
     fold: Any = None
     fold_counts: np.ndarray | None = None
+    sampled: Any = None
+    sample_counts: np.ndarray | None = None
 
     @property
     def chunks(self) -> tuple[int, ...]:
@@ -124,42 +126,43 @@ class ClusterRows:
     def part_rows(self, array: Any, code: int, fold: int | None = None, keep: bool = True) -> Any:
         """Return the rows of ``array`` (a Dask array chunked like the rows) in part ``code``, as a Dask
         array of known chunks. With ``fold``, the rows of that fold (``keep``) or of the other folds."""
-        import dask.array as da
-
         if fold is None:
-            sizes = tuple(int(c) for c in self.counts[:, code])
-            mask = self.part == code
-        else:
-            assert self.fold is not None and self.fold_counts is not None
-            per = self.fold_counts[:, fold] if keep else self.counts[:, code] - self.fold_counts[:, fold]
-            sizes = tuple(int(c) for c in per)
-            mask = (self.part == code) & ((self.fold == fold) if keep else (self.fold != fold))
-        chunks = (sizes, *array.chunks[1:])
-        return da.map_blocks(_take, array, mask if array.ndim == 1 else mask[:, None], chunks=chunks,
-                             dtype=array.dtype, meta=np.empty((0,) * array.ndim, dtype=array.dtype))
+            return take(array, self.part == code, self.counts[:, code])
+        assert self.fold is not None and self.fold_counts is not None
+        per = self.fold_counts[:, fold] if keep else self.counts[:, code] - self.fold_counts[:, fold]
+        mask = (self.part == code) & ((self.fold == fold) if keep else (self.fold != fold))
+        return take(array, mask, per)
 
-    def sample(self, rows: int, seed: int) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-        """Return about ``rows`` fitting rows pulled here (X, y, their positions among the fitting rows),
-        chosen by the hash of their labels; all fitting rows when there are fewer."""
-        share = min(1.0, rows / max(1, self.n_part(TRAIN)))
-        labels = self.part_rows(self.labels, TRAIN)
-        chosen = labels.map_blocks(in_sample, share, seed, dtype=bool)
-        X = self.part_rows(self.X, TRAIN)
-        y = self.part_rows(self.y, TRAIN)
+    def sample(self, rows: int, seed: int) -> tuple[np.ndarray, np.ndarray]:
+        """Return about ``rows`` fitting rows pulled here (X, y), chosen by the hash of their labels (all
+        fitting rows when there are fewer); ``sampled`` and ``sample_counts`` then say where they are."""
         import dask
 
-        X_s, y_s, where = dask.compute(X[chosen], y[chosen], _positions(chosen))
-        return np.asarray(X_s, dtype=np.float64), np.asarray(y_s, dtype=np.float64), np.asarray(where)
+        share = min(1.0, rows / max(1, self.n_part(TRAIN)))
+        chosen = self.labels.map_blocks(in_sample, share, seed, dtype=bool) & (self.part == TRAIN)
+        (self.sampled,) = dask.persist(chosen)
+        self.sample_counts = self.sampled.map_blocks(_count, chunks=(1,), dtype=np.int64).compute()
+        X_s, y_s = dask.compute(self.sampled_rows(self.X), self.sampled_rows(self.y))
+        return np.asarray(X_s, dtype=np.float64), np.asarray(y_s, dtype=np.float64)
+
+    def sampled_rows(self, array: Any) -> Any:
+        """Return the rows of ``array`` in the sample (after ``sample``), as a Dask array of known chunks."""
+        assert self.sample_counts is not None, "sample() comes first"
+        return take(array, self.sampled, self.sample_counts)
+
+
+def take(array: Any, mask: Any, sizes: np.ndarray) -> Any:
+    """Return the rows of the Dask array ``array`` where the Dask vector ``mask`` (chunked alike) is True,
+    ``sizes[c]`` of them in chunk c: a Dask array of known chunks, with no shuffle."""
+    import dask.array as da
+
+    chunks = (tuple(int(c) for c in sizes), *array.chunks[1:])
+    return da.map_blocks(_take, array, mask if array.ndim == 1 else mask[:, None], chunks=chunks,
+                         dtype=array.dtype, meta=np.empty((0,) * array.ndim, dtype=array.dtype))
 
 
 def _take(block: np.ndarray, mask: np.ndarray) -> np.ndarray:
     return block[mask.reshape(-1)] if block.ndim == 1 else block[mask[:, 0]]
-
-
-def _positions(mask: Any) -> Any:
-    import dask.array as da
-
-    return da.flatnonzero(mask)
 
 
 def build_rows(frame: Any, schema: Schema, *, fraction: float, test_fraction: float, seed: int,
@@ -189,15 +192,20 @@ def build_rows(frame: Any, schema: Schema, *, fraction: float, test_fraction: fl
     del frame  # the arrays hold the rows now; the frame's partitions can go
     if fold is not None:
         (fold,) = dask.persist(fold)
-    counts = np.stack([(part == k).map_blocks(_count, chunks=(1,), dtype=np.int64).compute() for k in range(3)], axis=1)
+    per_part = part.map_blocks(_part_counts, chunks=((3,) * len(lengths),), dtype=np.int64)
+    bad, counts = dask.compute(da.isnan(y).sum(), per_part)
+    counts = np.asarray(counts).reshape(-1, 3)
     fold_counts = None
     if fold is not None:
         fold_counts = np.stack([((part == TRAIN) & (fold == f)).map_blocks(_count, chunks=(1,), dtype=np.int64)
                                 .compute() for f in range(folds)], axis=1)
-    bad = int(da.isnan(y).sum().compute())
     if bad:
         raise DataError(f"target {schema.target!r} has {bad:,} missing values; every row needs a target")
     return ClusterRows(X, y, labels, part, counts, fold, fold_counts)
+
+
+def _part_counts(block: np.ndarray) -> np.ndarray:
+    return np.bincount(block.astype(np.intp), minlength=3)[:3].astype(np.int64)
 
 
 def _count(block: np.ndarray) -> np.ndarray:
