@@ -112,7 +112,7 @@ def cluster_client(address: str) -> Iterator[Any]:
 
     local = _LOCAL.fullmatch(address)
     if local:
-        with LocalCluster(n_workers=int(local.group(1)), threads_per_worker=1, dashboard_address=None,
+        with LocalCluster(n_workers=int(local.group(1)), threads_per_worker=1, dashboard_address=":0",
                           memory_limit=0) as cluster, Client(cluster) as client:
             yield client
         return

@@ -115,3 +115,19 @@ def test_cluster_without_dask_names_the_extra(parts, tmp_path):
     assert done.returncode == 2, done.stderr
     assert done.stderr.startswith("error: ") and "pip install 'remnant[dask]'" in done.stderr
     assert "Traceback" not in done.stderr and not (tmp_path / "c.chain").exists()
+
+
+def test_cluster_data_paths(parts, tmp_path):
+    pytest.importorskip("dask.dataframe")
+    from stages.files.recipe_cluster import read_cluster_data
+
+    for i in range(2):
+        parts.iloc[i * 200:(i + 1) * 200].to_csv(tmp_path / f"rows{i}.csv", index=False)
+    assert len(read_cluster_data("rows*.csv")) == 400  # a CSV glob
+    assert len(read_cluster_data("parts")) == len(parts)  # a folder of Parquet files
+    assert len(read_cluster_data("parts/part1.parquet")) == len(parts.iloc[np.array_split(np.arange(len(parts)), 3)[1]])
+    with pytest.raises(RecipeError, match="nothing.csv: no such file"):
+        read_cluster_data("nothing.csv")
+    (tmp_path / "notes.txt").write_text("x")
+    with pytest.raises(RecipeError, match="a cluster reads Parquet files"):
+        read_cluster_data("notes.txt")

@@ -24,6 +24,7 @@ from stages.bridges.cluster_chain import ClusterChain  # noqa: E402
 from stages.bridges.cluster_fit import bin_codes, bin_edges, cluster_booster_params, fit_on_rows  # noqa: E402
 from stages.bridges.cluster_rows import VALID, in_sample, part_codes  # noqa: E402
 from stages.errors import ChainStateError  # noqa: E402
+from stages.files.recipe import parse_recipe  # noqa: E402
 from stages.kinds import get_kind  # noqa: E402
 from stages.spec import StageSpec  # noqa: E402
 
@@ -48,7 +49,7 @@ def friedman() -> pd.DataFrame:
 def client():
     from distributed import Client, LocalCluster
 
-    with LocalCluster(n_workers=2, threads_per_worker=1, processes=False, dashboard_address=None) as cluster, \
+    with LocalCluster(n_workers=2, threads_per_worker=1, processes=False, dashboard_address=":0") as cluster, \
             Client(cluster) as client:
         yield client
 
@@ -145,6 +146,9 @@ def test_step_back_trim_drop_and_undo_work_on_the_cluster_chain(friedman, client
     counts, edges = chain.histogram()
     assert counts["train"].sum() == chain.layout.n_train and counts["valid"].sum() == chain.layout.n_valid
     assert len(edges) == len(counts["valid"]) + 1
+    recipe = parse_recipe(chain.to_recipe())  # the recipe says where the rows were sampled from
+    assert recipe.cluster is not None and recipe.cluster.sample_rows == SAMPLE_ROWS
+    assert [spec.kind for spec, _ in recipe.stages] == ["mean"]
 
 
 def test_what_a_cluster_cannot_serve_says_so(friedman, client):

@@ -31,7 +31,7 @@ def test_a_worker_lost_mid_stage_leaves_the_chain_whole(tmp_path):
     X, y = make_friedman1(n_samples=6000, n_features=5, noise=1.0, random_state=0)  # Friedman (1991), via scikit-learn
     frame = pd.DataFrame(X, columns=[f"x{i}" for i in range(5)])
     frame["y"] = y
-    with LocalCluster(n_workers=3, threads_per_worker=1, dashboard_address=None, memory_limit=0) as cluster, \
+    with LocalCluster(n_workers=3, threads_per_worker=1, dashboard_address=":0", memory_limit=0) as cluster, \
             Client(cluster) as client:
         chain = stages.Chain.from_dask(dd.from_pandas(frame, npartitions=6), "y", client=client, sample_rows=1000)
         chain.add("mean")

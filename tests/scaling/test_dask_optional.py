@@ -49,7 +49,7 @@ def test_a_chain_fit_on_a_cluster_loads_and_predicts_without_dask(tmp_path):
     rng = np.random.RandomState(0)
     frame = pd.DataFrame(rng.rand(400, 3), columns=["a", "b", "c"])
     frame["y"] = frame["a"] * 2 + rng.rand(400)
-    with LocalCluster(n_workers=1, threads_per_worker=1, processes=False, dashboard_address=None) as cluster, \
+    with LocalCluster(n_workers=1, threads_per_worker=1, processes=False, dashboard_address=":0") as cluster, \
             Client(cluster) as client:
         chain = stages.Chain.from_dask(dd.from_pandas(frame, npartitions=2), "y", client=client)
         chain.add("mean")
