@@ -166,10 +166,10 @@ class Chain:
         return chain
 
     @classmethod
-    def from_dask(cls, frame: Any, target: str, validation: ValidationSpec | None = None, loss: str | None = None,
-                  *, client: Any, **kwargs: Any) -> Chain:
+    def from_dask(cls, frame: Any, target: str, validation: ValidationSpec | None = None, client: Any = None,
+                  loss: str | None = None, **kwargs: Any) -> Chain:
         """Return a chain over the Dask DataFrame ``frame`` whose rows and cached outputs stay on the
-        cluster of ``client`` (see stages.bridges.cluster_chain; Dask is needed only here)."""
+        cluster of ``client`` (default: Dask's current client); see stages.bridges.cluster_chain."""
         from .bridges.cluster_chain import ClusterChain
 
         return ClusterChain(frame, target, validation, loss, client=client, **kwargs)

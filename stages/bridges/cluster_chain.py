@@ -73,11 +73,13 @@ class ClusterChain(Chain):
     """
 
     def __init__(self, frame: Any, target: str, validation: ValidationSpec | None = None, loss: str | None = None,
-                 *, client: Any, seed: int = 0, ignore: tuple[str, ...] | list[str] = (),
+                 *, client: Any = None, seed: int = 0, ignore: tuple[str, ...] | list[str] = (),
                  features: list[str] | None = None, sample_rows: int = DEFAULT_SAMPLE_ROWS,
                  row_id: str | None = None, source: str = "frame",
                  data_path: str | os.PathLike | None = None) -> None:
         require_dask()
+        if client is None:
+            client = _current_client()
         self.validation = validation if validation is not None else Holdout()
         if not isinstance(self.validation, Holdout | AllRows):
             raise ValidationSpecError(f"a chain on a Dask cluster is validated by a holdout for now, not by "
@@ -203,6 +205,11 @@ class ClusterChain(Chain):
         return predict_partitions(self.fitted(), frame)
 
     # ----- what needs the rows on this machine ---------------------------------------------------------
+    @property
+    def split(self) -> Any:  # type: ignore[override]
+        """Raise ChainStateError: the positions of every part's rows would come to this machine."""
+        raise not_served("the positions of each part's rows (split)")
+
     def residuals(self, *args: Any, **kwargs: Any) -> np.ndarray:
         """Raise ChainStateError: residuals of every row would come to this machine."""
         raise not_served("residuals row by row")
@@ -274,6 +281,15 @@ class ClusterChain(Chain):
     def restore(self, *args: Any, **kwargs: Any) -> None:
         """Raise ChainStateError."""
         raise not_served("sessions")
+
+
+def _current_client() -> Any:
+    from distributed import default_client
+
+    try:
+        return default_client()
+    except ValueError:
+        raise ChainStateError("a chain on a Dask cluster needs a client: pass client=distributed.Client(...)") from None
 
 
 def _sample_note(stage: Stage) -> str:

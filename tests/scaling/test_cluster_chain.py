@@ -55,8 +55,9 @@ def client():
 
 
 def cluster_chain(frame: pd.DataFrame, client, partitions: int = 3) -> ClusterChain:
-    chain = stages.Chain.from_dask(dd.from_pandas(frame, npartitions=partitions), "y", stages.Holdout(0.2, seed=SPLIT_SEED),
-                                   client=client, seed=SEED, features=FEATURES, sample_rows=SAMPLE_ROWS)
+    ddf = dd.from_pandas(frame, npartitions=partitions)  # the contract's order: (ddf, target, validation, client)
+    chain = stages.Chain.from_dask(ddf, "y", stages.Holdout(0.2, seed=SPLIT_SEED), client,
+                                   seed=SEED, features=FEATURES, sample_rows=SAMPLE_ROWS)
     assert isinstance(chain, ClusterChain)
     return chain
 
@@ -155,5 +156,7 @@ def test_what_a_cluster_cannot_serve_says_so(friedman, client):
     chain = cluster_chain(friedman, client)
     with pytest.raises(ChainStateError, match="cannot serve residual scans yet"):
         chain.residual_scan()
+    with pytest.raises(ChainStateError, match="cannot serve the positions"):
+        _ = chain.split.train
     with pytest.raises(ChainStateError, match="cannot serve auditions yet"):
         chain.audition([StageSpec("tree")])
