@@ -95,7 +95,7 @@ def fit(recipe: Path, out: Path, cluster: str | None) -> dict[str, float]:
     if done.returncode or not figures or figures[0].split()[1] != "0":
         raise SystemExit(f"remnant fit failed:\n{done.stderr[-3000:]}")
     _, _, seconds, peak = figures[0].split()
-    table = [line for line in done.stdout.splitlines() if not line.startswith("FIGURES")]
+    table = [line for line in done.stdout.splitlines() if not line.startswith(("FIGURES", "[LightGBM]"))]
     print("\n".join(table[:8]))
     return {"seconds": float(seconds), "peak_bytes": float(peak)}
 
@@ -110,6 +110,7 @@ def main() -> None:
     parser.add_argument("--part-rows", type=int, default=1_000_000)
     parser.add_argument("--quick", action="store_true", help="400,000 rows, 100,000 in memory")
     parser.add_argument("--folder", help="keep the data here (default: a temporary folder)")
+    parser.add_argument("--cluster-only", action="store_true", help="skip the in-memory fit")
     args = parser.parse_args()
     if args.quick:
         args.rows, args.memory_rows, args.part_rows = 400_000, 100_000, 100_000
@@ -123,7 +124,8 @@ def main() -> None:
         (root / "cluster.toml").write_text(RECIPE.format(path=parts.as_posix()))
         (root / "memory.toml").write_text(RECIPE.format(path=(first / "part0000.parquet").as_posix()))
         on_cluster = fit(root / "cluster.toml", root / "cluster.chain", f"local:{args.workers}")
-        in_memory = fit(root / "memory.toml", root / "memory.chain", None)
+        in_memory = {"seconds": float("nan"), "peak_bytes": float("nan")} if args.cluster_only else \
+            fit(root / "memory.toml", root / "memory.chain", None)
     scaled = in_memory["seconds"] * args.rows / args.memory_rows
     figures = {
         "machine": common.machine() if hasattr(common, "machine") else os.uname().machine,

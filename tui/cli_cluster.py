@@ -9,7 +9,10 @@ Without Dask installed, ``--cluster`` is an error naming the extra to install.
 from __future__ import annotations
 
 import argparse
+import os
 import sys
+import threading
+from pathlib import Path
 from typing import Any
 
 
@@ -23,7 +26,8 @@ def cluster_address(args: argparse.Namespace, recipe: Any = None) -> str | None:
 
 def fit_on_cluster(args: argparse.Namespace, recipe: Any, address: str) -> Any:
     """Return the recipe's chain fit on the cluster at ``address`` and saved to ``--out``."""
-    from stages.files.recipe_cluster import check_address, cluster_client, fit_recipe_on_cluster
+    from stages.bridges.cluster_data import cluster_client
+    from stages.cluster_address import check_address
 
     from .cli import Progress, _one_line
 
@@ -44,9 +48,10 @@ def fit_on_cluster(args: argparse.Namespace, recipe: Any, address: str) -> Any:
 
 def predict_on_cluster(args: argparse.Namespace, address: str) -> int:
     """Write the predictions of every row of DATA as Parquet parts in the new folder ``--out``; return 0."""
+    from stages.bridges.cluster_data import cluster_client, read_cluster_data
     from stages.bridges.cluster_predict import write_predictions
+    from stages.cluster_address import check_address
     from stages.files import store
-    from stages.files.recipe_cluster import check_address, cluster_client, read_cluster_data
 
     from .cli import UsageError, _key
 
@@ -61,6 +66,36 @@ def predict_on_cluster(args: argparse.Namespace, address: str) -> int:
         parts = write_predictions(fitted, frame, args.out, row_id=args.id or None)
     print(f"wrote {parts} Parquet part(s) to {args.out}", file=sys.stderr)
     return 0
+
+
+def fit_recipe_on_cluster(recipe: Any, client: Any, data: str | os.PathLike | None = None, *,
+                          cancel: threading.Event | None = None, progress: Any = None) -> Any:
+    """Return the recipe's chain fit over the cluster of ``client`` (``data`` replaces its data path)."""
+    from stages.bridges.cluster_chain import ClusterChain
+    from stages.bridges.cluster_data import read_cluster_data
+    from stages.errors import RecipeError, ValidationSpecError
+    from stages.files.recipe_cluster import ClusterSettings
+    from stages.files.recipe_steps import replay
+
+    settings = recipe.cluster or ClusterSettings()
+    if recipe.task not in (None, "regression") or recipe.dates:
+        what = "date features" if recipe.dates else f"task {recipe.task!r}"
+        raise RecipeError(f"{recipe.where('data')}: a chain on a cluster fits numeric regression for now, "
+                          f"not {what}")
+    source = data if data is not None else recipe.data_path
+    if source is None:
+        raise RecipeError(f"{recipe.where('data')}: [data] has no 'path' (name the data there or pass --data)")
+    frame = read_cluster_data(source, settings.partition_rows)
+    try:
+        chain = ClusterChain(frame, recipe.target, recipe.validation, recipe.loss, client=client, seed=recipe.seed,
+                             ignore=recipe.ignore, features=None if recipe.features is None else list(recipe.features),
+                             sample_rows=settings.sample_rows, source=Path(os.fspath(source)).name,
+                             data_path=source)
+    except ValidationSpecError as err:
+        raise RecipeError(f"{recipe.where('validation')}: {err}") from None
+    chain.cluster_settings = settings
+    replay(chain, recipe, cancel=cancel, progress=progress)
+    return chain
 
 
 def _quiet_lightgbm() -> None:

@@ -45,6 +45,8 @@ from .cluster_rows import (
     require_dask,
 )
 
+#: rows of the sample a chain file keeps as its probe (as stages.files.store keeps)
+PROBE_ROWS = 64
 log = logging.getLogger(f"remnant.{__name__}")
 PART_CODES = {"train": TRAIN, "valid": VALID, "test": TEST}
 
@@ -90,10 +92,7 @@ class ClusterChain(Chain):
         self.schema = numeric_schema(frame._meta, target, features, self.ignore)
         self.loss = get_loss("squared", "regression")
         self.client, self.sample_rows, self.row_id = client, int(sample_rows), row_id
-        from ..files.recipe_cluster import ClusterSettings
-
-        # the recipe's [cluster] table, written back by to_recipe
-        self.cluster_settings = ClusterSettings(sample_rows=self.sample_rows)
+        self.cluster_settings: Any = None  # the recipe's [cluster] table when a recipe built the chain
         fraction = getattr(self.validation, "fraction", 0.0)
         test_fraction = getattr(self.validation, "test_fraction", 0.0)
         self.rows: ClusterRows = build_rows(frame, self.schema, fraction=fraction, test_fraction=test_fraction,
@@ -190,13 +189,11 @@ class ClusterChain(Chain):
         counts = dask.compute(*(da.histogram(r, bins=edges)[0] for r in residual.values()))
         return dict(zip(parts, (np.asarray(c) for c in counts), strict=True)), edges
 
-    def save(self, path: str | os.PathLike) -> None:
-        """Write the chain file at ``path`` (atomically): the format of an in-memory fit, read back by
-        ``stages.load`` without Dask; its probe rows are the first fitting rows of the sample."""
-        from ..files.store import PROBE_ROWS, save_fitted
-
-        probe = np.array(self.sample[0][:PROBE_ROWS], dtype=np.float64)
-        save_fitted(self.fitted(), path, probe, None)
+    def probe_rows(self) -> np.ndarray:
+        """Return the probe rows a saved chain file keeps (the first rows of the sample): ``save`` writes
+        the format of an in-memory fit, read back by ``stages.load`` without Dask, with no data
+        fingerprint (hashing every row in data order would pull them here)."""
+        return np.array(self.sample[0][:PROBE_ROWS], dtype=np.float64)
 
     def predict_dask(self, frame: Any) -> Any:
         """Return the chain's predictions for a Dask DataFrame, a Dask Series over its partitions."""

@@ -32,7 +32,7 @@ from ..parsing import ENTRY_KEYS, shown
 from ..row_weights import GIVEN
 from ..spec import StageSpec
 from ..validation import Holdout, ValidationSpec
-from .recipe_cluster import ClusterSettings, parse_cluster
+from .recipe_cluster import ClusterSettings, cluster_of, parse_cluster
 from .recipe_steps import Audition, parse_auditions, replay
 from .toml_text import KeyLines, toml_key, toml_value
 
@@ -368,7 +368,7 @@ def recipe_of_chain(chain: Chain) -> Recipe:
         features=None if chain.prepared.features_inferred else tuple(schema.names), task=schema.task,
         positive=schema.positive_class, loss=chain.loss.name, seed=chain.seed, threshold=chain.threshold,
         dates=tuple(schema.dates().items()), weight=rows.get("weight"), exposure=rows.get("exposure"),
-        power=rows.get("power"), cluster=getattr(chain, "cluster_settings", None),
+        power=rows.get("power"), cluster=cluster_of(chain),
     )
 
 

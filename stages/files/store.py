@@ -88,7 +88,9 @@ def save(chain: Chain | FittedChain, path: str | os.PathLike) -> None:
 
     probe: np.ndarray | None
     fingerprint: dict[str, Any] | None
-    if isinstance(chain, LiveChain):
+    if isinstance(chain, LiveChain) and hasattr(chain, "probe_rows"):  # rows elsewhere (a Dask cluster)
+        fitted, probe, fingerprint = chain.fitted(), chain.probe_rows(), None
+    elif isinstance(chain, LiveChain):
         fitted = chain.fitted()
         probe = np.array(chain.matrix[: min(PROBE_ROWS, chain.layout.n_train)], dtype=np.float64)
         fingerprint = data_fingerprint(chain.matrix, chain.y, chain.layout.order)

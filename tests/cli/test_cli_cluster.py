@@ -119,7 +119,7 @@ def test_cluster_without_dask_names_the_extra(parts, tmp_path):
 
 def test_cluster_data_paths(parts, tmp_path):
     pytest.importorskip("dask.dataframe")
-    from stages.files.recipe_cluster import read_cluster_data
+    from stages.bridges.cluster_data import read_cluster_data
 
     for i in range(2):
         parts.iloc[i * 200:(i + 1) * 200].to_csv(tmp_path / f"rows{i}.csv", index=False)

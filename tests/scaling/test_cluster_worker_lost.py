@@ -17,7 +17,7 @@ import pandas as pd  # noqa: E402
 from sklearn.datasets import make_friedman1  # noqa: E402
 
 import stages  # noqa: E402
-from stages.chain_state import same_stream, stream_state  # noqa: E402
+from stages.chain_state import same_stream  # noqa: E402
 from stages.errors import StageFitError  # noqa: E402
 
 
@@ -35,7 +35,7 @@ def test_a_worker_lost_mid_stage_leaves_the_chain_whole(tmp_path):
             Client(cluster) as client:
         chain = stages.Chain.from_dask(dd.from_pandas(frame, npartitions=6), "y", client=client, sample_rows=1000)
         chain.add("mean")
-        scores, stream = chain.scores(), stream_state(chain._rngs[0])
+        scores, stream = chain.scores(), chain.state().streams[0]
         outcome: dict[str, object] = {}
 
         def fit() -> None:
@@ -59,7 +59,7 @@ def test_a_worker_lost_mid_stage_leaves_the_chain_whole(tmp_path):
         if "error" in outcome:
             assert "stage 2 (lightgbm)" in str(outcome["error"])
             assert len(chain) == 1 and chain.scores() == scores
-            assert same_stream(stream_state(chain._rngs[0]), stream)
+            assert same_stream(chain.state().streams[0], stream)
         else:
             assert outcome == {"done": True} and len(chain) == 2
         chain.save(tmp_path / "after.chain")
