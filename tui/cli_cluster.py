@@ -78,8 +78,12 @@ def fit_recipe_on_cluster(recipe: Any, client: Any, data: str | os.PathLike | No
     from stages.files.recipe_steps import replay
 
     settings = recipe.cluster or ClusterSettings()
-    if recipe.task not in (None, "regression") or recipe.dates:
-        what = "date features" if recipe.dates else f"task {recipe.task!r}"
+    unserved = [what for what, asked in (("date features", recipe.dates), ("row weights", recipe.weight),
+                                         ("an exposure", recipe.exposure),
+                                         (f"task {recipe.task!r}", recipe.task not in (None, "regression")))
+                if asked]
+    if unserved:
+        what = unserved[0]
         raise RecipeError(f"{recipe.where('data')}: a chain on a cluster fits numeric regression for now, "
                           f"not {what}")
     source = data if data is not None else recipe.data_path

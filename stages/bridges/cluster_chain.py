@@ -111,6 +111,7 @@ class ClusterChain(Chain):
         self.threshold, self.source = 0.5, source
         self.data_path = None if data_path is None else os.fspath(data_path)
         self.weight = self.offset = None
+        self.weight_column = self.exposure_column = None  # row weights and exposure: not on a cluster yet
         self._stages: tuple[Stage, ...] = ()
         self._scores: list[Scores] = []
         self._removals = []
