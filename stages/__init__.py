@@ -14,6 +14,15 @@ The Python facade::
 
 from __future__ import annotations
 
+import os
+
+# OpenMP's waiting threads (LightGBM's, scikit-learn's) spin by default; on a machine where another
+# process holds a core, spinning threads stall one another and a LightGBM fit takes many times as
+# long. Sleeping waits cost nothing measurable on an idle machine. The variable is read once, when
+# the first OpenMP runtime starts, so it is set before anything here imports LightGBM or
+# scikit-learn; a user's own setting wins.
+os.environ.setdefault("OMP_WAIT_POLICY", "PASSIVE")
+
 import logging
 from typing import Any
 

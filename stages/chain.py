@@ -32,6 +32,7 @@ from .predictor import FittedChain, FittedStage
 from .row_weights import column_name, read_row_values
 from .scoring import Scores
 from .spec import StageSpec
+from .threads import check_threads
 from .tracks import build_layout, check_classes_fit
 from .validation import Holdout, Part, TimeOrder, ValidationSpec
 
@@ -68,6 +69,10 @@ class Chain:
         enters each row's raw score, so the chain models the target per unit of exposure.
     power : float, optional
         The tweedie loss's power, strictly between 1 and 2 (default 1.5).
+    threads : int, optional
+        The threads a learner uses when its own ``n_jobs`` / ``num_threads`` is unset; default the
+        cores this process may use (``stages.threads.usable_cores``: CPU affinity and cgroup quota).
+        The fitted stages do not depend on it.
 
     State
     -----
@@ -96,8 +101,10 @@ class Chain:
         weight: Any = None,
         exposure: Any = None,
         power: float | None = None,
+        threads: int | None = None,
     ) -> None:
         seed = whole_value({"seed": seed}, "seed", 0, minimum=0, maximum=MAX_SEED)
+        self.threads = check_threads(threads)
         self.validation = validation if validation is not None else Holdout()
         ignore = tuple(ignore) + tuple(c for c in self.validation.columns_used if c not in ignore)
         ignore = ignore + tuple(c for c in (column_name(weight), column_name(exposure)) if c and c not in ignore)
@@ -332,7 +339,8 @@ class Chain:
 
     # ----- changing -------------------------------------------------------------------------
     def _context(self) -> FitContext:
-        return FitContext(self.matrix, self.y, self.schema, self.layout, self.loss, self._rngs, self.weight)
+        return FitContext(self.matrix, self.y, self.schema, self.layout, self.loss, self._rngs, self.weight,
+                          self.threads)
 
     def _score(self, outputs: tuple[np.ndarray, ...]) -> Scores:
         return scoring.score_state(self.loss, self.layout, self.y, outputs, self.threshold, self.weight)

@@ -70,7 +70,8 @@ class Stage:
 class FitContext:
     """What a stage fit reads from the chain: data, layout, loss, random streams and row weights.
 
-    ``weight`` holds each row's weight in chain order (None: every row counts once).
+    ``weight`` holds each row's weight in chain order (None: every row counts once); ``threads``
+    the threads a learner may use when its own parameters leave them unset (None: the usable cores).
     """
 
     matrix: np.ndarray
@@ -80,6 +81,7 @@ class FitContext:
     loss: Loss
     rngs: list[np.random.RandomState]
     weight: np.ndarray | None = None
+    threads: int | None = None
 
 
 def resolve_features(spec: StageSpec, schema: Schema) -> tuple[int, ...]:
@@ -226,6 +228,7 @@ def _fit_track(ctx, t, kind, spec, params, features, previous, cancel, progress)
         X=feature_rows(ctx.matrix, track.fit, features, n_all), columns=ctx.schema.subset(list(features)),
         residual=squeeze(loss.residual(fit_y, fit_raw, weight)), y=fit_y, raw=squeeze(fit_raw), loss=loss,
         task=ctx.schema.task, random_state=ctx.rngs[t], cancel=cancel, progress=progress, weight=weight,
+        threads=ctx.threads,
     )
     if kind.subsamples and check_subsample(params.get("subsample", 1.0), spec.kind) < 1.0:
         request.in_bag = draw_in_bag(len(fit_y), float(params["subsample"]), ctx.rngs[t])

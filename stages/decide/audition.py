@@ -15,7 +15,6 @@ first candidate that is not really worse than the best.
 from __future__ import annotations
 
 import dataclasses
-import os
 import threading
 from collections.abc import Mapping, Sequence
 from concurrent.futures import ThreadPoolExecutor
@@ -30,11 +29,11 @@ from ..errors import ChainStateError, FitCancelled, RemnantError, StageFitError,
 from ..fitting import FitContext, Stage, fit_stage
 from ..kinds import get_kind
 from ..kinds.base import ProgressFn
-from ..kinds.lightgbm_stage import BoosterKind
 from ..metrics import HIGHER_IS_BETTER
 from ..parsing import MAX_CANDIDATES, expand_grid
 from ..scoring import Scores, fold_spread
 from ..spec import StageSpec
+from ..threads import share
 
 if TYPE_CHECKING:
     from ..chain import Chain
@@ -92,8 +91,8 @@ def audition(chain: Chain, specs: Sequence[StageSpec | Mapping[str, Any]], *, ca
              progress: ProgressFn | None = None, workers: int = 2) -> list[Candidate]:
     """Return one Candidate per spec (grids expanded), each fit on the chain's current residuals.
 
-    The fits run ``workers`` at a time in threads; ``progress`` may be called from any of
-    them. A candidate that fails comes back with its one-line ``error``; when every one
+    The fits run ``workers`` at a time in threads (never more than the chain's threads), each learner
+    on its share of the chain's threads; ``progress`` may be called from any of them. A candidate that fails comes back with its one-line ``error``; when every one
     fails, StageFitError is raised. Cancelling raises FitCancelled. The chain is never changed.
     """
     expanded = [one for spec in specs for one in expand_grid(spec)]
@@ -107,10 +106,11 @@ def audition(chain: Chain, specs: Sequence[StageSpec | Mapping[str, Any]], *, ca
         raise StageSpecError(f"workers must be a whole number of at least 1, not {workers!r}")
     state = chain.state()
     report = _Progress(progress, len(expanded))
-    workers = min(workers, len(expanded))
+    # workers times each learner's threads never above the chain's threads (the usable cores)
+    workers, per_worker = share(chain.threads, min(workers, len(expanded)))
 
     def fit_one(i: int) -> Stage | str:
-        return _fit_candidate(chain, expanded[i], state, workers, cancel, report.part(i, expanded[i].kind))
+        return _fit_candidate(chain, expanded[i], state, per_worker, cancel, report.part(i, expanded[i].kind))
 
     with ThreadPoolExecutor(max_workers=workers, thread_name_prefix="audition") as pool:
         futures = [pool.submit(fit_one, i) for i in range(len(expanded))]
@@ -122,13 +122,14 @@ def audition(chain: Chain, specs: Sequence[StageSpec | Mapping[str, Any]], *, ca
     return _candidates(chain, expanded, outcomes, state.scores, state.stages)
 
 
-def _fit_candidate(chain: Chain, spec: StageSpec, state: ChainState, workers: int, cancel: threading.Event | None,
+def _fit_candidate(chain: Chain, spec: StageSpec, state: ChainState, threads: int, cancel: threading.Event | None,
                    progress: ProgressFn | None) -> Stage | str:
-    """Return ``spec`` fit from copies of the random streams of ``state``, or its one-line error;
-    FitCancelled propagates."""
-    ctx = FitContext(chain.matrix, chain.y, chain.schema, chain.layout, chain.loss, state.new_streams(), chain.weight)
+    """Return ``spec`` fit on ``threads`` threads from copies of the random streams of ``state``, or
+    its one-line error; FitCancelled propagates."""
+    ctx = FitContext(chain.matrix, chain.y, chain.schema, chain.layout, chain.loss, state.new_streams(), chain.weight,
+                     threads)
     try:
-        stage = fit_stage(ctx, _with_thread_share(spec, chain.task, workers), state.outputs,
+        stage = fit_stage(ctx, _within_share(spec, chain.task, threads), state.outputs,
                           number=len(state.stages) + 1, cancel=cancel, progress=progress)
     except FitCancelled:
         raise
@@ -138,30 +139,26 @@ def _fit_candidate(chain: Chain, spec: StageSpec, state: ChainState, workers: in
     return dataclasses.replace(stage, spec=spec, params=get_kind(spec.kind).resolve_params(spec.params, chain.task))
 
 
-def _cores() -> int:
-    try:
-        return len(os.sched_getaffinity(0))
-    except (AttributeError, OSError):
-        return os.cpu_count() or 1
+#: each kind's thread parameter, by the name its resolved parameters use
+_THREAD_PARAMS = {"lightgbm": "num_threads", "hist_tree": "num_threads", "forest": "n_jobs", "extra_trees": "n_jobs"}
 
 
-def _with_thread_share(spec: StageSpec, task: str, workers: int) -> StageSpec:
-    """Return ``spec`` with LightGBM limited to its share of the cores, when the user left its threads unset.
+def _within_share(spec: StageSpec, task: str, per_worker: int) -> StageSpec:
+    """Return ``spec`` with a thread count the user set above ``per_worker`` (or all cores, -1) lowered to it.
 
-    Each booster otherwise starts one thread per core, so ``workers`` concurrent boosters
-    oversubscribe the cores and OpenMP's spin-waiting barriers stall; LightGBM's thread count
-    is also one process-wide setting, which concurrent boosters must agree on. The share is
-    applied only with ``deterministic`` on, under which the booster does not depend on its
-    thread count, so the kept stage equals one fit by ``chain.add`` with default threads.
+    A learner whose threads are unset takes the candidate's share through its fit context; one the
+    user gave more threads would make the candidates together oversubscribe the cores. LightGBM
+    with ``deterministic`` and scikit-learn's forests (whose trees' seeds are drawn before any is
+    grown) fit the same model on any thread count, so the kept stage equals one ``chain.add`` fits.
     """
-    kind = get_kind(spec.kind)
-    if workers < 2 or not isinstance(kind, BoosterKind):
+    name = _THREAD_PARAMS.get(spec.kind)
+    if name is None:
         return spec
-    resolved = kind.resolve_params(spec.params, task)
-    if resolved.get("num_threads") not in (0, None) or not resolved.get("deterministic"):
+    value = get_kind(spec.kind).resolve_params(spec.params, task).get(name)
+    if value in (None, 0) or (isinstance(value, int) and 0 < value <= per_worker):
         return spec
     params = {k: v for k, v in spec.params.items() if k not in ("n_jobs", "num_threads")}
-    params["num_threads"] = max(1, _cores() // workers)
+    params[name] = per_worker
     return dataclasses.replace(spec, params=params)
 
 

@@ -31,6 +31,7 @@ from ..limits import MAX_NESTING, MAX_SEED, MAX_STAGES
 from ..parsing import ENTRY_KEYS, shown
 from ..row_weights import GIVEN
 from ..spec import StageSpec
+from ..threads import check_threads
 from ..validation import Holdout, ValidationSpec
 from .recipe_cluster import ClusterSettings, cluster_of, parse_cluster
 from .recipe_steps import Audition, parse_auditions, replay
@@ -43,7 +44,7 @@ if TYPE_CHECKING:
 
 TABLES = ("data", "chain", "validation", "stage", "audition", "cluster")
 DATA_KEYS = ("path", "target", "ignore", "features", "task", "positive", "dates", "weight", "exposure")
-CHAIN_KEYS = ("loss", "seed", "threshold", "power")
+CHAIN_KEYS = ("loss", "seed", "threshold", "power", "threads")
 MAX_RECIPE_BYTES = 16 * 1024**2
 _SHOWN_TABLES = "[data], [chain], [validation], [[stage]], [[audition]], [cluster]"
 
@@ -64,6 +65,7 @@ class Recipe:
     loss: str | None = None
     seed: int = 0
     threshold: float = 0.5
+    threads: int | None = None                                # None: the usable cores
     source: str = "recipe"
     lines: KeyLines | None = field(default=None, compare=False, repr=False)
     patience: dict[int, int] = field(default_factory=dict)   # stage entry -> patience (grow)
@@ -146,6 +148,10 @@ def parse_recipe(text: str, base_dir: str | os.PathLike = ".", source: str = "re
     if not 0 < threshold < 1:
         raise reader.fail(f"threshold must be between 0 and 1, not {threshold:g}", "chain", 0, "threshold")
     power = reader.power(chain, loss)
+    try:
+        threads = check_threads(chain.get("threads"))
+    except StageSpecError as err:
+        raise reader.fail(str(err), "chain", 0, "threads") from None
     table = reader.table(doc, "validation")
     with reader.at("validation"):
         validation = parsing.validation_spec(table, seed=seed)
@@ -157,8 +163,8 @@ def parse_recipe(text: str, base_dir: str | os.PathLike = ".", source: str = "re
                                 settings["task"])
     cluster = parse_cluster(doc.get("cluster"), lambda problem, key: reader.fail(problem, "cluster", 0, key))
     return Recipe(validation=validation, stages=tuple((e.spec, e.repeat) for e in entries), loss=loss, seed=seed,
-                  threshold=threshold, power=power, source=source, lines=probe.lines, auditions=auditions,
-                  cluster=cluster,
+                  threshold=threshold, power=power, threads=threads, source=source, lines=probe.lines,
+                  auditions=auditions, cluster=cluster,
                   patience={i: e.patience for i, e in enumerate(entries) if e.patience is not None}, **settings)
 
 
@@ -308,7 +314,8 @@ def recipe_to_toml(recipe: Recipe, base_dir: str | os.PathLike | None = None) ->
     out += _pairs({k: v for k, v in data.items() if v is not None and v != []})
     out += ["", "[chain]"]
     chain = {"loss": recipe.loss, "seed": recipe.seed, "threshold": recipe.threshold if binary else None,
-             "power": recipe.power if recipe.loss == "tweedie" else None}
+             "power": recipe.power if recipe.loss == "tweedie" else None,
+             "threads": recipe.threads}
     out += _pairs({k: v for k, v in chain.items() if v is not None})
     validation = recipe.validation.to_dict()
     if not binary and validation.get("stratify") is True:
@@ -368,7 +375,7 @@ def recipe_of_chain(chain: Chain) -> Recipe:
         features=None if chain.prepared.features_inferred else tuple(schema.names), task=schema.task,
         positive=schema.positive_class, loss=chain.loss.name, seed=chain.seed, threshold=chain.threshold,
         dates=tuple(schema.dates().items()), weight=rows.get("weight"), exposure=rows.get("exposure"),
-        power=rows.get("power"), cluster=cluster_of(chain),
+        power=rows.get("power"), threads=chain.threads, cluster=cluster_of(chain),
     )
 
 
@@ -410,7 +417,7 @@ def build_chain(recipe: Recipe, data: str | os.PathLike | pd.DataFrame | None = 
                       ignore=recipe.ignore, features=None if recipe.features is None else list(recipe.features),
                       task=recipe.task, positive=recipe.positive, threshold=recipe.threshold, source=name,
                       data_path=data_path, dates={column: list(parts) for column, parts in recipe.dates},
-                      weight=recipe.weight, exposure=recipe.exposure, power=recipe.power)
+                      weight=recipe.weight, exposure=recipe.exposure, power=recipe.power, threads=recipe.threads)
     except ValidationSpecError as err:
         raise RecipeError(f"{recipe.where('validation')}: {err}") from None
     except StageSpecError as err:

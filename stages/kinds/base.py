@@ -50,6 +50,15 @@ class FitRequest:
     notes: list[str] = field(default_factory=list)
     #: each fitting row's weight, None when every row counts once
     weight: np.ndarray | None = None
+    #: the threads the learner may use when its own thread parameter is unset (None: the usable cores)
+    threads: int | None = None
+
+    @property
+    def thread_count(self) -> int:
+        """Return the threads the learner uses when its parameters leave them unset (``stages.threads``)."""
+        from ..threads import resolve
+
+        return resolve(self.threads)
 
     @property
     def outputs(self) -> int:
@@ -76,7 +85,7 @@ class FitRequest:
         return FitRequest(
             X=self.X[rows], columns=self.columns, residual=self.residual[rows], y=self.y[rows],
             raw=self.raw[rows], loss=self.loss, task=self.task, random_state=self.random_state,
-            cancel=self.cancel, weight=None if self.weight is None else self.weight[rows],
+            cancel=self.cancel, weight=None if self.weight is None else self.weight[rows], threads=self.threads,
         )
 
     def for_output(self, k: int) -> FitRequest:
@@ -92,7 +101,7 @@ class FitRequest:
             X=self.X, columns=self.columns, residual=np.ascontiguousarray(self.residual[:, k]),
             y=(np.asarray(self.y) == k).astype(np.float64), raw=np.ascontiguousarray(self.raw[:, k]),
             loss=self.loss.for_output(k), task=self.task, random_state=self.random_state, cancel=self.cancel,
-            progress=None, in_bag=self.in_bag, notes=self.notes, weight=self.weight,
+            progress=None, in_bag=self.in_bag, notes=self.notes, weight=self.weight, threads=self.threads,
         )
 
 

@@ -87,7 +87,14 @@ class ForestKind(StageKind):
         check_has_features(request.X, self.name)
         request.check_cancel()
         forest = self.estimator_class()(random_state=request.random_state, **params)
+        if params.get("n_jobs") is None:
+            # unset: grown on the chain's threads; scikit-learn draws every tree's seed before it
+            # grows any, so the trees do not depend on the thread count. Predicting stays on one
+            # thread: a threaded forest sums its trees in the order they finish, which moves the
+            # last bit of a prediction from run to run.
+            forest.set_params(n_jobs=request.thread_count)
         grow_in_batches(forest, request)
+        forest.set_params(n_jobs=params.get("n_jobs"))
         return forest
 
     def step_source(self, params: dict[str, Any]) -> str:

@@ -147,7 +147,8 @@ def _round_callback(request: FitRequest, rounds: int):
 
 
 def booster_params(request: FitRequest, params: dict[str, Any], seed: int) -> dict[str, Any]:
-    """Return the parameters for ``lightgbm.train``: the stage's, the loss's objective and the seed."""
+    """Return the parameters for ``lightgbm.train``: the stage's, the loss's objective, the seed, and the
+    request's threads when the stage leaves ``num_threads`` unset."""
     out = {k: v for k, v in params.items() if k not in STAGE_NAMES and v is not None}
     out["objective"] = request.loss.lightgbm_objective
     out.update(request.loss.lightgbm_params())
@@ -157,6 +158,8 @@ def booster_params(request: FitRequest, params: dict[str, Any], seed: int) -> di
         out["num_class"] = request.outputs
     if out.get("force_col_wise"):
         out["force_row_wise"] = False
+    if out.get("num_threads") in (0, None):  # unset: the chain's threads, not every core of the machine
+        out["num_threads"] = request.thread_count
     out["seed"] = seed
     return out
 

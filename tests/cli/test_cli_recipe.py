@@ -94,7 +94,7 @@ BAD = [
      "unknown key 'shrinkge' in [[stage]] (keys: kind, shrinkage, features, params, repeat, patience)"),
     ('kind = "tree"', 'kind = "treee"', "unknown stage kind 'treee'"),
     ("max_depth = 2", "max_dept = 2", "kind 'tree' has no parameter 'max_dept'"),
-    ("seed = 3", "sed = 3", "unknown key 'sed' in [chain] (keys: loss, seed, threshold, power)"),
+    ("seed = 3", "sed = 3", "unknown key 'sed' in [chain] (keys: loss, seed, threshold, power, threads)"),
     ("fraction = 0.25", "folds = 3", "validation scheme 'holdout' has no key 'folds'; accepted keys: scheme,"),
     ("fraction = 0.25", "fraction = 1.5", "validation fraction must be in (0, 1), got 1.5"),
     ('scheme = "holdout"', 'scheme = "bootstrap"', "unknown validation scheme 'bootstrap'; accepted schemes:"),
