@@ -33,6 +33,7 @@ from .row_weights import column_name, read_row_values
 from .scoring import Scores
 from .spec import StageSpec
 from .threads import check_threads
+from .threads import resolve as resolve_threads
 from .tracks import build_layout, check_classes_fit
 from .validation import Holdout, Part, TimeOrder, ValidationSpec
 
@@ -339,8 +340,9 @@ class Chain:
 
     # ----- changing -------------------------------------------------------------------------
     def _context(self) -> FitContext:
+        # the usable cores read once a fit, not once a stage
         return FitContext(self.matrix, self.y, self.schema, self.layout, self.loss, self._rngs, self.weight,
-                          self.threads)
+                          resolve_threads(self.threads))
 
     def _score(self, outputs: tuple[np.ndarray, ...]) -> Scores:
         return scoring.score_state(self.loss, self.layout, self.y, outputs, self.threshold, self.weight)

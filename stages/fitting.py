@@ -22,6 +22,7 @@ from .losses import Loss
 from .outputs import block, squeeze
 from .schema import Schema
 from .spec import StageSpec
+from .track_output import track_prediction
 from .tracks import Layout
 
 log = logging.getLogger(f"remnant.{__name__}")
@@ -241,9 +242,8 @@ def _fit_track(ctx, t, kind, spec, params, features, previous, cancel, progress)
     if kind.refines_leaves:
         kind.refine(learner, request)
     request.check_cancel()
-    rows = feature_rows(ctx.matrix, slice(0, track.n_rows), features, n_all)
     try:
-        output = block(learner.predict(rows), track.n_rows, loss.outputs)
+        output = block(track_prediction(learner, ctx.matrix, track, features, n_all), track.n_rows, loss.outputs)
     except ValueError as exc:
         raise StageFitError(str(exc)) from None
     bad = int(np.count_nonzero(~np.isfinite(output)))

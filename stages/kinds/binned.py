@@ -34,10 +34,15 @@ class BinnedData:
 
     dataset: Any
     lock: threading.Lock = field(default_factory=threading.Lock)
+    #: the booster later stages grow one round each on (``one_round.Grower``), None until one does
+    grower: Any = None
 
     def with_target(self, label: np.ndarray, init_score: np.ndarray, weight: np.ndarray | None = None) -> Any:
         """Return the binned dataset with this fit's label, offset ((n, K) for K raw scores) and row
-        weights set (the rows of one matrix are one chain's, whose weights every stage shares)."""
+        weights set (the rows of one matrix are one chain's, whose weights every stage shares).
+
+        A booster kept on the dataset read the label it had, so it goes."""
+        self.grower = None
         self.dataset.set_label(label)
         self.dataset.set_init_score(init_score)
         if weight is not None:

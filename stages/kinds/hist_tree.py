@@ -14,8 +14,9 @@ from __future__ import annotations
 from typing import Any, ClassVar
 
 from . import register
-from .base import FitRequest, check_subsample
+from .base import Artifact, FitRequest, check_subsample
 from .lightgbm_stage import MAX_LEAVES, BoosterKind, BoosterLearner, train_booster
+from .one_tree import read_tree
 
 
 def default_leaves(max_depth: int | None) -> int:
@@ -65,7 +66,16 @@ class HistTreeKind(BoosterKind):
             # LightGBM damps Poisson leaves (curvature taken at exp(F + 0.7)); it needs a step above 0,
             # and 1e-12 gives Newton leaves to a relative 1e-12
             native.setdefault("poisson_max_delta_step", 1e-12)
-        return train_booster(request, native, self.name, reuse_bins=True)
+        learner = train_booster(request, native, self.name, reuse_bins=True)
+        if learner.tree is None:
+            learner.tree = read_tree(learner.booster.model_to_string())
+        return learner
+
+    def load(self, artifact: Artifact) -> BoosterLearner:
+        """Return the stage's booster stored in ``artifact``, its tree read for predicting in numpy."""
+        learner = super().load(artifact)
+        learner.tree = read_tree(learner.booster.model_to_string())
+        return learner
 
 
 register(HistTreeKind())

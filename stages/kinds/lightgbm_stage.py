@@ -23,7 +23,7 @@ import numpy as np
 
 from ..errors import ChainFileError, StageFitError, StageSpecError
 from ..lightgbm_text import check_model_text, quiet_native_log
-from . import register
+from . import one_round, register
 from .base import Artifact, FitRequest, StageKind, check_has_features
 from .binned import BIN_SEED, binned
 
@@ -87,9 +87,15 @@ class BoosterLearner:
     importance_type: str = "gain"
     held_out: np.ndarray | None = None
     params: dict[str, Any] = field(default_factory=dict)
+    #: the booster's one tree read for predicting in numpy (``one_tree.OneTree``; the same bits), or None
+    tree: Any = None
+    #: the prediction on the rows it was fit on, known from the fit (read once by ``track_output``), or None
+    fit_values: np.ndarray | None = None
 
     def predict(self, X: np.ndarray) -> np.ndarray:
         """Return the booster's raw score for every row of ``X`` (its best iteration after early stopping)."""
+        if self.tree is not None and isinstance(X, np.ndarray) and X.dtype == np.float64:
+            return self.tree.predict(X)
         return np.asarray(self.booster.predict(X, raw_score=True), dtype=np.float64)
 
     @property
@@ -197,6 +203,12 @@ def train_booster(request: FitRequest, params: dict[str, Any], kind: str, *, reu
         shared = binned(request.X, categorical, native)
     callbacks = [_round_callback(request, rounds)]
     with shared.lock if shared is not None else contextlib.nullcontext():
+        if shared is not None and one_round.can_grow(request, native, rounds):
+            grown = one_round.grow_round(shared, request, native)
+            if grown is not None:
+                booster, tree, on_fit_rows = grown
+                return BoosterLearner(booster, importance_type=params.get("importance_type", "gain"), params=native,
+                                      tree=tree, fit_values=on_fit_rows)
         if shared is None:
             train_set = dataset(fit_rows if request.in_bag is None else np.flatnonzero(request.in_bag))
         else:

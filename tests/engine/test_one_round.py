@@ -1,0 +1,122 @@
+"""Many hist_tree stages grown as rounds of one kept booster, and predicted in numpy: the same bits as a
+fresh one-round LightGBM fit per stage, and as LightGBM's own boosting of the same trees."""
+
+from __future__ import annotations
+
+import lightgbm
+import numpy as np
+import pytest
+
+import stages
+from stages.kinds import one_round
+from stages.kinds.one_tree import OneTree, read_tree
+
+
+def _chain(frame, fast, monkeypatch, validation=None, repeat=25, params=None):
+    with monkeypatch.context() as patch:
+        if not fast:
+            patch.setattr(one_round, "can_grow", lambda *args: False)
+        chain = stages.Chain(frame, "target", validation or stages.Holdout(fraction=0.25, seed=0), seed=5)
+        chain.add("hist_tree", 0.1, params=params or {"max_depth": 3}, repeat=repeat)
+    return chain
+
+
+def _texts(chain):
+    return [s.learners[0].booster.model_to_string() for s in chain.stages]
+
+
+@pytest.mark.parametrize("validation", [stages.Holdout(fraction=0.25, seed=0), stages.KFold(folds=3, seed=0),
+                                        stages.AllRows()])
+def test_kept_booster_stages_equal_fresh_one_round_fits(diabetes_frame, monkeypatch, validation):
+    fresh = _chain(diabetes_frame, False, monkeypatch, validation, repeat=10)
+    kept = _chain(diabetes_frame, True, monkeypatch, validation, repeat=10)
+    for a, b in zip(fresh.stages, kept.stages, strict=True):
+        for x, y in zip(a.outputs, b.outputs, strict=True):
+            assert np.array_equal(x, y)
+    assert _texts(fresh) == _texts(kept)          # the saved model text too, byte for byte
+    assert fresh.table().drop(columns="seconds").equals(kept.table().drop(columns="seconds"))
+
+
+def test_the_kept_booster_is_used(diabetes_frame, monkeypatch):
+    calls = []
+    real = one_round.grow_round
+    monkeypatch.setattr(one_round, "grow_round", lambda *a: calls.append(1) or real(*a))
+    _chain(diabetes_frame, True, monkeypatch, repeat=5)
+    assert len(calls) == 5
+
+
+def test_a_chain_of_hist_tree_stages_is_lightgbms_own_boosting(diabetes_frame, monkeypatch):
+    # LightGBM boosting 40 rounds at learning rate 0.1 from the same start (init_score) grows the
+    # same trees: its training score (init + each shrunk tree, in order) is the chain's output
+    chain = _chain(diabetes_frame, True, monkeypatch, stages.AllRows(), repeat=40)
+    native = chain.stages[0].learners[0].params
+    settings = {k: v for k, v in native.items() if k not in ("seed",)}
+    start = np.full(len(chain.y), chain.starts[0][0])
+    train = lightgbm.Dataset(chain.matrix, chain.y, init_score=start, params=settings)
+    booster = lightgbm.train({**settings, "learning_rate": 0.1}, train, num_boost_round=40, keep_training_booster=True)
+    assert np.array_equal(one_round.training_score(booster), chain.outputs()[0][:, 0])
+
+
+@pytest.mark.parametrize("params", [{"max_depth": 3, "subsample": 0.5}, {"max_depth": 2, "colsample_bytree": 0.5},
+                                    {"max_depth": 3, "extra_trees": True}])
+def test_stages_that_draw_at_random_keep_the_one_round_fit(diabetes_frame, monkeypatch, params):
+    calls = []
+    monkeypatch.setattr(one_round, "grow_round", lambda *a: calls.append(1))
+    _chain(diabetes_frame, True, monkeypatch, repeat=2, params=params)
+    assert calls == []
+
+
+def test_other_losses_keep_the_one_round_fit(cancer_frame, monkeypatch):
+    calls = []
+    monkeypatch.setattr(one_round, "grow_round", lambda *a: calls.append(1))
+    chain = stages.Chain(cancer_frame, "target", seed=0)
+    chain.add("hist_tree", 0.5, repeat=2)
+    assert calls == []
+
+
+def _tree_data(seed=0, n=3000):
+    rng = np.random.RandomState(seed)
+    X = rng.normal(size=(n, 4))
+    X[rng.rand(n) < 0.1, 0] = np.nan
+    X[rng.rand(n) < 0.2, 1] = 0.0
+    X[rng.rand(n) < 0.05, 1] = 1e-40          # read as zero by LightGBM
+    X[rng.rand(n) < 0.1, 2] = np.nan
+    y = np.nan_to_num(X[:, 0]) * 2 + (X[:, 1] == 0) * 1.5 + np.nan_to_num(X[:, 2]) + rng.normal(size=n) * 0.1
+    return X, y
+
+
+@pytest.mark.parametrize("settings", [{}, {"zero_as_missing": True}, {"use_missing": False}, {"max_depth": 6}])
+def test_numpy_prediction_is_lightgbms_to_the_bit(settings):
+    X, y = _tree_data()
+    params = {"verbosity": -1, "num_leaves": 31, "min_data_in_leaf": 5, "deterministic": True, **settings}
+    booster = lightgbm.train(params, lightgbm.Dataset(X, y), num_boost_round=1)
+    tree = read_tree(booster.model_to_string())
+    assert isinstance(tree, OneTree)
+    other, _ = _tree_data(seed=1)              # rows the tree never saw, NaN and zeros included
+    for rows in (X, other, other[::3]):
+        assert np.array_equal(tree.predict(rows), booster.predict(rows, raw_score=True))
+
+
+def test_trees_numpy_cannot_read_keep_lightgbms_predict():
+    rng = np.random.RandomState(0)
+    X = np.column_stack([rng.randint(0, 5, size=500), rng.normal(size=500)]).astype(float)
+    y = X[:, 0] + rng.normal(size=500)
+    categorical = lightgbm.train({"verbosity": -1}, lightgbm.Dataset(X, y, categorical_feature=[0]), 1)
+    assert read_tree(categorical.model_to_string()) is None
+    two = lightgbm.train({"verbosity": -1}, lightgbm.Dataset(X, y), 2)
+    assert read_tree(two.model_to_string()) is None
+
+
+def test_leaf_values_too_close_to_tell_apart_are_predicted_instead(monkeypatch):
+    grower = one_round.Grower.__new__(one_round.Grower)
+    grower.score = np.array([1e6, 1e6, 0.0])
+    leaves = np.array([0.5, 0.5 + 1e-12])
+    tree = OneTree(np.zeros(1, dtype=np.int64), np.zeros(1), np.zeros(1, dtype=np.int64), np.array([-1]),
+                   np.array([-2]), leaves, 1)
+    monkeypatch.setattr(one_round, "training_score", lambda booster: grower.score + np.array([0.5, 0.5, 0.5]))
+    grower.booster = None
+    assert grower.tree_values(tree) is None
+    grower.score = np.array([1.0, 2.0, 0.0])
+    far = OneTree(tree.feature, tree.threshold, tree.decision, tree.left, tree.right, np.array([0.5, 0.75]), 1)
+    monkeypatch.setattr(one_round, "training_score", lambda booster: np.array([1.5, 2.75, 0.5]))
+    assert np.array_equal(grower.tree_values(far), [0.5, 0.75, 0.5])
