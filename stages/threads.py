@@ -13,6 +13,7 @@ OpenMP's waiting threads spin by default; ``stages/__init__.py`` asks for sleepi
 
 from __future__ import annotations
 
+import functools
 import math
 import os
 from pathlib import Path
@@ -79,11 +80,17 @@ def _ratio(quota: str, period: str) -> float | None:
     return q / p if q > 0 and p > 0 else None
 
 
+@functools.lru_cache(maxsize=1)
+def _own_quota() -> float | None:
+    # a process's cgroup quota is set from outside and rarely changes: read it once, not once a stage
+    return quota_cores()
+
+
 def usable_cores() -> int:
     """Return the cores this process may use: its CPU affinity, capped by its cgroup's CPU quota
-    (rounded up: a quota of 1.5 cores keeps two threads busy), at least 1."""
+    (read once per process; rounded up: a quota of 1.5 cores keeps two threads busy), at least 1."""
     cores = _affinity_cores()
-    quota = quota_cores()
+    quota = _own_quota()
     if quota is not None:
         cores = min(cores, max(1, math.ceil(quota)))
     return max(1, cores)

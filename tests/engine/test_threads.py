@@ -77,11 +77,11 @@ def test_the_cgroup_quota_is_read_as_cores(tmp_path, files, cores):
 
 def test_usable_cores_are_capped_by_the_quota_rounded_up(monkeypatch):
     monkeypatch.setattr(threads, "_affinity_cores", lambda: 8)
-    monkeypatch.setattr(threads, "quota_cores", lambda: 2.5)
+    monkeypatch.setattr(threads, "_own_quota", lambda: 2.5)
     assert threads.usable_cores() == 3
-    monkeypatch.setattr(threads, "quota_cores", lambda: 0.2)
+    monkeypatch.setattr(threads, "_own_quota", lambda: 0.2)
     assert threads.usable_cores() == 1
-    monkeypatch.setattr(threads, "quota_cores", lambda: None)
+    monkeypatch.setattr(threads, "_own_quota", lambda: None)
     assert threads.usable_cores() == 8
 
 
