@@ -35,6 +35,7 @@ SUITE: dict[str, tuple[list[str], list[str]]] = {
     "hist_tree": ([], ["--rows", "200000"]),
     "big": ([], ["--rows", "500000"]),
     "audition": ([], ["--rows", "20000", "--repeats", "1"]),
+    "many_stages": ([], ["--rows", "20000", "--repeats", "1", "--tree-rows", "5000"]),
     "ui_latency": ([], ["--rows", "100000", "--rounds", "50"]),
     "understand": ([], ["--rows", "200000", "--sample", "50000"]),
     "onnx_predict": ([], ["--rows", "100000", "--fit-rows", "20000", "--repeats", "2"]),

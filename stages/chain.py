@@ -16,7 +16,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from . import parts, scoring
+from . import checkpoints, parts, scoring
 from .chain_state import ChainState, Removal, StreamState, same_stream, seeded_streams, stream_state
 from .data import Prepared, Task, load_frame, prepare
 from .errors import ChainStateError, RemnantError, StageSpecError
@@ -106,6 +106,8 @@ class Chain:
     ) -> None:
         seed = whole_value({"seed": seed}, "seed", 0, minimum=0, maximum=MAX_SEED)
         self.threads = check_threads(threads)
+        #: a stage's outputs are kept when its position is a multiple of this (``stages.checkpoints``)
+        self.checkpoint_every = checkpoints.CHECKPOINT_EVERY
         self.validation = validation if validation is not None else Holdout()
         ignore = tuple(ignore) + tuple(c for c in self.validation.columns_used if c not in ignore)
         ignore = ignore + tuple(c for c in (column_name(weight), column_name(exposure)) if c and c not in ignore)
@@ -368,7 +370,13 @@ class Chain:
         self._stages = (*self._stages, *stages)
         for stage in stages:
             self._scores.append(self._score(stage.outputs))
+        self._thin()
         self._relock()
+
+    def _thin(self) -> None:
+        """Keep the outputs of the last two stages and of every checkpoint; the others are rebuilt when read."""
+        checkpoints.thin(self._stages, self._start_outputs, self.matrix, self.layout, len(self.schema.columns),
+                         self.loss.outputs, self.checkpoint_every)
 
     def _truncate(self, keep: int) -> None:
         """Keep the first ``keep`` stages and their scores."""
@@ -506,6 +514,7 @@ class Chain:
             removal = self._removals.pop()
             self._stages = removal.stages
             self._scores = list(removal.scores)
+            self._thin()
             if self._stages:
                 self._restore_streams(self._stages[-1].rng_after)
             else:
@@ -632,6 +641,7 @@ class Chain:
             self._stages = tuple(stages)
             self._scores = [score(s) for s in self._stages]
             self._removals = [Removal(action, tuple(kept), tuple(score(s) for s in kept)) for action, kept in removals]
+            self._thin()
             self._restore_streams(streams)
             self._relock()
             if revealed and self.layout.n_test:
