@@ -89,12 +89,12 @@ class ForestKind(StageKind):
         forest = self.estimator_class()(random_state=request.random_state, **params)
         if params.get("n_jobs") is None:
             # unset: grown on the chain's threads; scikit-learn draws every tree's seed before it
-            # grows any, so the trees do not depend on the thread count. Predicting stays on one
-            # thread: a threaded forest sums its trees in the order they finish, which moves the
-            # last bit of a prediction from run to run.
+            # grows any, so the trees do not depend on the thread count
             forest.set_params(n_jobs=request.thread_count)
         grow_in_batches(forest, request)
-        forest.set_params(n_jobs=params.get("n_jobs"))
+        # predicting stays on one thread: a threaded forest sums its trees in the order they finish,
+        # which moves the last bit of a prediction from call to call (a rebuilt output, a session's check)
+        forest.set_params(n_jobs=None)
         return forest
 
     def step_source(self, params: dict[str, Any]) -> str:
