@@ -149,6 +149,8 @@ class Chain:
         self._stages: tuple[Stage, ...] = ()
         self._scores: list[Scores] = []
         self._removals: list[Removal] = []
+        # the scores of stages fitted by the sequence in progress, by id, until they are committed
+        self._fresh_scores: dict[int, Scores] = {}
         self._rngs = seeded_streams(self.seed, len(self.layout.tracks))
         self._lock = threading.RLock()
         self.starts = tuple(
@@ -355,28 +357,36 @@ class Chain:
         fitted: list[Stage] = []
         state = [rng.get_state() for rng in self._rngs]
         try:
+            prefix = self._stages[: first_number - 1]
             for i, spec in enumerate(specs):
                 stage = fit_stage(ctx, spec, previous, number=first_number + i, cancel=cancel,
                                   progress=_sub_progress(progress, i, len(specs)))
                 fitted.append(stage)
                 previous = stage.outputs
+                # scored and thinned as they come, so a long sequence never holds every stage's outputs
+                self._fresh_scores[id(stage)] = self._score(stage.outputs)
+                self._thin((*prefix, *fitted))
         except BaseException:
             for rng, saved in zip(self._rngs, state, strict=True):
                 rng.set_state(saved)
+            self._fresh_scores.clear()
             raise
         return fitted
 
     def _commit(self, stages: list[Stage]) -> None:
         self._stages = (*self._stages, *stages)
         for stage in stages:
-            self._scores.append(self._score(stage.outputs))
+            fresh = self._fresh_scores.pop(id(stage), None)
+            self._scores.append(fresh if fresh is not None else self._score(stage.outputs))
+        self._fresh_scores.clear()
         self._thin()
         self._relock()
 
-    def _thin(self) -> None:
-        """Keep the outputs of the last two stages and of every checkpoint; the others are rebuilt when read."""
-        checkpoints.thin(self._stages, self._start_outputs, self.matrix, self.layout, len(self.schema.columns),
-                         self.loss.outputs, self.checkpoint_every)
+    def _thin(self, stages: tuple[Stage, ...] | None = None) -> None:
+        """Keep the outputs of the last two stages and of every checkpoint of ``stages`` (default: the
+        chain's); the others are rebuilt when read."""
+        checkpoints.thin(self._stages if stages is None else stages, self._start_outputs, self.matrix, self.layout,
+                         len(self.schema.columns), self.loss.outputs, self.checkpoint_every)
 
     def _truncate(self, keep: int) -> None:
         """Keep the first ``keep`` stages and their scores."""
