@@ -108,6 +108,7 @@ class Chain:
         self.threads = check_threads(threads)
         #: a stage's outputs are kept when its position is a multiple of this (``stages.checkpoints``)
         self.checkpoint_every = checkpoints.CHECKPOINT_EVERY
+        self._rebuilt = checkpoints.RebuiltCache()
         self.validation = validation if validation is not None else Holdout()
         ignore = tuple(ignore) + tuple(c for c in self.validation.columns_used if c not in ignore)
         ignore = ignore + tuple(c for c in (column_name(weight), column_name(exposure)) if c and c not in ignore)
@@ -386,7 +387,7 @@ class Chain:
         """Keep the outputs of the last two stages and of every checkpoint of ``stages`` (default: the
         chain's); the others are rebuilt when read."""
         checkpoints.thin(self._stages if stages is None else stages, self._start_outputs, self.matrix, self.layout,
-                         len(self.schema.columns), self.loss.outputs, self.checkpoint_every)
+                         len(self.schema.columns), self.loss.outputs, self.checkpoint_every, self._rebuilt)
 
     def _truncate(self, keep: int) -> None:
         """Keep the first ``keep`` stages and their scores."""

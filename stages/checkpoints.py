@@ -31,9 +31,35 @@ CHECKPOINT_EVERY = 10
 #: how many rebuilt outputs are kept, most recent first
 REBUILT_KEPT = 2
 
-# keyed by the object itself (held here), never by an id another object could take over
-_REBUILT: OrderedDict[Any, tuple[np.ndarray, ...]] = OrderedDict()
-_LOCK = threading.Lock()
+class RebuiltCache:
+    """The outputs a chain rebuilt last (at most REBUILT_KEPT), so reading stages in order rebuilds each
+    once; one per chain, so it goes with the chain."""
+
+    def __init__(self) -> None:
+        # keyed by the lazy outputs themselves (held here), never by an id another object could take over
+        self.arrays: OrderedDict[Any, tuple[np.ndarray, ...]] = OrderedDict()
+        self.lock = threading.Lock()
+
+    def get(self, lazy: Any) -> tuple[np.ndarray, ...] | None:
+        """Return the rebuilt outputs of ``lazy``, or None when they are not kept."""
+        with self.lock:
+            found = self.arrays.get(lazy)
+            if found is not None:
+                self.arrays.move_to_end(lazy)
+            return found
+
+    def put(self, lazy: Any, arrays: tuple[np.ndarray, ...]) -> None:
+        """Keep ``arrays`` as the latest rebuild, letting go of the oldest beyond REBUILT_KEPT; return None."""
+        with self.lock:
+            self.arrays[lazy] = arrays
+            self.arrays.move_to_end(lazy)
+            while len(self.arrays) > REBUILT_KEPT:
+                self.arrays.popitem(last=False)
+
+    def clear(self) -> None:
+        """Let go of every rebuilt output; return None."""
+        with self.lock:
+            self.arrays.clear()
 
 
 class RebuiltOutputs(Sequence):
@@ -42,23 +68,21 @@ class RebuiltOutputs(Sequence):
     __hash__ = object.__hash__   # one stage's outputs: equal only to themselves
 
     def __init__(self, stage: Any, previous: Any, start: tuple[np.ndarray, ...], matrix: np.ndarray,
-                 layout: Layout, n_features: int, outputs: int) -> None:
-        self.stage, self.previous, self.start = stage, previous, start
+                 layout: Layout, n_features: int, outputs: int, cache: RebuiltCache) -> None:
+        self.stage, self.previous, self.start, self.cache = stage, previous, start, cache
         self.matrix, self.layout, self.n_features, self.outputs = matrix, layout, n_features, outputs
         self.n_tracks = len(layout.tracks)
 
     def arrays(self) -> tuple[np.ndarray, ...]:
         """Return the outputs, rebuilt (or the copy rebuilt last)."""
-        with _LOCK:
-            found = _REBUILT.get(self)
-            if found is not None:
-                _REBUILT.move_to_end(self)
-                return found
+        found = self.cache.get(self)
+        if found is not None:
+            return found
         # walk back to kept outputs, then predict forward: iterative, so no recursion depth limit
         pending = [self]
         before = self.previous
         while before is not None and isinstance(before.outputs, RebuiltOutputs):
-            cached = _cached(before.outputs)
+            cached = before.outputs.cache.get(before.outputs)
             if cached is not None:
                 base = cached
                 break
@@ -68,7 +92,7 @@ class RebuiltOutputs(Sequence):
             base = self.start if before is None else before.outputs
         for lazy in reversed(pending):
             base = lazy._forward(base)
-            _remember(lazy, base)
+            lazy.cache.put(lazy, base)
         return base
 
     def _forward(self, before: tuple[np.ndarray, ...]) -> tuple[np.ndarray, ...]:
@@ -97,41 +121,23 @@ class RebuiltOutputs(Sequence):
         return iter(self.arrays())
 
 
-def _cached(lazy: RebuiltOutputs) -> tuple[np.ndarray, ...] | None:
-    with _LOCK:
-        return _REBUILT.get(lazy)
-
-
-def _remember(lazy: RebuiltOutputs, arrays: tuple[np.ndarray, ...]) -> None:
-    with _LOCK:
-        _REBUILT[lazy] = arrays
-        _REBUILT.move_to_end(lazy)
-        while len(_REBUILT) > REBUILT_KEPT:
-            _REBUILT.popitem(last=False)
-
-
 def kept(position: int, n_stages: int, every: int = CHECKPOINT_EVERY) -> bool:
     """Return True when the stage at ``position`` (1-based) of a chain of ``n_stages`` keeps its outputs."""
     return position >= n_stages - 1 or position % every == 0
 
 
 def thin(stages: Sequence[Any], start: tuple[np.ndarray, ...], matrix: np.ndarray, layout: Layout,
-         n_features: int, outputs: int, every: int = CHECKPOINT_EVERY) -> None:
+         n_features: int, outputs: int, every: int = CHECKPOINT_EVERY, cache: RebuiltCache | None = None) -> None:
     """Let go of the outputs of the stages that keep none (``kept``), to be rebuilt when read; return None.
 
     A stage whose outputs are let go of keeps a reference to the stage before it, whose own outputs
     (kept or rebuilt) it is predicted from. Outputs already let go of stay so.
     """
+    cache = RebuiltCache() if cache is None else cache
     for i, stage in enumerate(stages):
         if kept(i + 1, len(stages), every) or isinstance(stage.outputs, RebuiltOutputs):
             continue
         previous = stages[i - 1] if i else None
         # the stage is immutable to its readers; only how its outputs are held changes, not their values
         object.__setattr__(stage, "outputs", RebuiltOutputs(stage, previous, start, matrix, layout, n_features,
-                                                            outputs))
-
-
-def forget_rebuilt() -> None:
-    """Let go of the outputs kept from the last rebuilds (frees their memory)."""
-    with _LOCK:
-        _REBUILT.clear()
+                                                            outputs, cache))
