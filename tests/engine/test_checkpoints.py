@@ -32,7 +32,6 @@ def _chain(frame, every, validation):
 
 
 def _all_outputs(chain):
-    chain._rebuilt.clear()
     return [tuple(np.array(o) for o in chain.outputs(row)) for row in range(len(chain) + 1)]
 
 
