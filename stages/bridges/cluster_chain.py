@@ -114,7 +114,10 @@ class ClusterChain(Chain):
         self.weight_column = self.exposure_column = None  # row weights and exposure: not on a cluster yet
         self._stages: tuple[Stage, ...] = ()
         self._scores: list[Scores] = []
+        self._fresh_scores: dict[int, Scores] = {}
         self._removals = []
+        # the workers' own cores: this machine's thread setting is not theirs to take
+        self.threads = None
         self._rngs = seeded_streams(self.seed, 1)
         self._lock = threading.RLock()
         start = float(self.rows.part_rows(self.rows.y, TRAIN).mean().compute())
@@ -148,6 +151,10 @@ class ClusterChain(Chain):
         if progress is not None:
             progress(1.0, "done")
         return fitted
+
+    def _thin(self, stages: tuple[Stage, ...] | None = None) -> None:
+        """Keep every stage's outputs: they are persisted on the workers, not in this process, and a
+        rebuild would have to predict every partition again."""
 
     def _score(self, outputs: tuple[Any, ...]) -> Scores:
         stats = part_sums(self.rows, outputs[0], float(self.starts[0][0]) if hasattr(self, "starts") else 0.0)
