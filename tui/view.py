@@ -167,12 +167,14 @@ class ImportanceCache:
         return self._values[stage]
 
 
-def _sizes(rows: dict[str, int], kfold: str = "", revealed: bool = False) -> str:
+def _sizes(rows: dict[str, int], kfold: str = "", revealed: bool = False, live: bool = False) -> str:
     text = f"{rows.get('train', 0):,} train · {rows.get('valid', 0):,} valid"
     if kfold:
         text = f"{rows.get('train', 0):,} train, scored out of fold"
     if rows.get("test"):
         text += f" · {rows['test']:,} test {'revealed' if revealed else 'locked'}"
+        if live and not revealed:
+            text += " (r reveals it)"
     return text
 
 
@@ -199,7 +201,7 @@ def view_of_chain(chain: Chain, cache: ImportanceCache) -> ChainView:
     return ChainView(
         source=chain.source, target=chain.schema.target, task=chain.task, loss=chain.loss.name,
         metric=table.metric, second=table.second, validation=chain.validation.describe(),
-        sizes=_sizes(described["rows"], kfold, chain.test_revealed), start_value=float(chain.starts[0][0]),
+        sizes=_sizes(described["rows"], kfold, chain.test_revealed, live=True), start_value=float(chain.starts[0][0]),
         rows=table.rows, stages=tuple(infos), features=tuple(names),
         notes=tuple(chain.notes), classes=tuple(chain.schema.classes), has_test=layout.n_test > 0,
         n_test=layout.n_test,

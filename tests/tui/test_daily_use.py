@@ -527,3 +527,19 @@ async def test_the_readme_key_table_the_help_and_the_footer_agree(tmp_path):
     missing = {k for k in workbench if k not in documented and k not in ("f1", "esc", "home", "end")}
     assert not missing, missing                          # the README names every key of these screens
     assert {"ctrl+s", "p", "z", "w", "ctrl+q"} <= helped
+
+
+def test_every_footer_entry_fits_in_80_columns_at_once():
+    # the footer shows each key as "k desc" with one column between entries (Textual's compact Footer,
+    # measured from FooterKey regions); a terminal of 80 columns must show them all, "q quit" included.
+    # cancel shows only while a fit runs, when the keys that change the chain are hidden.
+    from tui.app import RemnantApp
+
+    changes = {"add_stage", "drop_stage", "trim", "undo", "audition", "grow"}
+    shown = [b for b in WorkbenchScreen.BINDINGS + RemnantApp.BINDINGS if b.show and b.description]
+    idle = [b for b in shown if b.action != "cancel_fit"]
+    fitting = [b for b in shown if b.action not in changes]
+    for entries in (idle, fitting):
+        width = sum(len(b.key.split(",")[0].replace("question_mark", "?")) + 1 + len(b.description)
+                    for b in entries) + len(entries) - 1
+        assert width <= 80, [b.description for b in entries]

@@ -73,7 +73,7 @@ class WorkbenchScreen(PaneActions, NextStageActions, Screen):
         Binding("n", "audition", "audition", tooltip="audition candidate next stages side by side, keep one"),
         Binding("g", "grow", "grow", tooltip="grow stages of one kind until validation stops improving"),
         Binding("m", "references", "refs", tooltip="reference models (linear alone, LightGBM) / stage details"),
-        Binding("r", "reveal_test", "reveal", tooltip="reveal the locked test part (the chain and the references)"),
+        Binding("r", "reveal_test", "reveal", show=False, tooltip="reveal the locked test part (the chain and the references)"),
         Binding("s", "save_chain", "save", show=False, tooltip="save the chain file"),
         Binding("v", "switch_view", "view", show=False,
                 tooltip="residual pane: histogram, against fitted (probabilities by class), against a feature "
