@@ -49,6 +49,7 @@ class SetupChoices:
     weight: str | None = None       # the column of row weights
     exposure: str | None = None     # the column of exposures (log-link losses)
     power: float | None = None      # the tweedie loss's power
+    features: tuple[str, ...] | None = None  # set when the user made an id column a feature
 
 
 #: during a long job (a recipe, a grow) the session is saved after a stage at most this often, in seconds
@@ -96,6 +97,7 @@ def new_chain(owner: MessagePump, choices: SetupChoices, cache: ImportanceCache)
         choices = held.pop()
         chain = stages.Chain(choices.frame, choices.target, choices.validation, choices.loss, seed=choices.seed,
                              ignore=choices.ignore, source=choices.source, data_path=choices.data_path or None,
+                             features=None if choices.features is None else list(choices.features),
                              dates={k: list(v) for k, v in (choices.dates or {}).items()},
                              weight=choices.weight, exposure=choices.exposure, power=choices.power)
         id_column = chain.schema.id_column

@@ -543,3 +543,32 @@ def test_every_footer_entry_fits_in_80_columns_at_once():
         width = sum(len(b.key.split(",")[0].replace("question_mark", "?")) + 1 + len(b.description)
                     for b in entries) + len(entries) - 1
         assert width <= 80, [b.description for b in entries]
+
+
+async def test_x_on_an_id_column_makes_it_a_feature_and_x_again_an_id(tmp_path):
+    # scikit-learn's diabetes data with whole numbers that rise row by row: the engine reads them as row numbers, an
+    # id (stages.data.infer_role); a user who knows they count visits, a clock that may carry drift, makes them a
+    # feature with x
+    from tui.widgets.column_roles import ColumnRoles
+
+    path = diabetes_csv(tmp_path)
+    frame = pd.read_csv(path)
+    frame.insert(1, "visit_day", 1000 + 3 * np.arange(len(frame)))
+    frame.to_csv(path, index=False)
+    app = setup_app(path)
+    async with app.run_test(size=(100, 30)) as pilot:
+        await settle(pilot)
+        screen = app.screen
+        roles = screen.query_one(ColumnRoles)
+        assert str(roles.get_cell("visit_day", "use")) == "id"
+        await pilot.press("down", "x")  # the second row: visit_day
+        assert screen.included == {"visit_day"} and not screen.excluded
+        assert str(roles.get_cell("visit_day", "use")) == "numeric"
+        await pilot.press("x")
+        assert not screen.included and str(roles.get_cell("visit_day", "use")) == "id"
+        await pilot.press("x")
+        await start_chain(pilot)
+        assert isinstance(app.screen, WorkbenchScreen)
+        chain = app.screen.chain
+        assert "visit_day" in chain.schema.names and len(chain.schema.names) == 11
+        assert chain.schema.id_column == "patient"  # the rows are still named by the other id

@@ -22,7 +22,7 @@ from textual.containers import Horizontal, Vertical
 from textual.screen import Screen
 from textual.widgets import Button, Footer, Input, Label, Select, Static
 
-from stages.data import describe_columns, infer_task
+from stages.data import EXCLUDED, ID, describe_columns, infer_task
 from stages.errors import ValidationSpecError
 from stages.losses import LOG_LINK_NAMES, default_loss, loss_names
 from stages.parsing import validation_spec
@@ -88,6 +88,7 @@ class SetupScreen(Screen):
         self.names = [str(c) for c in frame.columns]
         self.target = target if target in self.names else None
         self.excluded: set[str] = set()
+        self.included: set[str] = set()  # id columns the user made features
         self.dates: dict[str, tuple[str, ...]] = {}
         self.chain_task: Task | None = None
         self.n_classes = 0
@@ -201,8 +202,9 @@ class SetupScreen(Screen):
     def _target_changed(self) -> None:
         roles = self.query_one("#columns", ColumnRoles)
         self.excluded.discard(self.target or "")
+        self.included.discard(self.target or "")
         self.dates.pop(self.target or "", None)
-        roles.show(self.target, self.excluded, self.dates)
+        roles.show(self.target, self.excluded, self.dates, self.included)
         task_label, loss = self.query_one("#task", Label), self.query_one("#loss", Select)
         self.chain_task, self.task_problem = None, ""
         loss.set_options([])
@@ -274,9 +276,15 @@ class SetupScreen(Screen):
         self.query_one("#target", Select).value = event.name
 
     def on_column_roles_exclusion_toggled(self, event: ColumnRoles.ExclusionToggled) -> None:
-        """Exclude the column, or include it again."""
-        self.excluded ^= {event.name}
-        self.query_one("#columns", ColumnRoles).show(self.target, self.excluded)
+        """Exclude the column, or include it again; an id column becomes a feature, or an id again."""
+        report = next((r for r in self.reports or () if r.name == event.name), None)
+        if report is not None and report.role == ID and event.name not in self.excluded:
+            self.included ^= {event.name}
+            now = "a feature" if event.name in self.included else "an id again (not a feature)"
+            self._say(f"column {event.name!r} is {now}")
+        else:
+            self.excluded ^= {event.name}
+        self.query_one("#columns", ColumnRoles).show(self.target, self.excluded, included=self.included)
 
     def on_column_roles_dates_asked(self, event: ColumnRoles.DatesAsked) -> None:
         """Ask which parts of a dates column become features (or say why a column gives none)."""
@@ -333,10 +341,19 @@ class SetupScreen(Screen):
         loss = None if value is Select.NULL else str(value)
         return SetupChoices(
             frame=self.frame, source=self.source, data_path=self.data_path, target=self.target,
-            ignore=tuple(sorted(self.excluded)), loss=loss,
+            ignore=tuple(sorted(self.excluded)), features=self._features(), loss=loss,
             validation=self.validation(), seed=self._number("seed", True),
             dates={k: v for k, v in self.dates.items() if k not in self.excluded}, **self.row_settings(loss),
         )
+
+    def _features(self) -> tuple[str, ...] | None:
+        """Return the feature columns when the user made an id column one (every column the engine
+        would use, then those), else None: the engine's own choice."""
+        if not self.included:
+            return None
+        usual = [r.name for r in self.reports or () if r.role not in (ID, EXCLUDED, DATETIME)
+                 and r.name != self.target and r.name not in self.excluded]
+        return (*usual, *sorted(self.included - self.excluded - {self.target or ""}))
 
     def check_action(self, action: str, parameters: tuple[object, ...]) -> bool | None:
         """Leave ``s`` to a text field that has the cursor (ctrl+s starts from there)."""

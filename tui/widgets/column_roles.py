@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import pandas as pd
 from rich.text import Text
 from textual import events
 from textual.binding import Binding
@@ -19,19 +20,34 @@ USE_WIDTH = 11
 NAME_WIDTH = 18
 
 
-def column_use(report: ColumnReport, target: str | None, excluded: set[str]) -> str:
+def column_use(report: ColumnReport, target: str | None, excluded: set[str],
+               included: set[str] | frozenset[str] = frozenset()) -> str:
     """Return what the chain does with a column: target, excluded (by the user), skipped (by the
     engine), id (names the rows), dates (orders rows, or gives date features), or its role as a
-    feature (numeric, categorical, boolean)."""
+    feature (numeric, categorical, boolean); an id column the user ``included`` is a feature."""
     if report.name == target:
         return "target"
     if report.name in excluded:
         return "excluded"
+    if report.name in included:
+        return feature_role(report.dtype)
     if report.role == EXCLUDED:
         return "skipped"
     if report.role == DATETIME:
         return "dates"
     return report.role
+
+
+def feature_role(dtype: str) -> str:
+    """Return the role a column of ``dtype`` has as a feature the user asked for (as the engine
+    gives a listed feature): boolean, numeric, else categorical."""
+    try:
+        resolved = pd.api.types.pandas_dtype(dtype)
+    except TypeError:
+        return "categorical"
+    if pd.api.types.is_bool_dtype(resolved):
+        return "boolean"
+    return "numeric" if pd.api.types.is_numeric_dtype(resolved) else "categorical"
 
 
 def short(example: str) -> str:
@@ -45,11 +61,13 @@ def short(example: str) -> str:
 
 class ColumnRoles(DataTable):
     """One row per data column with what the chain does with it; ``t`` makes the row the target,
-    ``x`` excludes or includes it, ``f`` picks the date features of a dates column."""
+    ``x`` excludes or includes it (an id column: makes it a feature, or an id again), ``f`` picks the
+    date features of a dates column."""
 
     BINDINGS = [
         Binding("t", "pick_target", "target", tooltip="make the highlighted column the target"),
-        Binding("x", "toggle_exclude", "exclude", tooltip="exclude the highlighted column (x again includes it)"),
+        Binding("x", "toggle_exclude", "exclude", tooltip="exclude the highlighted column (x again includes it); on an id column, "
+                "make it a feature"),
         Binding("f", "date_features", "date features",
                 tooltip="dates column: pick the parts that become features (year, month, day of week, hour, day of year)"),
     ]
@@ -80,6 +98,7 @@ class ColumnRoles(DataTable):
         self.reports = reports or []
         self.target: str | None = None
         self.excluded: set[str] = set()
+        self.included: set[str] = set()
         self.dates: dict[str, tuple[str, ...]] = {}
         self._width = 0
         self._values_width = 20
@@ -114,9 +133,11 @@ class ColumnRoles(DataTable):
         self.move_cursor(row=max(0, row), animate=False)
 
     def _cells(self, report: ColumnReport, name_width: int = NAME_WIDTH) -> list[Text]:
-        use = column_use(report, self.target, self.excluded)
+        use = column_use(report, self.target, self.excluded, self.included)
         style = {"target": "bold reverse", "excluded": "dim strike", "skipped": "dim", ID: "dim"}.get(use, "")
-        if report.role in (EXCLUDED, ID) and report.note:
+        if report.name in self.included:
+            values = "an id by its values, kept as a feature (x: an id again)"
+        elif report.role in (EXCLUDED, ID) and report.note:
             values = report.note
         elif report.name in self.dates:
             values = "features: " + ", ".join(self.dates[report.name])
@@ -131,9 +152,13 @@ class ColumnRoles(DataTable):
             cell.truncate(width, overflow="ellipsis")
         return cells
 
-    def show(self, target: str | None, excluded: set[str], dates: dict[str, tuple[str, ...]] | None = None) -> None:
-        """Show ``target``, the ``excluded`` columns and the chosen date features."""
+    def show(self, target: str | None, excluded: set[str], dates: dict[str, tuple[str, ...]] | None = None,
+             included: set[str] | None = None) -> None:
+        """Show ``target``, the ``excluded`` columns, the chosen date features and the id columns
+        ``included`` as features; return None."""
         self.target, self.excluded = target, set(excluded)
+        if included is not None:
+            self.included = set(included)
         if dates is not None:
             self.dates = dict(dates)
         if not self.reports:
