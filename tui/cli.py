@@ -103,6 +103,9 @@ _EXPORT = """Write a chain file as one ONNX model, with its preprocessing, for a
 The model is checked in onnxruntime against the chain's own predictions on probe
 rows before it is written; the probe rows (inputs and expected outputs) are
 written beside it as OUT.probe.csv, to check the model where it is deployed.
+A chain on the log link gives the mean per unit of exposure; one fit with an
+exposure column takes that column as one more input and gives each row's
+expected total (as remnant predict --exposure COL).
 Needs the optional extra: pip install 'remnant[onnx]'.
 
 example:

@@ -197,3 +197,21 @@ def test_exposure_on_a_chain_not_on_the_log_link_is_a_usage_error(visits, run):
     assert run("fit", "sq.toml", "--out", "sq.chain")[0] == 0
     status, _, err = run("predict", "sq.chain", "visits.csv", "--exposure", "coins")
     assert status == 2 and "--exposure is for chains on the log link" in err
+
+
+def test_remnant_export_of_a_count_chain_takes_the_exposure_and_gives_predicts_totals(visits, run):
+    # the model's exposure input 'coins' multiplies exp(raw), as remnant predict --exposure coins does
+    pytest.importorskip("onnxruntime")
+    import onnxruntime
+
+    assert run("fit", "visits.toml", "--out", "visits.chain")[0] == 0
+    status, out, err = run("export", "visits.chain", "--onnx", "visits.onnx")
+    assert status == 0, err
+    assert "wrote visits.onnx (float64 throughout)" in out
+    assert run("predict", "visits.chain", "visits.csv", "--exposure", "coins", "--out", "totals.csv")[0] == 0
+    rows, totals = pd.read_csv(visits / "visits.csv"), pd.read_csv(visits / "totals.csv")["prediction"]
+    session = onnxruntime.InferenceSession(str(visits / "visits.onnx"), providers=["CPUExecutionProvider"])
+    inputs = {i.name: rows[i.name].to_numpy(np.float64) for i in session.get_inputs()}
+    assert "coins" in inputs and "mdvis" not in inputs and "w" not in inputs
+    (prediction,) = session.run(["prediction"], inputs)
+    assert np.max(np.abs(prediction - totals) / np.maximum(np.abs(totals), 1.0)) <= 1e-9

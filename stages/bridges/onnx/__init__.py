@@ -109,15 +109,16 @@ def export_onnx(fitted: FittedChain, path: str | os.PathLike, *, stored_rows: np
     writing.check_target(probe_target, "the probe file")
     built = chain_graph(fitted)
     model_bytes = built.model.SerializeToString()
-    table_rows = probe.probe_rows(fitted.schema, stored_rows, rows)
+    table_rows = probe.with_exposure(fitted, probe.probe_rows(fitted.schema, stored_rows, rows))
+    exposure = probe.exposure_input(fitted)
     want = probe.expected(fitted, table_rows)
-    got = run_model(model_bytes, probe.feeds(fitted.schema, table_rows))
+    got = run_model(model_bytes, probe.feeds(fitted.schema, table_rows, exposure))
     float32 = built.precision == "float32"
     result = probe.compare(fitted, got, want, float32)
     if not result.passed:
         raise ExportError(_refusal(fitted, table_rows, result, float32))
     buffer = io.StringIO()
-    probe.probe_table(fitted.schema, table_rows, want).to_csv(buffer, index=False)
+    probe.probe_table(fitted.schema, table_rows, want, exposure).to_csv(buffer, index=False)
     writing.write_files({probe_target: ("the probe file", buffer.getvalue().encode("utf-8")),
                          target: ("the ONNX model", model_bytes)})
     import onnxruntime
@@ -166,7 +167,8 @@ def _first_stage_differing(fitted: FittedChain, rows: pd.DataFrame, float32: boo
     from . import probe
     from .compose import chain_graph
 
-    got = run_model(chain_graph(fitted, each_stage=True).model.SerializeToString(), probe.feeds(fitted.schema, rows))
+    got = run_model(chain_graph(fitted, each_stage=True).model.SerializeToString(),
+                    probe.feeds(fitted.schema, rows, probe.exposure_input(fitted)))
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", UnseenLevelsWarning)
         warnings.simplefilter("ignore", UnseenMissingWarning)

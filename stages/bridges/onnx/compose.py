@@ -13,10 +13,11 @@ the same order). A ``Head`` turns the raw score into the model's outputs:
   ``prediction`` the class at the ``ArgMax`` of the probabilities (the first of tied ones, as
   numpy's argmax in ``predict``).
 
-A log-link head slots in later without changing the rest (poisson, gamma, tweedie, and the
-``glm`` kind, whose converter returns its linear predictor): it declares one more double input,
-the exposure, adds ``Log(exposure)`` to the raw score as its offset (``offset``) and outputs
-``Exp(raw)``.
+- ``LogLinkHead`` (poisson, gamma, tweedie; the ``glm`` kind's converter returns its linear
+  predictor like any other stage): ``prediction`` is ``Exp(Min(raw, 700))``, the mean per unit of
+  exposure, as ``predict`` computes it (``loglink.RAW_CEILING``). A chain fit with an exposure
+  column declares one more double input named as that column, and ``prediction`` is the mean
+  times it: each row's expected total, as ``predict(frame, exposure=column)`` gives it.
 """
 
 from __future__ import annotations
@@ -27,6 +28,7 @@ from typing import Any
 import numpy as np
 
 from ...errors import ExportError
+from ...loglink import RAW_CEILING, is_log_link
 from ...predictor import FittedChain, class_label
 from .builder import ML, ML_OPSET, GraphBuilder
 from .columns import SchemaColumns
@@ -48,6 +50,8 @@ class Head:
     """Turns the raw score into the model's outputs; subclasses say which."""
 
     outputs: tuple[Output, ...] = ()
+    #: the inputs the head declares besides the features
+    inputs: tuple[str, ...] = ()
 
     def add_inputs(self, builder: GraphBuilder) -> None:
         """Declare any input the head needs besides the features (none here)."""
@@ -117,6 +121,36 @@ class MulticlassHead(Head):
         builder.add_output(probability, "probability", TensorProto.DOUBLE, ["N", len(self.classes)])
 
 
+class LogLinkHead(Head):
+    """``prediction``: the mean per unit of exposure, exp of the raw score; with an exposure input,
+    times it (each row's expected total)."""
+
+    def __init__(self, exposure: str | None) -> None:
+        self.exposure = exposure
+        self.inputs = (exposure,) if exposure else ()
+        about = ("each row's expected total: the mean per unit of exposure times the exposure input" if exposure
+                 else "the mean per unit of exposure")
+        self.outputs = (Output("prediction", about),)
+
+    def add_inputs(self, builder: GraphBuilder) -> None:
+        """Declare the exposure, [N] doubles, when the chain was fit with an exposure column."""
+        from onnx import TensorProto
+
+        if self.exposure:
+            builder.add_input(self.exposure, TensorProto.DOUBLE, ["N"])
+
+    def finish(self, builder: GraphBuilder, raw: str) -> None:
+        """Output ``prediction``, [N] doubles: exp of the raw score kept below the ceiling ``predict`` keeps it
+        below, times the exposure when there is one."""
+        from onnx import TensorProto
+
+        capped = builder.op("Min", [raw, builder.constant([RAW_CEILING], "raw_ceiling")], "capped")
+        mean = builder.op("Exp", [capped], "mean")
+        if self.exposure:
+            mean = builder.op("Mul", [mean, self.exposure], "expected")
+        builder.add_output(mean, "prediction", TensorProto.DOUBLE, ["N"])
+
+
 def label_constants(classes: tuple[str, ...]) -> tuple[np.ndarray, int]:
     """Return the class labels as ``predict`` gives them (whole numbers, other numbers, or text),
     as an array, and the ONNX element type that holds them."""
@@ -139,9 +173,11 @@ def head_for(fitted: FittedChain) -> Head:
         return BinaryHead(fitted.schema.classes, fitted.threshold)
     if fitted.task == "multiclass" and loss in BINARY_LOSSES and fitted.outputs == len(fitted.schema.classes):
         return MulticlassHead(fitted.schema.classes)
+    if fitted.task == "regression" and is_log_link(fitted.loss) and fitted.outputs == 1:
+        return LogLinkHead(fitted.exposure_column)
     raise ExportError(f"a {fitted.task} chain with loss {loss!r} cannot be exported to ONNX yet "
-                      f"(exported: regression with {', '.join(REGRESSION_LOSSES)}; binary and multiclass "
-                      "with logloss)")
+                      f"(exported: regression with {', '.join(REGRESSION_LOSSES)} and the log-link losses; "
+                      "binary and multiclass with logloss)")
 
 
 @dataclass
@@ -168,6 +204,10 @@ def chain_graph(fitted: FittedChain, *, each_stage: bool = False) -> ChainGraph:
     taken = sorted({o.name for o in head.outputs} & set(names))
     if taken:
         raise ExportError(f"feature {taken[0]!r} has the name of an output of the model; rename the column")
+    clash = sorted(set(head.inputs) & ({o.name for o in head.outputs} | set(names)))
+    if clash:
+        raise ExportError(f"exposure column {clash[0]!r} has the name of a feature or an output of the model; "
+                          "rename the column")
     outputs = [o.name for o in head.outputs] + [f"after_{k}" for k in range(1, len(fitted.stages) + 1) if each_stage]
     if each_stage and set(outputs) & set(names):
         raise ExportError("a feature has the name of a stage's diagnostic output")
@@ -194,6 +234,8 @@ def chain_graph(fitted: FittedChain, *, each_stage: bool = False) -> ChainGraph:
     head.finish(builder, raw)
     metadata = {"remnant_task": fitted.task, "remnant_loss": fitted.loss.name,
                 "remnant_stages": ", ".join(s.kind for s in fitted.stages)}
+    if head.inputs:
+        metadata["remnant_exposure"] = head.inputs[0]
     return ChainGraph(builder.model("a residual chain exported by remnant", metadata), found)
 
 

@@ -91,7 +91,7 @@ def _mean(stage: FittedStage, inputs: StageInputs) -> StageGraph:
     return StageGraph(linear_output(inputs.builder, None, np.zeros(0), stage.learner.value, first))
 
 
-@converts("linear", "ridge", "lasso", "logistic")
+@converts("linear", "ridge", "lasso", "logistic", "glm")
 def _linear(stage: FittedStage, inputs: StageInputs) -> StageGraph:
     model = stage.learner
     columns = inputs.columns.columns(stage.feature_index)

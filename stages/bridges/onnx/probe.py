@@ -26,6 +26,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
+from ...loglink import is_log_link
 from ...predictor import FittedChain, UnseenLevelsWarning, UnseenMissingWarning, probability_columns
 from ...schema import BOOLEAN, CATEGORICAL, Schema
 from .columns import MISSING_TEXT
@@ -37,6 +38,21 @@ RTOL_FLOAT32 = 1e-5
 EDGE_ROWS = 256
 #: the level the edge rows give a categorical feature (made unique against its levels)
 UNSEEN_LEVEL = "(a level never seen)"
+#: the exposures the probe rows of a chain fit with an exposure column get, in turn (small, whole, large)
+EXPOSURES = (1.0, 0.25, 3.0, 12.0, 0.5, 100.0)
+
+
+def exposure_input(fitted: FittedChain) -> str | None:
+    """Return the exposure column a log-link chain's model takes as an input, or None."""
+    return fitted.exposure_column if is_log_link(fitted.loss) else None
+
+
+def with_exposure(fitted: FittedChain, rows: pd.DataFrame) -> pd.DataFrame:
+    """Return ``rows`` with the made-up exposures as the exposure column when the model takes one."""
+    name = exposure_input(fitted)
+    if name is None:
+        return rows
+    return rows.assign(**{name: np.resize(np.asarray(EXPOSURES), len(rows))})
 
 
 # ----------------------------------------------------------------------------- rows
@@ -111,10 +127,12 @@ def _edge_values(col: Any, values: pd.Series) -> list[Any]:
 
 
 # ----------------------------------------------------------------------------- inputs and outputs
-def feeds(schema: Schema, rows: pd.DataFrame) -> dict[str, np.ndarray]:
+def feeds(schema: Schema, rows: pd.DataFrame, exposure: str | None = None) -> dict[str, np.ndarray]:
     """Return the model's inputs for ``rows``: [N] doubles per numeric and boolean feature, strings per
-    categorical one (the empty string for a missing value)."""
+    categorical one (the empty string for a missing value), and the ``exposure`` column's doubles."""
     out: dict[str, np.ndarray] = {}
+    if exposure is not None:
+        out[exposure] = rows[exposure].to_numpy(dtype=np.float64)
     for col in schema.columns:
         values = rows[col.name]
         if col.role == CATEGORICAL:
@@ -130,7 +148,8 @@ def expected(fitted: FittedChain, rows: pd.DataFrame) -> dict[str, np.ndarray]:
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", UnseenLevelsWarning)  # the edge rows hold unseen levels on purpose
         warnings.simplefilter("ignore", UnseenMissingWarning)  # and missing values in every column
-        out = {"prediction": np.asarray(fitted.predict(rows, source="probe rows"))}
+        exposure = exposure_input(fitted)
+        out = {"prediction": np.asarray(fitted.predict(rows, source="probe rows", exposure=exposure))}
         if fitted.task == "binary":
             out["probability"] = fitted.predict_proba(rows, source="probe rows")[:, 1]
         elif fitted.task == "multiclass":
@@ -195,10 +214,11 @@ def compare(fitted: FittedChain, got: dict[str, np.ndarray], want: dict[str, np.
     return Comparison(len(gap), float(gap.max(initial=0.0)), float(share.max(initial=0.0)), worst, differ)
 
 
-def probe_table(schema: Schema, rows: pd.DataFrame, want: dict[str, np.ndarray]) -> pd.DataFrame:
-    """Return the probe file's table: the model's inputs as the deployment side feeds them, then the
-    expected outputs."""
-    table = pd.DataFrame({name: values for name, values in feeds(schema, rows).items()})
+def probe_table(schema: Schema, rows: pd.DataFrame, want: dict[str, np.ndarray],
+                exposure: str | None = None) -> pd.DataFrame:
+    """Return the probe file's table: the model's inputs as the deployment side feeds them (the
+    ``exposure`` input among them), then the expected outputs."""
+    table = pd.DataFrame({name: values for name, values in feeds(schema, rows, exposure).items()})
     for name, values in want.items():
         if np.ndim(values) == 2:  # a multiclass chain's probabilities: one column per class, in class order
             for column, part in zip(probability_columns(schema.classes), np.asarray(values).T, strict=True):
