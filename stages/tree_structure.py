@@ -10,7 +10,10 @@ is loaded, before any prediction:
   the root has exactly one parent and is reachable from the root (so there is no cycle);
   split features are within the stage's inputs; thresholds and leaf values are finite;
 * a libsvm model's arrays have the shapes its C code reads (support vectors, coefficients,
-  intercept), over the stage's inputs, with a kernel remnant knows.
+  intercept), over the stage's inputs, with a kernel remnant knows;
+* a histogram gradient boosting regressor's predictors (``TreePredictor``) hold node records of
+  scikit-learn's own dtype, linked as a tree (as above), split on numeric inputs only (no
+  categorical bitsets, which its C code indexes unchecked), with finite leaf values.
 
 Each check raises ChainFileError with one line saying what is wrong.
 """
@@ -189,3 +192,46 @@ def check_fitted_estimator(estimator: Any, n_features: int | None, what: str, n_
             raise ChainFileError(f"{where} reads {int(tree.n_features):,} features; the stage has {int(width):,}")
     if type(estimator) in (SVR, NuSVR):
         check_libsvm(estimator, int(width), what)
+    from sklearn.ensemble import HistGradientBoostingRegressor
+
+    if type(estimator) is HistGradientBoostingRegressor:
+        check_hist_predictors(estimator, int(width), what)
+
+
+def check_hist_predictors(estimator: Any, n_features: int, what: str) -> None:
+    """Raise ChainFileError unless a loaded ``HistGradientBoostingRegressor`` is sound to predict with:
+    one predictor an iteration, each a tree of scikit-learn's node records over ``n_features``
+    numeric inputs, a finite baseline, and no categorical feature or preprocessor."""
+    from sklearn.ensemble._hist_gradient_boosting.common import PREDICTOR_RECORD_DTYPE
+    from sklearn.ensemble._hist_gradient_boosting.predictor import TreePredictor
+
+    if getattr(estimator, "n_trees_per_iteration_", None) != 1 or getattr(estimator, "_preprocessor", None) is not None:
+        raise ChainFileError(f"{what} is not a regressor of one tree an iteration on numeric inputs")
+    baseline = getattr(estimator, "_baseline_prediction", None)
+    if not isinstance(baseline, np.ndarray) or baseline.shape != (1, 1) or not np.isfinite(baseline).all():
+        raise ChainFileError(f"{what} has no finite baseline prediction")
+    categorical = getattr(getattr(estimator, "_bin_mapper", None), "is_categorical_", None)
+    if categorical is not None and (not isinstance(categorical, np.ndarray) or categorical.size != n_features
+                                    or categorical.any()):
+        raise ChainFileError(f"{what} has categorical features, which remnant does not load")
+    predictors = getattr(estimator, "_predictors", None)
+    if not isinstance(predictors, list) or not all(isinstance(group, list) and len(group) == 1 for group in predictors):
+        raise ChainFileError(f"{what} does not hold one tree an iteration")
+    for i, (predictor,) in enumerate(predictors):
+        where = f"{what}: tree {i + 1}"
+        nodes = getattr(predictor, "nodes", None)
+        if type(predictor) is not TreePredictor or not isinstance(nodes, np.ndarray) or nodes.ndim != 1 \
+                or nodes.dtype != PREDICTOR_RECORD_DTYPE or len(nodes) < 1:
+            raise ChainFileError(f"{where} is not a tree of scikit-learn's node records")
+        if not np.isin(nodes["is_leaf"], (0, 1)).all() or nodes["is_categorical"].any():
+            raise ChainFileError(f"{where} has a node that is neither a leaf nor a numeric split")
+        internal = nodes["is_leaf"] == 0
+        check_links(nodes["left"][internal], nodes["right"][internal], len(nodes), where,
+                    owners=np.flatnonzero(internal))
+        feature = nodes["feature_idx"][internal]
+        if feature.size and (feature.min() < 0 or feature.max() >= n_features):
+            raise ChainFileError(f"{where} splits on a feature outside its {n_features:,}")
+        if not np.isin(nodes["missing_go_to_left"], (0, 1)).all():
+            raise ChainFileError(f"{where} has a missing-value direction that is neither left nor right")
+        if not np.isfinite(nodes["value"]).all() or np.isnan(nodes["num_threshold"][internal]).any():
+            raise ChainFileError(f"{where} has a leaf value or a threshold that is not a number")

@@ -23,7 +23,14 @@ from . import SKLEARN_PREFIX, skops_io
 from .base import Artifact, FitRequest, StageKind, check_has_features
 from .design import LinearDesign, group_sum
 from .linear import fit_estimator
-from .sklearn_types import allowed_types, listed_regressor, listed_regressors
+from .sklearn_types import (
+    FIT_ONLY,
+    REBUILT_ON_LOAD,
+    allowed_types,
+    class_path,
+    listed_regressor,
+    listed_regressors,
+)
 
 _SCALARS = (bool, int, float, str, type(None))
 
@@ -69,11 +76,6 @@ def import_regressor(path: str) -> type:
         raise StageSpecError(f"scikit-learn module {module_name!r} has no class {class_name!r}")
     raise StageSpecError(f"{path!r} is not a regressor (a stage fits residuals, so it needs one of "
                          "the regressors scikit-learn lists)")
-
-
-def class_path(cls: type) -> str:
-    """Return the module-qualified name skops reports for ``cls``."""
-    return f"{cls.__module__}.{cls.__qualname__}"
 
 
 class SklearnKind(StageKind):
@@ -142,7 +144,9 @@ class SklearnKind(StageKind):
 
     def save(self, learner: SklearnModel) -> Artifact:
         """Return the estimator as skops, with the design, the class path and the exact types it holds in ``meta``."""
-        payload, types = skops_io.dump(learner.estimator, allowed_types(self.cls))
+        estimator = learner.estimator
+        kept = [_for_file(e) for e in estimator] if isinstance(estimator, list) else _for_file(estimator)
+        payload, types = skops_io.dump(kept, allowed_types(self.cls))
         meta = {"design": learner.design.to_dict(), "estimator": self.path, "types": types}
         return Artifact("skops", payload, meta)
 
@@ -170,6 +174,8 @@ class SklearnKind(StageKind):
                 raise ChainFileError(f"{self.name} stage artifact holds a {type(estimator).__name__}, "
                                      f"not a {self.cls.__name__}")
             check_fitted_estimator(estimator, design.width, f"{self.name} stage artifact")
+        if class_path(self.cls) in REBUILT_ON_LOAD:
+            estimators = [_rebuilt(e, design.width, f"{self.name} stage artifact") for e in estimators]
         return SklearnModel(design, estimators if several else estimators[0])
 
     def importance(self, learner: SklearnModel, columns) -> np.ndarray | None:
@@ -188,3 +194,41 @@ class SklearnKind(StageKind):
                 return None
             found.append(group_sum(values, groups, len(columns)))
         return np.mean(found, axis=0)
+
+
+def _for_file(estimator: Any) -> Any:
+    """Return ``estimator`` as its file keeps it: a shallow copy without the attributes only a fit
+    uses (``sklearn_types.FIT_ONLY``), or the estimator itself."""
+    import copy
+
+    dropped = FIT_ONLY.get(class_path(type(estimator)), ())
+    if not dropped:
+        return estimator
+    kept = copy.copy(estimator)
+    for name in dropped:
+        if name in vars(kept):
+            setattr(kept, name, None)
+    return kept
+
+
+def _rebuilt(estimator: Any, width: int, what: str) -> Any:
+    """Return a neighbour regressor fit again, by scikit-learn, on the rows and targets its file
+    stores (its search tree is never read from the file); raise ChainFileError when they are unfit."""
+    from sklearn.base import clone
+
+    rows, targets = getattr(estimator, "_fit_X", None), getattr(estimator, "_y", None)
+    if not (isinstance(rows, np.ndarray) and rows.dtype == np.float64 and rows.ndim == 2 and rows.shape[1] == width
+            and isinstance(targets, np.ndarray) and targets.dtype == np.float64 and targets.shape == rows.shape[:1]
+            and len(rows) and np.isfinite(rows).all() and np.isfinite(targets).all()):
+        raise ChainFileError(f"{what} holds no finite rows of {width} inputs and targets to search among")
+    fresh = clone(estimator)
+    try:
+        fresh.set_params(n_jobs=None)  # the chain, not a file, says how many threads run
+        fresh.fit(rows, targets)
+    except (ValueError, TypeError) as exc:
+        raise ChainFileError(f"{what}: its neighbour search could not be built ({_one_line(exc)})") from None
+    return fresh
+
+
+def _one_line(exc: BaseException) -> str:
+    return " ".join(str(exc).split())[:300] or type(exc).__name__

@@ -5,9 +5,15 @@ the regressors scikit-learn itself lists (``sklearn.utils.all_estimators``), loo
 them, never imported from the path. Its skops artifact may hold that class and the exact types
 below: plain data, the estimators some regressors fit inside themselves, and the losses, links,
 kernels and optimisers their fitted attributes keep. Nothing is trusted by module prefix, no
-function ever, and no type whose native structure remnant cannot check on load (the k-NN
-search trees, the predictors of histogram gradient boosting): a stage holding one cannot be
-saved, and the message says so.
+function ever, and no type whose native structure remnant cannot check on load. Two classes
+get more, each under its own rule:
+
+* ``HistGradientBoostingRegressor`` may hold its predictors (``TreePredictor``) and bin mapper,
+  whose node records ``tree_structure.check_hist_predictors`` checks before any prediction; the
+  random generator it keeps for fitting only is left out of the file (``FIT_ONLY``);
+* the neighbour regressors (``KNeighborsRegressor``, ``RadiusNeighborsRegressor``) are saved
+  without their search tree (``FIT_ONLY``): on load the tree is built again from the stored rows
+  by scikit-learn itself (``REBUILT_ON_LOAD``), so no stored tree is ever walked.
 """
 
 from __future__ import annotations
@@ -40,6 +46,25 @@ FITTED_TYPES: tuple[str, ...] = (
 )
 
 
+_HIST = "sklearn.ensemble._hist_gradient_boosting.gradient_boosting.HistGradientBoostingRegressor"
+_NEIGHBOURS = ("sklearn.neighbors._regression.KNeighborsRegressor", "sklearn.neighbors._regression.RadiusNeighborsRegressor")
+
+#: types one class may hold besides FITTED_TYPES
+CLASS_TYPES: dict[str, tuple[str, ...]] = {
+    _HIST: ("sklearn.ensemble._hist_gradient_boosting.predictor.TreePredictor",
+            "sklearn.ensemble._hist_gradient_boosting.binning._BinMapper"),
+}
+#: fitted attributes only a fit uses, left out of a class's file (set to None in the copy saved)
+FIT_ONLY: dict[str, tuple[str, ...]] = {_HIST: ("_feature_subsample_rng",), **{n: ("_tree",) for n in _NEIGHBOURS}}
+#: classes whose fit is done again on load from their stored rows, by scikit-learn (cheap and deterministic)
+REBUILT_ON_LOAD: frozenset[str] = frozenset(_NEIGHBOURS)
+
+
+def class_path(cls: type) -> str:
+    """Return ``module.qualname`` of ``cls``, as skops names types."""
+    return f"{cls.__module__}.{cls.__qualname__}"
+
+
 @functools.cache
 def listed_regressors() -> dict[str, type]:
     """Return scikit-learn's own list of regressors, by their defining module path and class name."""
@@ -65,4 +90,5 @@ def listed_regressor(path: str) -> type | None:
 
 def allowed_types(cls: type) -> tuple[str, ...]:
     """Return the exact types an artifact of a stage of regressor ``cls`` may hold."""
-    return (f"{cls.__module__}.{cls.__qualname__}", *FITTED_TYPES)
+    path = class_path(cls)
+    return (path, *FITTED_TYPES, *CLASS_TYPES.get(path, ()))
