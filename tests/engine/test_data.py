@@ -1,4 +1,4 @@
-"""Tests of stages.data: reading files, column roles, task inference and prepare()."""
+"""Tests of stages.data and stages.roles: reading files, column roles, task inference and prepare()."""
 
 from __future__ import annotations
 
@@ -13,18 +13,9 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from stages.data import (
-    ID,
-    ColumnReport,
-    Prepared,
-    describe_columns,
-    infer_role,
-    infer_task,
-    load_frame,
-    prepare,
-    read_table,
-)
+from stages.data import Prepared, infer_task, load_frame, prepare, read_table
 from stages.errors import DataError
+from stages.roles import ID, ColumnReport, describe_columns, infer_role
 from stages.schema import BOOLEAN, CATEGORICAL, DATETIME, NUMERIC
 
 
@@ -645,7 +636,7 @@ def test_text_columns_arrow_holds_are_described_as_the_rules_describe_them():
     frame["one"] = 3.0
     fast = describe_columns(frame)
     # reference: the rules over each column's values as numpy gives them (pandas' hash of every value)
-    from stages import data
+    from stages import roles as data
 
     for report in fast:
         values = frame[report.name]

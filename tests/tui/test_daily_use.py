@@ -547,7 +547,7 @@ def test_every_footer_entry_fits_in_80_columns_at_once():
 
 async def test_x_on_an_id_column_makes_it_a_feature_and_x_again_an_id(tmp_path):
     # scikit-learn's diabetes data with whole numbers that rise row by row: the engine reads them as row numbers, an
-    # id (stages.data.infer_role); a user who knows they count visits, a clock that may carry drift, makes them a
+    # id (stages.roles.infer_role); a user who knows they count visits, a clock that may carry drift, makes them a
     # feature with x
     from tui.widgets.column_roles import ColumnRoles
 

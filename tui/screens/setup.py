@@ -22,10 +22,11 @@ from textual.containers import Horizontal, Vertical
 from textual.screen import Screen
 from textual.widgets import Button, Footer, Input, Label, Select, Static
 
-from stages.data import EXCLUDED, ID, describe_columns, infer_task
+from stages.data import infer_task
 from stages.errors import ValidationSpecError
 from stages.losses import LOG_LINK_NAMES, default_loss, loss_names
 from stages.parsing import validation_spec
+from stages.roles import EXCLUDED, ID, describe_columns
 from stages.schema import DATETIME, Task
 from stages.validation import SCHEMES, ValidationSpec
 

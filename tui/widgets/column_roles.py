@@ -9,7 +9,7 @@ from textual.binding import Binding
 from textual.message import Message
 from textual.widgets import DataTable
 
-from stages.data import EXCLUDED, ID, ColumnReport
+from stages.roles import EXCLUDED, ID, ColumnReport
 from stages.schema import DATETIME
 
 from ..format import number
