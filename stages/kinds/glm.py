@@ -25,9 +25,9 @@ from scipy.special import expit
 
 from ..errors import StageSpecError
 from . import register
-from .base import Artifact, FitRequest, StageKind, check_has_features
+from .base import FitRequest, check_has_features
 from .design import LinearDesign
-from .linear import LinearModel, checked_coefficients, dump_linear, linear_importance, load_linear
+from .linear import LinearModel, StoredAsLinearModel, checked_coefficients
 
 #: halvings of a Newton step before the search gives up (the objective no longer falls in float64)
 MAX_HALVINGS = 40
@@ -89,7 +89,7 @@ def fit_glm(matrix: np.ndarray, y: np.ndarray, offset: np.ndarray, loss: Any, we
     return theta[:width], float(theta[width])
 
 
-class GlmKind(StageKind):
+class GlmKind(StoredAsLinearModel):
     """A GLM with the chain's loss and link (unpenalised, or ridge with ``alpha``), offset by the chain so far."""
 
     name: ClassVar[str] = "glm"
@@ -119,18 +119,6 @@ class GlmKind(StageKind):
                         float(alpha), int(max_iter), float(tol))
         coef, intercept = checked_coefficients(b, b0, self.name)
         return LinearModel(design, coef, intercept)
-
-    def save(self, learner: LinearModel) -> Artifact:
-        """Return the model as JSON."""
-        return dump_linear(learner, self.name)
-
-    def load(self, artifact: Artifact) -> LinearModel:
-        """Return the model stored in ``artifact``."""
-        return load_linear(artifact, self.name)
-
-    def importance(self, learner: LinearModel, columns) -> np.ndarray:
-        """Return |coef| on the standardised design, summed per input column."""
-        return linear_importance(learner, len(columns))
 
 
 GLM = register(GlmKind())

@@ -250,7 +250,24 @@ def constant_model(design: Design, target: np.ndarray, fit_intercept: bool) -> L
     return LinearModel(design, np.zeros(0), float(np.mean(target)) if fit_intercept else 0.0)
 
 
-class LinearFamilyKind(StageKind):
+class StoredAsLinearModel(StageKind):
+    """The file and the importance of every kind whose learner is a ``LinearModel`` (a design,
+    coefficients and an intercept): linear, ridge, lasso, logistic and glm."""
+
+    def save(self, learner: LinearModel) -> Artifact:
+        """Return the model as JSON."""
+        return dump_linear(learner, self.name)
+
+    def load(self, artifact: Artifact) -> LinearModel:
+        """Return the model stored in ``artifact``."""
+        return load_linear(artifact, self.name)
+
+    def importance(self, learner: LinearModel, columns) -> np.ndarray:
+        """Return |coef| on the standardised design, summed per input column."""
+        return linear_importance(learner, len(columns))
+
+
+class LinearFamilyKind(StoredAsLinearModel):
     """Shared fitting for the least-squares kinds: build the design, fit the estimator, keep coefficients."""
 
     def step_source(self, params: dict[str, Any]) -> str:
@@ -277,17 +294,6 @@ class LinearFamilyKind(StageKind):
         coef, intercept = checked_coefficients(coef, estimator.intercept_, self.name, request.outputs)
         return LinearModel(design, coef, intercept)
 
-    def save(self, learner: LinearModel) -> Artifact:
-        """Return the model as JSON."""
-        return dump_linear(learner, self.name)
-
-    def load(self, artifact: Artifact) -> LinearModel:
-        """Return the model stored in ``artifact``."""
-        return load_linear(artifact, self.name)
-
-    def importance(self, learner: LinearModel, columns) -> np.ndarray:
-        """Return |coef| on the standardised design, summed per input column."""
-        return linear_importance(learner, len(columns))
 
 
 class LinearKind(LinearFamilyKind):

@@ -30,9 +30,9 @@ from scipy.special import expit, logsumexp
 from ..errors import StageSpecError
 from ..metrics import PROB_EPS, one_hot
 from . import register
-from .base import Artifact, FitRequest, StageKind, check_has_features
+from .base import FitRequest, check_has_features
 from .design import LinearDesign
-from .linear import LinearModel, checked_coefficients, dump_linear, linear_importance, load_linear
+from .linear import LinearModel, StoredAsLinearModel, checked_coefficients
 
 
 def inverse_penalty(params: dict[str, Any], kind: str) -> float:
@@ -226,7 +226,7 @@ def margin_note(logits: np.ndarray) -> str | None:
     return separation_note(ordered[:, -1] - ordered[:, -2])
 
 
-class LogisticKind(StageKind):
+class LogisticKind(StoredAsLinearModel):
     """Logistic regression with the chain's log-odds as offset; its output adds to the log-odds."""
 
     name: ClassVar[str] = "logistic"
@@ -272,18 +272,6 @@ class LogisticKind(StageKind):
             if note:
                 request.note(note)
         return LinearModel(design, coef, intercept)
-
-    def save(self, learner: LinearModel) -> Artifact:
-        """Return the model as JSON."""
-        return dump_linear(learner, self.name)
-
-    def load(self, artifact: Artifact) -> LinearModel:
-        """Return the model stored in ``artifact``."""
-        return load_linear(artifact, self.name)
-
-    def importance(self, learner: LinearModel, columns) -> np.ndarray:
-        """Return |coef| on the standardised design, summed per input column."""
-        return linear_importance(learner, len(columns))
 
 
 LOGISTIC = register(LogisticKind())
