@@ -4,6 +4,8 @@
 - ``linear``: the design is learnt from the sample; the least squares come from Dask's TSQR
   (``dask.array.linalg.tsqr``) of ``[design | residual]`` over every fitting row, so only small
   triangular factors travel, and the solution is the in-memory stage's.
+- ``ridge``: the design from every fitting row (exact medians, means and deviations by
+  reductions), then the penalised least squares from the same TSQR factor (``cluster_lstsq``).
 - ``lightgbm`` and ``hist_tree``: ``lightgbm.DaskLGBMRegressor`` from the chain's output as
   ``init_score``, on bin codes (quantile edges of the sample, the same on every worker), so the
   trees are those one machine grows on the same codes. The booster's thresholds are then turned
@@ -39,10 +41,11 @@ from ..outputs import block
 from ..schema import Schema
 from ..spec import StageSpec
 from ..tracks import Layout, Track
+from .cluster_lstsq import fit_ridge
 from .cluster_rows import N_BINS, TRAIN, ClusterRows
 
 #: the kinds fit on every fitting row over the cluster; every other kind fits on the sample
-CLUSTER_KINDS = ("mean", "linear", "lightgbm", "hist_tree")
+CLUSTER_KINDS = ("mean", "linear", "ridge", "lightgbm", "hist_tree")
 #: LightGBM settings of a cluster fit: one bin per code, the data-parallel learner, no timing choices
 CODE_PARAMS: dict[str, Any] = {"max_bin": 255, "min_data_in_bin": 1, "tree_learner": "data", "deterministic": True,
                                "force_row_wise": True, "verbosity": -1,
@@ -128,6 +131,8 @@ def fit_cluster_stage(ctx: ClusterContext, spec: StageSpec, previous: Any, *, nu
             learner, scale, rule, notes = _fit_mean(ctx, spec, previous)
         elif spec.kind == "linear":
             learner, scale, rule, notes = _fit_linear(ctx, spec, params, previous, features)
+        elif spec.kind == "ridge":
+            learner, scale, rule, notes = _fit_ridge(ctx, spec, params, previous, features)
         elif spec.kind in ("lightgbm", "hist_tree"):
             learner, scale, rule, notes = _fit_booster(ctx, spec, params, previous, features)
         else:
@@ -184,6 +189,12 @@ def _fit_linear(ctx: ClusterContext, spec: StageSpec, params: dict[str, Any], pr
     coef = linalg.lstsq(factor[:width, :width], factor[:width, width], cond=cond, check_finite=False)[0]
     coef, intercept = checked_coefficients(coef, y_mean - float(x_mean @ coef), "linear")
     return LinearModel(design, coef, intercept), spec.shrinkage, "none (least squares)", ()
+
+
+def _fit_ridge(ctx: ClusterContext, spec: StageSpec, params: dict[str, Any], previous: Any,
+               features: tuple[int, ...]) -> tuple[Any, float, str, tuple[str, ...]]:
+    model = fit_ridge(ctx.rows, ctx.schema.subset(list(features)), params, _residual_rows(ctx, previous), features)
+    return model, spec.shrinkage, "none (least squares)", ()
 
 
 def _fit_booster(ctx: ClusterContext, spec: StageSpec, params: dict[str, Any], previous: Any,
