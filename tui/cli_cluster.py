@@ -92,6 +92,7 @@ def fit_recipe_on_cluster(recipe: Any, client: Any, data: str | os.PathLike | No
     frame = read_cluster_data(source, settings.partition_rows)
     try:
         chain = ClusterChain(frame, recipe.target, recipe.validation, recipe.loss, client=client, seed=recipe.seed,
+                             power=recipe.power,
                              ignore=recipe.ignore, features=None if recipe.features is None else list(recipe.features),
                              sample_rows=settings.sample_rows, source=Path(os.fspath(source)).name,
                              data_path=source)

@@ -8,7 +8,8 @@ dropping fit stages over the cluster (``cluster_fit``); scores are one reduction
 What needs the rows on this machine (residual scans, partial dependence, auditions, sessions...)
 raises ChainStateError saying a chain on a cluster cannot serve it yet.
 
-For now a chain on a cluster is a regression chain with squared loss over numeric features,
+For now a chain on a cluster is a regression chain with squared loss or a loss on the log link
+(``cluster_loss``) over numeric features,
 validated by a holdout or no validation; the parts come from a hash of each row's label.
 """
 
@@ -25,15 +26,23 @@ import pandas as pd
 
 from ..chain import Chain
 from ..chain_state import seeded_streams
-from ..errors import ChainStateError, DataError, ValidationSpecError
+from ..errors import ChainStateError, ValidationSpecError
 from ..fitting import Stage
 from ..kinds.base import ProgressFn
-from ..losses import get_loss
+from ..loglink import LogLinkLoss
 from ..scoring import Scores
 from ..spec import StageSpec
 from ..tracks import Layout, Track
 from ..validation import AllRows, Holdout, Part, ValidationSpec
 from .cluster_fit import CLUSTER_KINDS, ClusterContext, bin_edges, fit_cluster_stage
+from .cluster_loss import (
+    check_cluster_target,
+    cluster_loss,
+    log_link_part_sums,
+    log_link_scores,
+    shown_residual,
+    start_value,
+)
 from .cluster_rows import (
     DEFAULT_SAMPLE_ROWS,
     TEST,
@@ -78,7 +87,7 @@ class ClusterChain(Chain):
                  *, client: Any = None, seed: int = 0, ignore: tuple[str, ...] | list[str] = (),
                  features: list[str] | None = None, sample_rows: int = DEFAULT_SAMPLE_ROWS,
                  row_id: str | None = None, source: str = "frame",
-                 data_path: str | os.PathLike | None = None) -> None:
+                 data_path: str | os.PathLike | None = None, power: float | None = None) -> None:
         require_dask()
         if client is None:
             client = _current_client()
@@ -86,17 +95,16 @@ class ClusterChain(Chain):
         if not isinstance(self.validation, Holdout | AllRows):
             raise ValidationSpecError(f"a chain on a Dask cluster is validated by a holdout for now, not by "
                                       f"{self.validation.describe()}")
-        if loss not in (None, "squared"):
-            raise DataError(f"a chain on a Dask cluster fits the squared loss for now, not {loss!r}")
+        self.loss = cluster_loss(loss, power)
         self.ignore = tuple(ignore) + ((row_id,) if row_id and row_id not in ignore else ())
         self.schema = numeric_schema(frame._meta, target, features, self.ignore)
-        self.loss = get_loss("squared", "regression")
         self.client, self.sample_rows, self.row_id = client, int(sample_rows), row_id
         self.cluster_settings: Any = None  # the recipe's [cluster] table when a recipe built the chain
         fraction = getattr(self.validation, "fraction", 0.0)
         test_fraction = getattr(self.validation, "test_fraction", 0.0)
         self.rows: ClusterRows = build_rows(frame, self.schema, fraction=fraction, test_fraction=test_fraction,
                                             seed=getattr(self.validation, "seed", 0), row_id=row_id)
+        check_cluster_target(self.rows, self.loss, target, source)
         n = sum(self.rows.chunks)
         counts = [self.rows.n_part(k) for k in (TRAIN, VALID, TEST)]
         if counts[0] == 0:
@@ -120,7 +128,7 @@ class ClusterChain(Chain):
         self.threads = None
         self._rngs = seeded_streams(self.seed, 1)
         self._lock = threading.RLock()
-        start = float(self.rows.part_rows(self.rows.y, TRAIN).mean().compute())
+        start = start_value(self.loss, float(self.rows.part_rows(self.rows.y, TRAIN).mean().compute()))
         self.starts = (np.array([start]),)
         import dask.array as da
 
@@ -157,10 +165,16 @@ class ClusterChain(Chain):
         rebuild would have to predict every partition again."""
 
     def _score(self, outputs: tuple[Any, ...]) -> Scores:
-        stats = part_sums(self.rows, outputs[0], float(self.starts[0][0]) if hasattr(self, "starts") else 0.0)
-        train = regression_scores(stats[TRAIN])
-        valid = regression_scores(stats[VALID])
-        return Scores(train, valid)
+        scores = self._part_scores(outputs[0])
+        return Scores(scores[TRAIN], scores[VALID])
+
+    def _part_scores(self, output: Any) -> list[dict[str, float]]:
+        """Return the scores of each part (train, valid, test) of the cumulative ``output``: one reduction."""
+        shift = float(self.starts[0][0]) if hasattr(self, "starts") else 0.0
+        if isinstance(self.loss, LogLinkLoss):
+            shift = float(np.exp(shift))  # the y sums are taken about the start's mean
+            return [log_link_scores(row) for row in log_link_part_sums(self.rows, output, self.loss, shift)]
+        return [regression_scores(row) for row in part_sums(self.rows, output, shift)]
 
     def reveal_test(self) -> list[dict[str, float]]:
         """Score every row on the locked test part (one reduction per row) and return the scores."""
@@ -168,8 +182,7 @@ class ClusterChain(Chain):
             if self.layout.n_test == 0:
                 raise ChainStateError("this chain has no locked test part (set test_fraction when choosing validation)")
             rows = [self._start_outputs[0], *(s.outputs[0] for s in self._stages)]
-            shift = float(self.starts[0][0])
-            self._test = {i: regression_scores(part_sums(self.rows, out, shift)[TEST]) for i, out in enumerate(rows)}
+            self._test = {i: self._part_scores(out)[TEST] for i, out in enumerate(rows)}
             self.test_revealed = True
             self.reveal_count += 1
             return [self._test[i] for i in range(len(rows))]
@@ -189,7 +202,8 @@ class ClusterChain(Chain):
         import dask.array as da
 
         output = self.outputs(row)[0]
-        residual = {p: self.rows.part_rows(self.rows.y - output[:, 0], PART_CODES[p]) for p in parts}
+        shown = shown_residual(self.loss, self.rows.y, output[:, 0])
+        residual = {p: self.rows.part_rows(shown, PART_CODES[p]) for p in parts}
         every = da.concatenate(list(residual.values()))
         low, high, n = dask.compute(every.min(), every.max(), every.size)
         count = bins if isinstance(bins, int) else int(np.ceil(np.log2(max(n, 1)) + 1))

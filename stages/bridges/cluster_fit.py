@@ -6,7 +6,8 @@
   triangular factors travel, and the solution is the in-memory stage's.
 - ``ridge``: the design from every fitting row (exact medians, means and deviations by
   reductions), then the penalised least squares from the same TSQR factor (``cluster_lstsq``).
-- ``lightgbm`` and ``hist_tree``: ``lightgbm.DaskLGBMRegressor`` from the chain's output as
+- ``glm``: Newton's method of the in-memory stage, each step from one reduction (``cluster_glm``).
+- ``lightgbm`` and ``hist_tree``: ``lightgbm.DaskLGBMRegressor`` (the loss's objective) from the chain's output as
   ``init_score``, on bin codes (quantile edges of the sample, the same on every worker), so the
   trees are those one machine grows on the same codes. The booster's thresholds are then turned
   back from codes into the features' own values (``thresholds_on_values``): the stage is a plain
@@ -36,16 +37,19 @@ from ..kinds.design import LinearDesign
 from ..kinds.lightgbm_stage import BoosterLearner
 from ..kinds.linear import LinearModel, checked_coefficients, constant_model
 from ..kinds.mean import Constant
+from ..loglink import LogLinkLoss
 from ..losses import Loss
 from ..outputs import block
 from ..schema import Schema
 from ..spec import StageSpec
 from ..tracks import Layout, Track
+from .cluster_glm import fit_glm_on_cluster
+from .cluster_loss import loss_residual, mean_shift
 from .cluster_lstsq import fit_ridge
 from .cluster_rows import N_BINS, TRAIN, ClusterRows
 
 #: the kinds fit on every fitting row over the cluster; every other kind fits on the sample
-CLUSTER_KINDS = ("mean", "linear", "ridge", "lightgbm", "hist_tree")
+CLUSTER_KINDS = ("mean", "linear", "ridge", "glm", "lightgbm", "hist_tree")
 #: LightGBM settings of a cluster fit: one bin per code, the data-parallel learner, no timing choices
 CODE_PARAMS: dict[str, Any] = {"max_bin": 255, "min_data_in_bin": 1, "tree_learner": "data", "deterministic": True,
                                "force_row_wise": True, "verbosity": -1,
@@ -129,8 +133,15 @@ def fit_cluster_stage(ctx: ClusterContext, spec: StageSpec, previous: Any, *, nu
         _check_cancel(cancel)
         if spec.kind == "mean":
             learner, scale, rule, notes = _fit_mean(ctx, spec, previous)
+        elif spec.kind in ("linear", "ridge") and ctx.loss.name != "squared":
+            raise StageSpecError(f"kind {spec.kind!r} on a cluster fits the squared loss for now, not "
+                                 f"{ctx.loss.name!r}: use glm, or fit on one machine")
         elif spec.kind == "linear":
             learner, scale, rule, notes = _fit_linear(ctx, spec, params, previous, features)
+        elif spec.kind == "glm":
+            model = fit_glm_on_cluster(ctx.rows, ctx.schema.subset(list(features)), params, ctx.loss, previous,
+                                       features)
+            learner, scale, rule, notes = model, spec.shrinkage, "none (fits the loss)", ()
         elif spec.kind == "ridge":
             learner, scale, rule, notes = _fit_ridge(ctx, spec, params, previous, features)
         elif spec.kind in ("lightgbm", "hist_tree"):
@@ -152,12 +163,14 @@ def fit_cluster_stage(ctx: ClusterContext, spec: StageSpec, previous: Any, *, nu
 
 
 def _residual_rows(ctx: ClusterContext, previous: Any) -> Any:
-    """Return the residual y - F on the fitting rows (squared loss), a Dask vector."""
+    """Return the residual (the loss's negative gradient; y - F for squared loss) on the fitting rows, a Dask vector."""
     rows = ctx.rows
-    return rows.part_rows(rows.y, TRAIN) - rows.part_rows(previous[:, 0], TRAIN)
+    return loss_residual(ctx.loss, rows.part_rows(rows.y, TRAIN), rows.part_rows(previous[:, 0], TRAIN))
 
 
 def _fit_mean(ctx: ClusterContext, spec: StageSpec, previous: Any) -> tuple[Any, float, str, tuple[str, ...]]:
+    if isinstance(ctx.loss, LogLinkLoss):
+        return Constant(mean_shift(ctx.rows, ctx.loss, previous)), spec.shrinkage, get_kind("mean").leaf_rule(ctx.loss), ()
     value = float(_residual_rows(ctx, previous).mean().compute())
     return Constant(value), spec.shrinkage, get_kind("mean").leaf_rule(ctx.loss), ()
 
@@ -201,7 +214,7 @@ def _fit_booster(ctx: ClusterContext, spec: StageSpec, params: dict[str, Any], p
                  features: tuple[int, ...]) -> tuple[Any, float, str, tuple[str, ...]]:
     import lightgbm
 
-    native = cluster_booster_params(spec.kind, params, ctx.rngs[0])
+    native = cluster_booster_params(spec.kind, params, ctx.rngs[0], ctx.loss)
     rounds = native.pop("num_boost_round")
     rows = ctx.rows
     edges = [ctx.edges[j] for j in features]
@@ -219,10 +232,12 @@ def _fit_booster(ctx: ClusterContext, spec: StageSpec, params: dict[str, Any], p
     return learner, spec.shrinkage, "none (fits the loss)", ()
 
 
-def cluster_booster_params(kind: str, params: dict[str, Any], rng: np.random.RandomState) -> dict[str, Any]:
+def cluster_booster_params(kind: str, params: dict[str, Any], rng: np.random.RandomState,
+                           loss: Loss | None = None) -> dict[str, Any]:
     """Return the LightGBM parameters of a ``lightgbm`` or ``hist_tree`` stage fit on codes (native
     names, ``num_boost_round`` and ``random_state`` from the chain's stream, as the in-memory fit
-    draws its seed); raise StageSpecError for what a cluster fit does not serve yet."""
+    draws its seed; the objective of ``loss``, squared when None); raise StageSpecError for what a
+    cluster fit does not serve yet."""
     if params.get("early_stopping_rounds") is not None:
         raise StageSpecError(f"kind {kind!r}: early_stopping_rounds is not served on a cluster yet")
     if float(params.get("subsample", 1.0)) < 1.0:
@@ -237,7 +252,12 @@ def cluster_booster_params(kind: str, params: dict[str, Any], rng: np.random.Ran
 
             native["num_leaves"] = default_leaves(native.get("max_depth"))
     native.setdefault("num_boost_round", 100)
-    native.update(CODE_PARAMS, objective="regression", random_state=int(rng.randint(0, 2**31 - 1)))
+    native.update(CODE_PARAMS, objective="regression" if loss is None else loss.lightgbm_objective,
+                  random_state=int(rng.randint(0, 2**31 - 1)))
+    if loss is not None:
+        native.update(loss.lightgbm_params())
+    if kind == "hist_tree" and native["objective"] == "poisson":  # Newton leaves, as kinds.hist_tree sets them
+        native.setdefault("poisson_max_delta_step", 1e-12)
     return native
 
 

@@ -89,6 +89,18 @@ def fit_glm(matrix: np.ndarray, y: np.ndarray, offset: np.ndarray, loss: Any, we
     return theta[:width], float(theta[width])
 
 
+def glm_settings(params: dict[str, Any]) -> tuple[float, int, float]:
+    """Return a glm stage's ``alpha``, ``max_iter`` and ``tol``; raise StageSpecError for a value out of range."""
+    alpha, max_iter, tol = params["alpha"], params["max_iter"], params["tol"]
+    if isinstance(alpha, bool) or not isinstance(alpha, int | float) or not 0 <= alpha < float("inf"):
+        raise StageSpecError(f"kind 'glm': alpha must be a number of zero or more, not {alpha!r}")
+    if isinstance(max_iter, bool) or not isinstance(max_iter, int) or not 1 <= max_iter <= 10_000:
+        raise StageSpecError(f"kind 'glm': max_iter must be a whole number from 1 to 10000, not {max_iter!r}")
+    if isinstance(tol, bool) or not isinstance(tol, int | float) or not 0 <= tol < 1:
+        raise StageSpecError(f"kind 'glm': tol must be a number from 0 to 1, not {tol!r}")
+    return float(alpha), int(max_iter), float(tol)
+
+
 class GlmKind(StoredAsLinearModel):
     """A GLM with the chain's loss and link (unpenalised, or ridge with ``alpha``), offset by the chain so far."""
 
@@ -104,19 +116,13 @@ class GlmKind(StoredAsLinearModel):
         if loss.name not in GLM_LOSSES or request.outputs > 1:
             raise StageSpecError(f"kind {self.name!r} takes the losses {', '.join(GLM_LOSSES)}; this chain's is "
                                  f"{'the multinomial log loss (use logistic)' if request.outputs > 1 else repr(loss.name)}")
-        alpha, max_iter, tol = params["alpha"], params["max_iter"], params["tol"]
-        if isinstance(alpha, bool) or not isinstance(alpha, int | float) or not 0 <= alpha < float("inf"):
-            raise StageSpecError(f"kind {self.name!r}: alpha must be a number of zero or more, not {alpha!r}")
-        if isinstance(max_iter, bool) or not isinstance(max_iter, int) or not 1 <= max_iter <= 10_000:
-            raise StageSpecError(f"kind {self.name!r}: max_iter must be a whole number from 1 to 10000, not {max_iter!r}")
-        if isinstance(tol, bool) or not isinstance(tol, int | float) or not 0 <= tol < 1:
-            raise StageSpecError(f"kind {self.name!r}: tol must be a number from 0 to 1, not {tol!r}")
+        alpha, max_iter, tol = glm_settings(params)
         check_has_features(request.X, self.name)
         design = LinearDesign.fit(request.X, request.columns)
         matrix = design.transform(request.X)
         y = np.asarray(request.y, dtype=np.float64)
         b, b0 = fit_glm(matrix, y, np.asarray(request.raw, dtype=np.float64), loss, request.weight,
-                        float(alpha), int(max_iter), float(tol))
+                        alpha, max_iter, tol)
         coef, intercept = checked_coefficients(b, b0, self.name)
         return LinearModel(design, coef, intercept)
 

@@ -1,8 +1,9 @@
 """Exact fits on every fitting row of a chain on a Dask cluster, against the in-memory chain.
 
 The references are outside the cluster path: the in-memory ``stages.Chain`` on the same parts (a
-split column from the same hash of the row labels), numpy's median, and scikit-learn's Ridge on
-a design built here with numpy.
+split column from the same hash of the row labels), numpy's median, scikit-learn's Ridge and
+PoissonRegressor on a design built here with numpy, LightGBM's own ``LGBMRegressor`` on one
+machine, and scikit-learn's mean_poisson_deviance.
 """
 
 from __future__ import annotations
@@ -14,16 +15,21 @@ pytest.importorskip("dask.dataframe")
 
 import dask.array as da  # noqa: E402
 import dask.dataframe as dd  # noqa: E402
+import lightgbm  # noqa: E402
 import numpy as np  # noqa: E402
 import pandas as pd  # noqa: E402
 from sklearn.datasets import make_friedman1  # noqa: E402
-from sklearn.linear_model import Ridge  # noqa: E402
+from sklearn.linear_model import PoissonRegressor, Ridge  # noqa: E402
+from sklearn.metrics import mean_poisson_deviance  # noqa: E402
 
 import stages  # noqa: E402
 from stages.bridges.cluster_chain import ClusterChain  # noqa: E402
+from stages.bridges.cluster_fit import bin_codes, bin_edges, cluster_booster_params, fit_on_rows  # noqa: E402
 from stages.bridges.cluster_lstsq import exact_medians  # noqa: E402
-from stages.bridges.cluster_rows import VALID, part_codes  # noqa: E402
-from stages.errors import StageFitError, StageSpecError  # noqa: E402
+from stages.bridges.cluster_rows import VALID, in_sample, part_codes  # noqa: E402
+from stages.errors import DataError, StageFitError, StageSpecError  # noqa: E402
+from stages.kinds import get_kind  # noqa: E402
+from stages.spec import StageSpec  # noqa: E402
 
 FEATURES = [f"x{i}" for i in range(5)]
 SEED, SPLIT_SEED, SAMPLE_ROWS = 4, 1, 900
@@ -38,6 +44,7 @@ def friedman() -> pd.DataFrame:
     X[:, 3] = np.round(X[:, 3] * 8) - 4
     frame = pd.DataFrame(X, columns=FEATURES)
     frame["y"] = y
+    frame["count"] = np.random.RandomState(1).poisson(np.exp(0.1 * y - 0.5))  # counts whose log-mean follows y
     frame["split"] = np.where(part_codes(frame.index.to_numpy(), 0.2, 0.0, SPLIT_SEED) == VALID, "valid", "train")
     return frame
 
@@ -63,6 +70,13 @@ def memory_chain(frame: pd.DataFrame, target: str = "y", loss: str | None = None
     return stages.Chain(frame, target, stages.SplitColumn("split"), loss=loss, seed=SEED, features=FEATURES)
 
 
+def numpy_design(X: np.ndarray) -> np.ndarray:
+    """Return the linear design built with numpy: the median fill, the population standard deviation,
+    a 0/1 column after x2 for its missing values (the only column with any)."""
+    filled = np.where(np.isnan(X), np.nanmedian(X, axis=0), X)
+    return np.c_[(filled - filled.mean(axis=0)) / filled.std(axis=0), np.isnan(X[:, 2])]
+
+
 def test_exact_medians_are_numpys_whatever_the_chunks():
     values = np.random.RandomState(0).normal(size=(1001, 3))
     values[::5, 1] = np.nan
@@ -85,12 +99,10 @@ def test_ridge_on_every_fitting_row_is_the_in_memory_stage_and_scikit_learns(fri
         for part in ("train", "valid"):
             assert getattr(ours, part)["rmse"] == pytest.approx(getattr(theirs, part)["rmse"], rel=1e-8)
     assert list(cluster.table()["fit_on"])[1:] == ["every fitting row"] * 2
-    # scikit-learn's Ridge on the design built here: the median fill, the population standard
-    # deviation, a 0/1 column after x2 for its missing values
+    # scikit-learn's Ridge on the design built here with numpy
     train = friedman[friedman["split"] == "train"]
     X = train[FEATURES].to_numpy()
-    filled = np.where(np.isnan(X), np.nanmedian(X, axis=0), X)
-    design = np.c_[(filled - filled.mean(axis=0)) / filled.std(axis=0), np.isnan(X[:, 2])]
+    design = numpy_design(X)
     start = train["y"].mean()
     reference = Ridge(alpha=40.0).fit(design, train["y"] - start)
     np.testing.assert_allclose(cluster.stages[0].learners[0].predict(X), reference.predict(design), rtol=1e-8)
@@ -101,3 +113,75 @@ def test_ridge_with_an_iterative_solver_is_refused_on_a_cluster(friedman, client
     with pytest.raises((StageSpecError, StageFitError), match="solver 'sag' is not served on a cluster"):
         chain.add("ridge", params={"solver": "sag"})
     assert len(chain) == 0
+
+
+def test_poisson_chain_of_glm_mean_and_lightgbm_is_the_in_memory_chain(friedman, client, tmp_path):
+    cluster, memory = cluster_chain(friedman, client, "count", "poisson"), memory_chain(friedman, "count", "poisson")
+    boost = {"n_estimators": 8, "num_leaves": 5, "learning_rate": 0.3}
+    specs = [StageSpec("glm", params={"alpha": 0.01}), StageSpec("mean"), StageSpec("lightgbm", params=boost),
+             StageSpec("forest", params={"n_estimators": 10, "max_depth": 4})]
+    cluster.add_specs(specs)
+    memory.add_specs(specs[:2])
+    # glm and mean: the in-memory stages to 1e-8, every fitting row
+    for i in range(3):
+        ours, theirs = cluster.scores()[i], memory.scores()[i]
+        for part in ("train", "valid"):
+            for name in ("deviance", "rmse", "r2"):
+                assert getattr(ours, part)[name] == pytest.approx(getattr(theirs, part)[name], rel=1e-8)
+    train, valid = friedman[friedman["split"] == "train"], friedman[friedman["split"] == "valid"]
+    X_train, X_valid = train[FEATURES].to_numpy(), valid[FEATURES].to_numpy()
+    glm = cluster.stages[0].learners[0]
+    np.testing.assert_allclose(glm.predict(X_valid), memory.stages[0].learners[0].predict(X_valid), rtol=1e-8)
+    # scikit-learn's PoissonRegressor on the design built with numpy: the same objective (the start
+    # is a constant offset, which its intercept takes up)
+    reference = PoissonRegressor(alpha=0.01, solver="newton-cholesky", tol=1e-12, max_iter=1000)
+    reference.fit(numpy_design(X_train), train["count"])
+    np.testing.assert_allclose(np.exp(cluster.starts[0][0] + glm.predict(X_train)),
+                               reference.predict(numpy_design(X_train)), rtol=1e-7)
+    # lightgbm: LightGBM's poisson objective on one machine, on the same codes, from the chain's output
+    chosen = in_sample(train.index.to_numpy(), SAMPLE_ROWS / len(train), SEED)
+    edges = bin_edges(X_train[chosen])
+    raw_train, raw_valid = memory.fitted().predict_raw(train), memory.fitted().predict_raw(valid)
+    rng = np.random.RandomState(SEED)
+    params = cluster_booster_params("lightgbm", get_kind("lightgbm").resolve_params(boost, "regression"), rng,
+                                    memory.loss)
+    assert params["objective"] == "poisson"
+    model = lightgbm.LGBMRegressor(n_estimators=params.pop("num_boost_round"), **params)
+    model.fit(bin_codes(X_train, edges), train["count"], init_score=raw_train)
+    raw_train = raw_train + model.predict(bin_codes(X_train, edges), raw_score=True)
+    raw_valid = raw_valid + model.predict(bin_codes(X_valid, edges), raw_score=True)
+    expected = [mean_poisson_deviance(valid["count"], np.exp(raw_valid))]
+    # the forest: the ordinary stage on the same sample in memory, fit to the loss's gradient there
+    forest = fit_on_rows(X_train[chosen], train["count"].to_numpy(dtype=float)[chosen], raw_train[chosen].reshape(-1, 1),
+                         memory.schema, memory.loss, [rng], specs[3], 4)
+    raw_valid = raw_valid + forest.scale * forest.learners[0].predict(X_valid)
+    expected.append(mean_poisson_deviance(valid["count"], np.exp(raw_valid)))
+    np.testing.assert_allclose([s.valid["deviance"] for s in cluster.scores()[3:]], expected, rtol=1e-6)
+    counts, _ = cluster.histogram()
+    assert counts["valid"].sum() == cluster.layout.n_valid
+    # the chain file is an ordinary poisson chain: it loads and predicts the mean without the cluster
+    path = tmp_path / "counts.chain"
+    cluster.save(path)
+    np.testing.assert_allclose(stages.load(path).predict(valid), np.exp(raw_valid), rtol=1e-9)
+
+
+@pytest.mark.parametrize("loss", ["gamma", "tweedie"])
+def test_glm_on_the_other_log_link_losses_is_the_in_memory_stage(friedman, client, loss):
+    frame = friedman.assign(amount=friedman["count"] + 0.5 if loss == "gamma" else friedman["count"] * 1.5)
+    cluster, memory = cluster_chain(frame, client, "amount", loss), memory_chain(frame, "amount", loss)
+    for chain in (cluster, memory):
+        chain.add("glm")
+        chain.add("mean")
+    np.testing.assert_allclose(cluster.predict(frame), memory.predict(frame), rtol=1e-8)
+    for ours, theirs in zip(cluster.scores(), memory.scores(), strict=True):
+        assert ours.valid["deviance"] == pytest.approx(theirs.valid["deviance"], rel=1e-8)
+
+
+def test_what_a_cluster_does_not_fit_on_the_log_link_says_so(friedman, client):
+    chain = cluster_chain(friedman, client, "count", "poisson")
+    with pytest.raises(StageSpecError, match="kind 'linear' on a cluster fits the squared loss for now, not 'poisson'"):
+        chain.add("linear")
+    with pytest.raises(DataError, match="fits the losses squared, poisson, gamma, tweedie for now, not 'absolute'"):
+        cluster_chain(friedman, client, "y", "absolute")
+    with pytest.raises(DataError, match="1 row is negative; loss 'poisson' needs counts"):
+        cluster_chain(friedman.assign(count=friedman["count"].where(friedman.index != 5, -1)), client, "count", "poisson")
