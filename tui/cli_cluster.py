@@ -79,7 +79,6 @@ def fit_recipe_on_cluster(recipe: Any, client: Any, data: str | os.PathLike | No
 
     settings = recipe.cluster or ClusterSettings()
     unserved = [what for what, asked in (("date features", recipe.dates), ("row weights", recipe.weight),
-                                         ("an exposure", recipe.exposure),
                                          (f"task {recipe.task!r}", recipe.task not in (None, "regression")))
                 if asked]
     if unserved:
@@ -92,7 +91,7 @@ def fit_recipe_on_cluster(recipe: Any, client: Any, data: str | os.PathLike | No
     frame = read_cluster_data(source, settings.partition_rows)
     try:
         chain = ClusterChain(frame, recipe.target, recipe.validation, recipe.loss, client=client, seed=recipe.seed,
-                             power=recipe.power,
+                             power=recipe.power, exposure=recipe.exposure,
                              ignore=recipe.ignore, features=None if recipe.features is None else list(recipe.features),
                              sample_rows=settings.sample_rows, source=Path(os.fspath(source)).name,
                              data_path=source)

@@ -37,9 +37,12 @@ from ..validation import AllRows, Holdout, Part, ValidationSpec
 from .cluster_fit import CLUSTER_KINDS, ClusterContext, bin_edges, fit_cluster_stage
 from .cluster_loss import (
     check_cluster_target,
+    check_exposure_column,
     cluster_loss,
+    exposure_offset,
     log_link_part_sums,
     log_link_scores,
+    offset_start,
     shown_residual,
     start_value,
 )
@@ -87,7 +90,8 @@ class ClusterChain(Chain):
                  *, client: Any = None, seed: int = 0, ignore: tuple[str, ...] | list[str] = (),
                  features: list[str] | None = None, sample_rows: int = DEFAULT_SAMPLE_ROWS,
                  row_id: str | None = None, source: str = "frame",
-                 data_path: str | os.PathLike | None = None, power: float | None = None) -> None:
+                 data_path: str | os.PathLike | None = None, power: float | None = None,
+                 exposure: str | None = None) -> None:
         require_dask()
         if client is None:
             client = _current_client()
@@ -96,14 +100,17 @@ class ClusterChain(Chain):
             raise ValidationSpecError(f"a chain on a Dask cluster is validated by a holdout for now, not by "
                                       f"{self.validation.describe()}")
         self.loss = cluster_loss(loss, power)
-        self.ignore = tuple(ignore) + ((row_id,) if row_id and row_id not in ignore else ())
+        if exposure is not None:
+            exposure = check_exposure_column(frame._meta, exposure, self.loss, source)
+        self.ignore = tuple(ignore) + tuple(c for c in (row_id, exposure) if c and c not in ignore)
         self.schema = numeric_schema(frame._meta, target, features, self.ignore)
         self.client, self.sample_rows, self.row_id = client, int(sample_rows), row_id
         self.cluster_settings: Any = None  # the recipe's [cluster] table when a recipe built the chain
         fraction = getattr(self.validation, "fraction", 0.0)
         test_fraction = getattr(self.validation, "test_fraction", 0.0)
         self.rows: ClusterRows = build_rows(frame, self.schema, fraction=fraction, test_fraction=test_fraction,
-                                            seed=getattr(self.validation, "seed", 0), row_id=row_id)
+                                            seed=getattr(self.validation, "seed", 0), row_id=row_id,
+                                            columns=(exposure,) if exposure else ())
         check_cluster_target(self.rows, self.loss, target, source)
         n = sum(self.rows.chunks)
         counts = [self.rows.n_part(k) for k in (TRAIN, VALID, TEST)]
@@ -119,7 +126,7 @@ class ClusterChain(Chain):
         self.threshold, self.source = 0.5, source
         self.data_path = None if data_path is None else os.fspath(data_path)
         self.weight = self.offset = None
-        self.weight_column = self.exposure_column = None  # row weights and exposure: not on a cluster yet
+        self.weight_column, self.exposure_column = None, exposure  # row weights: not on a cluster yet
         self._stages: tuple[Stage, ...] = ()
         self._scores: list[Scores] = []
         self._fresh_scores: dict[int, Scores] = {}
@@ -128,11 +135,17 @@ class ClusterChain(Chain):
         self.threads = None
         self._rngs = seeded_streams(self.seed, 1)
         self._lock = threading.RLock()
-        start = start_value(self.loss, float(self.rows.part_rows(self.rows.y, TRAIN).mean().compute()))
-        self.starts = (np.array([start]),)
         import dask.array as da
 
-        self._start_outputs = (da.full((n, 1), start, chunks=(self.rows.chunks, 1), dtype=np.float64).persist(),)
+        if exposure is None:
+            start = start_value(self.loss, float(self.rows.part_rows(self.rows.y, TRAIN).mean().compute()))
+            first = da.full((n, 1), start, chunks=(self.rows.chunks, 1), dtype=np.float64)
+        else:  # log(exposure) enters every row's raw score
+            offset = exposure_offset(self.rows, exposure, source)
+            start = offset_start(self.rows, self.loss, offset)  # type: ignore[arg-type]
+            first = (offset + start)[:, None]
+        self.starts = (np.array([start]),)
+        self._start_outputs = (first.persist(),)
         self._start_scores = self._score(self._start_outputs)
         self.test_revealed, self.reveal_count = False, 0
         self._test: dict[int, dict[str, float]] = {}

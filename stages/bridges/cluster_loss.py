@@ -20,9 +20,9 @@ from typing import Any
 
 import numpy as np
 
-from ..errors import DataError
-from ..loglink import MEAN_FLOOR, LogLinkLoss, unit_deviance
-from ..losses import Loss, get_loss, newton_step
+from ..errors import DataError, StageSpecError
+from ..loglink import MEAN_FLOOR, RAW_CEILING, LogLinkLoss, unit_deviance
+from ..losses import LOG_LINK_NAMES, Loss, get_loss, newton_step
 from .cluster_rows import TRAIN, ClusterRows
 
 #: the losses a chain on a cluster fits
@@ -134,3 +134,53 @@ def log_link_scores(sums: np.ndarray) -> dict[str, float]:
     spread = total_squared - total * total / n
     return {"rmse": float(np.sqrt(squared / n)), "mae": absolute / n,
             "r2": 1.0 - squared / spread if spread > 0 else float("nan"), "deviance": deviance / n, "loss": deviance / n}
+
+
+def check_exposure_column(meta: Any, name: Any, loss: Loss, source: str) -> str:
+    """Return the exposure column's name; raise StageSpecError for a loss off the log link (as in memory)
+    and DataError when it is not a numeric column of the data (values given in Python stay in memory)."""
+    import pandas as pd
+
+    if not isinstance(loss, LogLinkLoss):
+        raise StageSpecError(f"an exposure is for the log-link losses ({', '.join(LOG_LINK_NAMES)}); "
+                             f"loss {loss.name!r} takes none")
+    if not isinstance(name, str):
+        raise DataError("a chain on a Dask cluster takes its exposure from a column of the data: give its name")
+    if name not in meta.columns:
+        raise DataError(f"{source}: exposure column {name!r} is not a column of the data")
+    if not pd.api.types.is_numeric_dtype(meta[name].dtype) or pd.api.types.is_bool_dtype(meta[name].dtype):
+        raise DataError(f"{source}: exposure column {name!r} is {meta[name].dtype}; an exposure is a positive number")
+    return name
+
+
+def exposure_offset(rows: ClusterRows, name: str, source: str) -> Any:
+    """Return log(exposure) of every row, a Dask vector persisted on the workers; raise DataError naming
+    the column, the count of rows that are not a positive number and the first (as ``row_weights``
+    does, the row counted from 1 by its label)."""
+    import dask
+    import dask.array as da
+
+    values = rows.columns[name]
+    bad = ~(da.isfinite(values) & (values > 0))
+    count, first = dask.compute(bad.sum(), da.where(bad, rows.labels, np.iinfo(np.int64).max).min())
+    if count:
+        at, count = int(first), int(count)
+        value = float(da.where(bad & (rows.labels == at), values, 0.0).sum().compute())
+        shown = "missing" if np.isnan(value) else f"{value:g}"
+        raise DataError(f"{source}: exposure column {name!r} must be a positive number; {count:,} "
+                        f"row{'' if count == 1 else 's'} {'is' if count == 1 else 'are'} not "
+                        f"(first: row {at + 1}, {shown})")
+    (offset,) = dask.persist(da.log(values))
+    return offset
+
+
+def offset_start(rows: ClusterRows, loss: LogLinkLoss, offset: Any) -> float:
+    """Return the start value with an offset: the closed-form optimal constant of ``LogLinkLoss._start``,
+    log(sum y e^{(1 - p) o} / sum e^{(2 - p) o}) over the fitting rows, from one reduction."""
+    import dask
+
+    y, o = rows.part_rows(rows.y, TRAIN), rows.part_rows(offset, TRAIN)
+    p = loss.power
+    top, bottom = dask.compute((y * np.exp(np.minimum((1 - p) * o, RAW_CEILING))).sum(),
+                               np.exp(np.minimum((2 - p) * o, RAW_CEILING)).sum())
+    return float(np.log(max(float(top) / float(bottom), MEAN_FLOOR))) if bottom > 0 else 0.0

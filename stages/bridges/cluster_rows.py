@@ -12,7 +12,7 @@ Dask is imported inside the functions: this module imports without it.
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from typing import Any
 
 import numpy as np
@@ -113,6 +113,8 @@ class ClusterRows:
     fold_counts: np.ndarray | None = None
     sampled: Any = None
     sample_counts: np.ndarray | None = None
+    #: other columns of the data asked for by name (an exposure), float64 vectors chunked like the rows
+    columns: dict[str, Any] = field(default_factory=dict)
 
     @property
     def chunks(self) -> tuple[int, ...]:
@@ -166,10 +168,10 @@ def _take(block: np.ndarray, mask: np.ndarray) -> np.ndarray:
 
 
 def build_rows(frame: Any, schema: Schema, *, fraction: float, test_fraction: float, seed: int,
-               folds: int = 0, row_id: str | None = None) -> ClusterRows:
+               folds: int = 0, row_id: str | None = None, columns: tuple[str, ...] = ()) -> ClusterRows:
     """Return the rows of a Dask DataFrame on the workers, persisted: features in schema order as
     float64, the target, each row's label (the ``row_id`` column, else the frame's integer index,
-    else its position in the data) and its part and fold."""
+    else its position in the data), its part and fold, and the named other ``columns`` as float64."""
     import dask
     import dask.array as da
 
@@ -186,9 +188,10 @@ def build_rows(frame: Any, schema: Schema, *, fraction: float, test_fraction: fl
         labels = frame.index.to_dask_array(lengths=lengths).astype(np.int64)
     else:  # the row's place in the data: the same whatever the partitioning
         labels = da.arange(sum(lengths), chunks=(lengths,), dtype=np.int64)
+    extra = {name: frame[name].to_dask_array(lengths=lengths).astype(np.float64) for name in columns}
     part = labels.map_blocks(part_codes, fraction, test_fraction, seed, dtype=np.int8)
     fold = labels.map_blocks(fold_codes, folds, seed, dtype=np.int8) if folds else None
-    X, y, labels, part = dask.persist(X, y, labels, part)
+    X, y, labels, part, extra = dask.persist(X, y, labels, part, extra)
     del frame  # the arrays hold the rows now; the frame's partitions can go
     if fold is not None:
         (fold,) = dask.persist(fold)
@@ -201,7 +204,7 @@ def build_rows(frame: Any, schema: Schema, *, fraction: float, test_fraction: fl
                                 .compute() for f in range(folds)], axis=1)
     if bad:
         raise DataError(f"target {schema.target!r} has {bad:,} missing values; every row needs a target")
-    return ClusterRows(X, y, labels, part, counts, fold, fold_counts)
+    return ClusterRows(X, y, labels, part, counts, fold, fold_counts, columns=extra)
 
 
 def _part_counts(block: np.ndarray) -> np.ndarray:

@@ -58,16 +58,16 @@ def client():
         yield client
 
 
-def cluster_chain(frame: pd.DataFrame, client, target: str = "y", loss: str | None = None) -> ClusterChain:
+def cluster_chain(frame: pd.DataFrame, client, target: str = "y", loss: str | None = None, **options) -> ClusterChain:
     ddf = dd.from_pandas(frame, npartitions=3)
     chain = stages.Chain.from_dask(ddf, target, stages.Holdout(0.2, seed=SPLIT_SEED), client, loss=loss,
-                                   seed=SEED, features=FEATURES, sample_rows=SAMPLE_ROWS)
+                                   seed=SEED, features=FEATURES, sample_rows=SAMPLE_ROWS, **options)
     assert isinstance(chain, ClusterChain)
     return chain
 
 
-def memory_chain(frame: pd.DataFrame, target: str = "y", loss: str | None = None) -> stages.Chain:
-    return stages.Chain(frame, target, stages.SplitColumn("split"), loss=loss, seed=SEED, features=FEATURES)
+def memory_chain(frame: pd.DataFrame, target: str = "y", loss: str | None = None, **options) -> stages.Chain:
+    return stages.Chain(frame, target, stages.SplitColumn("split"), loss=loss, seed=SEED, features=FEATURES, **options)
 
 
 def numpy_design(X: np.ndarray) -> np.ndarray:
@@ -185,3 +185,28 @@ def test_what_a_cluster_does_not_fit_on_the_log_link_says_so(friedman, client):
         cluster_chain(friedman, client, "y", "absolute")
     with pytest.raises(DataError, match="1 row is negative; loss 'poisson' needs counts"):
         cluster_chain(friedman.assign(count=friedman["count"].where(friedman.index != 5, -1)), client, "count", "poisson")
+
+
+def test_an_exposure_enters_the_raw_score_as_in_memory(friedman, client):
+    frame = friedman.assign(months=np.random.RandomState(2).uniform(0.5, 12.0, len(friedman)))
+    frame["claims"] = np.random.RandomState(3).poisson(frame["months"] * np.exp(0.1 * frame["y"] - 2.5))
+    cluster = cluster_chain(frame, client, "claims", "poisson", exposure="months")
+    memory = memory_chain(frame, "claims", "poisson", exposure="months")
+    # the start with an offset: log(sum y / sum exposure) on the fitting rows (poisson's closed form)
+    train = frame[frame["split"] == "train"]
+    assert cluster.starts[0][0] == pytest.approx(np.log(train["claims"].sum() / train["months"].sum()), rel=1e-12)
+    for chain in (cluster, memory):
+        chain.add("mean")
+        chain.add("glm", params={"alpha": 0.001})
+    np.testing.assert_allclose(cluster.predict(frame), memory.predict(frame), rtol=1e-8)  # the rate per month
+    for ours, theirs in zip(cluster.scores(), memory.scores(), strict=True):
+        for part in ("train", "valid"):
+            assert getattr(ours, part)["deviance"] == pytest.approx(getattr(theirs, part)["deviance"], rel=1e-8)
+    assert cluster.fitted().exposure_column == "months"
+    cluster.add("hist_tree", params={"max_depth": 2})  # LightGBM's poisson from the raw score with the offset
+    assert cluster.scores()[3].train["deviance"] < cluster.scores()[2].train["deviance"]
+    with pytest.raises(DataError, match="exposure column 'months' must be a positive number; 1 row is not"):
+        cluster_chain(frame.assign(months=frame["months"].where(frame.index != 7, 0.0)), client, "claims", "poisson",
+                      exposure="months")
+    with pytest.raises(StageSpecError, match="an exposure is for the log-link losses"):
+        cluster_chain(frame, client, "y", exposure="months")
