@@ -81,7 +81,7 @@ class ClusterChain(Chain):
     """A residual chain over a Dask DataFrame: the rows on the cluster of ``client``, the chain here.
 
     ``sample_rows`` is the size of the sample pulled here for the kinds with no distributed
-    learner (and for the linear design and the LightGBM bin edges); ``row_id`` names an integer
+    learner (and for the LightGBM bin edges); ``row_id`` names an integer
     column that labels the rows (default: the frame's integer index when its divisions are
     known, else each row's position in the data).
     """

@@ -1,7 +1,8 @@
 """Fitting one stage of a chain whose rows live on a Dask cluster, by kind (docs/scaling.md).
 
 - ``mean``: a reduction (the mean residual on the fitting rows).
-- ``linear``: the design is learnt from the sample; the least squares come from Dask's TSQR
+- ``linear``: the design is learnt from every fitting row (``cluster_lstsq.exact_design``); the
+  least squares come from Dask's TSQR
   (``dask.array.linalg.tsqr``) of ``[design | residual]`` over every fitting row, so only small
   triangular factors travel, and the solution is the in-memory stage's.
 - ``ridge``: the design from every fitting row (exact medians, means and deviations by
@@ -33,7 +34,6 @@ import numpy as np
 from ..errors import FitCancelled, StageFitError, StageSpecError
 from ..fitting import FitContext, Stage, fit_stage, resolve_features
 from ..kinds import get_kind
-from ..kinds.design import LinearDesign
 from ..kinds.lightgbm_stage import BoosterLearner
 from ..kinds.linear import LinearModel, checked_coefficients, constant_model
 from ..kinds.mean import Constant
@@ -45,7 +45,7 @@ from ..spec import StageSpec
 from ..tracks import Layout, Track
 from .cluster_glm import fit_glm_on_cluster
 from .cluster_loss import loss_residual, mean_shift
-from .cluster_lstsq import fit_ridge
+from .cluster_lstsq import exact_design, fit_ridge
 from .cluster_rows import N_BINS, TRAIN, ClusterRows
 
 #: the kinds fit on every fitting row over the cluster; every other kind fits on the sample
@@ -182,7 +182,7 @@ def _fit_linear(ctx: ClusterContext, spec: StageSpec, params: dict[str, Any], pr
 
     fit_intercept = bool(params.get("fit_intercept", True))
     rows, columns = ctx.rows, ctx.schema.subset(list(features))
-    design = LinearDesign.fit(ctx.sample[0][:, list(features)], columns)
+    design = exact_design(rows, features, columns)  # every fitting row's, as in memory (the fill matters)
     residual = _residual_rows(ctx, previous)
     n = rows.n_part(TRAIN)
     if design.width == 0:

@@ -108,6 +108,15 @@ def test_ridge_on_every_fitting_row_is_the_in_memory_stage_and_scikit_learns(fri
     np.testing.assert_allclose(cluster.stages[0].learners[0].predict(X), reference.predict(design), rtol=1e-8)
 
 
+def test_linear_with_missing_values_fills_them_as_in_memory(friedman, client):
+    # the median fill of x2 comes from every fitting row, so the least squares are the in-memory ones
+    cluster, memory = cluster_chain(friedman, client), memory_chain(friedman)
+    for chain in (cluster, memory):
+        chain.add("linear")
+    np.testing.assert_allclose(cluster.predict(friedman), memory.predict(friedman), rtol=1e-8)
+    assert cluster.scores()[1].valid["rmse"] == pytest.approx(memory.scores()[1].valid["rmse"], rel=1e-8)
+
+
 def test_ridge_with_an_iterative_solver_is_refused_on_a_cluster(friedman, client):
     chain = cluster_chain(friedman, client)
     with pytest.raises((StageSpecError, StageFitError), match="solver 'sag' is not served on a cluster"):
