@@ -44,7 +44,7 @@ from ..schema import Schema
 from ..spec import StageSpec
 from ..tracks import Layout, Track
 from .cluster_glm import fit_glm_on_cluster
-from .cluster_loss import loss_residual, mean_shift
+from .cluster_loss import line_search, loss_residual, mean_shift
 from .cluster_lstsq import exact_design, fit_ridge
 from .cluster_rows import N_BINS, TRAIN, ClusterRows
 
@@ -133,9 +133,6 @@ def fit_cluster_stage(ctx: ClusterContext, spec: StageSpec, previous: Any, *, nu
         _check_cancel(cancel)
         if spec.kind == "mean":
             learner, scale, rule, notes = _fit_mean(ctx, spec, previous)
-        elif spec.kind in ("linear", "ridge") and ctx.loss.name != "squared":
-            raise StageSpecError(f"kind {spec.kind!r} on a cluster fits the squared loss for now, not "
-                                 f"{ctx.loss.name!r}: use glm, or fit on one machine")
         elif spec.kind == "linear":
             learner, scale, rule, notes = _fit_linear(ctx, spec, params, previous, features)
         elif spec.kind == "glm":
@@ -148,6 +145,9 @@ def fit_cluster_stage(ctx: ClusterContext, spec: StageSpec, previous: Any, *, nu
             learner, scale, rule, notes = _fit_booster(ctx, spec, params, previous, features)
         else:
             learner, scale, rule, notes = _fit_on_sample(ctx, spec, previous, number, cancel)
+        if spec.kind in ("linear", "ridge") and isinstance(ctx.loss, LogLinkLoss):  # in memory: the same search
+            fitted = _fitting_output(ctx, learner, features)
+            scale, rule = spec.shrinkage * line_search(ctx.rows, ctx.loss, previous, fitted), "line search on fitting rows"
         _check_cancel(cancel)
         output = _persisted_output(ctx, previous, learner, scale, features)
     except BaseException as exc:
@@ -278,6 +278,16 @@ def fit_on_rows(X: np.ndarray, y: np.ndarray, raw: np.ndarray, schema: Schema, l
     layout = Layout(np.arange(n), n, 0, 0, (Track(n_rows=n, fit=slice(0, n)),))
     ctx = FitContext(np.ascontiguousarray(X), y, schema, layout, loss, rngs[:1])
     return fit_stage(ctx, spec, (raw,), number=number, cancel=cancel)
+
+
+def _fitting_output(ctx: ClusterContext, learner: Any, features: tuple[int, ...]) -> Any:
+    """Return the learner's output on the fitting rows, a Dask vector."""
+    X = ctx.rows.part_rows(ctx.rows.X, TRAIN)[:, list(features)]
+    return X.map_blocks(_predict_rows, learner, drop_axis=1, dtype=np.float64, meta=np.empty(0, dtype=np.float64))
+
+
+def _predict_rows(X: np.ndarray, learner: Any) -> np.ndarray:
+    return np.asarray(learner.predict(X), dtype=np.float64).reshape(-1)
 
 
 def _persisted_output(ctx: ClusterContext, previous: Any, learner: Any, scale: float, features: tuple[int, ...]) -> Any:

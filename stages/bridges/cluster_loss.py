@@ -22,7 +22,7 @@ import numpy as np
 
 from ..errors import DataError, StageSpecError
 from ..loglink import MEAN_FLOOR, RAW_CEILING, LogLinkLoss, unit_deviance
-from ..losses import LOG_LINK_NAMES, Loss, get_loss, newton_step
+from ..losses import LOG_LINK_NAMES, Loss, bracketed_step, get_loss, newton_step
 from .cluster_rows import TRAIN, ClusterRows
 
 #: the losses a chain on a cluster fits
@@ -184,3 +184,35 @@ def offset_start(rows: ClusterRows, loss: LogLinkLoss, offset: Any) -> float:
     top, bottom = dask.compute((y * np.exp(np.minimum((1 - p) * o, RAW_CEILING))).sum(),
                                np.exp(np.minimum((2 - p) * o, RAW_CEILING)).sum())
     return float(np.log(max(float(top) / float(bottom), MEAN_FLOOR))) if bottom > 0 else 0.0
+
+
+def line_search(rows: ClusterRows, loss: LogLinkLoss, previous: Any, output: Any) -> float:
+    """Return the step (at least 0) minimising the mean deviance of the fitting rows along ``output``
+    (the stage's output on them, a Dask vector), as ``LogLinkLoss.line_search`` finds it in memory:
+    the same bracket unit (the spread of each row's Newton step over the spread of the output) and
+    Brent's search, each evaluation one reduction."""
+    import dask
+
+    y, raw = rows.part_rows(rows.y, TRAIN), rows.part_rows(previous[:, 0], TRAIN)
+    (output,) = dask.persist(output)
+    n = rows.n_part(TRAIN)
+    working, spread = dask.compute(y.map_blocks(_working_squares, raw, loss, dtype=np.float64).sum(),
+                                   (output * output).sum())
+    spread_res, spread_out = np.sqrt(float(working) / n), np.sqrt(float(spread) / n)
+    scale = spread_res / spread_out if spread_out > 0 and spread_res > 0 and np.isfinite(spread_out + spread_res) else 0.0
+
+    def objective(step: float) -> float:
+        total = y.map_blocks(_deviance_along, raw, output, step, loss, dtype=np.float64).sum().compute()
+        return float(total) / n
+
+    return bracketed_step(objective, scale)
+
+
+def _working_squares(y: np.ndarray, raw: np.ndarray, loss: LogLinkLoss) -> np.ndarray:
+    curvature = loss.hessian(y, raw)
+    working = np.divide(-loss.gradient(y, raw), curvature, out=np.zeros_like(raw), where=curvature > 0)
+    return working * working
+
+
+def _deviance_along(y: np.ndarray, raw: np.ndarray, output: np.ndarray, step: float, loss: LogLinkLoss) -> np.ndarray:
+    return unit_deviance(y, loss.link(raw + step * output), loss.power)

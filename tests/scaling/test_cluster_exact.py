@@ -174,6 +174,17 @@ def test_poisson_chain_of_glm_mean_and_lightgbm_is_the_in_memory_chain(friedman,
     np.testing.assert_allclose(stages.load(path).predict(valid), np.exp(raw_valid), rtol=1e-9)
 
 
+def test_linear_and_ridge_on_the_log_link_take_the_in_memory_line_search(friedman, client):
+    cluster, memory = cluster_chain(friedman, client, "count", "poisson"), memory_chain(friedman, "count", "poisson")
+    for chain in (cluster, memory):
+        chain.add("linear")
+        chain.add("ridge", params={"alpha": 5.0}, shrinkage=0.5)
+    np.testing.assert_allclose(cluster.predict(friedman), memory.predict(friedman), rtol=1e-8)
+    for ours, theirs in zip(cluster.stages, memory.stages, strict=True):
+        assert ours.step_rule == theirs.step_rule == "line search on fitting rows"
+        assert ours.scale == pytest.approx(theirs.scale, rel=1e-7)
+
+
 @pytest.mark.parametrize("loss", ["gamma", "tweedie"])
 def test_glm_on_the_other_log_link_losses_is_the_in_memory_stage(friedman, client, loss):
     frame = friedman.assign(amount=friedman["count"] + 0.5 if loss == "gamma" else friedman["count"] * 1.5)
@@ -187,9 +198,6 @@ def test_glm_on_the_other_log_link_losses_is_the_in_memory_stage(friedman, clien
 
 
 def test_what_a_cluster_does_not_fit_on_the_log_link_says_so(friedman, client):
-    chain = cluster_chain(friedman, client, "count", "poisson")
-    with pytest.raises(StageSpecError, match="kind 'linear' on a cluster fits the squared loss for now, not 'poisson'"):
-        chain.add("linear")
     with pytest.raises(DataError, match="fits the losses squared, poisson, gamma, tweedie for now, not 'absolute'"):
         cluster_chain(friedman, client, "y", "absolute")
     with pytest.raises(DataError, match="1 row is negative; loss 'poisson' needs counts"):
