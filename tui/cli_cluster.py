@@ -78,7 +78,7 @@ def fit_recipe_on_cluster(recipe: Any, client: Any, data: str | os.PathLike | No
     from stages.files.recipe_steps import replay
 
     settings = recipe.cluster or ClusterSettings()
-    unserved = [what for what, asked in (("date features", recipe.dates), ("row weights", recipe.weight),
+    unserved = [what for what, asked in (("date features", recipe.dates),
                                          (f"task {recipe.task!r}", recipe.task not in (None, "regression")))
                 if asked]
     if unserved:
@@ -91,7 +91,7 @@ def fit_recipe_on_cluster(recipe: Any, client: Any, data: str | os.PathLike | No
     frame = read_cluster_data(source, settings.partition_rows)
     try:
         chain = ClusterChain(frame, recipe.target, recipe.validation, recipe.loss, client=client, seed=recipe.seed,
-                             power=recipe.power, exposure=recipe.exposure,
+                             power=recipe.power, exposure=recipe.exposure, weight=recipe.weight,
                              ignore=recipe.ignore, features=None if recipe.features is None else list(recipe.features),
                              sample_rows=settings.sample_rows, source=Path(os.fspath(source)).name,
                              data_path=source)

@@ -56,6 +56,12 @@ from .cluster_rows import (
     numeric_schema,
     require_dask,
 )
+from .cluster_weights import (
+    check_weight_column,
+    weight_vector,
+    weighted_part_scores,
+    weighted_start,
+)
 
 #: rows of the sample a chain file keeps as its probe (as stages.files.store keeps)
 PROBE_ROWS = 64
@@ -91,7 +97,7 @@ class ClusterChain(Chain):
                  features: list[str] | None = None, sample_rows: int = DEFAULT_SAMPLE_ROWS,
                  row_id: str | None = None, source: str = "frame",
                  data_path: str | os.PathLike | None = None, power: float | None = None,
-                 exposure: str | None = None) -> None:
+                 exposure: str | None = None, weight: str | None = None) -> None:
         require_dask()
         if client is None:
             client = _current_client()
@@ -102,7 +108,9 @@ class ClusterChain(Chain):
         self.loss = cluster_loss(loss, power)
         if exposure is not None:
             exposure = check_exposure_column(frame._meta, exposure, self.loss, source)
-        self.ignore = tuple(ignore) + tuple(c for c in (row_id, exposure) if c and c not in ignore)
+        if weight is not None:
+            weight = check_weight_column(frame._meta, weight, source)
+        self.ignore = tuple(ignore) + tuple(c for c in (row_id, exposure, weight) if c and c not in ignore)
         self.schema = numeric_schema(frame._meta, target, features, self.ignore)
         self.client, self.sample_rows, self.row_id = client, int(sample_rows), row_id
         self.cluster_settings: Any = None  # the recipe's [cluster] table when a recipe built the chain
@@ -110,7 +118,7 @@ class ClusterChain(Chain):
         test_fraction = getattr(self.validation, "test_fraction", 0.0)
         self.rows: ClusterRows = build_rows(frame, self.schema, fraction=fraction, test_fraction=test_fraction,
                                             seed=getattr(self.validation, "seed", 0), row_id=row_id,
-                                            columns=(exposure,) if exposure else ())
+                                            columns=tuple(c for c in (exposure, weight) if c))
         check_cluster_target(self.rows, self.loss, target, source)
         n = sum(self.rows.chunks)
         counts = [self.rows.n_part(k) for k in (TRAIN, VALID, TEST)]
@@ -126,7 +134,9 @@ class ClusterChain(Chain):
         self.threshold, self.source = 0.5, source
         self.data_path = None if data_path is None else os.fspath(data_path)
         self.weight = self.offset = None
-        self.weight_column, self.exposure_column = None, exposure  # row weights: not on a cluster yet
+        self.weight_column, self.exposure_column = weight, exposure
+        # each row's weight, a Dask vector on the workers (None: every row counts once)
+        self.row_weight = None if weight is None else weight_vector(self.rows, weight, source)
         self._stages: tuple[Stage, ...] = ()
         self._scores: list[Scores] = []
         self._fresh_scores: dict[int, Scores] = {}
@@ -137,12 +147,16 @@ class ClusterChain(Chain):
         self._lock = threading.RLock()
         import dask.array as da
 
-        if exposure is None:
+        offset = None if exposure is None else exposure_offset(self.rows, exposure, source)
+        if self.row_weight is not None:
+            start = weighted_start(self.rows, self.loss, self.row_weight, offset)
+        elif offset is not None:
+            start = offset_start(self.rows, self.loss, offset)  # type: ignore[arg-type]
+        else:
             start = start_value(self.loss, float(self.rows.part_rows(self.rows.y, TRAIN).mean().compute()))
+        if offset is None:
             first = da.full((n, 1), start, chunks=(self.rows.chunks, 1), dtype=np.float64)
         else:  # log(exposure) enters every row's raw score
-            offset = exposure_offset(self.rows, exposure, source)
-            start = offset_start(self.rows, self.loss, offset)  # type: ignore[arg-type]
             first = (offset + start)[:, None]
         self.starts = (np.array([start]),)
         self._start_outputs = (first.persist(),)
@@ -155,7 +169,8 @@ class ClusterChain(Chain):
     # ----- what differs: fitting and scoring over the cluster --------------------------------------
     def _fit_sequence(self, specs: list[StageSpec], previous: tuple[Any, ...], first_number: int,
                       cancel: threading.Event | None, progress: ProgressFn | None) -> list[Stage]:
-        ctx = ClusterContext(self.rows, self.schema, self.loss, self._rngs, self.client, self.sample, self.edges)
+        ctx = ClusterContext(self.rows, self.schema, self.loss, self._rngs, self.client, self.sample, self.edges,
+                             self.row_weight)
         fitted: list[Stage] = []
         state = [rng.get_state() for rng in self._rngs]
         try:
@@ -184,6 +199,9 @@ class ClusterChain(Chain):
     def _part_scores(self, output: Any) -> list[dict[str, float]]:
         """Return the scores of each part (train, valid, test) of the cumulative ``output``: one reduction."""
         shift = float(self.starts[0][0]) if hasattr(self, "starts") else 0.0
+        if self.row_weight is not None:
+            shift = float(np.exp(shift)) if isinstance(self.loss, LogLinkLoss) else shift
+            return weighted_part_scores(self.rows, output, self.loss, shift, self.row_weight)
         if isinstance(self.loss, LogLinkLoss):
             shift = float(np.exp(shift))  # the y sums are taken about the start's mean
             return [log_link_scores(row) for row in log_link_part_sums(self.rows, output, self.loss, shift)]
@@ -221,7 +239,9 @@ class ClusterChain(Chain):
         low, high, n = dask.compute(every.min(), every.max(), every.size)
         count = bins if isinstance(bins, int) else int(np.ceil(np.log2(max(n, 1)) + 1))
         edges = np.linspace(float(low), float(high) if high > low else float(low) + 1.0, min(count, max_bins) + 1)
-        counts = dask.compute(*(da.histogram(r, bins=edges)[0] for r in residual.values()))
+        weights = {p: None if self.row_weight is None else self.rows.part_rows(self.row_weight, PART_CODES[p])
+                   for p in parts}  # summed row weights on a weighted chain, as in memory
+        counts = dask.compute(*(da.histogram(residual[p], bins=edges, weights=weights[p])[0] for p in parts))
         return dict(zip(parts, (np.asarray(c) for c in counts), strict=True)), edges
 
     def probe_rows(self) -> np.ndarray:

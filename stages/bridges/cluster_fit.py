@@ -32,7 +32,7 @@ from typing import Any
 import numpy as np
 
 from ..errors import FitCancelled, StageFitError, StageSpecError
-from ..fitting import FitContext, Stage, fit_stage, resolve_features
+from ..fitting import FitContext, Stage, check_weights_taken, fit_stage, resolve_features
 from ..kinds import get_kind
 from ..kinds.lightgbm_stage import BoosterLearner
 from ..kinds.linear import LinearModel, checked_coefficients, constant_model
@@ -45,8 +45,9 @@ from ..spec import StageSpec
 from ..tracks import Layout, Track
 from .cluster_glm import fit_glm_on_cluster
 from .cluster_loss import line_search, loss_residual, mean_shift
-from .cluster_lstsq import exact_design, fit_ridge
+from .cluster_lstsq import centred_factor, exact_design, fit_ridge
 from .cluster_rows import N_BINS, TRAIN, ClusterRows
+from .cluster_weights import weighted_mean_shift
 
 #: the kinds fit on every fitting row over the cluster; every other kind fits on the sample
 CLUSTER_KINDS = ("mean", "linear", "ridge", "glm", "lightgbm", "hist_tree")
@@ -62,7 +63,7 @@ _BIG = 1.7976931348623157e308
 @dataclass
 class ClusterContext:
     """What a stage fit over the cluster reads: the rows, schema, loss, random streams, the client,
-    the sample (X, y) and its bin edges."""
+    the sample (X, y), its bin edges and the row weights."""
 
     rows: ClusterRows
     schema: Schema
@@ -71,6 +72,8 @@ class ClusterContext:
     client: Any
     sample: tuple[np.ndarray, np.ndarray]
     edges: list[np.ndarray]
+    #: each row's weight (a Dask vector chunked like the rows), None when every row counts once
+    weight: Any = None
 
 
 def bin_edges(sample: np.ndarray, n_bins: int = N_BINS) -> list[np.ndarray]:
@@ -127,6 +130,7 @@ def fit_cluster_stage(ctx: ClusterContext, spec: StageSpec, previous: Any, *, nu
     kind = get_kind(spec.kind)
     params = kind.resolve_params(spec.params, ctx.schema.task)
     features = resolve_features(spec, ctx.schema)
+    check_weights_taken(kind, params, spec, ctx.weight is not None)
     before = tuple(rng.get_state() for rng in ctx.rngs)
     started = time.perf_counter()
     try:
@@ -137,7 +141,7 @@ def fit_cluster_stage(ctx: ClusterContext, spec: StageSpec, previous: Any, *, nu
             learner, scale, rule, notes = _fit_linear(ctx, spec, params, previous, features)
         elif spec.kind == "glm":
             model = fit_glm_on_cluster(ctx.rows, ctx.schema.subset(list(features)), params, ctx.loss, previous,
-                                       features)
+                                       features, ctx.weight)
             learner, scale, rule, notes = model, spec.shrinkage, "none (fits the loss)", ()
         elif spec.kind == "ridge":
             learner, scale, rule, notes = _fit_ridge(ctx, spec, params, previous, features)
@@ -147,7 +151,8 @@ def fit_cluster_stage(ctx: ClusterContext, spec: StageSpec, previous: Any, *, nu
             learner, scale, rule, notes = _fit_on_sample(ctx, spec, previous, number, cancel)
         if spec.kind in ("linear", "ridge") and isinstance(ctx.loss, LogLinkLoss):  # in memory: the same search
             fitted = _fitting_output(ctx, learner, features)
-            scale, rule = spec.shrinkage * line_search(ctx.rows, ctx.loss, previous, fitted), "line search on fitting rows"
+            step = line_search(ctx.rows, ctx.loss, previous, fitted, ctx.weight)
+            scale, rule = spec.shrinkage * step, "line search on fitting rows"
         _check_cancel(cancel)
         output = _persisted_output(ctx, previous, learner, scale, features)
     except BaseException as exc:
@@ -168,16 +173,23 @@ def _residual_rows(ctx: ClusterContext, previous: Any) -> Any:
     return loss_residual(ctx.loss, rows.part_rows(rows.y, TRAIN), rows.part_rows(previous[:, 0], TRAIN))
 
 
+def _fitting_weight(ctx: ClusterContext) -> Any:
+    """Return the row weights of the fitting rows (a Dask vector), or None when every row counts once."""
+    return None if ctx.weight is None else ctx.rows.part_rows(ctx.weight, TRAIN)
+
+
 def _fit_mean(ctx: ClusterContext, spec: StageSpec, previous: Any) -> tuple[Any, float, str, tuple[str, ...]]:
+    rule = get_kind("mean").leaf_rule(ctx.loss)
+    if ctx.weight is not None:
+        return Constant(weighted_mean_shift(ctx.rows, ctx.loss, previous, ctx.weight)), spec.shrinkage, rule, ()
     if isinstance(ctx.loss, LogLinkLoss):
-        return Constant(mean_shift(ctx.rows, ctx.loss, previous)), spec.shrinkage, get_kind("mean").leaf_rule(ctx.loss), ()
+        return Constant(mean_shift(ctx.rows, ctx.loss, previous)), spec.shrinkage, rule, ()
     value = float(_residual_rows(ctx, previous).mean().compute())
     return Constant(value), spec.shrinkage, get_kind("mean").leaf_rule(ctx.loss), ()
 
 
 def _fit_linear(ctx: ClusterContext, spec: StageSpec, params: dict[str, Any], previous: Any,
                 features: tuple[int, ...]) -> tuple[Any, float, str, tuple[str, ...]]:
-    import dask.array as da
     from scipy import linalg
 
     fit_intercept = bool(params.get("fit_intercept", True))
@@ -190,13 +202,7 @@ def _fit_linear(ctx: ClusterContext, spec: StageSpec, params: dict[str, Any], pr
     X = rows.part_rows(rows.X, TRAIN)[:, list(features)]
     Z = X.map_blocks(design.transform, chunks=(X.chunks[0], (design.width,)), dtype=np.float64,
                      meta=np.empty((0, 0), dtype=np.float64))
-    x_mean, y_mean = np.zeros(design.width), 0.0
-    if fit_intercept:
-        means = da.compute(Z.mean(axis=0), residual.mean())
-        x_mean, y_mean = np.asarray(means[0], dtype=np.float64), float(means[1])
-    stacked = da.concatenate([Z - x_mean, (residual - y_mean)[:, None]], axis=1).rechunk({1: -1})
-    _, factor = da.linalg.tsqr(stacked)
-    factor = factor.compute()
+    factor, x_mean, y_mean = centred_factor(Z, residual, fit_intercept, _fitting_weight(ctx))
     width = design.width
     cond = max(n, width) * np.finfo(np.float64).eps
     coef = linalg.lstsq(factor[:width, :width], factor[:width, width], cond=cond, check_finite=False)[0]
@@ -206,7 +212,8 @@ def _fit_linear(ctx: ClusterContext, spec: StageSpec, params: dict[str, Any], pr
 
 def _fit_ridge(ctx: ClusterContext, spec: StageSpec, params: dict[str, Any], previous: Any,
                features: tuple[int, ...]) -> tuple[Any, float, str, tuple[str, ...]]:
-    model = fit_ridge(ctx.rows, ctx.schema.subset(list(features)), params, _residual_rows(ctx, previous), features)
+    model = fit_ridge(ctx.rows, ctx.schema.subset(list(features)), params, _residual_rows(ctx, previous), features,
+                      _fitting_weight(ctx))
     return model, spec.shrinkage, "none (least squares)", ()
 
 
@@ -225,7 +232,7 @@ def _fit_booster(ctx: ClusterContext, spec: StageSpec, params: dict[str, Any], p
     model = lightgbm.DaskLGBMRegressor(client=ctx.client, n_estimators=rounds, **native)
     with warnings.catch_warnings():  # each worker sets its own threads, as it should
         warnings.filterwarnings("ignore", message="Parameter n_jobs will be ignored")
-        model.fit(codes, y, init_score=init)
+        model.fit(codes, y, init_score=init, sample_weight=_fitting_weight(ctx))
     text = thresholds_on_values(model.to_local().booster_.model_to_string(), edges)
     booster = lightgbm.Booster(model_str=text)
     learner = BoosterLearner(booster, importance_type=params.get("importance_type", "gain"))
@@ -265,18 +272,20 @@ def _fit_on_sample(ctx: ClusterContext, spec: StageSpec, previous: Any, number: 
                    cancel: threading.Event | None) -> tuple[Any, float, str, tuple[str, ...]]:
     X, y = ctx.sample
     raw = np.asarray(ctx.rows.sampled_rows(previous).compute(), dtype=np.float64).reshape(-1, 1)
-    stage = fit_on_rows(X, y, raw, ctx.schema, ctx.loss, ctx.rngs, spec, number, cancel)
+    weight = None if ctx.weight is None else np.asarray(ctx.rows.sampled_rows(ctx.weight).compute(), dtype=np.float64)
+    stage = fit_on_rows(X, y, raw, ctx.schema, ctx.loss, ctx.rngs, spec, number, cancel, weight)
     return stage.learners[0], stage.scales[0], stage.step_rule, (*stage.notes, f"fit on a sample of {len(y):,} rows")
 
 
 def fit_on_rows(X: np.ndarray, y: np.ndarray, raw: np.ndarray, schema: Schema, loss: Loss,
                 rngs: list[np.random.RandomState], spec: StageSpec, number: int,
-                cancel: threading.Event | None = None) -> Stage:
-    """Return ``spec`` fit in memory on the rows ``X``, ``y`` (every one a fitting row) from the chain's
-    output ``raw`` ((n, 1)), drawing from the main random stream: the ordinary stage fit."""
+                cancel: threading.Event | None = None, weight: np.ndarray | None = None) -> Stage:
+    """Return ``spec`` fit in memory on the rows ``X``, ``y`` (every one a fitting row, weighted by
+    ``weight`` when given) from the chain's output ``raw`` ((n, 1)), drawing from the main random
+    stream: the ordinary stage fit."""
     n = len(y)
     layout = Layout(np.arange(n), n, 0, 0, (Track(n_rows=n, fit=slice(0, n)),))
-    ctx = FitContext(np.ascontiguousarray(X), y, schema, layout, loss, rngs[:1])
+    ctx = FitContext(np.ascontiguousarray(X), y, schema, layout, loss, rngs[:1], weight)
     return fit_stage(ctx, spec, (raw,), number=number, cancel=cancel)
 
 

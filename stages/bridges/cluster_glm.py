@@ -26,18 +26,21 @@ from .cluster_lstsq import exact_design
 from .cluster_rows import TRAIN, ClusterRows
 
 
-def _newton_block(X: np.ndarray, y: np.ndarray, offset: np.ndarray, design: LinearDesign, theta: np.ndarray,
-                  loss: Loss) -> np.ndarray:
+def _newton_block(X: np.ndarray, y: np.ndarray, offset: np.ndarray, weight: np.ndarray, design: LinearDesign,
+                  theta: np.ndarray, loss: Loss) -> np.ndarray:
     matrix = np.c_[design.transform(X), np.ones(len(X))]
     value, slope, curvature = per_row(loss, y[:, 0], offset[:, 0] + matrix @ theta)
+    w = weight[:, 0]
+    value, slope, curvature = w * value, w * slope, w * curvature
     hessian = (matrix * curvature[:, None]).T @ matrix
     return np.concatenate([[float(np.sum(value))], matrix.T @ slope, hessian.ravel()]).reshape(1, -1)
 
 
 def fit_glm_on_cluster(rows: ClusterRows, columns: tuple[ColumnInfo, ...], params: dict[str, Any], loss: Loss,
-                       previous: Any, features: tuple[int, ...]) -> LinearModel:
+                       previous: Any, features: tuple[int, ...], weight: Any = None) -> LinearModel:
     """Return the glm stage fit on every fitting row from the chain's raw output ``previous`` (an (n, 1)
-    Dask array): the in-memory stage's coefficients, Newton's method over reductions."""
+    Dask array), each row counted by ``weight`` (a Dask vector over every row) when given: the
+    in-memory stage's coefficients, Newton's method over reductions."""
     import dask.array as da
 
     alpha, max_iter, tol = glm_settings(params)
@@ -45,12 +48,17 @@ def fit_glm_on_cluster(rows: ClusterRows, columns: tuple[ColumnInfo, ...], param
     X = rows.part_rows(rows.X, TRAIN)[:, list(features)]
     y = rows.part_rows(rows.y, TRAIN)[:, None]
     offset = rows.part_rows(previous[:, 0], TRAIN)[:, None]
-    n, width = rows.n_part(TRAIN), design.width
+    if weight is None:
+        w, n = da.ones_like(y), float(rows.n_part(TRAIN))
+    else:  # the objective's weights are w / sum w, as in memory
+        w = rows.part_rows(weight, TRAIN)[:, None]
+        n = float(w.sum().compute())
+    width = design.width
     size = 1 + (width + 1) + (width + 1) ** 2
     penalty = np.r_[np.full(width, alpha), 0.0]
 
     def evaluate(theta: np.ndarray) -> tuple[float, np.ndarray, np.ndarray]:
-        sums = da.map_blocks(_newton_block, X, y, offset, design, theta, loss, dtype=np.float64,
+        sums = da.map_blocks(_newton_block, X, y, offset, w, design, theta, loss, dtype=np.float64,
                              chunks=((1,) * len(X.chunks[0]), (size,)))
         total = np.asarray(sums.sum(axis=0).compute(), dtype=np.float64) / n
         gradient = total[1:width + 2] + penalty * theta

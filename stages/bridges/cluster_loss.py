@@ -186,11 +186,12 @@ def offset_start(rows: ClusterRows, loss: LogLinkLoss, offset: Any) -> float:
     return float(np.log(max(float(top) / float(bottom), MEAN_FLOOR))) if bottom > 0 else 0.0
 
 
-def line_search(rows: ClusterRows, loss: LogLinkLoss, previous: Any, output: Any) -> float:
+def line_search(rows: ClusterRows, loss: LogLinkLoss, previous: Any, output: Any, weight: Any = None) -> float:
     """Return the step (at least 0) minimising the mean deviance of the fitting rows along ``output``
     (the stage's output on them, a Dask vector), as ``LogLinkLoss.line_search`` finds it in memory:
     the same bracket unit (the spread of each row's Newton step over the spread of the output) and
-    Brent's search, each evaluation one reduction."""
+    Brent's search, each evaluation one reduction. With row weights (a Dask vector over every row)
+    the mean deviance is weighted, as in memory; the bracket unit is not."""
     import dask
 
     y, raw = rows.part_rows(rows.y, TRAIN), rows.part_rows(previous[:, 0], TRAIN)
@@ -201,9 +202,12 @@ def line_search(rows: ClusterRows, loss: LogLinkLoss, previous: Any, output: Any
     spread_res, spread_out = np.sqrt(float(working) / n), np.sqrt(float(spread) / n)
     scale = spread_res / spread_out if spread_out > 0 and spread_res > 0 and np.isfinite(spread_out + spread_res) else 0.0
 
+    w = None if weight is None else rows.part_rows(weight, TRAIN)
+    total_weight = float(n) if w is None else float(w.sum().compute())
+
     def objective(step: float) -> float:
-        total = y.map_blocks(_deviance_along, raw, output, step, loss, dtype=np.float64).sum().compute()
-        return float(total) / n
+        deviance = y.map_blocks(_deviance_along, raw, output, step, loss, dtype=np.float64)
+        return float((deviance if w is None else deviance * w).sum().compute()) / total_weight
 
     return bracketed_step(objective, scale)
 

@@ -147,12 +147,34 @@ def check_ridge_params(params: dict[str, Any]) -> tuple[float, bool]:
     return float(alpha), bool(fit_intercept)
 
 
-def fit_ridge(rows: ClusterRows, columns: tuple[ColumnInfo, ...], params: dict[str, Any], residual: Any,
-              features: tuple[int, ...]) -> LinearModel:
-    """Return the ridge model of the Dask vector ``residual`` (the fitting rows') on the design learnt
-    from every fitting row: scikit-learn Ridge's solution (the penalty on the standardised design,
-    the intercept unpenalised), from the TSQR factor of the centred ``[design | residual]``."""
+def centred_factor(Z: Any, residual: Any, fit_intercept: bool, weight: Any = None) -> tuple[np.ndarray, np.ndarray, float]:
+    """Return the triangular factor R of the centred ``[Z | residual]`` (Dask, the fitting rows) from
+    Dask's TSQR, and the means taken out (zero without an intercept). With row weights (a Dask
+    vector), the weighted means, and each centred row times the root of its weight, as
+    ``kinds.linear.blocked_least_squares`` and scikit-learn's ``sample_weight`` take them."""
     import dask.array as da
+
+    width = Z.shape[1]
+    x_mean, y_mean = np.zeros(width), 0.0
+    if fit_intercept and weight is None:
+        means = da.compute(Z.mean(axis=0), residual.mean())
+        x_mean, y_mean = np.asarray(means[0], dtype=np.float64), float(means[1])
+    elif fit_intercept:
+        sums = da.compute((Z * weight[:, None]).sum(axis=0), (residual * weight).sum(), weight.sum())
+        x_mean, y_mean = np.asarray(sums[0], dtype=np.float64) / float(sums[2]), float(sums[1]) / float(sums[2])
+    stacked = da.concatenate([Z - x_mean, (residual - y_mean)[:, None]], axis=1).rechunk({1: -1})
+    if weight is not None:
+        stacked = stacked * da.sqrt(weight)[:, None]
+    factor = np.asarray(da.linalg.tsqr(stacked)[1].compute(), dtype=np.float64)
+    return factor, x_mean, y_mean
+
+
+def fit_ridge(rows: ClusterRows, columns: tuple[ColumnInfo, ...], params: dict[str, Any], residual: Any,
+              features: tuple[int, ...], weight: Any = None) -> LinearModel:
+    """Return the ridge model of the Dask vector ``residual`` (the fitting rows', weighted by the Dask
+    vector ``weight`` when given) on the design learnt from every fitting row: scikit-learn Ridge's
+    solution (the penalty on the standardised design, the intercept unpenalised), from the TSQR
+    factor of the centred ``[design | residual]``."""
     from scipy import linalg
 
     alpha, fit_intercept = check_ridge_params(params)
@@ -161,12 +183,7 @@ def fit_ridge(rows: ClusterRows, columns: tuple[ColumnInfo, ...], params: dict[s
         return constant_model(design, np.array([float(residual.mean().compute())]), fit_intercept)
     Z = design_rows(rows, design, features)
     width = design.width
-    x_mean, y_mean = np.zeros(width), 0.0
-    if fit_intercept:
-        means = da.compute(Z.mean(axis=0), residual.mean())
-        x_mean, y_mean = np.asarray(means[0], dtype=np.float64), float(means[1])
-    stacked = da.concatenate([Z - x_mean, (residual - y_mean)[:, None]], axis=1).rechunk({1: -1})
-    factor = np.asarray(da.linalg.tsqr(stacked)[1].compute(), dtype=np.float64)
+    factor, x_mean, y_mean = centred_factor(Z, residual, fit_intercept, weight)
     left = np.vstack([factor[:width, :width], np.sqrt(alpha) * np.eye(width)])
     right = np.concatenate([factor[:width, width], np.zeros(width)])
     cond = max(len(left), width) * np.finfo(np.float64).eps

@@ -227,3 +227,34 @@ def test_an_exposure_enters_the_raw_score_as_in_memory(friedman, client):
                       exposure="months")
     with pytest.raises(StageSpecError, match="an exposure is for the log-link losses"):
         cluster_chain(frame, client, "y", exposure="months")
+
+
+def test_row_weights_count_as_in_memory(friedman, client):
+    frame = friedman.assign(w=np.random.RandomState(5).choice([0.0, 0.5, 1.0, 3.0], len(friedman)))
+    for target, loss, kinds in (("y", None, ("mean", "linear", "ridge", "glm")),
+                                ("count", "poisson", ("glm", "mean", "linear"))):
+        cluster = cluster_chain(frame, client, target, loss, weight="w")
+        memory = memory_chain(frame, target, loss, weight="w")
+        assert cluster.starts[0][0] == pytest.approx(memory.starts[0][0], rel=1e-12)
+        for chain in (cluster, memory):
+            for kind in kinds:
+                chain.add(kind)
+        np.testing.assert_allclose(cluster.predict(frame), memory.predict(frame), rtol=1e-8)
+        for ours, theirs in zip(cluster.scores(), memory.scores(), strict=True):
+            for part in ("train", "valid"):
+                for name in ("loss", "rmse", "mae", "r2"):
+                    assert getattr(ours, part)[name] == pytest.approx(getattr(theirs, part)[name], rel=1e-8)
+        counts, _ = cluster.histogram()  # summed weights, as in memory
+        valid = frame[frame["split"] == "valid"]
+        assert counts["valid"].sum() == pytest.approx(valid["w"].sum(), rel=1e-12)
+    assert cluster.fitted().weight_column == "w"
+    # LightGBM takes the weights as sample_weight, the sampled kinds on the sample's weights
+    cluster.add("lightgbm", params={"n_estimators": 5, "num_leaves": 4})
+    cluster.add("tree", params={"max_depth": 3})
+    losses = [s.train["loss"] for s in cluster.scores()]
+    assert losses[-2] < losses[-3]
+    assert list(cluster.table()["fit_on"])[-1].startswith("a sample of ")
+    with pytest.raises(StageSpecError, match="cannot count rows by their weights"):
+        cluster.add("knn")
+    with pytest.raises(DataError, match="weight column 'w' is negative in row 4"):
+        cluster_chain(frame.assign(w=frame["w"].where(frame.index != 3, -1.0)), client, weight="w")
