@@ -258,3 +258,48 @@ def test_row_weights_count_as_in_memory(friedman, client):
         cluster.add("knn")
     with pytest.raises(DataError, match="weight column 'w' is negative in row 4"):
         cluster_chain(frame.assign(w=frame["w"].where(frame.index != 3, -1.0)), client, weight="w")
+
+
+def test_a_poisson_recipe_with_weights_and_exposure_fits_on_the_cluster(friedman, client, tmp_path):
+    from stages.files.recipe import parse_recipe
+    from tui.cli_cluster import fit_recipe_on_cluster
+
+    frame = friedman.assign(months=np.random.RandomState(2).uniform(0.5, 12.0, len(friedman)),
+                            w=np.random.RandomState(5).choice([0.5, 1.0, 2.0], len(friedman)))
+    frame["claims"] = np.random.RandomState(3).poisson(frame["months"] * np.exp(0.1 * frame["y"] - 2.5))
+    (tmp_path / "parts").mkdir()
+    for i, rows in enumerate(np.array_split(np.arange(len(frame)), 3)):  # in data order: the labels are positions
+        frame.iloc[rows].drop(columns="split").to_parquet(tmp_path / "parts" / f"part{i}.parquet", index=False)
+    recipe = parse_recipe(f"""
+[data]
+path = "parts"
+target = "claims"
+features = {FEATURES!r}
+weight = "w"
+exposure = "months"
+
+[chain]
+loss = "poisson"
+seed = {SEED}
+
+[validation]
+fraction = 0.2
+seed = {SPLIT_SEED}
+
+[cluster]
+sample_rows = {SAMPLE_ROWS}
+
+[[stage]]
+kind = "glm"
+
+[[stage]]
+kind = "mean"
+""".replace("'", '"'), tmp_path)
+    cluster = fit_recipe_on_cluster(recipe, client)
+    memory = memory_chain(frame, "claims", "poisson", weight="w", exposure="months")
+    memory.add("glm")
+    memory.add("mean")
+    np.testing.assert_allclose(cluster.predict(frame), memory.predict(frame), rtol=1e-8)
+    assert cluster.scores()[-1].valid["deviance"] == pytest.approx(memory.scores()[-1].valid["deviance"], rel=1e-8)
+    again = parse_recipe(cluster.to_recipe(), tmp_path)  # the recipe it writes keeps the loss and the columns
+    assert (again.loss, again.weight, again.exposure) == ("poisson", "w", "months")
