@@ -41,6 +41,7 @@ def fit_glm_on_cluster(rows: ClusterRows, columns: tuple[ColumnInfo, ...], param
     """Return the glm stage fit on every fitting row from the chain's raw output ``previous`` (an (n, 1)
     Dask array), each row counted by ``weight`` (a Dask vector over every row) when given: the
     in-memory stage's coefficients, Newton's method over reductions."""
+    import dask
     import dask.array as da
 
     alpha, max_iter, tol = glm_settings(params)
@@ -53,6 +54,7 @@ def fit_glm_on_cluster(rows: ClusterRows, columns: tuple[ColumnInfo, ...], param
     else:  # the objective's weights are w / sum w, as in memory
         w = rows.part_rows(weight, TRAIN)[:, None]
         n = float(w.sum().compute())
+    X, y, offset, w = dask.persist(X, y, offset, w)  # read at every evaluation: taken once, for this fit
     width = design.width
     size = 1 + (width + 1) + (width + 1) ** 2
     penalty = np.r_[np.full(width, alpha), 0.0]

@@ -195,14 +195,14 @@ def line_search(rows: ClusterRows, loss: LogLinkLoss, previous: Any, output: Any
     import dask
 
     y, raw = rows.part_rows(rows.y, TRAIN), rows.part_rows(previous[:, 0], TRAIN)
-    (output,) = dask.persist(output)
+    y, raw, output = dask.persist(y, raw, output)  # read at every evaluation: taken once, for this search
     n = rows.n_part(TRAIN)
     working, spread = dask.compute(y.map_blocks(_working_squares, raw, loss, dtype=np.float64).sum(),
                                    (output * output).sum())
     spread_res, spread_out = np.sqrt(float(working) / n), np.sqrt(float(spread) / n)
     scale = spread_res / spread_out if spread_out > 0 and spread_res > 0 and np.isfinite(spread_out + spread_res) else 0.0
 
-    w = None if weight is None else rows.part_rows(weight, TRAIN)
+    w = None if weight is None else rows.part_rows(weight, TRAIN).persist()
     total_weight = float(n) if w is None else float(w.sum().compute())
 
     def objective(step: float) -> float:

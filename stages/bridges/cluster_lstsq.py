@@ -53,18 +53,28 @@ def key_values(keys: np.ndarray) -> np.ndarray:
     return bits.view(np.float64)
 
 
-def _digit_counts(X: np.ndarray, prefixes: np.ndarray, shift: int) -> np.ndarray:
-    """Per column j and wanted rank t, count the values whose key above bit ``shift + 8`` is
-    ``prefixes[j, t]``, by their key's byte at ``shift``: a (1, p * 2 * 256) block."""
-    p = X.shape[1]
+def _key_block(X: np.ndarray) -> np.ndarray:
+    """Return the keys of a block, column by column in memory; a missing value gets the largest key
+    (only a NaN's bits map there), so it sorts after every value and the ranks wanted never reach it."""
+    keys = np.asfortranarray(sortable_keys(X))
+    keys[np.isnan(X)] = np.iinfo(np.uint64).max
+    return keys
+
+
+def _digit_counts(keys: np.ndarray, prefixes: np.ndarray, shift: int) -> np.ndarray:
+    """Per column j and wanted rank t, count the keys whose bits above ``shift + 8`` are
+    ``prefixes[j, t]``, by their byte at ``shift``: a (1, p * 2 * 256) block."""
+    p = keys.shape[1]
     out = np.zeros((p, 2, 256), dtype=np.int64)
     for j in range(p):
-        column = X[:, j]
-        keys = sortable_keys(column[~np.isnan(column)])
-        digits = ((keys >> np.uint64(shift)) & np.uint64(0xFF)).astype(np.intp)
-        high = keys >> np.uint64(shift + 8) if shift < 56 else np.zeros_like(keys)
+        column = keys[:, j]
+        digits = ((column >> np.uint64(shift)) & np.uint64(0xFF)).astype(np.intp)
+        high = column >> np.uint64(shift + 8) if shift < 56 else None
         for t in range(2):
-            out[j, t] = np.bincount(digits[high == prefixes[j, t]], minlength=256)
+            if t == 1 and prefixes[j, 1] == prefixes[j, 0]:
+                out[j, 1] = out[j, 0]
+            else:
+                out[j, t] = np.bincount(digits if high is None else digits[high == prefixes[j, t]], minlength=256)
     return out.reshape(1, -1)
 
 
@@ -74,23 +84,22 @@ def exact_medians(X: Any) -> tuple[np.ndarray, np.ndarray]:
     import dask.array as da
 
     p = X.shape[1]
+    keys = X.map_blocks(_key_block, dtype=np.uint64).persist()  # held on the workers for the 8 rounds only
+    present = X.shape[0] - np.asarray(da.isnan(X).sum(axis=0).compute(), dtype=np.int64).reshape(p)
+    ranks = np.stack([(present - 1) // 2, present // 2], axis=1).clip(min=0)  # the two middle values
     prefixes = np.zeros((p, 2), dtype=np.uint64)
-    ranks = np.zeros((p, 2), dtype=np.int64)
-    present = np.zeros(p, dtype=np.int64)
     for byte in range(8):
         shift = 56 - 8 * byte
-        counts = da.map_blocks(_digit_counts, X, prefixes.copy(), shift, dtype=np.int64,
-                               chunks=((1,) * len(X.chunks[0]), (p * 512,)))
+        counts = da.map_blocks(_digit_counts, keys, prefixes.copy(), shift, dtype=np.int64,
+                               chunks=((1,) * len(keys.chunks[0]), (p * 512,)))
         total = np.asarray(counts.sum(axis=0).compute(), dtype=np.int64).reshape(p, 2, 256)
-        if byte == 0:  # every value is counted in the first round: the ranks of the two middle values
-            present = total[:, 0].sum(axis=1)
-            ranks = np.stack([(present - 1) // 2, present // 2], axis=1).clip(min=0)
         below = np.cumsum(total, axis=2)
         digit = (below <= ranks[:, :, None]).sum(axis=2).clip(max=255)
         before = np.take_along_axis(below, digit[:, :, None], axis=2)[:, :, 0] - np.take_along_axis(
             total, digit[:, :, None], axis=2)[:, :, 0]
         ranks = ranks - before
         prefixes = (prefixes << np.uint64(8)) | digit.astype(np.uint64)
+    del keys  # released on the workers with the last reference
     middle = key_values(prefixes.reshape(-1)).reshape(p, 2)
     medians = np.where(present > 0, np.mean(middle, axis=1), 0.0)
     return medians, present
@@ -112,7 +121,7 @@ def exact_design(rows: ClusterRows, features: tuple[int, ...], columns: tuple[Co
     known = _DESIGNS.setdefault(id(rows), {})
     if features in known:
         return known[features]
-    X = rows.part_rows(rows.X, TRAIN)[:, list(features)]
+    X = rows.part_rows(rows.X, TRAIN)[:, list(features)].persist()  # read 10 times: taken once
     n, p = rows.n_part(TRAIN), len(features)
     medians, present = exact_medians(X)
     sums = da.map_blocks(_shifted_sums, X, medians, dtype=np.float64, chunks=((1,) * len(X.chunks[0]), (2 * p,)))
