@@ -9,7 +9,11 @@ reduction over the partitions, with only sums travelling:
 - the scores of a part: the row count and the sums of the deviance, of the squared and absolute
   error of the mean ``mu``, and of y about the start and its square, one reduction for all parts;
 - the residual a stage fits (the negative gradient) and the residual users see (the deviance
-  residual), partition by partition.
+  residual), partition by partition;
+- an exposure column: checked, and its log persisted as every row's offset, the start value then
+  in its closed form;
+- the line search of a ``linear`` or ``ridge`` stage on the log link: the in-memory search, each
+  evaluation of the mean deviance one reduction.
 
 Dask is imported inside the functions: this module imports without it.
 """
