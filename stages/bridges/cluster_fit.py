@@ -221,6 +221,8 @@ def _fit_booster(ctx: ClusterContext, spec: StageSpec, params: dict[str, Any], p
                  features: tuple[int, ...]) -> tuple[Any, float, str, tuple[str, ...]]:
     import lightgbm
 
+    from .cluster_lightgbm_log import QuietDaskLGBMRegressor
+
     native = cluster_booster_params(spec.kind, params, ctx.rngs[0], ctx.loss)
     rounds = native.pop("num_boost_round")
     rows = ctx.rows
@@ -229,7 +231,7 @@ def _fit_booster(ctx: ClusterContext, spec: StageSpec, params: dict[str, Any], p
     codes = X.map_blocks(bin_codes, edges, dtype=np.float64, meta=np.empty((0, 0), dtype=np.float64))
     y = rows.part_rows(rows.y, TRAIN)
     init = rows.part_rows(previous[:, 0], TRAIN)
-    model = lightgbm.DaskLGBMRegressor(client=ctx.client, n_estimators=rounds, **native)
+    model = QuietDaskLGBMRegressor(client=ctx.client, n_estimators=rounds, **native)
     with warnings.catch_warnings():  # each worker sets its own threads, as it should
         warnings.filterwarnings("ignore", message="Parameter n_jobs will be ignored")
         model.fit(codes, y, init_score=init, sample_weight=_fitting_weight(ctx))

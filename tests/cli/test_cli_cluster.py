@@ -76,6 +76,21 @@ def test_fit_and_predict_on_a_local_cluster(parts, run, tmp_path):
     assert sorted(os.listdir(tmp_path / "scores")) == [f"part.{i}.parquet" for i in range(3)]
 
 
+def test_lightgbm_network_lines_stay_off_the_terminal(parts, capfd, tmp_path):
+    # the workers of local:2 are processes writing to this terminal's descriptors, which capfd holds;
+    # the three parts stay three partitions, so both workers train and LightGBM starts its network
+    pytest.importorskip("distributed")
+    import tui.cli
+
+    (tmp_path / "three.toml").write_text(RECIPE.replace("partition_rows = 1000\n", ""))
+    status = tui.cli.main(["fit", "three.toml", "--cluster", "local:2", "--out", "c.chain"])
+    out, err = capfd.readouterr()
+    assert status == 0, err
+    assert "hist_tree" in out and "saved c.chain (3 stages)" in err
+    for line in ("[LightGBM]", "Trying to bind port", "Connected to rank", "Listening..."):
+        assert line not in out and line not in err
+
+
 @pytest.mark.parametrize(("table", "message"), [
     ('address = "udp://x:1"', "address must be 'local:N' or 'tcp://host:port'"),
     ('address = "local:0"', "a local cluster has 1 to 64 workers"),
