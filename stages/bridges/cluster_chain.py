@@ -10,7 +10,8 @@ raises ChainStateError saying a chain on a cluster cannot serve it yet.
 
 For now a chain on a cluster is a regression chain with squared loss or a loss on the log link
 (``cluster_loss``) over numeric features,
-validated by a holdout or no validation; the parts come from a hash of each row's label.
+validated by a holdout, k folds (one track per fold, ``cluster_folds``) or no validation; the parts
+and folds come from a hash of each row's label.
 """
 
 from __future__ import annotations
@@ -33,8 +34,9 @@ from ..loglink import LogLinkLoss
 from ..scoring import Scores
 from ..spec import StageSpec
 from ..tracks import Layout, Track
-from ..validation import AllRows, Holdout, Part, ValidationSpec
+from ..validation import AllRows, Holdout, KFold, Part, ValidationSpec
 from .cluster_fit import CLUSTER_KINDS, ClusterContext, bin_edges, fit_cluster_stage
+from .cluster_folds import fold_track_rows, fold_track_sample, merge_tracks
 from .cluster_loss import (
     check_cluster_target,
     check_exposure_column,
@@ -102,9 +104,10 @@ class ClusterChain(Chain):
         if client is None:
             client = _current_client()
         self.validation = validation if validation is not None else Holdout()
-        if not isinstance(self.validation, Holdout | AllRows):
-            raise ValidationSpecError(f"a chain on a Dask cluster is validated by a holdout for now, not by "
-                                      f"{self.validation.describe()}")
+        if not isinstance(self.validation, Holdout | KFold | AllRows):
+            raise ValidationSpecError(f"a chain on a Dask cluster is validated by a holdout or k folds for now, "
+                                      f"not by {self.validation.describe()}")
+        folds = self.validation.folds if isinstance(self.validation, KFold) else 0
         self.loss = cluster_loss(loss, power)
         if exposure is not None:
             exposure = check_exposure_column(frame._meta, exposure, self.loss, source)
@@ -117,17 +120,30 @@ class ClusterChain(Chain):
         fraction = getattr(self.validation, "fraction", 0.0)
         test_fraction = getattr(self.validation, "test_fraction", 0.0)
         self.rows: ClusterRows = build_rows(frame, self.schema, fraction=fraction, test_fraction=test_fraction,
-                                            seed=getattr(self.validation, "seed", 0), row_id=row_id,
+                                            seed=getattr(self.validation, "seed", 0), folds=folds, row_id=row_id,
                                             columns=tuple(c for c in (exposure, weight) if c))
         check_cluster_target(self.rows, self.loss, target, source)
         n = sum(self.rows.chunks)
         counts = [self.rows.n_part(k) for k in (TRAIN, VALID, TEST)]
         if counts[0] == 0:
             raise ValidationSpecError(f"{self.validation.describe()}: no row of the {n:,} is left to fit on")
+        # a fold track's rows are not positions here: its rows are ``track_rows`` (cluster_folds)
+        fold_tracks = tuple(Track(n_rows=counts[0], fit=slice(0, 0), evaluate=np.empty(0, dtype=np.int64))
+                            for _ in range(folds))
         self.layout = Layout(np.empty(0, dtype=np.int64), counts[0], counts[1], counts[2],
-                             (Track(n_rows=n, fit=slice(0, counts[0])),))
+                             (Track(n_rows=n, fit=slice(0, counts[0])), *fold_tracks))
         self.seed = int(seed)
         self.sample = self.rows.sample(self.sample_rows, self.seed)
+        self.track_rows: tuple[ClusterRows, ...] = (self.rows, *(fold_track_rows(self.rows, f) for f in range(folds)))
+        for f, track in enumerate(self.track_rows[1:]):
+            if track.n_part(TRAIN) == 0 or track.n_part(VALID) == 0:
+                raise ValidationSpecError(f"{self.validation.describe()}: fold {f + 1} leaves no row to fit on "
+                                          "or none to score")
+        if folds:
+            sample_folds = np.asarray(self.rows.sampled_rows(self.rows.fold).compute())
+            self.track_samples = (self.sample, *(fold_track_sample(self.sample, sample_folds, f) for f in range(folds)))
+        else:
+            self.track_samples = (self.sample,)
         self.schema = self.schema.with_fills(self.sample[0])
         self.edges = bin_edges(self.sample[0])
         self.prepared = ClusterPrepared((), features is None)  # type: ignore[assignment]
@@ -143,23 +159,27 @@ class ClusterChain(Chain):
         self._removals = []
         # the workers' own cores: this machine's thread setting is not theirs to take
         self.threads = None
-        self._rngs = seeded_streams(self.seed, 1)
+        self._rngs = seeded_streams(self.seed, len(self.layout.tracks))
         self._lock = threading.RLock()
         import dask.array as da
 
         offset = None if exposure is None else exposure_offset(self.rows, exposure, source)
-        if self.row_weight is not None:
-            start = weighted_start(self.rows, self.loss, self.row_weight, offset)
-        elif offset is not None:
-            start = offset_start(self.rows, self.loss, offset)  # type: ignore[arg-type]
-        else:
-            start = start_value(self.loss, float(self.rows.part_rows(self.rows.y, TRAIN).mean().compute()))
-        if offset is None:
-            first = da.full((n, 1), start, chunks=(self.rows.chunks, 1), dtype=np.float64)
-        else:  # log(exposure) enters every row's raw score
-            first = (offset + start)[:, None]
-        self.starts = (np.array([start]),)
-        self._start_outputs = (first.persist(),)
+        starts, firsts = [], []
+        for rows in self.track_rows:  # each track's start from its own fitting rows
+            if self.row_weight is not None:
+                start = weighted_start(rows, self.loss, self.row_weight, offset)
+            elif offset is not None:
+                start = offset_start(rows, self.loss, offset)  # type: ignore[arg-type]
+            else:
+                start = start_value(self.loss, float(rows.part_rows(rows.y, TRAIN).mean().compute()))
+            if offset is None:
+                first = da.full((n, 1), start, chunks=(self.rows.chunks, 1), dtype=np.float64)
+            else:  # log(exposure) enters every row's raw score
+                first = (offset + start)[:, None]
+            starts.append(np.array([start]))
+            firsts.append(first.persist())
+        self.starts = tuple(starts)
+        self._start_outputs = tuple(firsts)
         self._start_scores = self._score(self._start_outputs)
         self.test_revealed, self.reveal_count = False, 0
         self._test: dict[int, dict[str, float]] = {}
@@ -169,15 +189,18 @@ class ClusterChain(Chain):
     # ----- what differs: fitting and scoring over the cluster --------------------------------------
     def _fit_sequence(self, specs: list[StageSpec], previous: tuple[Any, ...], first_number: int,
                       cancel: threading.Event | None, progress: ProgressFn | None) -> list[Stage]:
-        ctx = ClusterContext(self.rows, self.schema, self.loss, self._rngs, self.client, self.sample, self.edges,
-                             self.row_weight)
+        tracks = [ClusterContext(rows, self.schema, self.loss, [rng], self.client, sample, self.edges, self.row_weight)
+                  for rows, rng, sample in zip(self.track_rows, self._rngs, self.track_samples, strict=True)]
         fitted: list[Stage] = []
         state = [rng.get_state() for rng in self._rngs]
         try:
             for i, spec in enumerate(specs):
                 if progress is not None:
                     progress(i / len(specs), f"stage {first_number + i} ({spec.kind}) on the cluster")
-                stage = fit_cluster_stage(ctx, spec, previous[0], number=first_number + i, cancel=cancel)
+                before = tuple(rng.get_state() for rng in self._rngs)
+                fits = [fit_cluster_stage(ctx, spec, out, number=first_number + i, cancel=cancel)
+                        for ctx, out in zip(tracks, previous, strict=True)]
+                stage = merge_tracks(fits, before, tuple(rng.get_state() for rng in self._rngs))
                 fitted.append(stage)
                 previous = stage.outputs
         except BaseException:
@@ -193,19 +216,40 @@ class ClusterChain(Chain):
         rebuild would have to predict every partition again."""
 
     def _score(self, outputs: tuple[Any, ...]) -> Scores:
+        """Return the scores of one set of track outputs: the main track on the fitting rows and the
+        validation rows; with k folds the validation scores are out of fold (each fold track on its own
+        fold's rows, which its rows give the validation code), with the per-fold scores."""
         scores = self._part_scores(outputs[0])
-        return Scores(scores[TRAIN], scores[VALID])
+        if len(outputs) == 1:
+            return Scores(scores[TRAIN], scores[VALID])
+        per_fold = [self._part_scores(out, rows)[VALID] for rows, out in
+                    zip(self.track_rows[1:], outputs[1:], strict=True)]
+        valid = self._out_of_fold_scores(outputs)
+        return Scores(scores[TRAIN], valid, tuple(f[self.loss.primary] for f in per_fold))
 
-    def _part_scores(self, output: Any) -> list[dict[str, float]]:
-        """Return the scores of each part (train, valid, test) of the cumulative ``output``: one reduction."""
+    def _out_of_fold_scores(self, outputs: tuple[Any, ...]) -> dict[str, float]:
+        """Return the scores of every fitting row, each predicted by the track that held its fold out."""
+        import dask.array as da
+
+        assert self.rows.fold is not None
+        oof = outputs[1]
+        for f, out in enumerate(outputs[2:], start=1):
+            oof = da.where((self.rows.fold == f)[:, None], out, oof)
+        # every fitting row scored out of fold: the main rows' train part, read as validation
+        return self._part_scores(oof)[TRAIN]
+
+    def _part_scores(self, output: Any, rows: ClusterRows | None = None) -> list[dict[str, float]]:
+        """Return the scores of each part (train, valid, test) of the cumulative ``output`` over ``rows``
+        (the chain's unless a fold track's): one reduction."""
+        rows = self.rows if rows is None else rows
         shift = float(self.starts[0][0]) if hasattr(self, "starts") else 0.0
         if self.row_weight is not None:
             shift = float(np.exp(shift)) if isinstance(self.loss, LogLinkLoss) else shift
-            return weighted_part_scores(self.rows, output, self.loss, shift, self.row_weight)
+            return weighted_part_scores(rows, output, self.loss, shift, self.row_weight)
         if isinstance(self.loss, LogLinkLoss):
             shift = float(np.exp(shift))  # the y sums are taken about the start's mean
-            return [log_link_scores(row) for row in log_link_part_sums(self.rows, output, self.loss, shift)]
-        return [regression_scores(row) for row in part_sums(self.rows, output, shift)]
+            return [log_link_scores(row) for row in log_link_part_sums(rows, output, self.loss, shift)]
+        return [regression_scores(row) for row in part_sums(rows, output, shift)]
 
     def reveal_test(self) -> list[dict[str, float]]:
         """Score every row on the locked test part (one reduction per row) and return the scores."""
@@ -232,15 +276,20 @@ class ClusterChain(Chain):
         import dask
         import dask.array as da
 
-        output = self.outputs(row)[0]
-        shown = shown_residual(self.loss, self.rows.y, output[:, 0])
+        outputs = self.outputs(row)
+        shown = shown_residual(self.loss, self.rows.y, outputs[0][:, 0])
         residual = {p: self.rows.part_rows(shown, PART_CODES[p]) for p in parts}
+        if self.layout.is_kfold and "valid" in parts:  # out of fold: each fold track on its own fold's rows
+            residual["valid"] = da.concatenate([rows.part_rows(shown_residual(self.loss, rows.y, out[:, 0]), VALID)
+                                                for rows, out in zip(self.track_rows[1:], outputs[1:], strict=True)])
         every = da.concatenate(list(residual.values()))
         low, high, n = dask.compute(every.min(), every.max(), every.size)
         count = bins if isinstance(bins, int) else int(np.ceil(np.log2(max(n, 1)) + 1))
         edges = np.linspace(float(low), float(high) if high > low else float(low) + 1.0, min(count, max_bins) + 1)
         weights = {p: None if self.row_weight is None else self.rows.part_rows(self.row_weight, PART_CODES[p])
                    for p in parts}  # summed row weights on a weighted chain, as in memory
+        if self.layout.is_kfold and "valid" in parts and self.row_weight is not None:
+            weights["valid"] = da.concatenate([rows.part_rows(self.row_weight, VALID) for rows in self.track_rows[1:]])
         counts = dask.compute(*(da.histogram(residual[p], bins=edges, weights=weights[p])[0] for p in parts))
         return dict(zip(parts, (np.asarray(c) for c in counts), strict=True)), edges
 
