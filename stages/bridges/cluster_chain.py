@@ -48,6 +48,7 @@ from .cluster_loss import (
     shown_residual,
     start_value,
 )
+from .cluster_lost_worker import check_workers_free
 from .cluster_rows import (
     DEFAULT_SAMPLE_ROWS,
     TEST,
@@ -193,6 +194,7 @@ class ClusterChain(Chain):
                   for rows, rng, sample in zip(self.track_rows, self._rngs, self.track_samples, strict=True)]
         fitted: list[Stage] = []
         state = [rng.get_state() for rng in self._rngs]
+        check_workers_free(self.client)  # not behind a lost stage's training threads
         try:
             for i, spec in enumerate(specs):
                 if progress is not None:

@@ -222,6 +222,7 @@ def _fit_booster(ctx: ClusterContext, spec: StageSpec, params: dict[str, Any], p
     import lightgbm
 
     from .cluster_lightgbm_log import QuietDaskLGBMRegressor
+    from .cluster_lost_worker import training_guard
 
     native = cluster_booster_params(spec.kind, params, ctx.rngs[0], ctx.loss)
     rounds = native.pop("num_boost_round")
@@ -232,8 +233,9 @@ def _fit_booster(ctx: ClusterContext, spec: StageSpec, params: dict[str, Any], p
     y = rows.part_rows(rows.y, TRAIN)
     init = rows.part_rows(previous[:, 0], TRAIN)
     model = QuietDaskLGBMRegressor(client=ctx.client, n_estimators=rounds, **native)
-    with warnings.catch_warnings():  # each worker sets its own threads, as it should
-        warnings.filterwarnings("ignore", message="Parameter n_jobs will be ignored")
+    # a worker lost mid-training fails the stage at once, and the next stage cannot wait behind it
+    with training_guard(ctx.client, f"{spec.kind} stage"), warnings.catch_warnings():
+        warnings.filterwarnings("ignore", message="Parameter n_jobs will be ignored")  # each worker sets its own
         model.fit(codes, y, init_score=init, sample_weight=_fitting_weight(ctx))
     text = thresholds_on_values(model.to_local().booster_.model_to_string(), edges)
     booster = lightgbm.Booster(model_str=text)

@@ -1,5 +1,6 @@
 """A worker lost during a LightGBM stage on a 3-worker cluster: the fit completes, or fails with a clear
-message and the chain as it was (no stage, no score, no random draw changed)."""
+message and the chain as it was (no stage, no score, no random draw changed); the next stage then
+completes or fails at once with what to do, and once the workers are restarted it completes."""
 
 from __future__ import annotations
 
@@ -17,6 +18,7 @@ import pandas as pd  # noqa: E402
 from sklearn.datasets import make_friedman1  # noqa: E402
 
 import stages  # noqa: E402
+from stages.bridges.cluster_rows import ClusterError  # noqa: E402
 from stages.chain_state import same_stream  # noqa: E402
 from stages.errors import StageFitError  # noqa: E402
 
@@ -64,3 +66,14 @@ def test_a_worker_lost_mid_stage_leaves_the_chain_whole(tmp_path):
             assert outcome == {"done": True} and len(chain) == 2
         chain.save(tmp_path / "after.chain")
         assert len(stages.load(tmp_path / "after.chain").stages) == len(chain)
+        # the next stage: done, or refused at once (the workers left may hold the lost stage's training)
+        length = len(chain)
+        try:
+            chain.add("lightgbm", params={"n_estimators": 5, "num_leaves": 7})
+        except ClusterError as exc:
+            assert "error" in outcome and "restart them" in str(exc) and len(chain) == length
+            held = list(client.scheduler_info()["workers"])
+            client.restart_workers(held, timeout=120)
+            client.wait_for_workers(len(held), timeout=120)
+            chain.add("lightgbm", params={"n_estimators": 5, "num_leaves": 7})
+        assert len(chain) == length + 1 and chain.scores()[-1].valid["rmse"] < chain.scores()[1].valid["rmse"]
