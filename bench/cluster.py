@@ -73,7 +73,11 @@ for i, start in enumerate(range(0, rows, part_rows)):
 
 FIT = """
 import resource, sys, time
+sys.path.insert(0, {bench!r})
 import tui.cli
+if "--cluster" in sys.argv:
+    import cluster_probe
+    cluster_probe.install()
 started = time.perf_counter()
 status = tui.cli.main(sys.argv[1:])
 print("FIGURES", status, time.perf_counter() - started, resource.getrusage(resource.RUSAGE_SELF).ru_maxrss * 1024)
@@ -90,14 +94,17 @@ def write_parts(folder: Path, rows: int, features: int, part_rows: int) -> None:
 def fit(recipe: Path, out: Path, cluster: str | None) -> dict[str, float]:
     """Run ``remnant fit`` in its own process; return its wall time and peak resident size."""
     argv = ["fit", str(recipe), "--out", str(out)] + (["--cluster", cluster] if cluster else [])
-    done = subprocess.run([sys.executable, "-c", FIT, *argv], capture_output=True, text=True)
+    code = FIT.format(bench=str(Path(__file__).resolve().parent))
+    done = subprocess.run([sys.executable, "-c", code, *argv], capture_output=True, text=True)
     figures = [line for line in done.stdout.splitlines() if line.startswith("FIGURES")]
     if done.returncode or not figures or figures[0].split()[1] != "0":
         raise SystemExit(f"remnant fit failed:\n{done.stderr[-3000:]}")
     _, _, seconds, peak = figures[0].split()
-    table = [line for line in done.stdout.splitlines() if not line.startswith(("FIGURES", "[LightGBM]"))]
+    probes = [json.loads(line[len("PROBE "):]) for line in done.stdout.splitlines() if line.startswith("PROBE ")]
+    table = [line for line in done.stdout.splitlines() if not line.startswith(("FIGURES", "PROBE", "[LightGBM]"))]
     print("\n".join(table[:8]))
-    return {"seconds": float(seconds), "peak_bytes": float(peak)}
+    lightgbm_lines = sum(line.startswith("[LightGBM]") for line in done.stderr.splitlines())
+    return {"seconds": float(seconds), "peak_bytes": float(peak), "steps": probes, "lightgbm_lines": lightgbm_lines}
 
 
 def main() -> None:
@@ -109,7 +116,8 @@ def main() -> None:
     parser.add_argument("--workers", type=int, default=2)
     parser.add_argument("--part-rows", type=int, default=1_000_000)
     parser.add_argument("--quick", action="store_true", help="400,000 rows, 100,000 in memory")
-    parser.add_argument("--folder", help="keep the data here (default: a temporary folder)")
+    parser.add_argument("--folder", help="keep the data here, and use it again when it is there "
+                                         "(default: a temporary folder)")
     parser.add_argument("--cluster-only", action="store_true", help="skip the in-memory fit")
     args = parser.parse_args()
     if args.quick:
@@ -118,8 +126,9 @@ def main() -> None:
         root = Path(args.folder or scratch)
         parts, first = root / "parts", root / "first"
         started = time.perf_counter()
-        write_parts(parts, args.rows, args.features, args.part_rows)
-        write_parts(first, args.memory_rows, args.features, args.memory_rows)  # the first rows, one file
+        if not (args.folder and (parts / "part0000.parquet").exists()):  # a kept folder's data is used again
+            write_parts(parts, args.rows, args.features, args.part_rows)
+            write_parts(first, args.memory_rows, args.features, args.memory_rows)  # the first rows, one file
         written = time.perf_counter() - started
         (root / "cluster.toml").write_text(RECIPE.format(path=parts.as_posix()))
         (root / "memory.toml").write_text(RECIPE.format(path=(first / "part0000.parquet").as_posix()))
@@ -136,6 +145,7 @@ def main() -> None:
         "memory_peak_gib": round(in_memory["peak_bytes"] / GiB, 3),
         "memory_seconds_scaled": round(scaled, 1), "cluster_over_scaled_memory": round(on_cluster["seconds"] / scaled, 2),
         "peak_under_1_gib": on_cluster["peak_bytes"] < GiB,
+        "cluster_steps": on_cluster["steps"], "lightgbm_lines_on_stderr": on_cluster["lightgbm_lines"],
     }
     print(json.dumps(figures, indent=1))
 
