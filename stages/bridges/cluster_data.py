@@ -19,7 +19,6 @@ def cluster_client(address: str) -> Iterator[Any]:
     """Yield a ``distributed.Client`` of the scheduler at ``address``, or of a LocalCluster of N worker
     processes started for ``local:N`` (and closed after); raise ClusterError when Dask is missing or
     the scheduler cannot be reached."""
-    from .cluster_lightgbm_log import quiet_local_workers
     from .cluster_rows import ClusterError, require_dask
 
     require_dask()
@@ -30,6 +29,8 @@ def cluster_client(address: str) -> Iterator[Any]:
     if workers is not None:
         with LocalCluster(n_workers=workers, threads_per_worker=1, dashboard_address=":0",
                           memory_limit=0) as cluster, Client(cluster) as client:
+            from .cluster_lightgbm_log import quiet_local_workers
+
             quiet_local_workers(client)  # LightGBM's network chatter would reach this terminal
             yield client
         return
