@@ -110,3 +110,22 @@ def test_kfold_on_the_cluster_scores_as_the_in_memory_folds(friedman, client):
     kept = cluster.scores()[3]
     cluster.step_back()  # drops the last stage of every track, with no computation
     assert len(cluster) == 3 and cluster.scores()[3] == kept
+
+
+def test_kfold_of_a_weighted_poisson_chain_with_exposure_scores_as_in_memory(friedman, client):
+    # each track's start and glm from its own fitting rows, weighted, with log(exposure) in every row's score
+    frame = friedman.assign(months=np.random.RandomState(2).uniform(0.5, 12.0, len(friedman)),
+                            w=np.random.RandomState(5).choice([0.5, 1.0, 2.0], len(friedman)))
+    frame["claims"] = np.random.RandomState(3).poisson(frame["months"] * np.exp(0.1 * frame["y"] - 2.5))
+    options = {"loss": "poisson", "seed": SEED, "features": FEATURES, "weight": "w", "exposure": "months"}
+    cluster = stages.Chain.from_dask(dd.from_pandas(frame, npartitions=3), "claims", stages.KFold(FOLDS, seed=FOLD_SEED),
+                                     client, sample_rows=SAMPLE_ROWS, **options)
+    memory = stages.Chain(frame, "claims", HashFolds(FOLDS, seed=FOLD_SEED), **options)
+    for chain in (cluster, memory):
+        chain.add("glm")
+        chain.add("mean")
+    for ours, theirs in zip(cluster.scores(), memory.scores(), strict=True):
+        assert ours.valid["deviance"] == pytest.approx(theirs.valid["deviance"], rel=1e-8)
+        assert ours.train["deviance"] == pytest.approx(theirs.train["deviance"], rel=1e-8)
+        np.testing.assert_allclose(ours.fold_valid, theirs.fold_valid, rtol=1e-8)
+    np.testing.assert_allclose(cluster.predict(frame), memory.predict(frame), rtol=1e-8)
