@@ -10,6 +10,10 @@ fit on a sample of 200,000 rows, with a 20 % holdout.
 - memory: ``remnant fit`` of the same recipe without a cluster on the first ``--memory-rows`` rows
   (one Parquet file), in its own process; its wall time is scaled by rows to the cluster's size.
 
+Each step of the cluster fit (reading the rows, the sample, each stage, each score) also gives its
+wall time here, the workers' compute seconds and the bytes they sent (``bench/cluster_probe.py``;
+``cluster_steps`` in the JSON).
+
 Target: peak resident size of the fitting process under 1 GiB at 20,000,000 x 20.
 
     python bench/cluster.py [--rows 20000000] [--memory-rows 5000000] [--workers 2] [--quick]
