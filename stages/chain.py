@@ -108,6 +108,8 @@ class Chain:
         self.threads = check_threads(threads)
         #: a stage's outputs are kept when its position is a multiple of this (``stages.checkpoints``)
         self.checkpoint_every = checkpoints.CHECKPOINT_EVERY
+        #: and at least this many last stages' outputs are kept (``stages.checkpoints``)
+        self.checkpoint_tail = checkpoints.TAIL
         self._rebuilt = checkpoints.RebuiltCache()
         self.validation = validation if validation is not None else Holdout()
         ignore = tuple(ignore) + tuple(c for c in self.validation.columns_used if c not in ignore)
@@ -354,6 +356,7 @@ class Chain:
 
     def _fit_sequence(self, specs: list[StageSpec], previous: tuple[np.ndarray, ...], first_number: int,
                       cancel: threading.Event | None, progress: ProgressFn | None) -> list[Stage]:
+        self._rebuilt.stop()  # a fit has the cores to itself
         ctx = self._context()
         fitted: list[Stage] = []
         state = [rng.get_state() for rng in self._rngs]
@@ -383,11 +386,23 @@ class Chain:
         self._thin()
         self._relock()
 
-    def _thin(self, stages: tuple[Stage, ...] | None = None) -> None:
-        """Keep the outputs of the last two stages and of every checkpoint of ``stages`` (default: the
-        chain's); the others are rebuilt when read."""
-        checkpoints.thin(self._stages if stages is None else stages, self._start_outputs, self.matrix, self.layout,
-                         len(self.schema.columns), self.loss.outputs, self.checkpoint_every, self._rebuilt)
+    def _thin(self, stages: tuple[Stage, ...] | None = None, ahead: bool = False) -> None:
+        """Keep the outputs of the last stages and of every checkpoint of ``stages`` (a fit's, or by
+        default the chain's, when what a run of step backs reads next is rebuilt in the background
+        too, with ``ahead`` also the segment before; ``stages.checkpoints``); the others are rebuilt when read."""
+        whole = stages is None
+        chosen = self._stages if stages is None else stages
+        missing = checkpoints.thin(chosen, self._start_outputs, self.matrix, self.layout,
+                                   len(self.schema.columns), self.loss.outputs, self.checkpoint_every, self._rebuilt,
+                                   tail=self.checkpoint_tail, ahead=ahead,
+                                   removed=[r.stages for r in self._removals] if whole else ())
+        if whole:
+            self._rebuilt.refill(missing)
+
+    def wait_for_rebuilds(self, timeout: float | None = None) -> bool:
+        """Wait until the background rebuild of the outputs a run of step backs reads next is done
+        (``stages.checkpoints``); return True when it is (False when ``timeout`` seconds passed first)."""
+        return self._rebuilt.join(timeout)
 
     def _truncate(self, keep: int) -> None:
         """Keep the first ``keep`` stages and their scores."""
@@ -468,6 +483,7 @@ class Chain:
             self._remember("step back")
             stage = self._stages[-1]
             self._truncate(len(self._stages) - 1)
+            self._thin(ahead=True)
             self._restore_streams(stage.rng_before)
             self._relock()
             log.info("stepped back from stage %d (%s)", len(self._stages) + 1, stage.kind)
@@ -509,6 +525,7 @@ class Chain:
             removed = list(self._stages[best:])
             self._restore_streams(removed[0].rng_before)
             self._truncate(best)
+            self._thin(ahead=True)
             self._relock()
             log.info("trimmed to stage %d: removed %d", best, len(removed))
             return removed
@@ -525,7 +542,7 @@ class Chain:
             removal = self._removals.pop()
             self._stages = removal.stages
             self._scores = list(removal.scores)
-            self._thin()
+            self._thin(ahead=True)
             if self._stages:
                 self._restore_streams(self._stages[-1].rng_after)
             else:

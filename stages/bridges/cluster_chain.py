@@ -213,7 +213,7 @@ class ClusterChain(Chain):
             progress(1.0, "done")
         return fitted
 
-    def _thin(self, stages: tuple[Stage, ...] | None = None) -> None:
+    def _thin(self, stages: tuple[Stage, ...] | None = None, ahead: bool = False) -> None:
         """Keep every stage's outputs: they are persisted on the workers, not in this process, and a
         rebuild would have to predict every partition again."""
 

@@ -92,6 +92,13 @@ class BoosterLearner:
     #: the prediction on the rows it was fit on, known from the fit (read once by ``track_output``), or None
     fit_values: np.ndarray | None = None
 
+    @property
+    def predicts_row_by_row(self) -> bool:
+        """Return True when each row's prediction depends on that row alone, to the same bits in any
+        block of rows (the one tree walked in numpy), so a rebuild may predict a block at a time
+        (``stages.checkpoints``)."""
+        return self.tree is not None
+
     def predict(self, X: np.ndarray) -> np.ndarray:
         """Return the booster's raw score for every row of ``X`` (its best iteration after early stopping)."""
         if self.tree is not None and isinstance(X, np.ndarray) and X.dtype == np.float64:

@@ -3,7 +3,10 @@
 from __future__ import annotations
 
 import numpy as np
+import pandas as pd
 import pytest
+from hypothesis import HealthCheck, given, settings
+from hypothesis import strategies as st
 
 import stages
 from stages import checkpoints
@@ -23,9 +26,9 @@ SPECS = [
 ]
 
 
-def _chain(frame, every, validation):
+def _chain(frame, every, validation, tail=2):
     chain = stages.Chain(frame, "target", validation, seed=1)
-    chain.checkpoint_every = every
+    chain.checkpoint_every, chain.checkpoint_tail = every, tail
     for kind, shrinkage, params in SPECS:
         chain.add(kind, shrinkage, params=params)
     return chain
@@ -33,6 +36,10 @@ def _chain(frame, every, validation):
 
 def _all_outputs(chain):
     return [tuple(np.array(o) for o in chain.outputs(row)) for row in range(len(chain) + 1)]
+
+
+def _held(chain_stages):
+    return [i + 1 for i, s in enumerate(chain_stages) if not isinstance(s.outputs, checkpoints.RebuiltOutputs)]
 
 
 def _same(a, b):
@@ -71,8 +78,7 @@ def test_step_back_undo_drop_and_refits_agree(diabetes_frame):
 def test_a_long_chain_holds_outputs_for_its_checkpoints_only(diabetes_frame):
     chain = stages.Chain(diabetes_frame, "target", seed=0)
     chain.add("hist_tree", 0.1, repeat=45)
-    held = [i + 1 for i, s in enumerate(chain.stages) if not isinstance(s.outputs, checkpoints.RebuiltOutputs)]
-    assert held == [10, 20, 30, 40, 44, 45]
+    assert _held(chain.stages) == [10, 20, 30, *range(40, 46)]   # every tenth, and the last TAIL (6)
 
 
 def test_a_rebuild_walks_back_without_recursion(diabetes_frame):
@@ -83,3 +89,73 @@ def test_a_rebuild_walks_back_without_recursion(diabetes_frame):
     chain.checkpoint_every = 10_000
     checkpoints.thin(chain.stages, chain.outputs(0), chain.matrix, chain.layout, len(chain.schema.columns), 1)
     _same(reference, _all_outputs(chain))
+
+
+# ----- random sequences of changes against an unthinned chain ---------------------------------
+RANDOM_SPECS = [
+    stages.StageSpec("hist_tree", 0.3, params={"max_depth": 2}),    # rebuilt a block of rows at a time
+    stages.StageSpec("tree", 0.5, params={"max_depth": 2}),         # rebuilt on all rows at once
+    stages.StageSpec("linear"),
+]
+CHANGES = st.lists(
+    st.one_of(
+        st.tuples(st.just("add"), st.integers(0, len(RANDOM_SPECS) - 1), st.integers(1, 4)),
+        st.tuples(st.just("step_back"), st.just(0), st.integers(1, 4)),
+        st.tuples(st.just("drop"), st.integers(1, 12), st.just(1)),
+        st.tuples(st.just("trim"), st.integers(0, 12), st.just(1)),
+        st.tuples(st.just("undo"), st.just(0), st.integers(1, 3)),
+        st.tuples(st.just("read"), st.integers(0, 12), st.just(1)),
+    ),
+    min_size=1, max_size=10,
+)
+
+
+def _random_frame() -> pd.DataFrame:
+    rng = np.random.default_rng(3)
+    frame = pd.DataFrame(rng.normal(size=(150, 3)), columns=["a", "b", "c"])
+    frame["y"] = frame["a"] ** 2 + np.sin(3 * frame["b"]) + rng.normal(scale=0.3, size=150)
+    return frame
+
+
+RANDOM_FRAME = _random_frame()
+
+
+def _change(chain, op, arg, times):
+    for _ in range(times):
+        if op == "add":
+            chain.add_specs([RANDOM_SPECS[arg]])
+        elif op == "step_back" and len(chain):
+            chain.step_back()
+        elif op == "drop" and 1 <= arg <= len(chain):
+            chain.drop(arg)
+        elif op == "trim" and arg < len(chain):
+            chain.trim(arg)
+        elif op == "undo" and chain.can_undo():
+            chain.undo()
+        elif op == "read" and arg <= len(chain):
+            np.asarray(chain.outputs(arg)[0]).sum()
+
+
+@settings(max_examples=25, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+@given(changes=CHANGES)
+def test_random_changes_give_the_unthinned_chain_s_outputs(changes):
+    whole = stages.Chain(RANDOM_FRAME, "y", stages.Holdout(fraction=0.3, seed=0), seed=2)
+    whole.checkpoint_every = whole.checkpoint_tail = 10_000
+    thinned = stages.Chain(RANDOM_FRAME, "y", stages.Holdout(fraction=0.3, seed=0), seed=2)
+    thinned.checkpoint_every, thinned.checkpoint_tail = 3, 2
+    for chain in (whole, thinned):
+        chain.add_specs([RANDOM_SPECS[0]] * 8)   # long enough to be thinned from the start
+    with pytest.MonkeyPatch.context() as patch:
+        patch.setattr(checkpoints, "BLOCK_ROWS", 16)   # several blocks at this size
+        for op, arg, times in changes:
+            for chain in (whole, thinned):
+                _change(chain, op, arg, times)
+            # read at once, while the background rebuild may still run
+            _same(_all_outputs(whole), _all_outputs(thinned))
+            assert whole.table().drop(columns="seconds").equals(thinned.table().drop(columns="seconds"))
+        assert thinned.wait_for_rebuilds(timeout=60)
+    # once the rebuild is done the chain holds what the rule keeps, and nothing beyond it after a step back
+    n, held = len(thinned), set(_held(thinned.stages))
+    assert {p for p in range(1, n + 1) if checkpoints.kept(p, n, 3, 2)} <= held
+    assert held <= {p for p in range(1, n + 1) if checkpoints.kept(p, n, 3, 2, ahead=True)}
+    _same(_all_outputs(whole), _all_outputs(thinned))
