@@ -9,7 +9,8 @@ is the peak resident size minus that baseline, over the fits and what follows th
 backs in a row, each with the rescored table and the residuals after the stage it lands on
 (what the workbench shows next), 10 more 0.3 s apart, 5 undos in a row, and the read of an
 older stage's output between checkpoints (each time printed, against the fit time of one
-stage in the same run). Three cases:
+stage in the same run); then a fit right after a trim (which starts a background rebuild the
+fit stops) against the same fit with nothing rebuilding. Three cases:
 
 - ``file``: ``Chain.from_file`` on a Parquet file, as a user of the workbench starts;
 - ``frame``: ``Chain(frame, ...)`` on a DataFrame the user made in the same process, so the
@@ -106,11 +107,22 @@ def child(case: str, path: str, rows: int, features: int, n_stages: int) -> dict
         figures["paced_step_backs_ms"].append(timed(chain, "step_back"))
     figures["undos_ms"] = [timed(chain, "undo") for _ in range(FAST_STEPS)]
     chain.wait_for_rebuilds()
+    figures["peak_steps"] = (peak_bytes() - base) / MiB
     # an older stage's output, between checkpoints: rebuilt from the checkpoint before it
     row = len(chain) - 3 * chain.checkpoint_every + 5
     started = time.perf_counter()
     chain.outputs(row)[0].sum()
     figures["rebuild_ms"] = (time.perf_counter() - started) * 1000
+    figures["peak_read"] = (peak_bytes() - base) / MiB
+    # a fit right after a trim (whose rebuild of 19 stages' outputs it stops) against the same fit
+    # with nothing rebuilding, alternated
+    figures["fit_after_trim_s"], figures["fit_alone_s"] = [], []
+    for _ in range(2):
+        chain.wait_for_rebuilds()
+        figures["fit_alone_s"].append(_fit_seconds(chain))
+        every = chain.checkpoint_every   # to a checkpoint: the fit reads kept outputs, the rebuild the ones before
+        chain.trim(max(every, every * (len(chain) // every - 2)))
+        figures["fit_after_trim_s"].append(_fit_seconds(chain))
     figures["held_after"] = (resident_bytes() - base) / MiB
     figures["peak"] = (peak_bytes() - base) / MiB
     return figures
@@ -124,6 +136,13 @@ def timed(chain, change: str) -> float:
     chain.table()
     chain.residuals("valid")
     return (time.perf_counter() - started) * 1000
+
+
+def _fit_seconds(chain) -> float:
+    """Return the seconds one more hist_tree stage takes to fit."""
+    started = time.perf_counter()
+    chain.add("hist_tree", 0.3, params={"max_depth": 4})
+    return time.perf_counter() - started
 
 
 def run_case(case: str, path: str, args) -> dict[str, float]:
@@ -185,8 +204,12 @@ def main() -> None:
             rows.append(("    each, ms", " ".join(f"{t:.0f}" for t in times), "", ""))
         rows.append(("  an older stage's output read (rebuilt from the checkpoint before it)",
                      f"{got['rebuild_ms']:.0f} ms", fit_ms, "the trade-off"))
-        rows.append(("  peak after the fits / held after the step backs", f"{got['peak_fits']:.0f} MiB",
-                     f"{got['held_after']:.0f} MiB", ""))
+        after, alone = min(got["fit_after_trim_s"]), min(got["fit_alone_s"])
+        rows.append(("  a fit right after a trim (stopping its rebuild), best of 2", f"{after:.2f} s",
+                     f"{alone:.2f} s, nothing rebuilding", f"{after / alone:.2f}"))
+        rows.append(("  peak after: the fits / the step backs and undos / the older read / the last fits",
+                     f"{got['peak_fits']:.0f} / {got['peak_steps']:.0f} / {got['peak_read']:.0f} / {got['peak']:.0f} MiB",
+                     f"{got['held_after']:.0f} MiB held at the end", ""))
     common.print_table("memory", rows)
 
 

@@ -582,6 +582,7 @@ class Chain:
         """Return a stages.decide.audition.Candidate per spec (grids expanded), fit side by side; the chain is unchanged."""
         from .decide.audition import audition
 
+        self._rebuilt.stop()  # the candidates' fits have the cores to themselves
         return audition(self, specs, cancel=cancel, progress=progress, workers=workers)
 
     def keep(self, candidate: Any) -> Stage:

@@ -103,6 +103,12 @@ class RebuiltCache:
                     return found
                 self.changed.wait()
 
+    def worth_keeping(self, run: Sequence[Any]) -> list[bool]:
+        """Return, for each lazy output of ``run`` (consecutive, oldest first), whether a rebuild of
+        it is worth keeping: the chain wants it, or it is among the last REBUILT_KEPT."""
+        with self.lock:
+            return [lazy in self.wanted or i >= len(run) - REBUILT_KEPT for i, lazy in enumerate(run)]
+
     def put(self, lazy: Any, arrays: tuple[np.ndarray, ...]) -> None:
         """Keep ``arrays`` as the latest rebuild of ``lazy`` (held by its stage when the chain wants
         them kept), letting go of the oldest beyond REBUILT_KEPT; return None."""
@@ -169,14 +175,15 @@ class RebuiltCache:
                 if self.get(lazy) is not None:
                     continue
                 run, base = lazy.run_back()
-                built = forward(run, base, cancel)
+                built = forward(run, base, cancel, self.worth_keeping(run))
                 if built is None:
                     return
                 with self.lock:
                     if cancel.is_set():
                         return
                     for done, arrays in zip(run, built, strict=True):
-                        self._keep(done, arrays)
+                        if arrays is not None:
+                            self._keep(done, arrays)
                         self.pending.discard(done)
                     self.changed.notify_all()
         finally:
@@ -203,11 +210,14 @@ class RebuiltOutputs(Sequence):
         if found is not None:
             return found
         run, base = self.run_back()
-        built = forward(run, base, None)
+        built = forward(run, base, None, self.cache.worth_keeping(run))
         assert built is not None  # never cancelled
         for lazy, arrays in zip(run, built, strict=True):
-            lazy.cache.put(lazy, arrays)
-        return built[-1]
+            if arrays is not None:
+                lazy.cache.put(lazy, arrays)
+        last = built[-1]
+        assert last is not None  # the last is always kept
+        return last
 
     def run_back(self) -> tuple[list[RebuiltOutputs], tuple[np.ndarray, ...]]:
         """Return the lazy outputs from the nearest kept ones before this up to this, oldest first,
@@ -250,29 +260,34 @@ def row_by_row(lazy: RebuiltOutputs) -> bool:
     return all(getattr(learner, "predicts_row_by_row", False) for learner in lazy.stage.learners)
 
 
-def forward(run: Sequence[RebuiltOutputs], base: tuple[np.ndarray, ...],
-            cancel: threading.Event | None) -> list[tuple[np.ndarray, ...]] | None:
+def forward(run: Sequence[RebuiltOutputs], base: tuple[np.ndarray, ...], cancel: threading.Event | None,
+            keep: Sequence[bool]) -> list[tuple[np.ndarray, ...] | None] | None:
     """Return the outputs of each stage of ``run`` (consecutive stages, oldest first), predicted
-    forward from ``base``, the outputs before the first; None when ``cancel`` is set first.
+    forward from ``base``, the outputs before the first: those ``keep`` marks, None for the others
+    (the last is always returned); None when ``cancel`` is set first.
 
     Row-by-row stages next to each other are predicted a block of rows at a time, the block read
-    by all of them in turn; the others on all rows at once. Either way each output is
-    previous + scale x prediction, the fit's own sum, to the same bits.
+    by all of them in turn (the outputs not kept exist a block at a time); the others on all rows
+    at once. Either way each output is previous + scale x prediction, the fit's own sum, to the same bits.
     """
-    built: list[tuple[np.ndarray, ...]] = []
+    keep = [*keep[:-1], True]
+    built: list[tuple[np.ndarray, ...] | None] = []
     i = 0
     while i < len(run):
         j = i + 1
         if row_by_row(run[i]):
             while j < len(run) and row_by_row(run[j]):
                 j += 1
-            done = _forward_in_blocks(run[i:j], base, cancel)
+            # the last of a stretch is the next one's base
+            done = _forward_in_blocks(run[i:j], base, cancel, [*keep[i:j - 1], True])
         else:
             done = [_forward_whole(run[i], base)]
         if done is None or (cancel is not None and cancel.is_set()):
             return None
-        built.extend(done)
-        base = done[-1]
+        last = done[-1]
+        assert last is not None
+        built.extend(arrays if kept_one else None for arrays, kept_one in zip(done, keep[i:j], strict=True))
+        base = last
         i = j
     return built
 
@@ -285,10 +300,11 @@ def _forward_whole(lazy: RebuiltOutputs, before: tuple[np.ndarray, ...]) -> tupl
     return tuple(out)
 
 
-def _forward_in_blocks(run: Sequence[RebuiltOutputs], base: tuple[np.ndarray, ...],
-                       cancel: threading.Event | None) -> list[tuple[np.ndarray, ...]] | None:
+def _forward_in_blocks(run: Sequence[RebuiltOutputs], base: tuple[np.ndarray, ...], cancel: threading.Event | None,
+                       keep: Sequence[bool]) -> list[tuple[np.ndarray, ...] | None] | None:
     layout = run[0].layout
-    built = [tuple(np.empty_like(base[t]) for t in range(len(layout.tracks))) for _ in run]
+    built = [tuple(np.empty_like(base[t]) for t in range(len(layout.tracks))) if kept_one else None
+             for kept_one in keep]
     for t, track in enumerate(layout.tracks):
         for start in range(0, track.n_rows, BLOCK_ROWS):
             if cancel is not None and cancel.is_set():
@@ -297,8 +313,9 @@ def _forward_in_blocks(run: Sequence[RebuiltOutputs], base: tuple[np.ndarray, ..
             n = rows.stop - rows.start
             before = base[t][rows]
             for lazy, outputs in zip(run, built, strict=True):
-                outputs[t][rows] = before + lazy.stage.scales[t] * lazy._prediction(t, rows, n)
-                before = outputs[t][rows]
+                before = before + lazy.stage.scales[t] * lazy._prediction(t, rows, n)
+                if outputs is not None:
+                    outputs[t][rows] = before
     return built
 
 
