@@ -1,7 +1,8 @@
 """The chain: a start value and stages, each fit to the residuals of the ones before it.
 
-Every stage's cumulative output on every row is cached, so stepping back is a pop and
-costs no refit; dropping a middle stage refits the stages after it. All mutations are
+Every stage's cumulative output on every row is cached (the last stages' and every tenth's
+held, the others rebuilt to the same bits when read: ``stages.checkpoints``), so stepping back
+is a pop and costs no refit; dropping a middle stage refits the stages after it. All mutations are
 all-or-nothing: a failed or cancelled fit leaves the chain exactly as it was.
 """
 
@@ -387,9 +388,10 @@ class Chain:
         self._relock()
 
     def _thin(self, stages: tuple[Stage, ...] | None = None, ahead: bool = False) -> None:
-        """Keep the outputs of the last stages and of every checkpoint of ``stages`` (a fit's, or by
-        default the chain's, when what a run of step backs reads next is rebuilt in the background
-        too, with ``ahead`` also the segment before; ``stages.checkpoints``); the others are rebuilt when read."""
+        """Keep the outputs of the last stages and of every checkpoint of ``stages`` (default: the
+        chain's), with ``ahead`` also of the segment a run of step backs reaches next; the others
+        are rebuilt when read (``stages.checkpoints``). For the chain's own stages, start the
+        background rebuild of the kept outputs it lacks; return None."""
         whole = stages is None
         chosen = self._stages if stages is None else stages
         missing = checkpoints.thin(chosen, self._start_outputs, self.matrix, self.layout,
@@ -402,7 +404,8 @@ class Chain:
     def wait_for_rebuilds(self, timeout: float | None = None) -> bool:
         """Wait until the background rebuild of the outputs a run of step backs reads next is done
         (``stages.checkpoints``); return True when it is (False when ``timeout`` seconds passed first)."""
-        return self._rebuilt.join(timeout)
+        rebuilt = getattr(self, "_rebuilt", None)   # a ClusterChain rebuilds nothing
+        return rebuilt is None or rebuilt.join(timeout)
 
     def _truncate(self, keep: int) -> None:
         """Keep the first ``keep`` stages and their scores."""
