@@ -2,16 +2,17 @@
 
 Every stage's cumulative output on every row costs 8 bytes a row per raw score; at 100 stages
 that is twice a 50-column matrix. A chain keeps the outputs of every ``CHECKPOINT_EVERY``-th
-stage and of its last ``TAIL`` stages, so ``TAIL - 1`` step backs in a row land on kept outputs
-however fast they come. Any other stage's outputs are rebuilt when read, from the nearest kept
-outputs before it, by predicting the stages between: output = previous + scale x prediction,
-the same sum with the same operands the fit computed (a learner predicts the same rows to the
+stage and of every stage after the checkpoint at or below its last but ``TAIL`` (its last
+``TAIL`` to ``TAIL + CHECKPOINT_EVERY - 1`` stages), so at least ``TAIL - 1`` step backs in a
+row land on kept outputs however fast they come. Any other stage's outputs are rebuilt when
+read, from the nearest kept outputs before it, by predicting the stages between: output =
+previous + scale x prediction, the same sum with the same operands the fit computed (a learner predicts the same rows to the
 same bits; ``tests/engine/test_checkpoints.py`` compares every stage of thinned chains with
 unthinned ones, also after random sequences of fits, step backs, drops, trims and undos).
 
 After a change that needs no fit (a step back, trim or undo) the chain also wants every stage
-after the checkpoint before the last one (``kept(..., ahead=True)``): between 10 and 19 stages
-before the last one, the segment a run of step backs reaches next. One background thread
+after the checkpoint before the last one (``kept(..., ahead=True)``; with the defaults the last
+10 to 19 stages), the segment a run of step backs reaches next. One background thread
 rebuilds what it wants and does not hold (``RebuiltCache.refill``), newest first; a step back
 while it runs lets it go on. A read of an output it is rebuilding waits for it; a fit stops it
 (``RebuiltCache.stop``), so the fit has the cores to itself. Stages whose learners predict each
@@ -23,10 +24,11 @@ Stages a step back or trim removed (kept for undo) keep their outputs only at ch
 within ``TAIL`` stages after the chain's last, so ``TAIL`` undos in a row stay quick. The two
 most recently rebuilt outputs are kept, so reading old stages in order rebuilds each once.
 
-The trade-off (``bench/README.md``): after fits n / CHECKPOINT_EVERY + TAIL outputs instead of
-n; after step backs up to about another 2 x CHECKPOINT_EVERY. The price is time: reading an
-older stage's output (a residual view of an old row, a drop) predicts up to CHECKPOINT_EVERY - 1
-stages, and a run of step backs faster than the background rebuild waits for it.
+The trade-off (``bench/README.md``): after fits at most n / CHECKPOINT_EVERY + TAIL +
+CHECKPOINT_EVERY outputs instead of n; after step backs up to about another CHECKPOINT_EVERY,
+and TAIL of the stages removed. The price is time: reading an older stage's output (a residual
+view of an old row, a drop) predicts up to CHECKPOINT_EVERY - 1 stages, and a run of step backs
+faster than the background rebuild waits for it.
 """
 
 from __future__ import annotations
@@ -55,11 +57,13 @@ BLOCK_ROWS = 16_384
 def kept(position: int, n_stages: int, every: int = CHECKPOINT_EVERY, tail: int = TAIL, ahead: bool = False) -> bool:
     """Return True when the stage at ``position`` (1-based) of a chain of ``n_stages`` keeps its outputs.
 
-    Kept: every ``every``-th stage and the last ``tail``; with ``ahead`` (after a step back, trim or
-    undo) also every stage after the checkpoint before the last one at or below ``n_stages``, the
-    segment a run of step backs reaches next.
+    Kept: every ``every``-th stage, and every stage after the checkpoint at or below ``n_stages -
+    tail`` (the last ``tail`` to ``tail + every - 1``: a rebuild of the last ``tail`` would
+    predict those anyway); with ``ahead`` (after a step back, trim or undo) also every stage after
+    the checkpoint before the last one at or below ``n_stages``, the segment a run of step backs
+    reaches next.
     """
-    if position % every == 0 or position > n_stages - tail:
+    if position % every == 0 or position > every * (max(0, n_stages - tail) // every):
         return True
     return ahead and position > every * (n_stages // every - 1)
 
