@@ -166,12 +166,17 @@ class RebuiltCache:
         self._cancel = cancel
         with self.lock:
             self.pending = set(missing)
-        thread = threading.Thread(target=self._rebuild, args=(list(missing), cancel), daemon=True,
+        # the outputs are allocated here, in the chain's thread: freed later by the chain's thread,
+        # they go back where the chain's other arrays come from, not to the rebuild thread's own
+        # allocator arena, where they would stay resident (np.empty touches no page yet)
+        buffers = {lazy: tuple(np.empty_like(start) for start in lazy.start) for lazy in missing}
+        thread = threading.Thread(target=self._rebuild, args=(list(missing), cancel, buffers), daemon=True,
                                   name="remnant-rebuild")
         self._thread = thread
         thread.start()
 
-    def _rebuild(self, missing: list[RebuiltOutputs], cancel: threading.Event) -> None:
+    def _rebuild(self, missing: list[RebuiltOutputs], cancel: threading.Event,
+                 buffers: dict[Any, tuple[np.ndarray, ...]]) -> None:
         try:
             for lazy in missing:
                 if cancel.is_set():
@@ -179,7 +184,7 @@ class RebuiltCache:
                 if self.get(lazy) is not None:
                     continue
                 run, base = lazy.run_back()
-                built = forward(run, base, cancel, self.worth_keeping(run))
+                built = forward(run, base, cancel, self.worth_keeping(run), buffers)
                 if built is None:
                     return
                 with self.lock:
@@ -265,10 +270,12 @@ def row_by_row(lazy: RebuiltOutputs) -> bool:
 
 
 def forward(run: Sequence[RebuiltOutputs], base: tuple[np.ndarray, ...], cancel: threading.Event | None,
-            keep: Sequence[bool]) -> list[tuple[np.ndarray, ...] | None] | None:
+            keep: Sequence[bool], buffers: dict[Any, tuple[np.ndarray, ...]] | None = None,
+            ) -> list[tuple[np.ndarray, ...] | None] | None:
     """Return the outputs of each stage of ``run`` (consecutive stages, oldest first), predicted
     forward from ``base``, the outputs before the first: those ``keep`` marks, None for the others
-    (the last is always returned); None when ``cancel`` is set first.
+    (the last is always returned), written into ``buffers`` (by lazy output) where it has them;
+    None when ``cancel`` is set first.
 
     Row-by-row stages next to each other are predicted a block of rows at a time, the block read
     by all of them in turn (the outputs not kept exist a block at a time); the others on all rows
@@ -283,9 +290,9 @@ def forward(run: Sequence[RebuiltOutputs], base: tuple[np.ndarray, ...], cancel:
             while j < len(run) and row_by_row(run[j]):
                 j += 1
             # the last of a stretch is the next one's base
-            done = _forward_in_blocks(run[i:j], base, cancel, [*keep[i:j - 1], True])
+            done = _forward_in_blocks(run[i:j], base, cancel, [*keep[i:j - 1], True], buffers or {})
         else:
-            done = [_forward_whole(run[i], base)]
+            done = [_forward_whole(run[i], base, (buffers or {}).get(run[i]))]
         if done is None or (cancel is not None and cancel.is_set()):
             return None
         last = done[-1]
@@ -296,19 +303,22 @@ def forward(run: Sequence[RebuiltOutputs], base: tuple[np.ndarray, ...], cancel:
     return built
 
 
-def _forward_whole(lazy: RebuiltOutputs, before: tuple[np.ndarray, ...]) -> tuple[np.ndarray, ...]:
+def _forward_whole(lazy: RebuiltOutputs, before: tuple[np.ndarray, ...],
+                   into: tuple[np.ndarray, ...] | None) -> tuple[np.ndarray, ...]:
     stage = lazy.stage
     out = []
     for t, track in enumerate(lazy.layout.tracks):
-        out.append(before[t] + stage.scales[t] * lazy._prediction(t, slice(0, track.n_rows), track.n_rows))
+        step = stage.scales[t] * lazy._prediction(t, slice(0, track.n_rows), track.n_rows)
+        out.append(before[t] + step if into is None else np.add(before[t], step, out=into[t]))
     return tuple(out)
 
 
 def _forward_in_blocks(run: Sequence[RebuiltOutputs], base: tuple[np.ndarray, ...], cancel: threading.Event | None,
-                       keep: Sequence[bool]) -> list[tuple[np.ndarray, ...] | None] | None:
+                       keep: Sequence[bool], buffers: dict[Any, tuple[np.ndarray, ...]],
+                       ) -> list[tuple[np.ndarray, ...] | None] | None:
     layout = run[0].layout
-    built = [tuple(np.empty_like(base[t]) for t in range(len(layout.tracks))) if kept_one else None
-             for kept_one in keep]
+    built = [(buffers.get(lazy) or tuple(np.empty_like(b) for b in base)) if kept_one else None
+             for lazy, kept_one in zip(run, keep, strict=True)]
     for t, track in enumerate(layout.tracks):
         for start in range(0, track.n_rows, BLOCK_ROWS):
             if cancel is not None and cancel.is_set():
