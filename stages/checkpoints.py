@@ -327,6 +327,8 @@ def _forward_in_blocks(run: Sequence[RebuiltOutputs], base: tuple[np.ndarray, ..
             n = rows.stop - rows.start
             before = base[t][rows]
             for lazy, outputs in zip(run, built, strict=True):
+                if cancel is not None and cancel.is_set():   # a stage's block at most after a stop
+                    return None
                 before = before + lazy.stage.scales[t] * lazy._prediction(t, rows, n)
                 if outputs is not None:
                     outputs[t][rows] = before
