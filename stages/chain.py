@@ -18,6 +18,7 @@ import numpy as np
 import pandas as pd
 
 from . import checkpoints, parts, scoring
+from .chain_questions import ChainQuestions
 from .chain_state import ChainState, Removal, StreamState, same_stream, seeded_streams, stream_state
 from .data import Prepared, Task, load_frame, prepare
 from .errors import ChainStateError, RemnantError, StageSpecError
@@ -41,7 +42,7 @@ from .validation import Holdout, Part, TimeOrder, ValidationSpec
 log = logging.getLogger(f"remnant.{__name__}")
 
 
-class Chain:
+class Chain(ChainQuestions):
     """A residual chain over one data set, one validation scheme and one loss.
 
     Parameters
@@ -579,7 +580,7 @@ class Chain:
 
         return chain_to_recipe(self)
 
-    # ----- deciding the next stage: stages.decide.audition, stages.decide.grow, stages.decide.references ---------
+    # ----- deciding the next stage (the rest, and the questions about the chain: chain_questions.py) -------
     def audition(self, specs: Sequence[StageSpec | Mapping[str, Any]], *, cancel: threading.Event | None = None,
                  progress: ProgressFn | None = None, workers: int = 2) -> list[Any]:
         """Return a stages.decide.audition.Candidate per spec (grids expanded), fit side by side; the chain is unchanged."""
@@ -587,75 +588,6 @@ class Chain:
 
         self._rebuilt.stop()  # the candidates' fits have the cores to themselves
         return audition(self, specs, cancel=cancel, progress=progress, workers=workers)
-
-    def keep(self, candidate: Any) -> Stage:
-        """Commit an auditioned candidate as the next stage with no refit, and return its stage."""
-        from .decide.audition import keep
-
-        return keep(self, candidate)
-
-    def grow(self, kind: str, shrinkage: float = 0.1, **options: Any) -> Any:
-        """Append stages of ``kind`` until validation stops improving, trim to the best; return a GrowResult."""
-        from .decide.grow import grow
-
-        return grow(self, kind, shrinkage, **options)
-
-    def references(self, **options: Any) -> pd.DataFrame:
-        """Return the reference models' scores on this chain's split (see stages.decide.references; the
-        options include ``cancel`` and ``progress``)."""
-        from .decide.references import reference_scores
-
-        return reference_scores(self, **options)
-
-    # ----- understanding the chain: stages.understand ---------------------------------------
-    def residual_scan(self, upto: int | None = None, part: Part = "valid", **options: Any) -> pd.DataFrame:
-        """Return one row per feature, best first: the residual signal left in it (``score``, scored on
-        rows the scan did not fit on), its noise band and its binned residuals (see stages.understand.scan)."""
-        from .understand import residual_scan
-
-        return residual_scan(self, upto, part, **options)
-
-    def binned_residuals(self, feature: str, upto: int | None = None, part: Part = "valid",
-                         **options: Any) -> pd.DataFrame:
-        """Return the residuals of ``part`` in the scan's bins of ``feature``: one row per bin."""
-        from .understand import binned_residuals
-
-        return binned_residuals(self, feature, upto, part, **options)
-
-    def partial_dependence(self, feature: str | list[str], upto: int | None = None, stage: int | None = None,
-                           grid: Any = None, part: Part = "train", sample: int | None = None,
-                           **options: Any) -> pd.DataFrame:
-        """Return the average prediction (``average``) with ``feature`` set to each grid value, and the
-        spread of the individual curves (see stages.understand.dependence)."""
-        from .understand import partial_dependence
-
-        return partial_dependence(self, feature, upto, stage, grid, part, sample, **options)
-
-    def coefficients(self, stage: int, **options: Any) -> pd.DataFrame:
-        """Return one row per term of a linear, ridge, lasso or logistic stage on the features' own
-        scale, with standard errors and 95 % intervals for unpenalised ones (see stages.understand.coefficients)."""
-        from .understand import coefficients
-
-        return coefficients(self, stage, **options)
-
-    def curves(self, stage: int, **options: Any) -> pd.DataFrame:
-        """Return a spline stage's fitted curve of each feature on a grid (see stages.understand.curves)."""
-        from .understand import spline_curves
-
-        return spline_curves(self, stage, **options)
-
-    def largest_residuals(self, n: int = 20, part: Part = "valid", upto: int | None = None,
-                          **options: Any) -> pd.DataFrame:
-        """Return the ``n`` rows of ``part`` with the largest absolute residual, with the residual after each stage."""
-        from .understand import largest_residuals
-
-        return largest_residuals(self, n, part, upto, **options)
-
-    def calibration(self, part: Part = "valid", bins: int = 10, **options: Any) -> pd.DataFrame:
-        """Return predicted probability in bins against the observed rate, with counts (binary chains)."""
-        from .understand import calibration
-
-        return calibration(self, part, bins, **options)
 
     def restore(self, stages: list[Stage], removals: list[tuple[str, list[Stage]]], streams: tuple[StreamState, ...],
                 *, revealed: bool = False, reveals: int = 0) -> None:

@@ -19,7 +19,7 @@ ROOT = Path(stages.__file__).resolve().parent
 SECOND = ("report", "understand", "decide")
 THIRD = ("files", "bridges")
 #: modules whose methods are the facade: they may import upper floors inside a function
-FACADE = ("stages", "stages.chain", "stages.predictor")
+FACADE = ("stages", "stages.chain", "stages.chain_questions", "stages.predictor")
 
 
 def _module(path: Path) -> str:
