@@ -22,7 +22,7 @@ from .losses import Loss
 from .outputs import block, squeeze
 from .schema import Schema
 from .spec import StageSpec
-from .track_output import track_prediction
+from .track_output import others_view, track_prediction
 from .tracks import Layout
 
 log = logging.getLogger(f"remnant.{__name__}")
@@ -229,7 +229,7 @@ def _fit_track(ctx, t, kind, spec, params, features, previous, cancel, progress)
         X=feature_rows(ctx.matrix, track.fit, features, n_all), columns=ctx.schema.subset(list(features)),
         residual=squeeze(loss.residual(fit_y, fit_raw, weight)), y=fit_y, raw=squeeze(fit_raw), loss=loss,
         task=ctx.schema.task, random_state=ctx.rngs[t], cancel=cancel, progress=progress, weight=weight,
-        threads=ctx.threads,
+        threads=ctx.threads, others=others_view(ctx.matrix, track, features, n_all),
     )
     if kind.subsamples and check_subsample(params.get("subsample", 1.0), spec.kind) < 1.0:
         request.in_bag = draw_in_bag(len(fit_y), float(params["subsample"]), ctx.rngs[t])
@@ -260,7 +260,8 @@ def _fit_track(ctx, t, kind, spec, params, features, previous, cancel, progress)
         oob = (loss.value(y_out, raw_out, w_out), loss.value(y_out, raw_out + scale * fit_output[left_out], w_out))
     if progress is not None:
         progress(1.0, "done")
-    return TrackFit(learner, scale, previous + scale * output, choice.rule, oob, tuple(request.notes))
+    moved = scale * output   # previous + scale * output, summed into the one new array
+    return TrackFit(learner, scale, np.add(previous, moved, out=moved), choice.rule, oob, tuple(request.notes))
 
 
 def _scaled(progress: ProgressFn | None, low: float, high: float) -> ProgressFn | None:

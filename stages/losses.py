@@ -273,7 +273,8 @@ class SquaredLoss(Loss):
 
     def _value(self, y, raw, weight) -> float:
         """The mean squared error (the loss reported is MSE, not half of it)."""
-        return metrics.average((y - raw) ** 2, weight)
+        error = y - raw
+        return metrics.average(np.square(error, out=error), weight)
 
     def line_search(self, y, raw, output, weight=None) -> float:
         """Return the least-squares step along ``output``: max(0, <y - F, h>_w / <h, h>_w), 0 for a zero output."""

@@ -33,10 +33,16 @@ def regression_scores(y: np.ndarray, prediction: np.ndarray, weight: np.ndarray 
         return {"rmse": float("nan"), "mae": float("nan"), "r2": float("nan")}
     error = y - prediction
     if weight is None:
-        mse = float(np.mean(error**2))
-        spread = float(np.sum((y - np.mean(y)) ** 2))
-        r2 = 1.0 - float(np.sum(error**2)) / spread if spread > 0 else float("nan")
-        return {"rmse": float(np.sqrt(mse)), "mae": float(np.mean(np.abs(error))), "r2": r2}
+        # the same sums as mean(|error|), mean(error**2), sum(error**2) and sum((y - mean(y))**2),
+        # worked out in two arrays of the rows' size
+        work = np.abs(error)
+        mae = float(np.mean(work))
+        squared = np.square(error, out=error)
+        mse = float(np.mean(squared))
+        centred = np.subtract(y, np.mean(y), out=work)
+        spread = float(np.sum(np.square(centred, out=centred)))
+        r2 = 1.0 - float(np.sum(squared)) / spread if spread > 0 else float("nan")
+        return {"rmse": float(np.sqrt(mse)), "mae": mae, "r2": r2}
     mse = average(error**2, weight)
     spread = float(np.sum(weight * (y - np.average(y, weights=weight)) ** 2))
     r2 = 1.0 - float(np.sum(weight * error**2)) / spread if spread > 0 else float("nan")

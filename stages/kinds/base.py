@@ -52,6 +52,10 @@ class FitRequest:
     weight: np.ndarray | None = None
     #: the threads the learner may use when its own thread parameter is unset (None: the usable cores)
     threads: int | None = None
+    #: the track's other rows (its validation and test rows, the stage's features), which the stage
+    #: predicts once fit; a learner may tell its values there from the fit (``other_values``). None
+    #: when they are not one block of the matrix
+    others: np.ndarray | None = None
 
     @property
     def thread_count(self) -> int:

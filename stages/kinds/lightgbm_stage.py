@@ -91,6 +91,8 @@ class BoosterLearner:
     tree: Any = None
     #: the prediction on the rows it was fit on, known from the fit (read once by ``track_output``), or None
     fit_values: np.ndarray | None = None
+    #: the prediction on the request's other rows (``FitRequest.others``), known from the fit, or None
+    other_values: np.ndarray | None = None
 
     @property
     def predicts_row_by_row(self) -> bool:
@@ -213,9 +215,9 @@ def train_booster(request: FitRequest, params: dict[str, Any], kind: str, *, reu
         if shared is not None and one_round.can_grow(request, native, rounds):
             grown = one_round.grow_round(shared, request, native)
             if grown is not None:
-                booster, tree, on_fit_rows = grown
-                return BoosterLearner(booster, importance_type=params.get("importance_type", "gain"), params=native,
-                                      tree=tree, fit_values=on_fit_rows)
+                return BoosterLearner(grown.booster, importance_type=params.get("importance_type", "gain"),
+                                      params=native, tree=grown.tree, fit_values=grown.on_fit_rows,
+                                      other_values=grown.on_other_rows)
         if shared is None:
             train_set = dataset(fit_rows if request.in_bag is None else np.flatnonzero(request.in_bag))
         else:

@@ -26,6 +26,8 @@ constant tree LightGBM makes first. The stage's learner is a booster of its own 
 from __future__ import annotations
 
 import ctypes
+import weakref
+from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
@@ -39,54 +41,123 @@ _NOT_RANDOM = {"feature_fraction": 1.0, "feature_fraction_bynode": 1.0, "extra_t
 
 
 class Grower:
-    """A booster on one binned block, grown a round per stage from gradients given to it."""
+    """A booster on one binned block, grown a round per stage from gradients given to it.
 
-    def __init__(self, booster: Any, settings: dict[str, Any]) -> None:
+    ``others`` names the rows the stage also predicts after its fit (the track's validation and
+    test rows, ``FitRequest.others``) when LightGBM keeps them as a validation set of the booster,
+    binned once with the fitting rows' bins; None when it does not."""
+
+    def __init__(self, booster: Any, settings: dict[str, Any], others: RowsOf | None = None) -> None:
         self.booster = booster
         self.settings = settings
         self.rounds = 0
-        self.score = training_score(booster)   # LightGBM's own sum of the trees so far, per row
+        self.others = others
+        # the label as LightGBM reads it (float32, widened), the gradient buffer and the hessians of
+        # unweighted rows (all 1), kept while the rounds are fit on the same target rows
+        self._label: tuple[RowsOf, np.ndarray, np.ndarray, np.ndarray] | None = None
+        # LightGBM's own sum of the trees so far, per row: the fitting rows, then the other rows
+        self.scores = [RunningScore(booster, 0)] + ([RunningScore(booster, 1)] if others is not None else [])
 
-    def tree_values(self, tree: OneTree | None) -> np.ndarray | None:
-        """Return the last tree's value on every row it was grown on, read from LightGBM's training
-        score, or None when that cannot be told apart exactly (then the tree predicts the rows).
+    def gradients(self, request: FitRequest) -> tuple[np.ndarray, np.ndarray]:
+        """Return the unweighted squared-loss gradients ``float32(raw - float32(y))`` and hessians (1) at
+        ``request.raw``, as ``gradients`` computes them, in buffers kept from round to round."""
+        if self._label is None or not self._label[0].holds(request.y):
+            n = len(request.y)
+            label = np.asarray(request.y, dtype=np.float32).astype(np.float64)
+            self._label = (RowsOf(request.y), label, np.empty(n, dtype=np.float32), np.ones(n, dtype=np.float32))
+        _, label, grad, ones = self._label
+        # computed in float64 and rounded once to float32, as astype(np.float32) rounds the difference
+        np.subtract(np.asarray(request.raw, dtype=np.float64), label, out=grad, casting="same_kind")
+        return grad, ones
 
-        LightGBM adds each row's leaf value to its training score (``ScoreUpdater::AddScore``): the
-        change in the score is that value up to rounding, and it names the leaf whenever distinct
-        leaf values lie further apart than the rounding. The value returned is the leaf's own.
-        """
-        before, after = self.score, training_score(self.booster)
-        self.score = after
+    def tree_values(self, tree: OneTree | None) -> list[np.ndarray | None]:
+        """Return the last tree's value on every row of each of LightGBM's scores (the fitting rows,
+        then the other rows when kept), each None when it cannot be told apart exactly from the
+        change in the score (then the tree predicts those rows)."""
+        return [score.last_tree(tree) for score in self.scores]
+
+
+class RunningScore:
+    """LightGBM's raw score of one data set of a booster (0: the training rows, 1: its validation set),
+    read after each round into buffers kept from round to round."""
+
+    def __init__(self, booster: Any, index: int) -> None:
+        self.booster, self.index = booster, index
+        self.values = read_score(booster, index)
+        self.spare = np.empty_like(self.values)
+        self.largest = _largest(self.values)
+
+    def last_tree(self, tree: OneTree | None) -> np.ndarray | None:
+        """Return the value of the tree grown since the last read on each row (``leaf_values``), or None."""
+        before, after = self.values, read_score(self.booster, self.index, out=self.spare)
+        self.values, self.spare = after, before
+        largest_before, self.largest = self.largest, _largest(after)
+        largest = max(largest_before, self.largest)
         if tree is None:
             return None
-        leaves = np.unique(tree.leaf_value)
-        change = after - before
-        if len(leaves) == 1:
-            return np.full(len(change), 0.0 + leaves[0])
-        # each subtraction and addition rounds by at most half an ulp of its result
-        tolerance = 4 * np.finfo(np.float64).eps * (max(np.abs(before).max(), np.abs(after).max()) + np.abs(leaves).max())
-        if np.diff(leaves).min() <= 2 * tolerance:
-            return None
-        leaf = np.zeros(len(change), dtype=np.intp)
-        for middle in (leaves[:-1] + leaves[1:]) / 2:   # a tree has few leaves: a pass each beats a search
-            leaf += change > middle
-        values = leaves[leaf]
-        if not np.all(np.abs(change - values) <= tolerance):
-            return None
-        return 0.0 + values
+        return leaf_values(before, after, tree.leaf_value, largest, scratch=before)
+
+
+def leaf_values(before: np.ndarray, after: np.ndarray, leaf_value: np.ndarray, largest: float | None = None,
+                scratch: np.ndarray | None = None) -> np.ndarray | None:
+    """Return the leaf value of the tree LightGBM added to a score between ``before`` and ``after``
+    on every row, or None when that cannot be told apart exactly.
+
+    LightGBM adds each row's leaf value to its score (``ScoreUpdater::AddScore``): the change in
+    the score is that value up to rounding, and it names the leaf whenever distinct leaf values
+    lie further apart than the rounding. The value returned is the leaf's own (``0.0 + leaf``, as
+    LightGBM sums one tree). ``largest`` bounds ``|before|`` and ``|after|`` (found when None);
+    ``scratch`` (may be ``before``) takes the change, so no temporary of the rows' size is made.
+    """
+    leaves = np.unique(leaf_value)
+    if len(leaves) == 1:
+        return np.full(len(after), 0.0 + leaves[0])
+    if largest is None:
+        largest = max(_largest(before), _largest(after))
+    # each subtraction and addition rounds by at most half an ulp of its result
+    tolerance = 4 * np.finfo(np.float64).eps * (largest + np.abs(leaves).max())
+    if not np.diff(leaves).min() > 2 * tolerance:
+        return None
+    change = np.subtract(after, before, out=scratch)
+    # a tree has few leaves: a pass a leaf over one byte a row beats a search
+    leaf: np.ndarray = np.zeros(len(change), dtype=np.uint8 if len(leaves) <= 256 else np.intp)
+    above = np.empty(len(change), dtype=bool)
+    for middle in (leaves[:-1] + leaves[1:]) / 2:
+        np.greater(change, middle, out=above)
+        np.add(leaf, above, out=leaf)
+    values = np.take(0.0 + leaves, leaf)
+    np.subtract(change, values, out=change)
+    np.abs(change, out=change)
+    if not change.max() <= tolerance:
+        return None
+    return values
+
+
+def _largest(values: np.ndarray) -> float:
+    """Return max |value| (NaN when a value is NaN), without a temporary of the values' size."""
+    if not len(values):
+        return 0.0
+    return max(float(values.max()), -float(values.min()))
+
+
+def read_score(booster: Any, index: int = 0, out: np.ndarray | None = None) -> np.ndarray:
+    """Return LightGBM's raw score of ``booster`` on its data set ``index`` (0: the training rows; one
+    value per row, one output), written into ``out`` when given."""
+    import lightgbm
+
+    length = ctypes.c_int64(0)
+    lightgbm.basic._safe_call(lightgbm.basic._LIB.LGBM_BoosterGetNumPredict(booster._handle, ctypes.c_int(index),
+                                                                             ctypes.byref(length)))
+    if out is None or len(out) != length.value:
+        out = np.empty(length.value, dtype=np.float64)
+    lightgbm.basic._safe_call(lightgbm.basic._LIB.LGBM_BoosterGetPredict(
+        booster._handle, ctypes.c_int(index), ctypes.byref(length), out.ctypes.data_as(ctypes.POINTER(ctypes.c_double))))
+    return out
 
 
 def training_score(booster: Any) -> np.ndarray:
     """Return a copy of LightGBM's raw training score of ``booster`` (one value per row; one output)."""
-    import lightgbm
-
-    length = ctypes.c_int64(0)
-    lightgbm.basic._safe_call(lightgbm.basic._LIB.LGBM_BoosterGetNumPredict(booster._handle, ctypes.c_int(0),
-                                                                             ctypes.byref(length)))
-    out = np.empty(length.value, dtype=np.float64)
-    lightgbm.basic._safe_call(lightgbm.basic._LIB.LGBM_BoosterGetPredict(
-        booster._handle, ctypes.c_int(0), ctypes.byref(length), out.ctypes.data_as(ctypes.POINTER(ctypes.c_double))))
-    return out
+    return read_score(booster, 0)
 
 
 def can_grow(request: FitRequest, native: dict[str, Any], rounds: int) -> bool:
@@ -100,8 +171,11 @@ def can_grow(request: FitRequest, native: dict[str, Any], rounds: int) -> bool:
     return all(native.get(name, neutral) in (neutral, None) for name, neutral in _NOT_RANDOM.items())
 
 
-def gradients(request: FitRequest) -> tuple[np.ndarray, np.ndarray]:
-    """Return LightGBM's squared-loss gradients and hessians at ``request.raw`` (float32, as it computes them)."""
+def gradients(request: FitRequest, grower: Grower | None = None) -> tuple[np.ndarray, np.ndarray]:
+    """Return LightGBM's squared-loss gradients and hessians at ``request.raw`` (float32, as it computes them);
+    unweighted, in ``grower``'s buffers (``Grower.gradients``) when given."""
+    if request.weight is None and grower is not None:
+        return grower.gradients(request)
     label = np.asarray(request.y, dtype=np.float32).astype(np.float64)
     difference = np.asarray(request.raw, dtype=np.float64) - label
     if request.weight is None:
@@ -115,11 +189,9 @@ _SEEDS = ("seed", "data_random_seed", "bagging_seed", "feature_fraction_seed", "
           "objective_seed")
 
 
-def grow_round(shared: Any, request: FitRequest, native: dict[str, Any]) -> tuple[Any, OneTree | None,
-                                                                                 np.ndarray | None] | None:
-    """Return the booster of one new tree grown on the shared booster of ``shared`` (a BinnedData),
-    its tree read for numpy (``one_tree``), and its value on every fitting row (None when unknown);
-    None when the round grew no split. Hold ``shared.lock``."""
+def grow_round(shared: Any, request: FitRequest, native: dict[str, Any]) -> Round | None:
+    """Return the round grown on the shared booster of ``shared`` (a BinnedData), or None when it grew
+    no split. Hold ``shared.lock``."""
     import lightgbm
 
     settings = {**native, "num_iterations": 1}
@@ -128,10 +200,17 @@ def grow_round(shared: Any, request: FitRequest, native: dict[str, Any]) -> tupl
     if grower is None or grower.settings != unseeded:
         train_set = shared.with_target(request.y, request.raw, request.weight)
         # gradients come from here, so LightGBM's own objective is set aside ("none")
-        grower = Grower(lightgbm.Booster(params={**settings, "objective": "none"}, train_set=train_set), unseeded)
+        booster = lightgbm.Booster(params={**settings, "objective": "none"}, train_set=train_set)
+        others = None
+        if request.others is not None and len(request.others):
+            # the other rows binned once with the fitting rows' bins: LightGBM adds each tree to their
+            # score as lightgbm.train does to a validation set's
+            booster.add_valid(train_set.create_valid(request.others, params=train_set.get_params()), "others")
+            others = RowsOf(request.others)
+        grower = Grower(booster, unseeded, others)
         shared.grower = grower
     grower.booster.reset_parameter({k: settings[k] for k in _SEEDS if k in settings})
-    grad, hess = gradients(request)
+    grad, hess = gradients(request, grower)
     finished = ctypes.c_int(0)
     lightgbm.basic._safe_call(lightgbm.basic._LIB.LGBM_BoosterUpdateOneIterCustom(
         grower.booster._handle, grad.ctypes.data_as(ctypes.POINTER(ctypes.c_float)),
@@ -142,7 +221,45 @@ def grow_round(shared: Any, request: FitRequest, native: dict[str, Any]) -> tupl
     text = as_regression(grower.booster.model_to_string(start_iteration=grower.rounds, num_iteration=1))
     grower.rounds += 1
     tree = read_tree(text)
-    return lightgbm.Booster(model_str=text), tree, grower.tree_values(tree)
+    values = grower.tree_values(tree)
+    same_others = grower.others is not None and request.others is not None and grower.others.holds(request.others)
+    return Round(lightgbm.Booster(model_str=text), tree, values[0], values[1] if same_others else None)
+
+
+@dataclass(frozen=True, eq=False)
+class Round:
+    """One round grown on a kept booster: the booster of its tree alone, the tree read for numpy
+    (``one_tree``; None when numpy cannot read it), and the tree's value on the fitting rows and on
+    the request's other rows (each None when unknown)."""
+
+    booster: Any
+    tree: OneTree | None
+    on_fit_rows: np.ndarray | None
+    on_other_rows: np.ndarray | None
+
+
+class RowsOf:
+    """Which rows of which matrix an array views: the same rows are the same object's same memory."""
+
+    def __init__(self, X: np.ndarray) -> None:
+        owner = _owner(X)
+        self.owner = weakref.ref(owner)
+        self.where = _where(X)
+
+    def holds(self, X: np.ndarray) -> bool:
+        """Return True when ``X`` views the same rows of the same (living) matrix."""
+        owner = _owner(X)
+        return self.owner() is owner and self.where == _where(X)
+
+
+def _owner(X: np.ndarray) -> np.ndarray:
+    while isinstance(X.base, np.ndarray):
+        X = X.base
+    return X
+
+
+def _where(X: np.ndarray) -> tuple:
+    return (X.__array_interface__["data"][0], X.shape, X.strides, X.dtype.str)
 
 
 def as_regression(text: str) -> str:

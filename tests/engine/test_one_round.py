@@ -5,6 +5,7 @@ from __future__ import annotations
 
 import lightgbm
 import numpy as np
+import pandas as pd
 import pytest
 
 import stages
@@ -57,6 +58,47 @@ def test_a_chain_of_hist_tree_stages_is_lightgbms_own_boosting(diabetes_frame, m
     assert np.array_equal(one_round.training_score(booster), chain.outputs()[0][:, 0])
 
 
+def _tree_frame(seed=0, n=3000):
+    X, y = _tree_data(seed, n)
+    frame = pd.DataFrame(X, columns=[f"x{i}" for i in range(X.shape[1])])
+    frame["target"] = y
+    return frame
+
+
+@pytest.mark.parametrize("params", [{"max_depth": 3}, {"max_depth": 4, "zero_as_missing": True}])
+def test_validation_rows_read_from_lightgbms_validation_score_equal_predicting_them(monkeypatch, params):
+    # NaN, zeros and values LightGBM reads as zero in the validation rows: the kept booster's
+    # validation score (the rows binned with the fitting rows' bins) gives the bits the numpy walk
+    # and LightGBM's predict give (the fresh one-round fits predict them)
+    frame = _tree_frame()
+    fresh = _chain(frame, False, monkeypatch, repeat=15, params=params)
+    walked = []
+    real = OneTree.predict
+    monkeypatch.setattr(OneTree, "predict", lambda self, X: walked.append(len(X)) or real(self, X))
+    kept = _chain(frame, True, monkeypatch, repeat=15, params=params)
+    assert walked == []                                      # no stage walked the validation rows
+    for a, b in zip(fresh.stages, kept.stages, strict=True):
+        assert np.array_equal(a.outputs[0], b.outputs[0])
+    assert _texts(fresh) == _texts(kept)
+
+
+def test_a_holdout_chain_is_lightgbm_train_with_the_validation_rows_as_valid_set(monkeypatch):
+    # lightgbm.train with valid_sets keeps the validation rows' score itself (init + each shrunk
+    # tree, in order): the chain's output on those rows is that score, bit for bit
+    frame = _tree_frame(seed=2)
+    chain = _chain(frame, True, monkeypatch, repeat=30)
+    settings = {k: v for k, v in chain.stages[0].learners[0].params.items() if k != "seed"}
+    n_train, start = chain.layout.n_train, chain.starts[0][0]
+    X, y = chain.matrix, chain.y
+    train = lightgbm.Dataset(X[:n_train], y[:n_train], init_score=np.full(n_train, start), params=settings)
+    valid = train.create_valid(X[n_train:], y[n_train:], init_score=np.full(len(y) - n_train, start))
+    booster = lightgbm.train({**settings, "learning_rate": 0.1}, train, num_boost_round=30, valid_sets=[valid],
+                             keep_training_booster=True)
+    output = chain.outputs()[0][:, 0]
+    assert np.array_equal(one_round.read_score(booster, 1), output[n_train:])
+    assert np.array_equal(one_round.read_score(booster, 0), output[:n_train])
+
+
 @pytest.mark.parametrize("params", [{"max_depth": 3, "subsample": 0.5}, {"max_depth": 2, "colsample_bytree": 0.5},
                                     {"max_depth": 3, "extra_trees": True}])
 def test_stages_that_draw_at_random_keep_the_one_round_fit(diabetes_frame, monkeypatch, params):
@@ -107,16 +149,12 @@ def test_trees_numpy_cannot_read_keep_lightgbms_predict():
     assert read_tree(two.model_to_string()) is None
 
 
-def test_leaf_values_too_close_to_tell_apart_are_predicted_instead(monkeypatch):
-    grower = one_round.Grower.__new__(one_round.Grower)
-    grower.score = np.array([1e6, 1e6, 0.0])
+def test_leaf_values_too_close_to_tell_apart_are_predicted_instead():
+    before = np.array([1e6, 1e6, 0.0])
     leaves = np.array([0.5, 0.5 + 1e-12])
-    tree = OneTree(np.zeros(1, dtype=np.int64), np.zeros(1), np.zeros(1, dtype=np.int64), np.array([-1]),
-                   np.array([-2]), leaves, 1)
-    monkeypatch.setattr(one_round, "training_score", lambda booster: grower.score + np.array([0.5, 0.5, 0.5]))
-    grower.booster = None
-    assert grower.tree_values(tree) is None
-    grower.score = np.array([1.0, 2.0, 0.0])
-    far = OneTree(tree.feature, tree.threshold, tree.decision, tree.left, tree.right, np.array([0.5, 0.75]), 1)
-    monkeypatch.setattr(one_round, "training_score", lambda booster: np.array([1.5, 2.75, 0.5]))
-    assert np.array_equal(grower.tree_values(far), [0.5, 0.75, 0.5])
+    assert one_round.leaf_values(before, before + 0.5, leaves) is None
+    before = np.array([1.0, 2.0, 0.0])
+    assert np.array_equal(one_round.leaf_values(before, np.array([1.5, 2.75, 0.5]), np.array([0.5, 0.75])),
+                          [0.5, 0.75, 0.5])
+    # a change that is no leaf value (not LightGBM's sum of one tree) is told, not guessed
+    assert one_round.leaf_values(before, np.array([1.5, 2.6, 0.5]), np.array([0.5, 0.75])) is None
