@@ -3,8 +3,9 @@
 A learner may carry its prediction on the rows it was fit on (``fit_values``: a ``hist_tree``
 grown as one more round of a kept booster reads it from LightGBM's training score, the same
 bits as predicting them), and on the track's other rows when the fit was given them
-(``other_values``, from the score LightGBM keeps for them as a validation set); then only the
-rows it does not know are predicted. The values are read once and let go of, so a stage holds
+(``other_values``, from the score LightGBM keeps for them as a validation set; ``track_values``
+holds both in one array, the track's output as it is); then only the rows it does not know are
+predicted. The values are read once and let go of, so a stage holds
 no second copy of its output.
 """
 
@@ -41,21 +42,27 @@ def track_prediction(learner: Any, matrix: np.ndarray, track: Track, features: t
     """Return ``learner``'s prediction on each of ``track``'s rows (the stage's columns of ``matrix``)."""
     from .fitting import feature_rows
 
-    known = getattr(learner, "fit_values", None)
-    if known is not None:
-        learner.fit_values = None
-    known_others = getattr(learner, "other_values", None)
-    if known_others is not None:
-        learner.other_values = None
+    known, known_others, whole = (_take(learner, name) for name in ("fit_values", "other_values", "track_values"))
+    leading = isinstance(track.fit, slice) and (track.fit.start or 0) == 0
+    if whole is not None and leading and np.shape(whole) == (track.n_rows,):
+        return whole   # the fitting rows, then the others: the track's rows in order
     rows = slice(0, track.n_rows)
     if known is None or np.ndim(known) != 1:
         return learner.predict(feature_rows(matrix, rows, features, n_all))
+    rest = other_rows(track)
     out = np.empty(track.n_rows, dtype=np.float64)
     out[track.fit] = known
-    rest = other_rows(track)
     count = rest.stop - rest.start if isinstance(rest, slice) else len(rest)
     if count and known_others is not None and np.shape(known_others) == (count,):
         out[rest] = known_others
     elif count:
         out[rest] = learner.predict(feature_rows(matrix, rest, features, n_all))
     return out
+
+
+def _take(learner: Any, name: str) -> Any:
+    """Return the learner's values called ``name`` (None when it has none), letting go of them."""
+    values = getattr(learner, name, None)
+    if values is not None:
+        setattr(learner, name, None)
+    return values

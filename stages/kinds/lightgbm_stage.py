@@ -93,6 +93,8 @@ class BoosterLearner:
     fit_values: np.ndarray | None = None
     #: the prediction on the request's other rows (``FitRequest.others``), known from the fit, or None
     other_values: np.ndarray | None = None
+    #: both of the above in one array (the fitting rows, then the other rows), or None
+    track_values: np.ndarray | None = None
 
     @property
     def predicts_row_by_row(self) -> bool:
@@ -217,7 +219,7 @@ def train_booster(request: FitRequest, params: dict[str, Any], kind: str, *, reu
             if grown is not None:
                 return BoosterLearner(grown.booster, importance_type=params.get("importance_type", "gain"),
                                       params=native, tree=grown.tree, fit_values=grown.on_fit_rows,
-                                      other_values=grown.on_other_rows)
+                                      other_values=grown.on_other_rows, track_values=grown.on_track_rows)
         if shared is None:
             train_set = dataset(fit_rows if request.in_bag is None else np.flatnonzero(request.in_bag))
         else:

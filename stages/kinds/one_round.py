@@ -70,11 +70,23 @@ class Grower:
         np.subtract(np.asarray(request.raw, dtype=np.float64), label, out=grad, casting="same_kind")
         return grad, ones
 
-    def tree_values(self, tree: OneTree | None) -> list[np.ndarray | None]:
-        """Return the last tree's value on every row of each of LightGBM's scores (the fitting rows,
-        then the other rows when kept), each None when it cannot be told apart exactly from the
-        change in the score (then the tree predicts those rows)."""
-        return [score.last_tree(tree) for score in self.scores]
+    def tree_values(self, tree: OneTree | None, with_others: bool) -> tuple[np.ndarray | None, np.ndarray | None,
+                                                                             np.ndarray | None]:
+        """Return the last tree's value on every fitting row, on every other row (when kept and
+        ``with_others``), and on both in one array (fitting rows first; when both are known), each
+        None when it cannot be told apart exactly from the change in LightGBM's score (then the
+        tree predicts those rows)."""
+        fit_score = self.scores[0]
+        other_score = self.scores[1] if len(self.scores) > 1 else None
+        n_fit = len(fit_score.values)
+        whole = np.empty(n_fit + (len(other_score.values) if other_score is not None and with_others else 0))
+        on_fit = fit_score.last_tree(tree, out=whole[:n_fit])
+        on_others = None
+        if other_score is not None:   # read every round, so the next round's change is its tree alone
+            on_others = other_score.last_tree(tree, out=whole[n_fit:] if with_others else None)
+        if not with_others:
+            on_others = None
+        return on_fit, on_others, whole if on_fit is not None and on_others is not None else None
 
 
 class RunningScore:
@@ -87,19 +99,20 @@ class RunningScore:
         self.spare = np.empty_like(self.values)
         self.largest = _largest(self.values)
 
-    def last_tree(self, tree: OneTree | None) -> np.ndarray | None:
-        """Return the value of the tree grown since the last read on each row (``leaf_values``), or None."""
+    def last_tree(self, tree: OneTree | None, out: np.ndarray | None = None) -> np.ndarray | None:
+        """Return the value of the tree grown since the last read on each row (``leaf_values``; in
+        ``out`` when given), or None."""
         before, after = self.values, read_score(self.booster, self.index, out=self.spare)
         self.values, self.spare = after, before
         largest_before, self.largest = self.largest, _largest(after)
         largest = max(largest_before, self.largest)
         if tree is None:
             return None
-        return leaf_values(before, after, tree.leaf_value, largest, scratch=before)
+        return leaf_values(before, after, tree.leaf_value, largest, scratch=before, out=out)
 
 
 def leaf_values(before: np.ndarray, after: np.ndarray, leaf_value: np.ndarray, largest: float | None = None,
-                scratch: np.ndarray | None = None) -> np.ndarray | None:
+                scratch: np.ndarray | None = None, out: np.ndarray | None = None) -> np.ndarray | None:
     """Return the leaf value of the tree LightGBM added to a score between ``before`` and ``after``
     on every row, or None when that cannot be told apart exactly.
 
@@ -107,11 +120,14 @@ def leaf_values(before: np.ndarray, after: np.ndarray, leaf_value: np.ndarray, l
     the score is that value up to rounding, and it names the leaf whenever distinct leaf values
     lie further apart than the rounding. The value returned is the leaf's own (``0.0 + leaf``, as
     LightGBM sums one tree). ``largest`` bounds ``|before|`` and ``|after|`` (found when None);
-    ``scratch`` (may be ``before``) takes the change, so no temporary of the rows' size is made.
+    ``scratch`` (may be ``before``) takes the change, so no temporary of the rows' size is made;
+    the values are written into ``out`` when given.
     """
+    values = np.empty(len(after)) if out is None else out
     leaves = np.unique(leaf_value)
     if len(leaves) == 1:
-        return np.full(len(after), 0.0 + leaves[0])
+        values[:] = 0.0 + leaves[0]
+        return values
     if largest is None:
         largest = max(_largest(before), _largest(after))
     # each subtraction and addition rounds by at most half an ulp of its result
@@ -125,7 +141,7 @@ def leaf_values(before: np.ndarray, after: np.ndarray, leaf_value: np.ndarray, l
     for middle in (leaves[:-1] + leaves[1:]) / 2:
         np.greater(change, middle, out=above)
         np.add(leaf, above, out=leaf)
-    values = np.take(0.0 + leaves, leaf)
+    np.take(0.0 + leaves, leaf, out=values, mode="clip")   # every code is a leaf; "clip" writes in place
     np.subtract(change, values, out=change)
     np.abs(change, out=change)
     if not change.max() <= tolerance:
@@ -221,21 +237,21 @@ def grow_round(shared: Any, request: FitRequest, native: dict[str, Any]) -> Roun
     text = as_regression(grower.booster.model_to_string(start_iteration=grower.rounds, num_iteration=1))
     grower.rounds += 1
     tree = read_tree(text)
-    values = grower.tree_values(tree)
     same_others = grower.others is not None and request.others is not None and grower.others.holds(request.others)
-    return Round(lightgbm.Booster(model_str=text), tree, values[0], values[1] if same_others else None)
+    return Round(lightgbm.Booster(model_str=text), tree, *grower.tree_values(tree, same_others))
 
 
 @dataclass(frozen=True, eq=False)
 class Round:
     """One round grown on a kept booster: the booster of its tree alone, the tree read for numpy
-    (``one_tree``; None when numpy cannot read it), and the tree's value on the fitting rows and on
-    the request's other rows (each None when unknown)."""
+    (``one_tree``; None when numpy cannot read it), and the tree's value on the fitting rows, on
+    the request's other rows, and on both in one array (fitting rows first), each None when unknown."""
 
     booster: Any
     tree: OneTree | None
     on_fit_rows: np.ndarray | None
     on_other_rows: np.ndarray | None
+    on_track_rows: np.ndarray | None
 
 
 class RowsOf:

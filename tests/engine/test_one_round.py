@@ -82,6 +82,23 @@ def test_validation_rows_read_from_lightgbms_validation_score_equal_predicting_t
     assert _texts(fresh) == _texts(kept)
 
 
+def test_validation_rows_not_told_apart_are_predicted(monkeypatch):
+    # when the change in LightGBM's validation score does not name the leaves, the tree predicts
+    # those rows (the numpy walk): the same bits either way
+    frame = _tree_frame(seed=1)
+    fresh = _chain(frame, False, monkeypatch, repeat=8)
+    real = one_round.RunningScore.last_tree
+    monkeypatch.setattr(one_round.RunningScore, "last_tree",
+                        lambda self, tree, out=None: real(self, tree, out) if self.index == 0 else None)
+    walked = []
+    predict = OneTree.predict
+    monkeypatch.setattr(OneTree, "predict", lambda self, X: walked.append(len(X)) or predict(self, X))
+    kept = _chain(frame, True, monkeypatch, repeat=8)
+    assert walked == [len(frame) - kept.layout.n_train] * 8
+    for a, b in zip(fresh.stages, kept.stages, strict=True):
+        assert np.array_equal(a.outputs[0], b.outputs[0])
+
+
 def test_a_holdout_chain_is_lightgbm_train_with_the_validation_rows_as_valid_set(monkeypatch):
     # lightgbm.train with valid_sets keeps the validation rows' score itself (init + each shrunk
     # tree, in order): the chain's output on those rows is that score, bit for bit
