@@ -21,6 +21,16 @@ checks outputs and model text against the one-round ``lightgbm.train``):
 
 A round that grows no split (all rows alike) goes back to the one-round fit, which makes the
 constant tree LightGBM makes first. The stage's learner is a booster of its own tree only.
+
+The tree's value on every row comes from LightGBM's own scores, not from predicting: its
+training score for the fitting rows, and for the track's other rows (validation and test, when
+they are one block of the matrix: ``FitRequest.others``) the score of a validation set the booster
+keeps, binned once with the fitting rows' bins, as ``lightgbm.train`` keeps one for ``valid_sets``.
+On binned rows a split ``bin <= threshold bin`` is ``value <= threshold`` on the value, since the
+threshold is its bin's upper bound (NaN and zero-like values take their own bins), so these are
+the bits the numpy walk and LightGBM's predict give (``tests/engine/test_one_round.py`` compares
+them, NaN and zeros included). The value is told from the change in the score (``leaf_values``);
+where leaves lie too close to tell apart, those rows are predicted.
 """
 
 from __future__ import annotations
