@@ -273,7 +273,7 @@ class SquaredLoss(Loss):
 
     def _value(self, y, raw, weight) -> float:
         """The mean squared error (the loss reported is MSE, not half of it)."""
-        error = y - raw
+        error = np.asarray(y - raw)
         return metrics.average(np.square(error, out=error), weight)
 
     def line_search(self, y, raw, output, weight=None) -> float:

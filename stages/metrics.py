@@ -31,15 +31,14 @@ def regression_scores(y: np.ndarray, prediction: np.ndarray, weight: np.ndarray 
     """Return RMSE, MAE and R² of ``prediction`` against ``y`` (R² is NaN for a constant ``y``)."""
     if len(y) == 0:
         return {"rmse": float("nan"), "mae": float("nan"), "r2": float("nan")}
-    error = y - prediction
+    error = np.asarray(y - prediction)
     if weight is None:
         # the same sums as mean(|error|), mean(error**2), sum(error**2) and sum((y - mean(y))**2),
-        # worked out in two arrays of the rows' size
-        work = np.abs(error)
-        mae = float(np.mean(work))
+        # each square taken in place
+        mae = float(np.mean(np.abs(error)))
         squared = np.square(error, out=error)
         mse = float(np.mean(squared))
-        centred = np.subtract(y, np.mean(y), out=work)
+        centred = y - np.mean(y)
         spread = float(np.sum(np.square(centred, out=centred)))
         r2 = 1.0 - float(np.sum(squared)) / spread if spread > 0 else float("nan")
         return {"rmse": float(np.sqrt(mse)), "mae": mae, "r2": r2}
