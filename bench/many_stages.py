@@ -10,8 +10,11 @@ learners' fit over 300 tree stages grown with patience, and 100 hist_tree stages
 (b) 300 ``tree`` stages (depth 3, shrinkage 0.1) grown with patience on TREE_ROWS x 20: the time
     spent inside scikit-learn's ``DecisionTreeRegressor.fit`` against the whole grow.
 (c) (a)'s chain alone against the same with a second process keeping one core busy, run in turn.
+(d) with ``--in-turn N``: N stages against N rounds of (a)'s ``lightgbm.train`` booster, one stage
+    and one round in turn in one process, so a burst of other work on the machine slows both.
 
     python bench/many_stages.py [--rows N] [--features N] [--repeats N] [--tree-rows N] [--skip-busy]
+                                [--skip-trees] [--in-turn N]
 """
 
 from __future__ import annotations
@@ -71,6 +74,33 @@ def hist_tree_ratio(frame, repeats: int) -> tuple[list[float], list[float], floa
     return ours, theirs, gap
 
 
+def stage_against_round(frame, n: int) -> tuple[float, float]:
+    """Return the seconds of ``n`` hist_tree stages and of ``n`` rounds of ``lightgbm.train``'s booster
+    (``update`` and ``eval_valid``, the holdout as its valid set), one stage and one round in turn in
+    this process, after a first stage and a first round each, so a burst of other work slows both."""
+    import lightgbm
+
+    chain = stages.Chain(frame, "y", stages.Holdout(fraction=0.2, seed=0), seed=0)
+    chain.add("hist_tree", 0.1, params={"max_depth": 3})
+    native = dict(chain.stages[0].learners[0].params)
+    native.update(learning_rate=0.1, seed=0)
+    n_train, start = chain.layout.n_train, float(chain.starts[0][0])
+    X, y = chain.matrix, chain.y
+    train = lightgbm.Dataset(X[:n_train], y[:n_train], init_score=np.full(n_train, start), params=native)
+    valid = train.create_valid(X[n_train:], y[n_train:], init_score=np.full(len(y) - n_train, start))
+    booster = lightgbm.train(native, train, num_boost_round=1, valid_sets=[valid], keep_training_booster=True)
+    ours = theirs = 0.0
+    for _ in range(n):
+        started = time.perf_counter()
+        chain.add("hist_tree", 0.1, params={"max_depth": 3})
+        ours += time.perf_counter() - started
+        started = time.perf_counter()
+        booster.update()
+        booster.eval_valid()
+        theirs += time.perf_counter() - started
+    return ours, theirs
+
+
 def tree_share(rows: int, n_stages: int = 300) -> tuple[float, float, int]:
     """Return (seconds of the grow, seconds inside DecisionTreeRegressor.fit, stages grown) for
     ``n_stages`` tree stages grown with patience on ``rows`` x 20."""
@@ -124,6 +154,8 @@ def main() -> None:
     parse.add_argument("--tree-rows", type=int, default=100_000, help="rows for the 300 tree stages")
     parse.add_argument("--skip-busy", action="store_true", help="leave out the figure beside a busy process")
     parse.add_argument("--skip-trees", action="store_true", help="leave out the 300 tree stages")
+    parse.add_argument("--in-turn", type=int, default=0, metavar="N",
+                       help="also N stages against N lightgbm.train rounds, one of each in turn in one process")
     args = parse.parse_args()
     frame = common.make_regression_frame(args.rows, args.features)
     ours, theirs, gap = hist_tree_ratio(frame, args.repeats)
@@ -135,6 +167,11 @@ def main() -> None:
          f"{statistics.median(ratios):.2f} (<= 1.5); runs {', '.join(f'{r:.2f}' for r in ratios)}"),
         ("  largest output difference against LightGBM", f"{gap:.1e}", "0", "(<= 1e-9)"),
     ]
+    if args.in_turn:
+        ours_each, theirs_each = stage_against_round(frame, args.in_turn)
+        rows.append((f"one hist_tree stage against one lightgbm.train round, in turn, {args.in_turn} of each, {size}",
+                     f"{ours_each / args.in_turn * 1000:.1f} ms", f"{theirs_each / args.in_turn * 1000:.1f} ms",
+                     f"{ours_each / theirs_each:.2f}"))
     if not args.skip_trees:
         total, inside, grown = tree_share(args.tree_rows)
         rows.append((f"{grown} tree stages (depth 3) grown with patience, {args.tree_rows:,} x 20",
