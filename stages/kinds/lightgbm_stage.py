@@ -80,10 +80,13 @@ class BoosterLearner:
     for a multiclass chain).
 
     ``held_out`` (indices into the fitting rows used for early stopping) and ``params`` (what
-    was passed to ``lightgbm.train``) describe the fit; neither is saved.
+    was passed to ``lightgbm.train``) describe the fit; neither is saved. A learner made from its
+    model text alone (``model_text``, the booster given as None) builds the booster from that
+    text when first asked for it: a round grown on a kept booster (``one_round``) needs it only
+    to be saved or asked about.
     """
 
-    booster: Any
+    _booster: Any
     importance_type: str = "gain"
     held_out: np.ndarray | None = None
     params: dict[str, Any] = field(default_factory=dict)
@@ -95,6 +98,17 @@ class BoosterLearner:
     other_values: np.ndarray | None = None
     #: both of the above in one array (the fitting rows, then the other rows), or None
     track_values: np.ndarray | None = None
+    #: LightGBM's model text the booster is built from when it was given as None, or None
+    model_text: str | None = None
+
+    @property
+    def booster(self) -> Any:
+        """Return the LightGBM booster, built from ``model_text`` on first use when not given."""
+        if self._booster is None:
+            import lightgbm
+
+            self._booster = lightgbm.Booster(model_str=self.model_text)
+        return self._booster
 
     @property
     def predicts_row_by_row(self) -> bool:
@@ -217,9 +231,10 @@ def train_booster(request: FitRequest, params: dict[str, Any], kind: str, *, reu
         if shared is not None and one_round.can_grow(request, native, rounds):
             grown = one_round.grow_round(shared, request, native)
             if grown is not None:
-                return BoosterLearner(grown.booster, importance_type=params.get("importance_type", "gain"),
+                return BoosterLearner(None, importance_type=params.get("importance_type", "gain"),
                                       params=native, tree=grown.tree, fit_values=grown.on_fit_rows,
-                                      other_values=grown.on_other_rows, track_values=grown.on_track_rows)
+                                      other_values=grown.on_other_rows, track_values=grown.on_track_rows,
+                                      model_text=grown.text)
         if shared is None:
             train_set = dataset(fit_rows if request.in_bag is None else np.flatnonzero(request.in_bag))
         else:

@@ -248,16 +248,17 @@ def grow_round(shared: Any, request: FitRequest, native: dict[str, Any]) -> Roun
     grower.rounds += 1
     tree = read_tree(text)
     same_others = grower.others is not None and request.others is not None and grower.others.holds(request.others)
-    return Round(lightgbm.Booster(model_str=text), tree, *grower.tree_values(tree, same_others))
+    return Round(text, tree, *grower.tree_values(tree, same_others))
 
 
 @dataclass(frozen=True, eq=False)
 class Round:
-    """One round grown on a kept booster: the booster of its tree alone, the tree read for numpy
+    """One round grown on a kept booster: the model text of its tree alone (what ``lightgbm.train``'s
+    one-round booster writes; a booster is built from it when first needed), the tree read for numpy
     (``one_tree``; None when numpy cannot read it), and the tree's value on the fitting rows, on
     the request's other rows, and on both in one array (fitting rows first), each None when unknown."""
 
-    booster: Any
+    text: str
     tree: OneTree | None
     on_fit_rows: np.ndarray | None
     on_other_rows: np.ndarray | None
