@@ -156,6 +156,8 @@ class Chain(ChainQuestions):
         self._removals: list[Removal] = []
         # the scores of stages fitted by the sequence in progress, by id, until they are committed
         self._fresh_scores: dict[int, Scores] = {}
+        # the target's spread on each part, for R², computed once (the target never changes)
+        self._spreads = scoring.TargetSpreads()
         self._rngs = seeded_streams(self.seed, len(self.layout.tracks))
         self._lock = threading.RLock()
         self.starts = tuple(
@@ -354,7 +356,7 @@ class Chain(ChainQuestions):
                           resolve_threads(self.threads))
 
     def _score(self, outputs: tuple[np.ndarray, ...]) -> Scores:
-        return scoring.score_state(self.loss, self.layout, self.y, outputs, self.threshold, self.weight)
+        return scoring.score_state(self.loss, self.layout, self.y, outputs, self.threshold, self.weight, self._spreads)
 
     def _fit_sequence(self, specs: list[StageSpec], previous: tuple[np.ndarray, ...], first_number: int,
                       cancel: threading.Event | None, progress: ProgressFn | None) -> list[Stage]:

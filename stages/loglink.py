@@ -163,10 +163,11 @@ class LogLinkLoss(Loss):
         response = y - self._link(_flat(raw))
         return _shaped(response, raw), _shaped(response, raw)
 
-    def scores(self, y, raw, threshold=0.5, weight=None) -> dict[str, float]:
-        """Return the mean deviance, and RMSE, MAE and R² of the mean against ``y``."""
+    def scores(self, y, raw, threshold=0.5, weight=None, spread=None) -> dict[str, float]:
+        """Return the mean deviance, and RMSE, MAE and R² of the mean against ``y`` (``spread`` as
+        ``Loss.scores`` takes it)."""
         mu = _exp(_flat(raw))
-        out = metrics.regression_scores(y, mu, weight)
+        out = metrics.regression_scores(y, mu, weight, spread)
         out["deviance"] = mean_deviance(y, mu, self.power, weight)
         out["loss"] = out["deviance"]
         return out

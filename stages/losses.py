@@ -161,9 +161,11 @@ class Loss:
         """Return the residual users look at: target minus prediction (y - p for binary), in ``raw``'s shape."""
         return _shaped(y - self._link(_flat(raw)), raw)
 
-    def scores(self, y: np.ndarray, raw: np.ndarray, threshold: float = 0.5, weight: Weights = None) -> dict[str, float]:
-        """Return every metric of this task for ``raw`` against ``y``, and the loss itself."""
-        out = metrics.regression_scores(y, _flat(raw), weight)
+    def scores(self, y: np.ndarray, raw: np.ndarray, threshold: float = 0.5, weight: Weights = None,
+               spread: float | None = None) -> dict[str, float]:
+        """Return every metric of this task for ``raw`` against ``y``, and the loss itself; a regression
+        loss takes ``spread``, ``metrics.target_spread(y, weight)``, when it is known."""
+        out = metrics.regression_scores(y, _flat(raw), weight, spread)
         out["loss"] = self.value(y, raw, weight)
         return out
 
@@ -275,6 +277,15 @@ class SquaredLoss(Loss):
         """The mean squared error (the loss reported is MSE, not half of it)."""
         error = np.asarray(y - raw)
         return metrics.average(np.square(error, out=error), weight)
+
+    def scores(self, y, raw, threshold=0.5, weight=None, spread=None) -> dict[str, float]:
+        """Return RMSE, MAE, R² and the loss; unweighted, the loss is the mean squared error the
+        metrics sum already (``value`` computes the same sum)."""
+        if weight is not None:
+            return super().scores(y, raw, threshold, weight, spread)
+        out, mse = metrics.regression_scores_and_mse(y, _flat(raw), None, spread)
+        out["loss"] = mse
+        return out
 
     def line_search(self, y, raw, output, weight=None) -> float:
         """Return the least-squares step along ``output``: max(0, <y - F, h>_w / <h, h>_w), 0 for a zero output."""

@@ -27,25 +27,41 @@ def average(values: np.ndarray, weight: np.ndarray | None = None) -> float:
     return float(np.average(values, weights=weight))
 
 
-def regression_scores(y: np.ndarray, prediction: np.ndarray, weight: np.ndarray | None = None) -> dict[str, float]:
-    """Return RMSE, MAE and R² of ``prediction`` against ``y`` (R² is NaN for a constant ``y``)."""
+def target_spread(y: np.ndarray, weight: np.ndarray | None = None) -> float:
+    """Return the target's spread about its mean, sum((y - mean(y))**2) (each row times its weight,
+    about the weighted mean, when ``weight`` is given): R²'s denominator."""
+    if weight is None:
+        centred = y - np.mean(y)   # squared in place
+        return float(np.sum(np.square(centred, out=centred)))
+    return float(np.sum(weight * (y - np.average(y, weights=weight)) ** 2))
+
+
+def regression_scores(y: np.ndarray, prediction: np.ndarray, weight: np.ndarray | None = None,
+                      spread: float | None = None) -> dict[str, float]:
+    """Return RMSE, MAE and R² of ``prediction`` against ``y`` (R² is NaN for a constant ``y``);
+    ``spread`` is ``target_spread(y, weight)`` when known."""
+    return regression_scores_and_mse(y, prediction, weight, spread)[0]
+
+
+def regression_scores_and_mse(y: np.ndarray, prediction: np.ndarray, weight: np.ndarray | None = None,
+                              spread: float | None = None) -> tuple[dict[str, float], float]:
+    """Return ``regression_scores`` and the mean squared error (weighted when ``weight`` is given)."""
     if len(y) == 0:
-        return {"rmse": float("nan"), "mae": float("nan"), "r2": float("nan")}
+        return {"rmse": float("nan"), "mae": float("nan"), "r2": float("nan")}, float("nan")
+    if spread is None:
+        spread = target_spread(y, weight)
     error = np.asarray(y - prediction)
     if weight is None:
-        # the same sums as mean(|error|), mean(error**2), sum(error**2) and sum((y - mean(y))**2),
-        # each square taken in place
+        # the same sums as mean(|error|), mean(error**2) and sum(error**2), the square taken in
+        # place; numpy's mean is the sum over the count, so the sum is taken once
         mae = float(np.mean(np.abs(error)))
-        squared = np.square(error, out=error)
-        mse = float(np.mean(squared))
-        centred = y - np.mean(y)
-        spread = float(np.sum(np.square(centred, out=centred)))
-        r2 = 1.0 - float(np.sum(squared)) / spread if spread > 0 else float("nan")
-        return {"rmse": float(np.sqrt(mse)), "mae": mae, "r2": r2}
+        total = np.sum(np.square(error, out=error))
+        mse = float(total / error.size)
+        r2 = 1.0 - float(total) / spread if spread > 0 else float("nan")
+        return {"rmse": float(np.sqrt(mse)), "mae": mae, "r2": r2}, mse
     mse = average(error**2, weight)
-    spread = float(np.sum(weight * (y - np.average(y, weights=weight)) ** 2))
     r2 = 1.0 - float(np.sum(weight * error**2)) / spread if spread > 0 else float("nan")
-    return {"rmse": float(np.sqrt(mse)), "mae": average(np.abs(error), weight), "r2": r2}
+    return {"rmse": float(np.sqrt(mse)), "mae": average(np.abs(error), weight), "r2": r2}, mse
 
 
 def roc_auc(y: np.ndarray, score: np.ndarray, weight: np.ndarray | None = None) -> float:

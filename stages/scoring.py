@@ -7,6 +7,7 @@ from typing import Any
 
 import numpy as np
 
+from . import metrics
 from .losses import Loss
 from .metrics import HIGHER_IS_BETTER
 from .tracks import Layout
@@ -50,15 +51,38 @@ def _part(weight: np.ndarray | None, rows: slice | np.ndarray | None) -> np.ndar
     return None if weight is None else weight[rows]
 
 
+class TargetSpreads:
+    """The spread of the target about its mean (``metrics.target_spread``, R²'s denominator) on each
+    part of one chain's rows, computed the first time a part is scored and kept: the target, the
+    rows and the weights of a chain never change, so every stage's scores share it (the same bits)."""
+
+    def __init__(self) -> None:
+        self._by_part: dict[str, float] = {}
+
+    def of(self, part: str, loss: Loss, y: np.ndarray, weight: np.ndarray | None) -> dict[str, float]:
+        """Return the keyword ``loss.scores`` takes the spread of ``part`` (its target ``y`` and
+        ``weight``) by, or nothing for a loss that reports no R²."""
+        if loss.task != "regression":
+            return {}
+        if part not in self._by_part:
+            self._by_part[part] = metrics.target_spread(y, weight)
+        return {"spread": self._by_part[part]}
+
+
 def score_state(loss: Loss, layout: Layout, y: np.ndarray, outputs: tuple[np.ndarray, ...], threshold: float = 0.5,
-                weight: np.ndarray | None = None) -> Scores:
+                weight: np.ndarray | None = None, spreads: TargetSpreads | None = None) -> Scores:
     """Return train, validation and per-fold scores for one set of track outputs (rows weighted by
-    ``weight``, in chain order, when given)."""
-    train = loss.scores(y[layout.train], outputs[0][layout.train], threshold, _part(weight, layout.train))
+    ``weight``, in chain order, when given); ``spreads`` keeps the target's spread on each part
+    for the chain's next scores (the chain's own ``TargetSpreads``; only for this chain's rows)."""
+    spreads = TargetSpreads() if spreads is None else spreads
+    train_y, train_weight = y[layout.train], _part(weight, layout.train)
+    train = loss.scores(train_y, outputs[0][layout.train], threshold, train_weight,
+                        **spreads.of("train", loss, train_y, train_weight))
     valid_y = validation_y(layout, y)
     if len(valid_y):
         valid_weight = None if weight is None else validation_y(layout, weight)
-        valid = loss.scores(valid_y, validation_raw(layout, outputs), threshold, valid_weight)
+        valid = loss.scores(valid_y, validation_raw(layout, outputs), threshold, valid_weight,
+                            **spreads.of("valid", loss, valid_y, valid_weight))
     else:  # every row fits (no validation part): nothing to score
         valid = {name: float("nan") for name in train}
     folds: tuple[float, ...] = ()
