@@ -466,8 +466,9 @@ class LogLoss(Loss):
         """Probabilities of the positive class."""
         return expit(raw)
 
-    def scores(self, y, raw, threshold=0.5, weight=None) -> dict[str, float]:
-        """Return log loss, ROC AUC, accuracy at 0.5 and at ``threshold``, and Brier score."""
+    def scores(self, y, raw, threshold=0.5, weight=None, spread=None) -> dict[str, float]:
+        """Return log loss, ROC AUC, accuracy at 0.5 and at ``threshold``, and Brier score (no R²:
+        ``spread`` is not used)."""
         out = metrics.binary_scores(y, expit(_flat(raw)), threshold=threshold, weight=weight)
         out["loss"] = self.value(y, raw, weight)
         return out

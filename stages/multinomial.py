@@ -145,8 +145,9 @@ class MultinomialLoss(Loss):
         """Return the (n, K) pseudo-residuals users look at: 1[y = k] - p_k."""
         return metrics.one_hot(y, self.n_classes) - self.link(raw)
 
-    def scores(self, y, raw, threshold=0.5, weight=None) -> dict[str, float]:
-        """Return log loss, accuracy, macro one-vs-rest ROC AUC and the Brier score (multiclass form)."""
+    def scores(self, y, raw, threshold=0.5, weight=None, spread=None) -> dict[str, float]:
+        """Return log loss, accuracy, macro one-vs-rest ROC AUC and the Brier score (multiclass form;
+        no R²: ``spread`` is not used)."""
         out = metrics.multiclass_scores(y, self.link(raw), weight)
         out["loss"] = out["logloss"]
         return out
