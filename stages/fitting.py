@@ -246,7 +246,7 @@ def _fit_track(ctx, t, kind, spec, params, features, previous, cancel, progress)
         output = block(track_prediction(learner, ctx.matrix, track, features, n_all), track.n_rows, loss.outputs)
     except ValueError as exc:
         raise StageFitError(str(exc)) from None
-    bad = int(np.count_nonzero(~np.isfinite(output)))
+    bad = count_not_finite(output)
     if bad:
         raise StageFitError(f"{bad:,} of {output.size:,} predictions are not finite (NaN or infinite)")
     fit_output = output[track.fit]
@@ -262,6 +262,19 @@ def _fit_track(ctx, t, kind, spec, params, features, previous, cancel, progress)
         progress(1.0, "done")
     moved = scale * output   # previous + scale * output, summed into the one new array
     return TrackFit(learner, scale, np.add(previous, moved, out=moved), choice.rule, oob, tuple(request.notes))
+
+
+def count_not_finite(values: np.ndarray) -> int:
+    """Return how many of ``values`` are NaN or infinite.
+
+    A sum is finite only when every value is (a NaN or an infinity carries into it), so one
+    pass over the values answers the usual case; only a sum that is not finite (a value that
+    is not, or finite values whose sum overflows) counts them one by one.
+    """
+    with np.errstate(over="ignore", invalid="ignore"):   # an overflowing sum only sends it to the count
+        if np.isfinite(np.sum(values)):
+            return 0
+    return int(np.count_nonzero(~np.isfinite(values)))
 
 
 def _scaled(progress: ProgressFn | None, low: float, high: float) -> ProgressFn | None:

@@ -1,5 +1,5 @@
-"""The target's spread kept per part for R²: the scores with it are the bits computed without it,
-and they agree with sklearn.metrics."""
+"""Shortcuts taken once a stage: the target's spread kept per part for R² (the scores with it are the
+bits computed without it, and they agree with sklearn.metrics), and the count of values that are not finite."""
 
 from __future__ import annotations
 
@@ -35,3 +35,12 @@ def test_a_chains_scores_equal_scores_computed_afresh(diabetes_frame):
         assert kept.train["loss"] == chain.loss.value(chain.y[chain.layout.train], stage.outputs[0][chain.layout.train])
     y, p = chain.part_targets("valid"), chain.fitted_values("valid")
     assert chain.scores()[-1].valid["r2"] == pytest.approx(r2_score(y, p), rel=1e-12)
+
+
+def test_count_not_finite_counts_as_isfinite_does():
+    from stages.fitting import count_not_finite
+
+    big = np.full((4, 1), np.finfo(np.float64).max)   # finite values whose sum overflows
+    for values in (np.zeros((3, 1)), np.array([[1.0], [np.nan], [np.inf]]), np.array([-np.inf, np.inf, 2.0]), big):
+        # the reference: numpy's own isfinite, value by value
+        assert count_not_finite(values) == int(np.count_nonzero(~np.isfinite(values)))
