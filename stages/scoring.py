@@ -88,10 +88,16 @@ def score_state(loss: Loss, layout: Layout, y: np.ndarray, outputs: tuple[np.nda
     folds: tuple[float, ...] = ()
     if layout.is_kfold:
         folds = tuple(
-            loss.scores(y[track.evaluate], output[track.evaluate], threshold, _part(weight, track.evaluate))[loss.primary]
-            for track, output in zip(layout.tracks[1:], outputs[1:], strict=True)
+            _fold_score(loss, spreads, f"fold {i}", y[track.evaluate], output[track.evaluate], threshold,
+                        _part(weight, track.evaluate))
+            for i, (track, output) in enumerate(zip(layout.tracks[1:], outputs[1:], strict=True), start=1)
         )
     return Scores(train, valid, folds)
+
+
+def _fold_score(loss: Loss, spreads: TargetSpreads, part: str, y: np.ndarray, raw: np.ndarray, threshold: float,
+                weight: np.ndarray | None) -> float:
+    return loss.scores(y, raw, threshold, weight, **spreads.of(part, loss, y, weight))[loss.primary]
 
 
 def test_scores(loss: Loss, layout: Layout, y: np.ndarray, output: np.ndarray, threshold: float = 0.5,

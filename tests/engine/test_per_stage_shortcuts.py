@@ -25,8 +25,9 @@ def test_scores_with_the_kept_spread_are_the_same_bits(weighted):
     assert mse == pytest.approx(mean_squared_error(y, prediction, sample_weight=weight), rel=1e-12)
 
 
-def test_a_chains_scores_equal_scores_computed_afresh(diabetes_frame):
-    chain = stages.Chain(diabetes_frame, "target", stages.Holdout(fraction=0.25, seed=0))
+@pytest.mark.parametrize("validation", [stages.Holdout(fraction=0.25, seed=0), stages.KFold(folds=3, seed=0)])
+def test_a_chains_scores_equal_scores_computed_afresh(diabetes_frame, validation):
+    chain = stages.Chain(diabetes_frame, "target", validation)
     chain.add("hist_tree", 0.1, params={"max_depth": 2, "min_child_samples": 5}, repeat=3)
     for stage, kept in zip(chain.stages, chain.scores()[1:], strict=True):
         fresh = scoring.score_state(chain.loss, chain.layout, chain.y, stage.outputs, chain.threshold, chain.weight)
