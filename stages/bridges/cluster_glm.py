@@ -18,7 +18,7 @@ from typing import Any
 import numpy as np
 
 from ..kinds.design import LinearDesign
-from ..kinds.glm import ARMIJO, MAX_HALVINGS, glm_settings, per_row
+from ..kinds.glm import glm_settings, newton_minimise, per_row
 from ..kinds.linear import LinearModel, checked_coefficients
 from ..losses import Loss
 from ..schema import ColumnInfo
@@ -68,23 +68,10 @@ def fit_glm_on_cluster(rows: ClusterRows, columns: tuple[ColumnInfo, ...], param
         hessian[np.diag_indices_from(hessian)] += penalty
         return float(total[0]) + 0.5 * float(penalty @ theta**2), gradient, hessian
 
-    theta = np.zeros(width + 1)
-    value, gradient, hessian = evaluate(theta)
-    for _ in range(max_iter):
-        step = np.linalg.lstsq(hessian, gradient, rcond=1e-12)[0]
-        promised = float(gradient @ step)
-        t, moved = 1.0, False
-        for _ in range(MAX_HALVINGS):
-            trial = theta - t * step
-            trial_value, trial_gradient, trial_hessian = evaluate(trial)
-            if np.isfinite(trial_value) and trial_value <= value - ARMIJO * t * promised:
-                moved = True
-                break
-            t /= 2
-        if not moved:
-            break
-        theta, value, gradient, hessian = trial, trial_value, trial_gradient, trial_hessian
-        if np.max(np.abs(t * step)) <= tol * max(1.0, float(np.max(np.abs(theta)))):
-            break
+    def evaluate_all(theta: np.ndarray) -> tuple[float, tuple[np.ndarray, np.ndarray]]:
+        value, gradient, hessian = evaluate(theta)  # one reduction gives all three
+        return value, (gradient, hessian)
+
+    theta = newton_minimise(evaluate_all, lambda _, found: found, np.zeros(width + 1), max_iter, tol)
     coef, intercept = checked_coefficients(theta[:width], float(theta[width]), "glm")
     return LinearModel(design, coef, intercept)

@@ -18,6 +18,7 @@ The fit is Newton's method with a backtracking line search (Armijo's rule), from
 
 from __future__ import annotations
 
+from collections.abc import Callable
 from typing import Any, ClassVar
 
 import numpy as np
@@ -60,33 +61,57 @@ def fit_glm(matrix: np.ndarray, y: np.ndarray, offset: np.ndarray, loss: Any, we
     w = np.full(n, 1.0 / n) if weight is None else weight / float(np.sum(weight))
     design = np.c_[matrix, np.ones(n)]
     penalty = np.r_[np.full(width, float(alpha)), 0.0]
-    theta = np.zeros(width + 1)
 
     def objective(theta: np.ndarray) -> tuple[float, np.ndarray, np.ndarray]:
         value, slope, curvature = per_row(loss, y, offset + design @ theta)
         return float(w @ value) + 0.5 * float(penalty @ theta**2), slope, curvature
 
-    value, slope, curvature = objective(theta)
-    for _ in range(max_iter):
+    def derivatives(theta: np.ndarray, state: tuple[np.ndarray, np.ndarray]) -> tuple[np.ndarray, np.ndarray]:
+        slope, curvature = state
         gradient = design.T @ (w * slope) + penalty * theta
         hessian = (design * (w * curvature)[:, None]).T @ design
         hessian[np.diag_indices_from(hessian)] += penalty
+        return gradient, hessian
+
+    def evaluate(theta: np.ndarray) -> tuple[float, tuple[np.ndarray, np.ndarray]]:
+        value, slope, curvature = objective(theta)
+        return value, (slope, curvature)
+
+    theta = newton_minimise(evaluate, derivatives, np.zeros(width + 1), max_iter, tol)
+    return theta[:width], float(theta[width])
+
+
+def newton_minimise(evaluate: Callable[[np.ndarray], tuple[float, Any]],
+                    derivatives: Callable[[np.ndarray, Any], tuple[np.ndarray, np.ndarray]],
+                    theta: np.ndarray, max_iter: int, tol: float) -> np.ndarray:
+    """Return the minimiser of an objective by damped Newton steps, from ``theta``.
+
+    ``evaluate(theta)`` returns the objective's value and a state, ``derivatives(theta, state)`` the
+    gradient and Hessian there (asked only at the points a step moves to, so a costly Hessian is
+    never computed for a rejected trial). A step is halved until the value falls by the Armijo
+    share of what the step promised; the search stops when a step moves no coefficient by more
+    than ``tol`` (relative to its size), or when no step lowers the value any more. The glm kind
+    runs it in memory, and a chain on a cluster over reductions, so both take the same steps.
+    """
+    value, state = evaluate(theta)
+    for _ in range(max_iter):
+        gradient, hessian = derivatives(theta, state)
         step = np.linalg.lstsq(hessian, gradient, rcond=1e-12)[0]
         promised = float(gradient @ step)
         t, moved = 1.0, False
         for _ in range(MAX_HALVINGS):
             trial = theta - t * step
-            trial_value, trial_slope, trial_curvature = objective(trial)
+            trial_value, trial_state = evaluate(trial)
             if np.isfinite(trial_value) and trial_value <= value - ARMIJO * t * promised:
                 moved = True
                 break
             t /= 2
         if not moved:
             break
-        theta, value, slope, curvature = trial, trial_value, trial_slope, trial_curvature
+        theta, value, state = trial, trial_value, trial_state
         if np.max(np.abs(t * step)) <= tol * max(1.0, float(np.max(np.abs(theta)))):
             break
-    return theta[:width], float(theta[width])
+    return theta
 
 
 def glm_settings(params: dict[str, Any]) -> tuple[float, int, float]:
