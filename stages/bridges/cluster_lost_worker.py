@@ -35,6 +35,12 @@ def _workers(client: Any) -> set[str]:
     return set(client.scheduler_info(n_workers=-1)["workers"])
 
 
+def _training_running(client: Any) -> set[str]:
+    """Return the workers of ``client`` still processing a LightGBM training task (``_train_part``)."""
+    return {str(worker) for worker, keys in client.processing().items()
+            if any("_train_part" in str(key) for key in keys)}
+
+
 def _cancel_training(client: Any) -> None:
     """Cancel the LightGBM training tasks this client holds (``lightgbm.dask``'s ``_train_part``)."""
     from distributed import Future
@@ -90,6 +96,11 @@ def training_guard(client: Any, what: str) -> Iterator[None]:
 def check_workers_free(client: Any) -> None:
     """Raise ClusterError when a worker of ``client`` may still run the training of a stage that lost a
     peer (``training_guard``); return nothing when none is left (restarted workers have new addresses)."""
+    busy = _training_running(client)
+    if busy:  # a worker's one thread still runs an earlier training: a new one would wait for it for ever
+        raise ClusterError(f"worker(s) {', '.join(sorted(busy))} still run the LightGBM training of an earlier "
+                           "stage, which only a restart stops: restart them (client.restart_workers) or fit on a "
+                           "fresh cluster; the chain is as it was")
     held = _HELD.get(client)
     if not held:
         return

@@ -71,7 +71,7 @@ def test_a_worker_lost_mid_stage_leaves_the_chain_whole(tmp_path):
         try:
             chain.add("lightgbm", params={"n_estimators": 5, "num_leaves": 7})
         except ClusterError as exc:
-            assert "error" in outcome and "restart them" in str(exc) and len(chain) == length
+            assert "restart them" in str(exc) and len(chain) == length
             held = list(client.scheduler_info()["workers"])
             client.restart_workers(held, timeout=120)
             client.wait_for_workers(len(held), timeout=120)
